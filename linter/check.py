@@ -1,0 +1,221 @@
+"""The check pipeline: files -> load -> compose -> resolve -> rules -> filter -> findings.
+
+Each stage is a function of the stage before it. Workers (``--jobs``) return findings and the
+few values the cross-file rules need, never documents.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from . import filtering, loader
+from .compose import Composer
+from .engine import Context, Registry, Rule, run_rule
+from .findings import Finding, Level
+from .model import Value
+from .resolve import ResolveOptions, resolve
+from .settings import Settings, SettingsError
+
+
+@dataclass
+class SetEntry:
+    """What one run contributes to the cross-file rules: the values they need, without nodes."""
+
+    path: str
+    index: int
+    values: dict[str, Value]
+
+
+@dataclass
+class FileResult:
+    path: str
+    findings: list[Finding] = field(default_factory=list)
+    runs: int = 0  # RL run configs found in the file
+    skipped: bool = False  # read, but not an RL run config
+    entries: list[SetEntry] = field(default_factory=list)
+    crashed: bool = False
+
+
+@dataclass
+class CheckOptions:
+    only: set[str] = field(default_factory=set)
+    skip: set[str] = field(default_factory=set)
+    overrides: list[tuple[str, str]] = field(default_factory=list)  # (key path, text) from --set
+
+
+class Checker:
+    def __init__(self, settings: Settings, registry: Registry, options: CheckOptions | None = None):
+        self.settings = settings
+        self.registry = registry
+        self.options = options or CheckOptions()
+        self.active: list[tuple[Rule, dict, Level]] = []
+        configured = settings.rules
+        for rid in configured:
+            if rid not in registry.rules:
+                raise SettingsError(f"{settings.source}: setting {settings.name('rules.' + rid)}: expected a rule id, "
+                                    f"found unknown rule {rid!r}; `trimtab rules` lists them")
+        for r in registry.ordered():
+            conf = dict(configured.get(r.id, {}))
+            if conf.pop("off", False) or not self._wanted(r.id):
+                continue
+            level = Level.parse(conf.pop("level", r.level))
+            unknown = sorted(set(conf) - set(r.options))
+            if unknown:
+                raise SettingsError(
+                    f"{settings.source}: setting {settings.name('rules.' + r.id + '.' + unknown[0])}: "
+                    f"expected an option of {r.id} ({', '.join(sorted(r.options)) or 'it has none'}), "
+                    f"found {unknown[0]!r}")
+            opts = {**r.options, **conf}
+            for k, v in conf.items():
+                default = r.options[k]
+                if type(default) is not type(v) and not (isinstance(default, float) and isinstance(v, int)
+                                                         and not isinstance(v, bool)):
+                    raise SettingsError(
+                        f"{settings.source}: setting {settings.name('rules.' + r.id + '.' + k)}: expected "
+                        f"{type(default).__name__} like {default!r}, found {v!r}")
+            self.active.append((r, opts, level))
+        self.active_ids = {r.id for r, _o, _l in self.active}
+        keys = dict(settings.keys)
+        if settings.keymap:
+            published = registry.key_maps.get(settings.keymap)
+            if published is None:
+                raise SettingsError(f"{settings.source}: setting {settings.name('keymap')}: expected the name of a "
+                                    f"published key map ({', '.join(sorted(registry.key_maps)) or 'none installed'}), "
+                                    f"found {settings.keymap!r}")
+            from .settings import parse_keys
+
+            keys = {**parse_keys(published), **keys}
+        self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version)
+        self.composer = Composer(settings, self.options.overrides)
+
+    def _wanted(self, rule_id: str) -> bool:
+        area = rule_id.split("-")[0]
+        only, skip = self.options.only, self.options.skip
+        if only and rule_id not in only and area not in only:
+            return False
+        return rule_id not in skip and area not in skip
+
+    def rules(self, scope: str):
+        return [(r, o, l) for r, o, l in self.active if r.scope == scope]
+
+    def check_file(self, path: str, shown: str) -> FileResult:
+        from .discover import matches
+
+        res = FileResult(shown)
+        doc = loader.load(path, shown, self.settings.limits)
+        for r, opts, level in self.rules("file"):
+            self._run(r, Context(r, None, doc, opts, level, settings=self.settings), shown, res)
+        if doc.readable:
+            force = matches(shown, self.settings.run_configs) if self.settings.run_configs else False
+            opts_r = self.resolve_opts
+            if force:
+                opts_r = ResolveOptions(opts_r.keys, opts_r.version, True)
+            set_rules = self.rules("set")
+            for index, root in enumerate(doc.roots):
+                composed = self.composer.compose(doc, root, path)
+                res.findings.extend(composed.findings)
+                model = resolve(doc, composed.root, opts_r, index)
+                model.settings = self.settings
+                model.files = composed.files
+                if not model.is_rl:
+                    continue
+                res.runs += 1
+                for r, opts, level in self.rules("run"):
+                    if r.rl_only and model.stage != "rl":
+                        continue
+                    if r.needs and not all(model.get(c) is not None for c in r.needs):
+                        continue
+                    self._run(r, Context(r, model, doc, opts, level, settings=self.settings), shown, res)
+                if set_rules:
+                    wanted = {c for r, _o, _l in set_rules for c in r.needs}
+                    values = {c: _light(model.get(c)) for c in wanted if model.get(c) is not None}
+                    res.entries.append(SetEntry(shown, index, values))
+            res.skipped = res.runs == 0
+        res.findings = filtering.apply_acceptances(res.findings, doc.text, shown, self.active_ids)
+        for extra_path, extra_text in self.composer.texts(doc):
+            res.findings = filtering.apply_acceptances(res.findings, extra_text, extra_path, self.active_ids,
+                                                       report_unused=False)
+        return res
+
+    def _run(self, r: Rule, ctx: Context, path: str, res: FileResult) -> None:
+        found, crashed = run_rule(r, ctx, path)
+        res.findings.extend(found)
+        res.crashed = res.crashed or crashed
+
+    def check_set(self, entries: list[SetEntry]) -> tuple[list[Finding], bool]:
+        out, crashed = [], False
+        for r, opts, level in self.rules("set"):
+            ctx = Context(r, None, None, opts, level, runs=entries, settings=self.settings)
+            found, c = run_rule(r, ctx, None)
+            out.extend(found)
+            crashed = crashed or c
+        return out, crashed
+
+
+def _light(v: Value | None) -> Value | None:
+    if v is None:
+        return None
+    value = v.value if isinstance(v.value, (str, int, float, bool, type(None))) else str(v.value)
+    return Value(v.concept, value, v.location, None, v.via, v.key, list(v.chain), v.inputs, v.note)
+
+
+# --- running over many files ------------------------------------------------------------------
+_WORKER: Checker | None = None
+
+
+def _work(item: tuple[str, str]) -> FileResult:
+    return _WORKER.check_file(*item)
+
+
+@dataclass
+class RunResult:
+    findings: list[Finding]
+    files: int
+    runs: int
+    skipped: int
+    crashed: bool
+    checked: set[str]
+
+
+def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=None) -> RunResult:
+    global _WORKER
+    results: list[FileResult] = []
+    if jobs > 1 and len(files) > 1:
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor
+
+        _WORKER = checker
+        ctx = multiprocessing.get_context("fork")
+        chunk = max(1, min(64, len(files) // (jobs * 8) or 1))
+        with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
+            for res in pool.map(_work, files, chunksize=chunk):
+                results.append(res)
+                if progress:
+                    progress(res)
+        _WORKER = None
+    else:
+        for path, shown in files:
+            res = checker.check_file(path, shown)
+            results.append(res)
+            if progress:
+                progress(res)
+    findings: list[Finding] = []
+    entries: list[SetEntry] = []
+    crashed = False
+    for res in results:
+        findings.extend(res.findings)
+        entries.extend(res.entries)
+        crashed = crashed or res.crashed
+    set_findings, set_crashed = checker.check_set(entries)
+    findings.extend(set_findings)
+    findings.sort(key=Finding.sort_key)
+    return RunResult(findings, len(results), sum(r.runs for r in results),
+                     sum(1 for r in results if r.skipped), crashed or set_crashed,
+                     {r.path for r in results})
+
+
+def summary_counts(findings: list[Finding]) -> dict[str, int]:
+    counts = {str(l): 0 for l in (Level.ERROR, Level.WARNING, Level.NOTE)}
+    for f in findings:
+        counts[str(f.level)] += 1
+    return counts

@@ -1,0 +1,228 @@
+"""Command line: ``trimtab check | explain | rules``.
+
+Exit status: 0 nothing at or above the gate level; 1 findings at or above it; 2 the check could
+not run as asked (bad arguments or settings, a rule crashed, a plugin failed to load).
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from pathlib import Path
+
+EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # argparse exits 2 on bad arguments: keep that, say it plainly
+        self.print_usage(sys.stderr)
+        self.exit(EXIT_INCOMPLETE, f"trimtab: error: {message}\n")
+
+
+def _ids(text: str) -> set[str]:
+    return {t.strip().upper() for t in text.split(",") if t.strip()}
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="trimtab", description="Static checker for RL fine-tuning run configurations.")
+    from . import __version__
+
+    p.add_argument("--version", action="version", version=f"trimtab {__version__}")
+    p.add_argument("--settings", metavar="FILE", help="settings file (default: trimtab.toml or pyproject.toml "
+                                                      "found by walking up from the working directory)")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    c = sub.add_parser("check", help="check run configs and report findings")
+    c.add_argument("paths", nargs="*", metavar="PATH", help="files or folders (default: the include globs)")
+    c.add_argument("--format", choices=("text", "json", "sarif"), default="text")
+    c.add_argument("--output", metavar="FILE", help="write the report here instead of standard output")
+    c.add_argument("--gate", choices=("error", "warning", "note"),
+                   help="lowest level that makes the exit status 1 (default: settings, else warning)")
+    c.add_argument("--only", type=_ids, default=set(), metavar="IDS", help="only these rule ids or areas")
+    c.add_argument("--skip", type=_ids, default=set(), metavar="IDS", help="not these rule ids or areas")
+    c.add_argument("--since", metavar="GIT_REF", help="only files changed since this git ref")
+    c.add_argument("--jobs", type=int, metavar="N", help="worker processes (default: settings, else 1)")
+    c.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                   help="override a value of the run, typed as YAML 1.2 would type it (repeatable)")
+    c.add_argument("--accepted", metavar="FILE", help="accepted-findings file: its findings do not count")
+    c.add_argument("--write-accepted", metavar="FILE", help="record today's findings as accepted, then exit 0")
+    c.add_argument("--no-progress", action="store_true", help="no progress bar on a terminal")
+
+    e = sub.add_parser("explain", help="show what trimtab read from a run config")
+    e.add_argument("config", metavar="CONFIG")
+    e.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides")
+
+    r = sub.add_parser("rules", help="list the rules, or show one rule's rationale")
+    r.add_argument("rule_id", nargs="?", metavar="ID")
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not args.command:
+        parser.print_help()
+        return EXIT_INCOMPLETE
+    from .settings import SettingsError
+
+    try:
+        if args.command == "check":
+            return cmd_check(args)
+        if args.command == "explain":
+            return cmd_explain(args)
+        if args.command == "rules":
+            return cmd_rules(args)
+    except SettingsError as exc:
+        print(f"trimtab: error: {exc}", file=sys.stderr)
+        return EXIT_INCOMPLETE
+    except BrokenPipeError:
+        return EXIT_OK
+    except KeyboardInterrupt:
+        print("trimtab: interrupted", file=sys.stderr)
+        return EXIT_INCOMPLETE
+    parser.error(f"unknown command {args.command}")
+    return EXIT_INCOMPLETE
+
+
+def _settings(args):
+    from . import settings
+
+    return settings.load(Path(args.settings) if args.settings else None)
+
+
+def _registry():
+    from .engine import Registry
+
+    reg = Registry()
+    for err in reg.errors:
+        print(f"trimtab: error: {err}", file=sys.stderr)
+    return reg
+
+
+def _overrides(items: list[str]) -> list[tuple[str, str]]:
+    from .settings import SettingsError
+
+    out = []
+    for item in items:
+        key, sep, value = item.partition("=")
+        if not sep or not key.strip():
+            raise SettingsError(f"--set {item!r}: expected KEY=VALUE, e.g. --set rollout.group_size=8")
+        out.append((key.strip(), value))
+    return out
+
+
+def cmd_check(args) -> int:
+    from . import filtering
+    from .check import CheckOptions, Checker, run, summary_counts
+    from .discover import changed_since, discover, matches
+    from .findings import Finding, Level, Location
+    from .settings import SettingsError
+
+    settings = _settings(args)
+    registry = _registry()
+    options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
+    checker = Checker(settings, registry, options)
+    files, missing = discover(args.paths, settings.root, settings.include, settings.exclude)
+    if args.since:
+        try:
+            changed = set(changed_since(args.since, settings.root))
+        except ValueError as exc:
+            raise SettingsError(str(exc)) from None
+        files = [(p, s) for p, s in files if s in changed]
+    jobs = args.jobs or settings.jobs
+    if jobs < 1:
+        raise SettingsError(f"--jobs {jobs}: expected a number of at least 1")
+    progress = None
+    if not args.no_progress and sys.stderr.isatty() and len(files) > 20 and not os.environ.get("PRE_COMMIT"):
+        from .progress import Progress
+
+        progress = Progress(len(files), sys.stderr)
+    result = run(checker, files, jobs, progress)
+    if progress:
+        progress.close()
+    findings = result.findings
+    for m in missing:
+        findings.insert(0, Finding("YML-6", Level.ERROR, "cannot be read: no such file or folder",
+                                   Location(m), subject=m).finish())
+    accepted_path = args.accepted or settings.accepted
+    if args.write_accepted:
+        count = filtering.write_accepted(Path(args.write_accepted), findings)
+        print(f"trimtab: recorded {count} accepted finding(s) in {args.write_accepted}", file=sys.stderr)
+        return EXIT_OK
+    if accepted_path:
+        path = Path(accepted_path)
+        if not path.is_absolute() and not args.accepted:
+            path = settings.root / path
+        try:
+            rows = filtering.read_accepted(path)
+        except filtering.AcceptedFileError as exc:
+            raise SettingsError(str(exc)) from None
+        findings = filtering.apply_accepted(findings, rows, str(accepted_path), result.checked)
+    gate = Level.parse(args.gate or settings.gate)
+    incomplete = result.crashed or bool(registry.errors)
+    failing = any(f.level >= gate for f in findings)
+    code = EXIT_INCOMPLETE if incomplete else (EXIT_FINDINGS if failing else EXIT_OK)
+    counts = summary_counts(findings)
+    summary = {"files": result.files, "runs": result.runs, "skipped": result.skipped, "by_level": counts}
+    out = open(args.output, "w", encoding="utf-8") if args.output else sys.stdout
+    try:
+        if args.format == "json":
+            from .reports import json_report
+
+            json_report(findings, summary, code, out)
+        elif args.format == "sarif":
+            from . import sarif
+
+            sarif.write(findings, _catalogue(registry), settings.root, out, not incomplete)
+        else:
+            from .reports import text
+
+            text(findings, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
+    finally:
+        if out is not sys.stdout:
+            out.close()
+    skipped = f", {result.skipped} skipped as not run configs" if result.skipped else ""
+    print(f"trimtab: {result.files} file(s) checked{skipped}; {counts['error']} error(s), "
+          f"{counts['warning']} warning(s), {counts['note']} note(s)", file=sys.stderr)
+    return code
+
+
+def _catalogue(registry):
+    from .engine import TOOL_RULES
+
+    return registry.ordered() + list(TOOL_RULES.values())
+
+
+def cmd_rules(args) -> int:
+    from .engine import TOOL_RULES
+
+    registry = _registry()
+    rules = {**{r.id: r for r in registry.ordered()}, **TOOL_RULES}
+    if args.rule_id:
+        rid = args.rule_id.upper()
+        r = rules.get(rid)
+        if r is None:
+            print(f"trimtab: error: no rule {rid}; `trimtab rules` lists them", file=sys.stderr)
+            return EXIT_INCOMPLETE
+        print(f"{r.id}  {r.name}  (default level: {r.level}{', CWE-%d' % r.cwe if r.cwe else ''})")
+        print(f"\n{r.summary}\n\n{r.rationale}")
+        if r.needs:
+            print(f"\nNeeds: {', '.join(r.needs)}")
+        if r.options:
+            print("\nOptions (set under [tool.trimtab.rules.\"%s\"]):" % r.id)
+            for k, v in r.options.items():
+                print(f"  {k} = {v!r}")
+        if r.help:
+            print(f"\nHelp: {r.help}")
+        return EXIT_OK
+    for r in rules.values():
+        print(f"{r.id:<8} {str(r.level):<8} {r.name:<34} {r.summary}")
+    return EXIT_OK
+
+
+def cmd_explain(args) -> int:
+    from .explain import explain
+
+    settings = _settings(args)
+    registry = _registry()
+    return explain(args.config, settings, registry, _overrides(args.overrides), sys.stdout)

@@ -1,0 +1,173 @@
+"""Rules and plugins: the public API a rule is written against, and the loop that runs them.
+
+Plugins are pluggy plugins in the ``trimtab`` namespace, found through the ``trimtab`` entry-point
+group; the built-in rules register the same way.
+"""
+from __future__ import annotations
+
+import traceback
+from dataclasses import dataclass, field
+from typing import Any, Callable, Iterable, Iterator
+
+import pluggy
+
+from .document import Document
+from .findings import Finding, Level, Location
+from .model import RunModel
+
+hookspec = pluggy.HookspecMarker("trimtab")
+hookimpl = pluggy.HookimplMarker("trimtab")
+
+
+class Specs:
+    @hookspec
+    def trimtab_rules(self) -> list:
+        """Return the Rule objects this plugin provides."""
+
+    @hookspec
+    def trimtab_key_maps(self) -> dict:
+        """Return named key maps: {name: {concept: key path or table}}."""
+
+
+@dataclass(frozen=True)
+class Rule:
+    id: str  # area code + number, stable: "BAT-3"
+    name: str  # readable, kebab-case
+    level: Level
+    summary: str
+    rationale: str
+    check: Callable[["Context"], Iterable[Finding] | None]
+    needs: tuple[str, ...] = ()  # concepts the rule cannot work without
+    options: dict = field(default_factory=dict)
+    cwe: int | None = None
+    help: str = ""
+    rl_only: bool = True  # skipped for supervised/distillation stages and non-RL files
+    scope: str = "run"  # run (one RunModel), file (every Document, RL or not), set (all runs at once)
+
+    @property
+    def area(self) -> str:
+        return self.id.split("-", 1)[0]
+
+
+def rule(id: str, name: str, level: str, summary: str, rationale: str, *, needs: tuple = (),
+         options: dict | None = None, cwe: int | None = None, help: str = "", rl_only: bool = True,
+         scope: str = "run"):
+    """Decorator: turn a check function into a Rule."""
+
+    def wrap(fn):
+        return Rule(id, name, Level.parse(level), summary, rationale, fn, tuple(needs), dict(options or {}),
+                    cwe, help, rl_only, scope)
+
+    return wrap
+
+
+class Context:
+    """What a rule sees: the run (or, for set rules, all runs), its document, its options."""
+
+    def __init__(self, rule: Rule, model: RunModel | None, doc: Document | None, options: dict,
+                 level: Level, runs: list[RunModel] | None = None, settings: Any = None):
+        self.rule = rule
+        self.model = model
+        self.doc = doc
+        self.options = options
+        self.level = level
+        self.runs = runs or []
+        self.settings = settings
+
+    def finding(self, message: str, location: Location, *, related: Iterable[Location] = (),
+                level: str | Level | None = None, key_path: str = "", suggestion: str = "",
+                subject: Any = None, fix=None, help: str = "") -> Finding:
+        lvl = Level.parse(level) if level is not None else self.level
+        if level is not None and self.level != self.rule.level:
+            # the user changed this rule's level in settings: that applies to all its findings
+            lvl = self.level
+        return Finding(self.rule.id, lvl, message, location, list(related), key_path or location.key_path,
+                       suggestion, help or self.rule.help, fix, subject, cwe=self.rule.cwe)
+
+
+class Registry:
+    """The rules and key maps of every plugin, loaded once."""
+
+    def __init__(self, plugins: Iterable[object] = (), entry_points: bool = True):
+        self.pm = pluggy.PluginManager("trimtab")
+        self.pm.add_hookspecs(Specs)
+        self.errors: list[str] = []
+        if entry_points:
+            self._load_entry_points()
+        for p in plugins:
+            self.pm.register(p)
+        self.rules: dict[str, Rule] = {}
+        for batch in self.pm.hook.trimtab_rules():
+            for r in batch or ():
+                if r.id in self.rules:
+                    self.errors.append(f"rule id {r.id} is provided twice")
+                    continue
+                self.rules[r.id] = r
+        self.key_maps: dict[str, dict] = {}
+        for maps in self.pm.hook.trimtab_key_maps():
+            self.key_maps.update(maps or {})
+
+    def _load_entry_points(self) -> None:
+        from importlib.metadata import entry_points
+
+        for ep in entry_points(group="trimtab"):
+            if self.pm.get_plugin(ep.name) is not None:
+                continue
+            try:
+                self.pm.register(ep.load(), name=ep.name)
+            except Exception as exc:  # a broken plugin must not stop the check
+                self.errors.append(f"plugin {ep.name!r} ({ep.value}) failed to load: {exc}")
+
+    def ordered(self) -> list[Rule]:
+        return [self.rules[k] for k in sorted(self.rules, key=_id_key)]
+
+
+def _id_key(rule_id: str):
+    area, _, num = rule_id.partition("-")
+    return (area, int(num) if num.isdigit() else 0, num)
+
+
+def crash_finding(rule: Rule, path: str | None, exc: BaseException) -> Finding:
+    tb = traceback.extract_tb(exc.__traceback__)
+    where = f" at {tb[-1].filename.rsplit('/', 1)[-1]}:{tb[-1].lineno}" if tb else ""
+    return Finding("TOOL-1", Level.ERROR,
+                   f"rule {rule.id} ({rule.name}) crashed on this file: {type(exc).__name__}: {exc}{where}; "
+                   "the check is incomplete",
+                   Location(path), subject=rule.id, help="Report this to the rule's authors.").finish()
+
+
+def run_rule(rule: Rule, ctx: Context, path: str | None) -> tuple[list[Finding], bool]:
+    """(findings, crashed)."""
+    try:
+        out = rule.check(ctx)
+        found = [f.finish() for f in (out or ())]
+        return found, False
+    except Exception as exc:
+        return [crash_finding(rule, path, exc)], True
+
+
+def iter_rules(rules: Iterable[Rule], scope: str) -> Iterator[Rule]:
+    return (r for r in rules if r.scope == scope)
+
+
+def _engine_rule(id, name, level, summary, rationale) -> Rule:
+    return Rule(id, name, Level.parse(level), summary, rationale, lambda ctx: (), rl_only=False, scope="engine")
+
+
+# Findings the engine and the filter raise themselves (they are not plugin rules, but they are
+# documented in the catalogue and in SARIF like any rule).
+TOOL_RULES = {r.id: r for r in (
+    _engine_rule("TOOL-1", "rule-crashed", "error", "A rule raised an exception on this file.",
+                 "The check of this file is incomplete: one rule could not finish. The exit status is 2."),
+    _engine_rule("ACC-1", "acceptance-without-reason", "warning", "An acceptance comment gives no reason.",
+                 "Accepting a finding is a decision a reviewer should be able to read: write "
+                 "`# trimtab: accept ID -- reason`. Without a reason the acceptance accepts nothing."),
+    _engine_rule("ACC-2", "acceptance-unused", "warning", "An acceptance comment matches no finding.",
+                 "The finding it accepted is gone (fixed, or moved away from this line); remove the "
+                 "comment so that it does not hide a future finding."),
+    _engine_rule("ACC-3", "accepted-entry-stale", "note", "An accepted-findings entry no longer occurs.",
+                 "The accepted-findings file should shrink as configs are fixed: remove the entry, or "
+                 "regenerate the file with --write-accepted."),
+    _engine_rule("ACC-4", "acceptance-malformed", "warning", "An acceptance comment names no rule id.",
+                 "Write `# trimtab: accept ID[,ID...] -- reason` on the finding's line or the line above."),
+)}

@@ -1,0 +1,87 @@
+"""``trimtab explain CONFIG``: every concept found, its value and origin, the derived arithmetic
+with its inputs, and the concepts that were not found."""
+from __future__ import annotations
+
+from typing import TextIO
+
+from . import loader
+from .check import CheckOptions, Checker
+from .model import RunModel
+from .resolve import resolve
+from .vocabulary import CONCEPTS
+
+
+def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel], list[str]]:
+    """The RunModels of one file (one per YAML document) and its read problems."""
+    from .discover import relpath
+    from pathlib import Path
+
+    checker = Checker(settings, registry, CheckOptions(overrides=list(overrides)))
+    shown = relpath(Path(path), settings.root.resolve())
+    doc = loader.load(path, shown, settings.limits)
+    problems = [f"{shown}:{p.line}:{p.col}: {p.message}" for p in doc.problems]
+    out = []
+    if doc.readable:
+        for i, root in enumerate(doc.roots):
+            composed = checker.composer.compose(doc, root, path)
+            m = resolve(doc, composed.root, checker.resolve_opts, i)
+            m.settings = settings
+            m.files = composed.files
+            out.append(m)
+    return out, problems
+
+
+def _show(value) -> str:
+    from .document import Node
+
+    if isinstance(value, Node):
+        return f"<{value.kind}>"
+    if isinstance(value, float):
+        return repr(value)
+    return str(value)
+
+
+def _wrap(text: str, width: int = 96) -> str:
+    import textwrap
+
+    return "\n".join(textwrap.wrap(text, width, initial_indent="  ", subsequent_indent="  "))
+
+
+def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
+    runs, problems = models(path, settings, registry, overrides)
+    for p in problems:
+        out.write(p + "\n")
+    if not runs:
+        return 1 if problems else 0
+    for m in runs:
+        if len(runs) > 1:
+            out.write(f"--- document {m.index + 1}\n")
+        kind = "an RL run config" if m.is_rl else "not an RL run config (RL rules skip it)"
+        out.write(f"{m.path}: {kind}; stage {m.stage}; values read as YAML {m.version}\n\n")
+        out.write("Concepts found:\n")
+        width = max([len(c) for c in m.values] + [10])
+        for name in sorted(m.values):
+            v = m.values[name]
+            origin = f"{v.location.label()}  {v.key}  [{v.via}]"
+            if v.note:
+                origin += f"  ({v.note})"
+            out.write(f"  {name:<{width}}  {_show(v.value):<16}  {origin}\n")
+            for hop in v.chain:
+                out.write(f"  {'':<{width}}  {'':<16}  <- {hop.label()} {hop.message}\n")
+        for c in m.components:
+            fields = ", ".join(f"{k}={_show(v.value)}" for k, v in c.fields.items())
+            out.write(f"  reward component {c.index + 1}: {fields}  {c.location.label()}\n")
+        if m.derived:
+            out.write("\nDerived:\n")
+            for name in sorted(m.derived):
+                v = m.derived[name]
+                stated = m.values.get(name)
+                extra = f"  (stated: {_show(stated.value)})" if stated is not None else ""
+                out.write(f"  {name:<{width}}  {_show(v.value):<16}  = {v.note}  from {', '.join(v.inputs)}{extra}\n")
+        if m.ambiguous:
+            out.write("\nAmbiguous (set them in [tool.trimtab.keys]):\n")
+            for name, locs in sorted(m.ambiguous.items()):
+                out.write(f"  {name}: " + "; ".join(f"{l.key_path} at {l.label()}" for l in locs) + "\n")
+        missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous]
+        out.write("\nNot found:\n" + _wrap(", ".join(missing)) + "\n")
+    return 0

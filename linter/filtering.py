@@ -1,0 +1,173 @@
+"""Filter: acceptance comments in the file, the accepted-findings file, --only / --skip.
+
+An acceptance is a comment on the finding's line or on the line above it::
+
+    kl_coef: 0.0  # trimtab: accept KL-1 -- the recipe trains without KL on purpose
+
+A reason after ``--`` is required. An acceptance without a reason does not suppress anything
+and is reported; one that suppresses nothing is reported too.
+"""
+from __future__ import annotations
+
+import json
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+from .findings import Finding, Level, Location
+
+_ACCEPT = re.compile(r"(?:^|\s)#\s*trimtab:\s*accept\b(?P<body>.*)$")
+_IDS = re.compile(r"\s*(?P<ids>[A-Za-z]+-\d+(?:\s*,\s*[A-Za-z]+-\d+)*)\s*(?:--\s*(?P<reason>.*?))?\s*$")
+
+ACC_NO_REASON = "ACC-1"
+ACC_UNUSED = "ACC-2"
+ACC_STALE = "ACC-3"
+ACC_MALFORMED = "ACC-4"
+
+
+@dataclass
+class Acceptance:
+    line: int
+    col: int
+    ids: tuple[str, ...]
+    reason: str
+    used: bool = False
+
+
+def acceptances(text: str) -> list[Acceptance]:
+    out = []
+    if "trimtab:" not in text:
+        return out
+    for n, line in enumerate(text.splitlines(), 1):
+        if "trimtab:" not in line:
+            continue
+        m = _ACCEPT.search(line)
+        if not m:
+            continue
+        col = line.index("#", m.start()) + 1
+        body = _IDS.match(m["body"])
+        if not body:
+            out.append(Acceptance(n, col, (), ""))
+            continue
+        ids = tuple(i.strip().upper() for i in body["ids"].split(","))
+        out.append(Acceptance(n, col, ids, (body["reason"] or "").strip()))
+    return out
+
+
+def apply_acceptances(findings: list[Finding], text: str, path: str, active: set[str] | None = None,
+                      report_unused: bool = True) -> list[Finding]:
+    """Drop findings accepted in place; add findings about bad or unused acceptances.
+
+    ``active``: the rules that ran; an acceptance of a rule that did not run (``--only``,
+    ``--skip``, switched off) is not reported as unused."""
+    accs = acceptances(text)
+    if not accs:
+        return findings
+    by_line: dict[int, list[Acceptance]] = {}
+    for a in accs:
+        by_line.setdefault(a.line, []).append(a)
+    lines = text.splitlines()
+    kept = []
+    for f in findings:
+        if f.location.path != path:
+            kept.append(f)
+            continue
+        line = f.location.line
+        candidates = list(by_line.get(line, ()))
+        above = by_line.get(line - 1, ())
+        if above and line - 2 < len(lines) and lines[line - 2].lstrip().startswith("#"):
+            candidates += above
+        accepted = False
+        for a in candidates:
+            if f.rule_id in a.ids and a.reason:
+                a.used = accepted = True
+        if not accepted:
+            kept.append(f)
+    if not report_unused:
+        return kept
+    for a in accs:
+        loc = Location(path, a.line, a.col)
+        if not a.ids:
+            kept.append(Finding(ACC_MALFORMED, Level.WARNING,
+                                "acceptance comment names no rule id: write `# trimtab: accept ID -- reason`",
+                                loc, subject=a.line).finish())
+        elif not a.reason:
+            kept.append(Finding(ACC_NO_REASON, Level.WARNING,
+                                f"acceptance of {', '.join(a.ids)} gives no reason; it accepts nothing until "
+                                "a reason follows ' -- '", loc, subject=",".join(a.ids)).finish())
+        elif not a.used and (active is None or any(i in active for i in a.ids)):
+            kept.append(Finding(ACC_UNUSED, Level.WARNING,
+                                f"acceptance of {', '.join(a.ids)} matches no finding on this line or the next; "
+                                "remove it", loc, subject=",".join(a.ids)).finish())
+    return kept
+
+
+def select(findings: list[Finding], only: set[str], skip: set[str]) -> list[Finding]:
+    def hit(rule_id: str, wanted: set[str]) -> bool:
+        return rule_id in wanted or rule_id.split("-")[0] in wanted
+
+    return [f for f in findings
+            if (not only or hit(f.rule_id, only)) and not hit(f.rule_id, skip)]
+
+
+# --- accepted-findings file -------------------------------------------------------------
+ACCEPTED_VERSION = 1
+
+
+def write_accepted(path: Path, findings: list[Finding]) -> int:
+    entries = {}
+    for f in findings:
+        entries[f.fingerprint] = {
+            "fingerprint": f.fingerprint,
+            "rule": f.rule_id,
+            "file": f.location.path or "<command line>",
+            "what": _short(f.message),
+        }
+    rows = sorted(entries.values(), key=lambda e: (e["file"], e["rule"], e["fingerprint"]))
+    doc = {"trimtab_accepted": ACCEPTED_VERSION, "findings": rows}
+    path.write_text(json.dumps(doc, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
+    return len(rows)
+
+
+def _short(message: str, limit: int = 100) -> str:
+    return message if len(message) <= limit else message[: limit - 1] + "…"
+
+
+class AcceptedFileError(Exception):
+    pass
+
+
+def read_accepted(path: Path) -> list[dict]:
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise AcceptedFileError(f"{path}: cannot be read: {exc.strerror}") from None
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise AcceptedFileError(f"{path}: is not an accepted-findings file (invalid JSON: {exc})") from None
+    if not isinstance(data, dict) or not isinstance(data.get("findings"), list):
+        raise AcceptedFileError(f"{path}: is not an accepted-findings file (expected a 'findings' list)")
+    rows = [r for r in data["findings"] if isinstance(r, dict) and isinstance(r.get("fingerprint"), str)]
+    return rows
+
+
+def apply_accepted(findings: list[Finding], rows: list[dict], accepted_path: str,
+                   checked_files: set[str] | None = None) -> list[Finding]:
+    """Drop findings recorded in the accepted-findings file; report entries that match nothing
+    (only for files that were checked in this run, so a partial run reports no false stale)."""
+    wanted = {r["fingerprint"]: r for r in rows}
+    kept, used = [], set()
+    for f in findings:
+        if f.fingerprint in wanted:
+            used.add(f.fingerprint)
+        else:
+            kept.append(f)
+    for fp, row in sorted(wanted.items(), key=lambda kv: (str(kv[1].get("file")), kv[0])):
+        if fp in used:
+            continue
+        if checked_files is not None and row.get("file") not in checked_files:
+            continue
+        kept.append(Finding(ACC_STALE, Level.NOTE,
+                            f"accepted finding {row.get('rule', '?')} in {row.get('file', '?')} no longer occurs "
+                            f"({row.get('what', '')}); remove its entry", Location(accepted_path),
+                            subject=fp).finish())
+    return kept

@@ -1,0 +1,108 @@
+"""Findings: what a rule reports, where, and how to tell it apart from the next one."""
+from __future__ import annotations
+
+import enum
+import hashlib
+from dataclasses import dataclass, field
+from typing import Any
+
+
+class Level(enum.IntEnum):
+    """SARIF result levels, ordered so that a gate can compare them."""
+
+    NOTE = 1
+    WARNING = 2
+    ERROR = 3
+
+    @classmethod
+    def parse(cls, text: "str | Level") -> "Level":
+        if isinstance(text, Level):
+            return text
+        try:
+            return cls[str(text).upper()]
+        except KeyError:
+            raise ValueError(f"unknown level {text!r} (expected error, warning or note)") from None
+
+    def __str__(self) -> str:
+        return self.name.lower()
+
+
+@dataclass(frozen=True)
+class Location:
+    """A place in a file (1-based line and column, as a person counts them).
+
+    ``path`` is None for a value that came from the command line; ``line`` is 0 when a
+    location names a whole file rather than a place in it.
+    """
+
+    path: str | None
+    line: int = 0
+    col: int = 0
+    end_line: int = 0
+    end_col: int = 0
+    message: str = ""
+    key_path: str = ""
+
+    def with_message(self, message: str) -> "Location":
+        return Location(self.path, self.line, self.col, self.end_line, self.end_col, message, self.key_path)
+
+    def label(self) -> str:
+        if self.path is None:
+            return "<command line>"
+        if not self.line:
+            return self.path
+        return f"{self.path}:{self.line}:{self.col}"
+
+
+@dataclass(frozen=True)
+class Edit:
+    """Replace the text of one scalar (by its byte-exact character span) with new text."""
+
+    path: str
+    start: int  # character offset of the scalar's first character in the decoded text
+    end: int
+    old: str
+    new: str
+
+
+@dataclass
+class Finding:
+    rule_id: str
+    level: Level
+    message: str
+    location: Location
+    related: list[Location] = field(default_factory=list)
+    key_path: str = ""
+    suggestion: str = ""
+    help: str = ""
+    fix: Edit | None = None
+    # The normalised value that the finding is about; part of the fingerprint, never shown.
+    subject: Any = None
+    fingerprint: str = ""
+    cwe: int | None = None
+
+    def finish(self) -> "Finding":
+        if not self.fingerprint:
+            self.fingerprint = fingerprint(self.rule_id, self.location.path, self.key_path, self.subject)
+        return self
+
+    def sort_key(self) -> tuple:
+        loc = self.location
+        return (loc.path or "", loc.line, loc.col, self.rule_id, self.message)
+
+
+def fingerprint(rule_id: str, path: str | None, key_path: str, subject: Any) -> str:
+    """Rule + file + key path + normalised value: survives moved lines and reformatting,
+    changes when the offending value changes."""
+    text = "\x1f".join([rule_id, path or "", key_path, _normalise(subject)])
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()[:32]
+
+
+def _normalise(value: Any) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, float) and value.is_integer():
+        value = int(value)
+    if isinstance(value, (list, tuple)):
+        return "[" + ",".join(_normalise(v) for v in value) + "]"
+    return str(value)

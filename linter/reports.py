@@ -1,0 +1,75 @@
+"""Report: findings -> human text or JSON (the JSON schema ships as report.schema.json)."""
+from __future__ import annotations
+
+import json
+from typing import Iterable, TextIO
+
+from . import __version__
+from .findings import Finding, Level, Location
+
+JSON_FORMAT_VERSION = 1
+
+_COLOURS = {Level.ERROR: "\033[31m", Level.WARNING: "\033[33m", Level.NOTE: "\033[36m"}
+_RESET, _DIM, _BOLD = "\033[0m", "\033[2m", "\033[1m"
+
+
+def _where(loc: Location) -> str:
+    return loc.label()
+
+
+def text(findings: Iterable[Finding], out: TextIO, colour: bool = False) -> None:
+    for f in findings:
+        level = str(f.level)
+        if colour:
+            level = f"{_COLOURS[f.level]}{level}{_RESET}"
+            head = f"{_BOLD}{_where(f.location)}{_RESET}: {level} {_BOLD}{f.rule_id}{_RESET} {f.message}"
+        else:
+            head = f"{_where(f.location)}: {level} {f.rule_id} {f.message}"
+        out.write(head + "\n")
+        for r in f.related:
+            line = f"    {_where(r)}: {r.message}" if r.message else f"    {_where(r)}"
+            out.write((f"{_DIM}{line}{_RESET}" if colour else line) + "\n")
+        if f.suggestion:
+            out.write(f"    suggestion: {f.suggestion}\n")
+        if f.help:
+            out.write(f"    help: {f.help}\n")
+
+
+def _loc(loc: Location) -> dict:
+    d = {"path": loc.path, "line": loc.line, "col": loc.col, "end_line": loc.end_line, "end_col": loc.end_col}
+    if loc.message:
+        d["message"] = loc.message
+    if loc.key_path:
+        d["key_path"] = loc.key_path
+    return d
+
+
+def as_dict(findings: list[Finding], summary: dict, exit_code: int) -> dict:
+    return {
+        "tool": "trimtab",
+        "version": __version__,
+        "format": JSON_FORMAT_VERSION,
+        "findings": [
+            {
+                "rule": f.rule_id,
+                "level": str(f.level),
+                "message": f.message,
+                "location": _loc(f.location),
+                "related": [_loc(r) for r in f.related],
+                "key_path": f.key_path,
+                "suggestion": f.suggestion,
+                "help": f.help,
+                "fingerprint": f.fingerprint,
+                "cwe": f.cwe,
+                "fixable": f.fix is not None,
+            }
+            for f in findings
+        ],
+        "summary": summary,
+        "exit": exit_code,
+    }
+
+
+def json_report(findings: list[Finding], summary: dict, exit_code: int, out: TextIO) -> None:
+    json.dump(as_dict(findings, summary, exit_code), out, indent=2, ensure_ascii=False)
+    out.write("\n")

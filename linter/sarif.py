@@ -1,0 +1,137 @@
+"""Report: findings -> SARIF 2.1.0 (OASIS Static Analysis Results Interchange Format)."""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Iterable, TextIO
+from urllib.parse import quote
+
+from . import __version__
+from .engine import Rule
+from .findings import Finding, Level, Location
+
+SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
+FINGERPRINT_KEY = "trimtabFingerprint/v1"
+
+# Names of the weaknesses trimtab cites, as in MITRE's CWE list.
+CWE_NAMES = {
+    94: "Improper Control of Generation of Code ('Code Injection')",
+    250: "Execution with Unnecessary Privileges",
+    319: "Cleartext Transmission of Sensitive Information",
+    400: "Uncontrolled Resource Consumption",
+    502: "Deserialization of Untrusted Data",
+    770: "Allocation of Resources Without Limits or Throttling",
+    798: "Use of Hard-coded Credentials",
+    829: "Inclusion of Functionality from Untrusted Control Sphere",
+}
+
+
+def _level(level: Level) -> str:
+    return str(level)
+
+
+def _location(loc: Location, ident: int | None = None) -> dict:
+    out: dict = {}
+    if ident is not None:
+        out["id"] = ident
+    if loc.path is None:
+        # A value set on the command line has no file: a logical location names the key.
+        out["logicalLocations"] = [{"fullyQualifiedName": loc.key_path or "(command line)", "kind": "property"}]
+        out["message"] = {"text": (loc.message + " " if loc.message else "") + "(set on the command line)"}
+        return out
+    phys: dict = {"artifactLocation": {"uri": quote(loc.path), "uriBaseId": "SRCROOT"}}
+    if loc.line > 0:
+        region = {"startLine": loc.line, "startColumn": max(loc.col, 1)}
+        if loc.end_line >= loc.line and loc.end_line > 0:
+            region["endLine"] = loc.end_line
+            if loc.end_col > 0 and (loc.end_line > loc.line or loc.end_col >= region["startColumn"]):
+                region["endColumn"] = loc.end_col
+        phys["region"] = region
+    out["physicalLocation"] = phys
+    if loc.message:
+        out["message"] = {"text": loc.message}
+    if loc.key_path:
+        out["logicalLocations"] = [{"fullyQualifiedName": loc.key_path, "kind": "property"}]
+    return out
+
+
+def _descriptor(rule: Rule) -> dict:
+    d = {
+        "id": rule.id,
+        "name": rule.name,
+        "shortDescription": {"text": rule.summary},
+        "fullDescription": {"text": rule.rationale},
+        "help": {"text": (rule.rationale + ("\n\n" + rule.help if rule.help else ""))},
+        "defaultConfiguration": {"level": _level(rule.level)},
+        "properties": {"area": rule.area, "options": rule.options},
+    }
+    if rule.cwe:
+        d["relationships"] = [{"target": {"id": str(rule.cwe), "toolComponent": {"name": "CWE"}},
+                               "kinds": ["relevant"]}]
+    return d
+
+
+def build(findings: list[Finding], rules: Iterable[Rule], root: Path, successful: bool = True) -> dict:
+    rules = list(rules)
+    index = {r.id: i for i, r in enumerate(rules)}
+    cwes = sorted({r.cwe for r in rules if r.cwe})
+    results = []
+    for f in findings:
+        res: dict = {
+            "ruleId": f.rule_id,
+            "level": _level(f.level),
+            "message": {"text": f.message},
+            "locations": [_location(f.location)],
+            "partialFingerprints": {FINGERPRINT_KEY: f.fingerprint},
+        }
+        if f.rule_id in index:
+            res["ruleIndex"] = index[f.rule_id]
+        if f.related:
+            res["relatedLocations"] = [_location(r, i) for i, r in enumerate(f.related)]
+        if f.cwe:
+            res["taxa"] = [{"id": str(f.cwe), "toolComponent": {"name": "CWE"}}]
+        props = {}
+        if f.key_path:
+            props["keyPath"] = f.key_path
+        if f.suggestion:
+            props["suggestion"] = f.suggestion
+        if props:
+            res["properties"] = props
+        if f.fix is not None and f.location.path:
+            res["fixes"] = [{
+                "description": {"text": f"replace {f.fix.old!r} with {f.fix.new!r}"},
+                "artifactChanges": [{
+                    "artifactLocation": {"uri": quote(f.location.path), "uriBaseId": "SRCROOT"},
+                    "replacements": [{"deletedRegion": {"charOffset": f.fix.start,
+                                                         "charLength": f.fix.end - f.fix.start},
+                                      "insertedContent": {"text": f.fix.new}}],
+                }],
+            }]
+        results.append(res)
+    run: dict = {
+        "tool": {"driver": {
+            "name": "trimtab",
+            "version": __version__,
+            "semanticVersion": __version__,
+            "rules": [_descriptor(r) for r in rules],
+        }},
+        "originalUriBaseIds": {"SRCROOT": {"uri": root.resolve().as_uri().rstrip("/") + "/"}},
+        "columnKind": "unicodeCodePoints",
+        "invocations": [{"executionSuccessful": successful}],
+        "results": results,
+    }
+    if cwes:
+        run["tool"]["driver"]["supportedTaxonomies"] = [{"name": "CWE"}]
+        run["taxonomies"] = [{
+            "name": "CWE",
+            "organization": "MITRE",
+            "shortDescription": {"text": "The MITRE Common Weakness Enumeration"},
+            "taxa": [{"id": str(c), "name": CWE_NAMES.get(c, f"CWE-{c}"),
+                      "shortDescription": {"text": CWE_NAMES.get(c, f"CWE-{c}")}} for c in cwes],
+        }]
+    return {"$schema": SCHEMA_URI, "version": "2.1.0", "runs": [run]}
+
+
+def write(findings: list[Finding], rules, root: Path, out: TextIO, successful: bool = True) -> None:
+    json.dump(build(findings, rules, root, successful), out, indent=2, ensure_ascii=False)
+    out.write("\n")

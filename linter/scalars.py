@@ -1,0 +1,168 @@
+"""Typing of plain scalars from their raw text, under YAML 1.2 and under YAML 1.1.
+
+YAML 1.2: the core schema (YAML 1.2.2, section 10.3.2). YAML 1.1: the implicit types of the
+YAML 1.1 type repository (bool, int, float, null, timestamp), in the form most loaders of
+that version implement them (exponent sign required, a digit before the point, ``_`` allowed,
+base-60 numbers, ``0``-prefixed octal).
+"""
+from __future__ import annotations
+
+import datetime
+import math
+import re
+
+# --- YAML 1.2 core schema ---------------------------------------------------------------
+_N12_NULL = re.compile(r"null|Null|NULL|~|")
+_N12_TRUE = re.compile(r"true|True|TRUE")
+_N12_FALSE = re.compile(r"false|False|FALSE")
+_N12_INT10 = re.compile(r"[-+]?[0-9]+")
+_N12_INT8 = re.compile(r"0o[0-7]+")
+_N12_INT16 = re.compile(r"0x[0-9a-fA-F]+")
+_N12_FLOAT = re.compile(r"[-+]?(\.[0-9]+|[0-9]+(\.[0-9]*)?)([eE][-+]?[0-9]+)?")
+_N12_INF = re.compile(r"[-+]?\.(inf|Inf|INF)")
+_N12_NAN = re.compile(r"\.(nan|NaN|NAN)")
+
+
+def type12(text: str):
+    """The value of a plain scalar under the YAML 1.2 core schema."""
+    if _N12_NULL.fullmatch(text):
+        return None
+    if _N12_TRUE.fullmatch(text):
+        return True
+    if _N12_FALSE.fullmatch(text):
+        return False
+    if _N12_INT10.fullmatch(text):
+        return int(text)
+    if _N12_INT8.fullmatch(text):
+        return int(text[2:], 8)
+    if _N12_INT16.fullmatch(text):
+        return int(text[2:], 16)
+    if _N12_FLOAT.fullmatch(text):
+        return float(text)
+    if _N12_INF.fullmatch(text):
+        return -math.inf if text[0] == "-" else math.inf
+    if _N12_NAN.fullmatch(text):
+        return math.nan
+    return text
+
+
+# --- YAML 1.1 type repository -------------------------------------------------------------
+_N11_BOOL_TRUE = frozenset("yes Yes YES true True TRUE on On ON".split())
+_N11_BOOL_FALSE = frozenset("no No NO false False FALSE off Off OFF".split())
+_N11_NULL = re.compile(r"~|null|Null|NULL|")
+_N11_INT = re.compile(
+    r"[-+]?0b[0-1_]+|[-+]?0[0-7_]+|[-+]?(?:0|[1-9][0-9_]*)|[-+]?0x[0-9a-fA-F_]+"
+    r"|[-+]?[1-9][0-9_]*(?::[0-5]?[0-9])+"
+)
+_N11_FLOAT = re.compile(
+    r"[-+]?(?:[0-9][0-9_]*)\.[0-9_]*(?:[eE][-+][0-9]+)?|\.[0-9_]+(?:[eE][-+][0-9]+)?"
+    r"|[-+]?[0-9][0-9_]*(?::[0-5]?[0-9])+\.[0-9_]*|[-+]?\.(?:inf|Inf|INF)|\.(?:nan|NaN|NAN)"
+)
+_N11_DATE = re.compile(r"([0-9]{4})-([0-9]{2})-([0-9]{2})")
+_N11_TIMESTAMP = re.compile(
+    r"([0-9]{4})-([0-9]{1,2})-([0-9]{1,2})(?:[Tt]|[ \t]+)([0-9]{1,2}):([0-9]{2}):([0-9]{2})"
+    r"(?:\.([0-9]*))?(?:[ \t]*(Z|[-+][0-9]{1,2}(?::[0-9]{2})?))?"
+)
+
+
+def _sexagesimal(text: str, cast):
+    sign = -1 if text[0] == "-" else 1
+    parts = text.lstrip("+-").split(":")
+    value = 0
+    for part in parts:
+        value = value * 60 + cast(part)
+    return sign * value
+
+
+def type11(text: str):
+    """The value of a plain scalar under the YAML 1.1 implicit types."""
+    if text in _N11_BOOL_TRUE:
+        return True
+    if text in _N11_BOOL_FALSE:
+        return False
+    if _N11_NULL.fullmatch(text):
+        return None
+    if _N11_INT.fullmatch(text):
+        clean = text.replace("_", "")
+        sign = -1 if clean[0] == "-" else 1
+        body = clean.lstrip("+-")
+        if ":" in body:
+            return sign * _sexagesimal(body, int)
+        if body.startswith("0b"):
+            return sign * int(body[2:], 2)
+        if body.startswith("0x"):
+            return sign * int(body[2:], 16)
+        if len(body) > 1 and body[0] == "0":
+            return sign * int(body, 8)
+        return sign * int(body)
+    if _N11_FLOAT.fullmatch(text):
+        clean = text.replace("_", "").lower()
+        if clean.endswith(".inf"):
+            return -math.inf if clean[0] == "-" else math.inf
+        if clean == ".nan":
+            return math.nan
+        if ":" in clean:
+            sign = -1 if clean[0] == "-" else 1
+            return sign * _sexagesimal(clean.lstrip("+-"), float)
+        return float(clean)
+    m = _N11_DATE.fullmatch(text)
+    if m:
+        try:
+            return datetime.date(int(m[1]), int(m[2]), int(m[3]))
+        except ValueError:
+            return text
+    m = _N11_TIMESTAMP.fullmatch(text)
+    if m:
+        try:
+            frac = (m[7] or "0")[:6].ljust(6, "0")
+            tz = None
+            if m[8]:
+                if m[8] == "Z":
+                    tz = datetime.timezone.utc
+                else:
+                    hh, _, mm = m[8][1:].partition(":")
+                    delta = datetime.timedelta(hours=int(hh), minutes=int(mm or 0))
+                    tz = datetime.timezone(-delta if m[8][0] == "-" else delta)
+            return datetime.datetime(int(m[1]), int(m[2]), int(m[3]), int(m[4]), int(m[5]),
+                                     int(m[6]), int(frac), tzinfo=tz)
+        except ValueError:
+            return text
+    return text
+
+
+_EXPLICIT = {
+    "tag:yaml.org,2002:str": str,
+    "tag:yaml.org,2002:int": "int",
+    "tag:yaml.org,2002:float": "float",
+    "tag:yaml.org,2002:bool": "bool",
+    "tag:yaml.org,2002:null": "null",
+}
+
+
+def typed(text: str, plain: bool, tag: str | None, version: str):
+    """Type a scalar. Quoted and block scalars are strings unless explicitly tagged;
+    an explicit standard tag types the text as that tag."""
+    reader = type12 if version == "1.2" else type11
+    if tag and tag != "?" and tag != "!" and tag in _EXPLICIT:
+        kind = _EXPLICIT[tag]
+        if kind is str:
+            return text
+        value = reader(text)
+        want = {"int": int, "float": float, "bool": bool, "null": type(None)}[kind]
+        if kind == "float" and isinstance(value, int) and not isinstance(value, bool):
+            return float(value)
+        return value if isinstance(value, want) and not (kind == "int" and isinstance(value, bool)) else text
+    if tag and tag not in ("?", "!") and not tag.startswith("tag:yaml.org,2002:"):
+        return text  # a local tag: the application decides; we read the text
+    if not plain or tag == "!":
+        return text
+    return reader(text)
+
+
+def same_value(a, b) -> bool:
+    """Do two readings agree (type and value; NaN equals NaN)?"""
+    if type(a) is not type(b):
+        return False
+    if isinstance(a, float) and math.isnan(a) and math.isnan(b):
+        return True
+    return a == b

@@ -1,0 +1,198 @@
+"""Settings: ``[tool.trimtab]`` in pyproject.toml or a ``trimtab.toml``, found by walking up
+from the working directory, validated against the schema shipped in the package."""
+from __future__ import annotations
+
+import json
+import os
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .loader import Limits
+from .resolve import KeySpec
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+DEFAULT_INCLUDE = ["**/*.yaml", "**/*.yml", "**/*.json"]
+SCHEMA_PATH = Path(__file__).with_name("settings.schema.json")
+
+
+class SettingsError(Exception):
+    """A setting is wrong; the message names the setting, what was expected and what was found."""
+
+
+@dataclass
+class Settings:
+    root: Path
+    source: Path | None = None
+    table: str = ""  # "[tool.trimtab]" or "" for a trimtab.toml
+    include: list[str] = field(default_factory=lambda: list(DEFAULT_INCLUDE))
+    exclude: list[str] = field(default_factory=list)
+    gate: str = "warning"
+    yaml_version: str = "1.1"
+    run_configs: list[str] = field(default_factory=list)
+    keymap: str = ""
+    keys: dict[str, KeySpec] = field(default_factory=dict)
+    search_roots: list[str] = field(default_factory=lambda: ["."])
+    import_depth: int = 2
+    accepted: str = ""
+    jobs: int = 1
+    limits: Limits = field(default_factory=Limits)
+    rules: dict[str, dict] = field(default_factory=dict)
+    layers: list[dict] = field(default_factory=list)
+    bases_key: str = ""
+    overrides: str = ""
+    schemas: list[dict] = field(default_factory=list)
+
+    def name(self, key: str) -> str:
+        """How a setting is spelled in the user's file, for messages."""
+        prefix = "tool.trimtab." if self.table else ""
+        return f"{prefix}{key}"
+
+
+def find(start: Path | None = None) -> tuple[Path | None, Path]:
+    """(settings file or None, repository root). Walks up from ``start``; stops at the first
+    trimtab.toml, pyproject.toml with a [tool.trimtab] table, or a git repository's top."""
+    here = (start or Path.cwd()).resolve()
+    for folder in (here, *here.parents):
+        candidate = folder / "trimtab.toml"
+        if candidate.is_file():
+            return candidate, folder
+        candidate = folder / "pyproject.toml"
+        if candidate.is_file():
+            try:
+                text = candidate.read_text(encoding="utf-8")
+            except (OSError, UnicodeDecodeError):
+                text = ""
+            if "[tool.trimtab" in text or "tool.trimtab" in text:
+                return candidate, folder
+        if (folder / ".git").exists():
+            return None, folder
+    return None, here
+
+
+def load(path: Path | None = None, start: Path | None = None) -> Settings:
+    if path is None:
+        path, root = find(start)
+    else:
+        path = Path(path)
+        root = path.resolve().parent
+    if path is None:
+        return Settings(root=root)
+    try:
+        with open(path, "rb") as fh:
+            data = tomllib.load(fh)
+    except OSError as exc:
+        raise SettingsError(f"{path}: cannot be read: {exc.strerror}") from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise SettingsError(f"{path}: is not valid TOML: {exc}") from None
+    if path.name == "pyproject.toml":
+        table = data.get("tool", {}).get("trimtab")
+        if table is None:
+            return Settings(root=root)
+        prefix = "tool.trimtab"
+    else:
+        table, prefix = data, ""
+    if not isinstance(table, dict):
+        raise SettingsError(f"{path}: setting {prefix or '(top level)'}: expected a table, found {_kind(table)}")
+    validate(table, path, prefix)
+    return build(table, root, path, prefix)
+
+
+def _kind(value) -> str:
+    return {dict: "a table", list: "an array", str: "a string", bool: "a boolean", int: "an integer",
+            float: "a number"}.get(type(value), type(value).__name__)
+
+
+def validate(table: dict, path: Path, prefix: str) -> None:
+    import jsonschema
+
+    schema = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))
+    validator = jsonschema.Draft7Validator(schema)
+    errors = sorted(validator.iter_errors(table), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))
+    if not errors:
+        _check_concepts(table, path, prefix)
+        return
+    err = errors[0]
+    where = ".".join([prefix] + [str(p) for p in err.absolute_path] if prefix else [str(p) for p in err.absolute_path])
+    if err.validator == "additionalProperties":
+        allowed = sorted(err.schema.get("properties", {}))
+        extra = sorted(set(err.instance) - set(allowed))
+        key = ".".join(filter(None, [where, extra[0] if extra else ""]))
+        raise SettingsError(f"{path}: setting {key}: unknown setting (expected one of: {', '.join(allowed)})")
+    expected = _expected(err)
+    raise SettingsError(f"{path}: setting {where or '(top level)'}: expected {expected}, "
+                        f"found {_show(err.instance)}")
+
+
+def _expected(err) -> str:
+    v, val = err.validator, err.validator_value
+    if v == "type":
+        names = {"array": "an array", "object": "a table", "string": "a string", "integer": "an integer",
+                 "boolean": "true or false", "number": "a number"}
+        return " or ".join(names.get(t, t) for t in ([val] if isinstance(val, str) else val))
+    if v == "enum":
+        return "one of " + ", ".join(map(str, val))
+    if v == "minimum":
+        return f"a number of at least {val}"
+    if v == "maximum":
+        return f"a number of at most {val}"
+    if v == "required":
+        return "the keys " + ", ".join(val)
+    if v == "minLength":
+        return "a non-empty string"
+    if v == "anyOf":
+        return "a key path string, or a table with key (and per, scope, fields)"
+    return err.message
+
+
+def _show(value) -> str:
+    text = json.dumps(value) if not isinstance(value, str) else repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _check_concepts(table: dict, path: Path, prefix: str) -> None:
+    from .vocabulary import CONCEPTS
+
+    dot = f"{prefix}." if prefix else ""
+    for concept in table.get("keys", {}):
+        if concept not in CONCEPTS:
+            near = [c for c in CONCEPTS if c.split(".")[-1] == concept.split(".")[-1]]
+            hint = f" (did you mean {', '.join(near)}?)" if near else ""
+            raise SettingsError(f"{path}: setting {dot}keys.{concept}: expected a concept name, "
+                                f"found unknown concept {concept!r}{hint}; `trimtab explain` lists them")
+
+
+def build(table: dict, root: Path, path: Path | None = None, prefix: str = "") -> Settings:
+    s = Settings(root=root, source=path, table=prefix)
+    for name in ("include", "exclude", "gate", "yaml_version", "run_configs", "keymap", "search_roots",
+                 "import_depth", "accepted", "jobs", "rules", "layers", "bases_key", "overrides", "schemas"):
+        if name in table:
+            setattr(s, name, table[name])
+    if "limits" in table:
+        s.limits = Limits(**{**Limits().__dict__, **table["limits"]})
+    s.keys = parse_keys(table.get("keys", {}))
+    return s
+
+
+def parse_keys(table: dict) -> dict[str, KeySpec]:
+    out = {}
+    for concept, spec in table.items():
+        if isinstance(spec, str):
+            out[concept] = KeySpec(spec)
+        else:
+            out[concept] = KeySpec(spec["key"], spec.get("per", ""), spec.get("scope", ""),
+                                   tuple(sorted(spec.get("fields", {}).items())))
+    return out
+
+
+def relative(path: str | os.PathLike, root: Path) -> str:
+    """A path as shown to the user: relative to the repository root when inside it."""
+    p = Path(path)
+    try:
+        return p.resolve().relative_to(root.resolve()).as_posix() if p.is_absolute() or True else str(p)
+    except ValueError:
+        return p.as_posix()

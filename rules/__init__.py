@@ -1,0 +1,12 @@
+"""trimtab's built-in rules. They register through the ``trimtab`` entry-point group, exactly as a
+third-party plugin does, so they use nothing but the public API."""
+from trimtab import hookimpl
+
+from . import vocab, yml
+
+MODULES = (yml, vocab)
+
+
+@hookimpl
+def trimtab_rules():
+    return [r for m in MODULES for r in m.RULES]

@@ -1,0 +1,156 @@
+"""YML: file hygiene. Reading failures of the loader, and YAML 1.1 / 1.2 disagreements."""
+from __future__ import annotations
+
+from trimtab import Level, Location, rule
+from trimtab.scalars import same_value, type11, type12
+
+_PARSE_WHY = ("A run config that does not parse cannot launch; where a loader is lenient, it may read "
+              "something other than what was written. Line and column are the parser's.")
+
+
+def _problems(ctx, kinds, level=None):
+    doc = ctx.doc
+    for p in doc.problems:
+        if p.kind in kinds:
+            yield ctx.finding(f"{doc.path} {p.message}" if not p.line else p.message,
+                              Location(doc.path, p.line, p.col), related=p.related, level=level,
+                              subject=p.kind)
+
+
+@rule("YML-1", "parse-error", "error", "The file is not valid YAML (or, for .json, not valid JSON).",
+      _PARSE_WHY, rl_only=False, scope="file")
+def parse_error(ctx):
+    return _problems(ctx, {"parse", "json"})
+
+
+@rule("YML-2", "duplicate-key", "warning", "A key is written twice in one mapping.",
+      "YAML requires keys of a mapping to be unique (YAML 1.2.2, section 3.2.1.1). Loaders differ: "
+      "some keep the last value, some the first, some refuse the file, so the run depends on the loader.",
+      rl_only=False, scope="file")
+def duplicate_key(ctx):
+    for p in ctx.doc.problems:
+        if p.kind == "duplicate-key":
+            yield ctx.finding(p.message, Location(ctx.doc.path, p.line, p.col), related=p.related,
+                              subject=p.message.split("'")[1] if "'" in p.message else p.message)
+
+
+@rule("YML-4", "encoding", "error", "The file is not UTF-8 text.",
+      "YAML streams are Unicode (YAML 1.2.2, section 5.2); most training stacks read configs as UTF-8. "
+      "Undecodable bytes or binary content stop the loader; UTF-16 or UTF-32 with a byte-order mark is "
+      "valid YAML but not every loader reads it (a note).",
+      rl_only=False, scope="file")
+def encoding(ctx):
+    yield from _problems(ctx, {"encoding", "binary"})
+    yield from _problems(ctx, {"encoding-other"}, level=Level.NOTE)
+
+
+@rule("YML-5", "limit-exceeded", "error", "The file exceeds a size, nesting or alias limit.",
+      "Limits keep the check bounded in time and memory on crafted input (a nested-alias document "
+      "expands exponentially in a loader that builds objects). The limits are settings "
+      "(limits.max_bytes, limits.max_depth, limits.max_aliases).",
+      rl_only=False, scope="file")
+def limits(ctx):
+    return _problems(ctx, {"size", "depth", "aliases"})
+
+
+@rule("YML-6", "unreadable", "error", "The file cannot be read.",
+      "A path given to the check that cannot be opened (missing, a folder, a broken link, no "
+      "permission) is reported so that a gate never passes a file it did not see.",
+      rl_only=False, scope="file")
+def unreadable(ctx):
+    return _problems(ctx, {"io"})
+
+
+@rule("YML-7", "bad-merge", "error", "A merge key '<<' does not refer to mappings.",
+      "The merge key type (YAML 1.1 type repository, 'merge') takes a mapping or a list of mappings; "
+      "anything else is refused by loaders that implement merges and kept as a plain key by others.",
+      rl_only=False, scope="file")
+def bad_merge(ctx):
+    return _problems(ctx, {"merge"})
+
+
+def _kind(value) -> str:
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return f"the boolean {str(value).lower()}"
+    if isinstance(value, int):
+        return f"the integer {value}"
+    if isinstance(value, float):
+        return f"the float {value!r}"
+    return f"the string {str(value)!r}"
+
+
+def compatible_number(text: str) -> str | None:
+    """A spelling of a YAML 1.2 float that YAML 1.1 loaders also read as the same float
+    (a digit before the point and a signed exponent), or None."""
+    v12 = type12(text)
+    if not isinstance(v12, float):
+        return None
+    mantissa, e, exp = text.lower().partition("e")
+    sign = ""
+    if mantissa[:1] in "+-":
+        sign, mantissa = mantissa[0], mantissa[1:]
+    if mantissa.startswith("."):
+        mantissa = "0" + mantissa
+    if "." not in mantissa:
+        mantissa += ".0"
+    elif mantissa.endswith("."):
+        mantissa += "0"
+    out = sign + mantissa
+    if e:
+        if exp[:1] not in "+-":
+            exp = "+" + exp
+        out += "e" + exp
+    if same_value(type11(out), v12) and same_value(type12(out), v12):
+        return out
+    return None
+
+
+@rule("YML-3", "yaml-version-disagreement", "warning",
+      "A value a concept uses reads differently under YAML 1.1 and YAML 1.2.",
+      "YAML 1.2 (core schema, YAML 1.2.2 section 10.3.2) and YAML 1.1 (type repository) type plain "
+      "scalars differently: `3e-6` is a float in 1.2 and a string in 1.1 (1.1 floats need a point and a "
+      "signed exponent); `on`, `off`, `yes`, `no` are booleans only in 1.1; `010` is octal 8 in 1.1 and "
+      "decimal 10 in 1.2; `1:30` is the base-60 number 90 in 1.1. A trainer's loader reads one of the "
+      "two: write the value so that both agree.",
+      rl_only=False)
+def version_disagreement(ctx):
+    from trimtab import Edit, Scalar
+
+    m = ctx.model
+    for name, v in sorted(m.values.items()):
+        node = v.node
+        if not isinstance(node, Scalar) or not node.plain or node.tag:
+            continue
+        a, b = node.value11, node.value12
+        if same_value(a, b):
+            continue
+        suggestion, fix = "", None
+        better = compatible_number(node.text)
+        if better:
+            suggestion = f"write {better} (a float under both versions)"
+            raw = ctx.doc.raw(node)
+            if raw.endswith(node.text) and "\n" not in raw:
+                start = node.end - len(node.text)
+                fix = Edit(node.file, start, node.end, node.text, better)
+        elif isinstance(a, bool) and isinstance(b, str):
+            if v.via and m.version == "1.1" and _expects_text(name):
+                suggestion = f"quote it: '{node.text}'"
+                fix = Edit(node.file, node.end - len(node.text), node.end, node.text, f"'{node.text}'")
+            else:
+                suggestion = f"write {str(a).lower()} for a boolean, or quote '{node.text}' for text"
+        elif isinstance(a, int) and isinstance(b, int):
+            suggestion = f"write {b} (decimal), or 0o{b:o} for octal under YAML 1.2"
+        yield ctx.finding(f"{name} = {node.text}: YAML 1.1 reads {_kind(a)}, YAML 1.2 reads {_kind(b)}",
+                          v.location, subject=node.text, suggestion=suggestion, fix=fix)
+
+
+def _expects_text(concept: str) -> bool:
+    from trimtab.vocabulary import CONCEPTS
+
+    c = CONCEPTS.get(concept)
+    return c is not None and c.type in ("str", "any")
+
+
+RULES = [parse_error, duplicate_key, version_disagreement, encoding, limits, unreadable, bad_merge]
