@@ -2,9 +2,9 @@
 third-party plugin does, so they use nothing but the public API."""
 from trimtab import hookimpl
 
-from . import vocab, yml
+from . import alg, clip, kl, opt, vocab, yml
 
-MODULES = (yml, vocab)
+MODULES = (yml, vocab, kl, clip, alg, opt)
 
 
 @hookimpl

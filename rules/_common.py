@@ -1,0 +1,105 @@
+"""Helpers shared by the optimisation-settings rules (KL, CLP, ALG, OPT).
+
+Only concept-level reasoning lives here: which estimators are clipped or critic-free, whether a
+value means "off", where to point a finding about a value that is not written at all.
+"""
+from __future__ import annotations
+
+from trimtab import Location
+
+# Estimator families (values of run.estimator, lower case).
+# Clipped policy-gradient objectives: PPO (Schulman et al. 2017, arXiv:1707.06347) and its GAE
+# form; group-relative variants (arXiv:2402.03300; arXiv:2503.14476; the "dr_grpo" variant, from
+# memory); REINFORCE++ keeps the PPO clip (arXiv:2501.03262, from memory).
+CLIPPED = frozenset({"ppo", "gae", "grpo", "dr_grpo", "dapo", "reinforce++"})
+# Group-relative estimators: the baseline is computed from the other completions of the same prompt.
+GROUP_RELATIVE = frozenset({"grpo", "dr_grpo", "dapo", "rloo"})
+# Estimators that need no value model at all (group, leave-one-out, greedy or batch baselines).
+CRITIC_FREE = GROUP_RELATIVE | {"remax", "reinforce++"}
+# Estimators whose advantages come from GAE over a learned value function.
+GAE_BASED = frozenset({"ppo", "gae"})
+
+_OFF_WORDS = frozenset({"", "none", "null", "off", "false", "no", "disabled", "disable", "0"})
+
+
+def is_off(value) -> bool:
+    """Does a written value mean "switched off / absent on purpose" (false, null, 'none', 0)?"""
+    if value is None or value is False:
+        return True
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return value == 0
+    if isinstance(value, str):
+        return value.strip().lower() in _OFF_WORDS
+    return False
+
+
+def shown(v) -> str:
+    """A value as the user wrote it (the scalar's text), else a short rendering."""
+    node = getattr(v, "node", None)
+    if node is not None:
+        text = getattr(node, "text", None)
+        if isinstance(text, str) and text:
+            return text
+        if getattr(node, "kind", "") in ("mapping", "sequence"):
+            return f"a {node.kind}"
+    value = getattr(v, "value", v)
+    if isinstance(value, bool):
+        return str(value).lower()
+    if isinstance(value, float):
+        return f"{value:g}"
+    return str(value)
+
+
+def num(x) -> str:
+    """A number for a message: integers as integers, floats in their shortest form."""
+    if isinstance(x, float):
+        if x.is_integer() and abs(x) < 1e15:
+            return str(int(x))
+        return f"{x:g}"
+    return str(x)
+
+
+def estimator(model) -> str | None:
+    return model.text("run.estimator")
+
+
+def unresolved(model, concept: str) -> bool:
+    """Stated, or matched ambiguously (VOC-1 reports it): either way, not "missing"."""
+    return model.get(concept) is not None or concept in model.ambiguous
+
+
+def clipped(model) -> bool:
+    """A clipped policy-gradient run: a clipped estimator, or a ratio clip written in the file."""
+    return estimator(model) in CLIPPED or any(model.get(c) is not None for c in ("clip.low", "clip.high",
+                                                                                  "clip.dual"))
+
+
+def anchor(model, *prefer: str, key_path: str = "") -> Location:
+    """Where to report something that is not written: the first of ``prefer`` that is stated,
+    else the first line of the file. ``key_path`` names the missing concept (for the fingerprint)."""
+    for c in prefer:
+        v = model.values.get(c)
+        if v is not None and v.location.line:
+            loc = v.location
+            return Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, "", key_path or loc.key_path)
+    return Location(model.path, 1, 1, 0, 0, "", key_path)
+
+
+def kl_state(model):
+    """('off', value that switches it off) | ('on', kl.coef Value) | ('unstated', None).
+
+    Off: kl.enabled false, kl.placement none, or kl.coef 0. On: a positive coefficient and
+    nothing that switches it off."""
+    enabled = model.get("kl.enabled")
+    if enabled is not None and enabled.value is False:
+        return "off", enabled
+    placement = model.get("kl.placement")
+    if placement is not None and isinstance(placement.value, str) and placement.value.strip().lower() == "none":
+        return "off", placement
+    coef = model.get("kl.coef")
+    if coef is not None and coef.number is not None:
+        if coef.number == 0:
+            return "off", coef
+        if coef.number > 0:
+            return "on", coef
+    return "unstated", None

@@ -1,0 +1,76 @@
+"""ALG: the advantage estimator agrees with the models and constants the config sets up."""
+from __future__ import annotations
+
+from trimtab import rule
+
+from ._common import CRITIC_FREE, GAE_BASED, is_off, shown, unresolved
+
+
+def _critic(m):
+    """('on', Value) | ('off', Value) | ('unstated', None)."""
+    v = m.get("critic.source")
+    if v is not None:
+        return ("off" if is_off(v.value) else "on"), v
+    lr = m.get("critic.lr")
+    if lr is not None:
+        return "on", lr  # a value-model learning rate: a critic is trained
+    return "unstated", None
+
+
+@rule("ALG-1", "critic-unused", "warning", "A critic-free estimator is configured with a value model.",
+      "Group-relative estimators take the baseline from the other completions of the same prompt "
+      "(arXiv:2402.03300: the group baseline replaces the value model; leave-one-out, arXiv:2402.14740, "
+      "from memory), and REINFORCE-style estimators with a greedy or batch baseline need none either. A "
+      "value model configured beside them is loaded, and in many trainers trained, but never used: "
+      "memory and compute for nothing, and a sign that the estimator is not the intended one.")
+def critic_unused(ctx):
+    m = ctx.model
+    est = m.text("run.estimator")
+    if est not in CRITIC_FREE:
+        return
+    state, v = _critic(m)
+    if state != "on":
+        return
+    yield ctx.finding(f"run.estimator = {est} needs no value model, but one is configured ({v.concept} = "
+                      f"{shown(v)}): "
+                      "it is never used", v.location,
+                      related=[m.loc("run.estimator", "the critic-free estimator")], subject=est)
+
+
+@rule("ALG-2", "gae-without-critic", "error", "A GAE-based estimator has no value model.",
+      "Generalised advantage estimation (Schulman et al. 2016, arXiv:1506.02438) computes advantages "
+      "from a learned value function; PPO as published uses it (arXiv:1707.06347). With the value "
+      "model switched off, or none configured, the advantages cannot be computed: the trainer fails, "
+      "or falls back to something that is not the estimator the config names.")
+def gae_without_critic(ctx):
+    m = ctx.model
+    est = m.text("run.estimator")
+    if est not in GAE_BASED:
+        return
+    state, v = _critic(m)
+    if state == "on" or unresolved(m, "critic.source") and state == "unstated":
+        return
+    if state == "off":
+        yield ctx.finding(f"run.estimator = {est} computes GAE advantages from a value model, but the value model "
+                          f"is switched off ({v.concept} = {shown(v)})", v.location,
+                          related=[m.loc("run.estimator", "the GAE-based estimator")], subject="critic-off")
+    else:
+        yield ctx.finding(f"run.estimator = {est} computes GAE advantages from a value model, but none is "
+                          "configured (critic.source not found)", m.loc("run.estimator"),
+                          subject="critic-unstated", key_path="critic.source",
+                          suggestion="configure the value model (critic.source), or use a critic-free estimator")
+
+
+@rule("ALG-3", "gae-constant-range", "error", "The discount gamma or the GAE lambda is outside [0, 1].",
+      "The discount gamma and the GAE parameter lambda are weights of a geometric sum "
+      "(arXiv:1506.02438): outside [0, 1] the advantage estimate diverges or changes sign. PPO's "
+      "published defaults are gamma = 0.99 and lambda = 0.95 (arXiv:1707.06347, from memory); "
+      "language-model recipes often use 1.0 for both (common practice).")
+def gae_range(ctx):
+    for c, name in (("gae.gamma", "discount gamma"), ("gae.lambda", "GAE lambda")):
+        v = ctx.model.get(c)
+        if v is not None and v.number is not None and not 0 <= v.number <= 1:
+            yield ctx.finding(f"{c} = {shown(v)}: the {name} must be in [0, 1]", v.location, subject=v.number)
+
+
+RULES = [critic_unused, gae_without_critic, gae_range]

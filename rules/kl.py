@@ -1,0 +1,179 @@
+"""KL: regularisation towards a reference policy.
+
+The KL term keeps the fine-tuned policy near its starting point. These rules check that it is
+stated rather than left to a trainer default, that it has a reference to measure against, that
+it is counted once, and that its strength is in the range published recipes use.
+"""
+from __future__ import annotations
+
+from trimtab import rule
+
+from ._common import anchor, clipped, estimator, is_off, kl_state, num, shown, unresolved
+
+_ESTIMATORS = {
+    "k1": "log ratio, unbiased, high variance",
+    "k2": "half squared log ratio, biased, low variance",
+    "k3": "ratio - 1 - log ratio, unbiased, low variance, never negative",
+}
+_K_SOURCE = "Schulman 2020, \"Approximating KL Divergence\" (blog note)"
+
+
+@rule("KL-1", "kl-unstated", "warning",
+      "A clipped policy-gradient run never states its KL regularisation.",
+      "Trainers differ in their default KL coefficient (some default to a positive value, some to none), "
+      "so a run config that says nothing about KL is regularised by whatever the trainer version "
+      "happens to ship. State kl.coef (or switch KL off explicitly). Applies to clipped policy-gradient "
+      "runs: a clipped estimator (ppo, gae, grpo, dr_grpo, dapo, reinforce++) or a ratio clip in the "
+      "file. An explicit 0 or off is reported as a note: several published recipes drop the KL term "
+      "on purpose (arXiv:2503.14476 trains without it), so accept it with a reason where that is the "
+      "intent: `# trimtab: accept KL-1 -- recipe trains without KL`. Basis: common practice; published "
+      "coefficients 0.04 (arXiv:2402.03300) and 0.02 (arXiv:2203.02155, from memory) show that the "
+      "value matters.")
+def kl_unstated(ctx):
+    m = ctx.model
+    if not clipped(m):
+        return
+    state, v = kl_state(m)
+    if state == "off":
+        yield ctx.finding(
+            f"KL regularisation is switched off ({v.concept} = {shown(v)}): nothing keeps the policy "
+            "near its starting point; if the recipe intends this, accept it with a reason",
+            v.location, level="note", subject=f"off:{v.concept}")
+        return
+    if state == "on" or unresolved(m, "kl.coef"):
+        return  # stated (a non-number or negative value is reported by VOC-2, YML-3 or KL-5)
+    enabled = m.get("kl.enabled")
+    if enabled is not None and enabled.value is True:
+        yield ctx.finding(
+            f"KL is switched on ({enabled.concept} = {shown(enabled)}) but kl.coef is not stated: the "
+            "trainer's default decides its strength", enabled.location, subject="no-coef",
+            key_path="kl.coef")
+        return
+    est = estimator(m)
+    what = f"run.estimator = {est}" if est else "a ratio clip is set"
+    yield ctx.finding(
+        f"this clipped policy-gradient run ({what}) never states KL regularisation (no kl.coef, no "
+        "explicit off): the trainer's default decides silently",
+        anchor(m, "run.estimator", "clip.low", "clip.high", "clip.dual", key_path="kl.coef"),
+        subject="unstated", suggestion="state kl.coef (e.g. 0.04 as in arXiv:2402.03300), or 0 to train "
+                                       "without KL on purpose")
+
+
+@rule("KL-2", "kl-reference-mismatch", "error",
+      "KL is on without a reference model, or a reference model is loaded while KL is off.",
+      "The KL term measures the policy against a reference policy (usually the initial weights). A "
+      "positive coefficient with the reference switched off (or not stated, when the option "
+      "report_unstated is true) either fails at launch or, in trainers that quietly skip the term, "
+      "trains without the regularisation the config asks for: an error. The reverse, a reference "
+      "model configured while KL is explicitly off, keeps a second copy of the weights in memory "
+      "(and a forward pass per batch) for nothing: a warning. Basis: the KL-penalised objective "
+      "(arXiv:2203.02155, from memory; arXiv:2402.03300).",
+      options={"report_unstated": True})
+def kl_reference(ctx):
+    m = ctx.model
+    state, v = kl_state(m)
+    ref = m.get("reference.source")
+    if state == "on":
+        if ref is not None and is_off(ref.value):
+            yield ctx.finding(
+                f"kl.coef = {shown(v)} but the reference model is switched off (reference.source = "
+                f"{shown(ref)}): the KL term has nothing to measure against", v.location,
+                related=[ref.location.with_message("the reference is switched off here")],
+                subject="reference-off")
+        elif ref is None and ctx.options["report_unstated"] and "reference.source" not in m.ambiguous:
+            yield ctx.finding(
+                f"kl.coef = {shown(v)} but no reference model is stated (reference.source not found): "
+                "the KL term needs a reference policy", v.location, subject="reference-unstated",
+                suggestion="state reference.source (the initial policy weights are usual)")
+    elif state == "off" and ref is not None and not is_off(ref.value):
+        yield ctx.finding(
+            f"a reference model is configured but KL is off ({v.concept} = {shown(v)}): a second copy of "
+            "the weights is held in memory and run on every batch for nothing",
+            ref.location, related=[v.location.with_message("KL is switched off here")], level="warning",
+            subject="reference-unused")
+
+
+@rule("KL-3", "kl-counted-twice", "warning", "The KL penalty is applied both in the reward and in the loss.",
+      "A KL penalty can be subtracted from the reward (a per-token penalty before the advantages, "
+      "arXiv:2203.02155, from memory) or added to the loss as a separate term (arXiv:2402.03300). "
+      "Doing both regularises twice with two coefficients that were tuned for one place: the "
+      "effective strength is neither.")
+def kl_twice(ctx):
+    p = ctx.model.get("kl.placement")
+    if p is None or not isinstance(p.value, str) or p.value.strip().lower() != "both":
+        return
+    state, v = kl_state(ctx.model)
+    if state == "off":
+        return
+    yield ctx.finding(f"kl.placement = {shown(p)}: the KL penalty is applied in the reward and in the loss",
+                      p.location, subject="both", suggestion="choose loss or reward")
+
+
+@rule("KL-4", "kl-estimator-unknown", "error", "The KL estimator is not k1, k2 or k3.",
+      "The per-sample KL between policy and reference is approximated by one of three estimators "
+      f"({_K_SOURCE}): k1 = -log r ({_ESTIMATORS['k1']}), k2 = (log r)^2 / 2 ({_ESTIMATORS['k2']}), "
+      f"k3 = (r - 1) - log r ({_ESTIMATORS['k3']}), with r = p_ref / p_policy. A value that is none of "
+      "them is a typo or a trainer-specific name: the trainer refuses it or falls back to its default.")
+def kl_estimator(ctx):
+    v = ctx.model.get("kl.estimator")
+    if v is None or not isinstance(v.value, str):
+        return  # a non-text value is reported by VOC-2
+    name = v.value.strip().lower()
+    if name in _ESTIMATORS:
+        return
+    squeezed = "".join(ch for ch in name if ch.isalnum())
+    if squeezed in _ESTIMATORS:
+        suggestion = f"write {squeezed}"
+    else:
+        suggestion = ("one of k1, k2, k3; k3 is the estimator of the group-relative objective in the loss "
+                      "(arXiv:2402.03300)")
+    yield ctx.finding(f"kl.estimator = {shown(v)} is not a KL estimator: expected k1, k2 or k3", v.location,
+                      subject=name, suggestion=suggestion)
+
+
+@rule("KL-5", "kl-coef-range", "warning", "The KL coefficient is outside the usual range.",
+      "Published recipes use coefficients from 0.001 (arXiv:2501.12948, from memory) through 0.02 "
+      "(arXiv:2203.02155, from memory) to 0.04 (arXiv:2402.03300). Far below, the term does nothing "
+      "measurable; far above, the policy cannot move away from the reference and learns little. The "
+      "range is the options min and max (defaults 1e-4 and 0.5: an order of magnitude beyond the "
+      "published values on either side, common practice). 0 means off (see KL-1). A negative "
+      "coefficient rewards divergence from the reference: an error.",
+      options={"min": 1e-4, "max": 0.5})
+def kl_range(ctx):
+    v = ctx.model.get("kl.coef")
+    if v is None or v.number is None or v.number == 0:
+        return
+    x, lo, hi = v.number, ctx.options["min"], ctx.options["max"]
+    if x < 0:
+        yield ctx.finding(f"kl.coef = {shown(v)} is negative: the penalty becomes a bonus for moving away "
+                          "from the reference", v.location, level="error", subject=x)
+    elif x < lo or x > hi:
+        side = "below" if x < lo else "above"
+        yield ctx.finding(f"kl.coef = {shown(v)} is {side} the usual range {num(lo)} … {num(hi)} "
+                          "(published: 0.001, 0.02, 0.04)", v.location, subject=x)
+
+
+@rule("KL-6", "kl-adaptive-no-horizon", "warning", "An adaptive KL target is set without a horizon.",
+      "An adaptive KL controller moves the coefficient so that the measured KL approaches a target; the "
+      "horizon sets how fast (the proportional controller of Ziegler et al. 2019, arXiv:1909.08593, from "
+      "memory; the adaptive penalty of arXiv:1707.06347). Without a horizon the speed is the trainer's "
+      "default, and a horizon of 0 or less makes the update undefined or run backwards.")
+def kl_adaptive(ctx):
+    m = ctx.model
+    t = m.get("kl.target")
+    if t is None or t.number is None:
+        return
+    h = m.get("kl.horizon")
+    if h is None:
+        if "kl.horizon" in m.ambiguous:
+            return
+        yield ctx.finding(f"kl.target = {shown(t)} sets an adaptive KL controller but kl.horizon is not stated: "
+                          "the trainer's default decides how fast the coefficient moves", t.location,
+                          subject="no-horizon", key_path="kl.horizon")
+    elif h.number is not None and h.number <= 0:
+        yield ctx.finding(f"kl.horizon = {shown(h)} must be positive for the adaptive KL controller "
+                          f"(kl.target = {shown(t)})", h.location,
+                          related=[t.location.with_message("the adaptive target")], subject=h.number)
+
+
+RULES = [kl_unstated, kl_reference, kl_twice, kl_estimator, kl_range, kl_adaptive]

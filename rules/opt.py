@@ -1,0 +1,149 @@
+"""OPT: learning rate, schedule, durability and reproducibility."""
+from __future__ import annotations
+
+import posixpath
+
+from trimtab import rule
+
+from ._common import anchor, num, shown, unresolved
+
+
+@rule("OPT-1", "lr-range", "warning", "The policy learning rate is outside the range used for RL fine-tuning.",
+      "Full-weight RL fine-tuning of language models uses small learning rates: 1e-6 (arXiv:2402.03300) "
+      "and 3e-6 (arXiv:2501.12948, from memory) are published values. A rate far above collapses the "
+      "policy within a few steps; far below, it does not move. The range is the options min and max "
+      "(defaults 1e-8 and 1e-4: two orders of magnitude around the published values, common practice; "
+      "raise max for adapter training, which uses larger rates). A rate of 0 or less is an error: "
+      "nothing is learned, or the update climbs the loss.",
+      options={"min": 1e-8, "max": 1e-4})
+def lr_range(ctx):
+    m = ctx.model
+    v = m.get("optim.lr")
+    if v is not None and v.number is not None:
+        x, lo, hi = v.number, ctx.options["min"], ctx.options["max"]
+        if x <= 0:
+            yield ctx.finding(f"optim.lr = {shown(v)}: the learning rate must be positive", v.location,
+                              level="error", subject=x)
+        elif x < lo or x > hi:
+            side = "below" if x < lo else "above"
+            yield ctx.finding(f"optim.lr = {shown(v)} is {side} the range {num(lo)} … {num(hi)} for RL "
+                              "fine-tuning (published: 1e-6, 3e-6)", v.location, subject=x)
+    c = m.get("critic.lr")
+    if c is not None and c.number is not None and c.number <= 0:
+        yield ctx.finding(f"critic.lr = {shown(c)}: the learning rate must be positive", c.location,
+                          level="error", subject=c.number)
+
+
+@rule("OPT-2", "warmup-not-shorter", "warning", "The learning-rate warm-up is not shorter than the run.",
+      "A warm-up raises the learning rate linearly to its peak over the warm-up steps (common practice). "
+      "With warm-up steps >= the run's total steps the peak rate is never reached, and every step "
+      "trains at a fraction of the rate the config states.", rl_only=False)
+def warmup(ctx):
+    m = ctx.model
+    w, t = m.get("optim.warmup_steps"), m.get("schedule.total_steps")
+    if w is None or t is None or w.number is None or t.number is None or t.number <= 0:
+        return
+    if w.number >= t.number:
+        yield ctx.finding(f"optim.warmup_steps = {shown(w)} is not shorter than the run (schedule.total_steps = "
+                          f"{shown(t)}): the peak learning rate is never reached", w.location,
+                          related=[t.location.with_message("the run's length")], subject=w.number)
+
+
+def _off(v) -> bool:
+    return v.value is False or (v.number is not None and v.number <= 0)
+
+
+@rule("OPT-3", "checkpoint-durability", "warning", "A crash would lose the whole run: no checkpoint before the end.",
+      "A long run that writes no checkpoint before its last step loses everything to one node failure, "
+      "and failures are routine at cluster scale (common practice). Reported when the checkpoint "
+      "interval is not shorter than the run (the first checkpoint would be the last step), or when "
+      "checkpoints are off (0 or false) for a run longer than the option long_run_steps (default 1000 "
+      "steps, common practice: hours of cluster time).",
+      options={"long_run_steps": 1000}, rl_only=False)
+def checkpoint_durability(ctx):
+    m = ctx.model
+    every, total = m.get("checkpoint.every"), m.get("schedule.total_steps")
+    if every is None or total is None or total.number is None or total.number <= 0:
+        return
+    related = [total.location.with_message("the run's length")]
+    if _off(every):
+        limit = ctx.options["long_run_steps"]
+        if total.number > limit:
+            yield ctx.finding(f"checkpoints are off (checkpoint.every = {shown(every)}) for a run of "
+                              f"{shown(total)} steps (longer than {num(limit)}): a crash loses everything",
+                              every.location, related=related, subject="off")
+    elif every.number is not None and every.number >= total.number:
+        yield ctx.finding(f"checkpoint.every = {shown(every)} is not shorter than the run (schedule.total_steps = "
+                          f"{shown(total)}): no checkpoint is written before the end, so a crash loses everything",
+                          every.location, related=related, subject=every.number)
+
+
+_DIRS = ("checkpoint.dir", "output.dir")
+
+
+def _norm(value) -> str | None:
+    """A directory as a comparable string; None for values that are not plain paths (templated
+    ones such as ``runs/${name}`` differ between runs even when written the same)."""
+    if not isinstance(value, str):
+        return None
+    text = value.strip()
+    if not text or any(ch in text for ch in "${}%*?"):
+        return None
+    text = text.replace("\\", "/")
+    norm = posixpath.normpath(text)
+    return norm if norm not in (".", "/") else None
+
+
+def _label(entry) -> str:
+    return entry.path if entry.index == 0 else f"{entry.path} (document {entry.index + 1})"
+
+
+@rule("OPT-4", "shared-output-dir", "warning", "Two run configs write to the same checkpoint or output directory.",
+      "Two runs that share a checkpoint or output directory overwrite each other's checkpoints, and a "
+      "resumed run may load the other run's weights (common practice: one directory per run). This rule "
+      "sees every run config of one invocation: each run of a clash is reported, pointing at the others. "
+      "Directories are compared as written, after normalising '.', '..' and trailing slashes; templated "
+      "paths (containing $, { or %) are skipped, because they differ per run.",
+      needs=_DIRS, scope="set")
+def shared_dir(ctx):
+    owners: dict[str, list[tuple[object, str]]] = {}
+    seen = set()
+    for entry in ctx.runs:
+        if (entry.path, entry.index) in seen:
+            continue
+        seen.add((entry.path, entry.index))
+        dirs_here = set()
+        for concept in _DIRS:
+            v = entry.values.get(concept)
+            d = _norm(v.value) if v is not None else None
+            if d is None or d in dirs_here:
+                continue  # one run writing checkpoints inside its own output directory is fine
+            dirs_here.add(d)
+            owners.setdefault(d, []).append((entry, concept))
+    for d in sorted(owners):
+        group = owners[d]
+        if len(group) < 2:
+            continue
+        for entry, concept in group:
+            others = [(e, c) for e, c in group if e is not entry]
+            v = entry.values[concept]
+            related = [e.values[c].location.with_message(f"{_label(e)} writes here too ({c})") for e, c in others]
+            names = ", ".join(_label(e) for e, _c in others)
+            yield ctx.finding(f"{concept} = {v.value}: also written to by {names}; the runs overwrite each "
+                              "other's checkpoints and outputs", v.location, related=related, subject=d)
+
+
+@rule("OPT-5", "seed-unstated", "note", "No random seed is stated.",
+      "Without a seed, sampling, data order and initialisation differ between launches, and a "
+      "surprising result cannot be reproduced or bisected (common practice: state run.seed).",
+      rl_only=False)
+def seed_unstated(ctx):
+    m = ctx.model
+    if unresolved(m, "run.seed"):
+        return
+    yield ctx.finding("no random seed (run.seed) is stated: the run cannot be reproduced",
+                      anchor(m, "run.name", "run.estimator", key_path="run.seed"), subject="unstated",
+                      suggestion="state a seed, e.g. seed: 1")
+
+
+RULES = [lr_range, warmup, checkpoint_durability, shared_dir, seed_unstated]
