@@ -111,7 +111,7 @@ def clip_never_acts(ctx):
             parts.append(f"{num(rollouts.value)} completions per step")
     if mini is not None:
         parts.append(f"/ {num(mini.value)} per mini-batch")
-    parts.append(f"x {num(epochs.value)} epoch(s)" if epochs is not None else "x 1 epoch (optim.epochs not stated)")
+    parts.append(f"x {num(epochs.value)} epoch{'' if epochs.value == 1 else 's'}" if epochs is not None else "x 1 epoch (optim.epochs not stated)")
     related = []
     for c, what in (("batch.rollouts", "completions per step"), ("batch.prompts", "prompts per step"),
                     ("rollout.group_size", "group size"), ("optim.epochs", "epochs")):

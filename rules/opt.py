@@ -127,7 +127,8 @@ def shared_dir(ctx):
         for entry, concept in group:
             others = [(e, c) for e, c in group if e is not entry]
             v = entry.values[concept]
-            related = [e.values[c].location.with_message(f"{_label(e)} writes here too ({c})") for e, c in others]
+            related = [e.values[c].location.with_message(
+                f"the same directory ({c}{f' of document {e.index + 1}' if e.index else ''})") for e, c in others]
             names = ", ".join(_label(e) for e, _c in others)
             yield ctx.finding(f"{concept} = {v.value}: also written to by {names}; the runs overwrite each "
                               "other's checkpoints and outputs", v.location, related=related, subject=d)
