@@ -1,0 +1,85 @@
+"""CLP rules: ratio clipping and gradient-norm clipping."""
+from __future__ import annotations
+
+import pytest
+import yaml
+
+from conftest import check_json, run_cli
+from optim_support import check, fx, noisy, places
+
+BAD = [
+    ("CLP-1", ["bad.yaml"], [("bad.yaml", 3, 14, "warning"), ("bad.yaml", 29, 9, "warning")]),
+    ("CLP-2", ["bad.yaml"], [("bad.yaml", 13, 8, "error"), ("bad.yaml", 14, 9, "error")]),
+    ("CLP-3", ["bad.yaml"], [("bad.yaml", 13, 12, "warning")]),
+    ("CLP-4", ["bad.yaml"], [("bad.yaml", 12, 9, "warning")]),
+    ("CLP-5", ["bad.yaml"], [("bad.yaml", 15, 9, "error")]),
+    ("CLP-6", ["bad.yaml"], [("bad.yaml", 12, 9, "note"), ("bad.yaml", 33, 9, "note")]),
+    ("CLP-7", ["bad.yaml"], [("bad.yaml", 19, 18, "error")]),
+    ("CLP-8", ["bad.yaml"], [("bad.yaml", 18, 7, "note")]),
+]
+
+GOOD = [
+    ("CLP-1", "good.yaml"), ("CLP-2", "good.yaml"), ("CLP-3", "good.yaml"), ("CLP-3", "good-accepted.yaml"),
+    ("CLP-4", "good.yaml"), ("CLP-5", "good.yaml"), ("CLP-6", "good.yaml"), ("CLP-6", "good-epochs.yaml"),
+    ("CLP-7", "good.yaml"), ("CLP-8", "good.yaml"),
+]
+
+
+@pytest.mark.parametrize("rule_id,names,expected", BAD, ids=[r for r, _n, _e in BAD])
+def test_bad_fixture_fires_at_the_line(rule_id, names, expected):
+    assert places(check(rule_id, *names), rule_id) == expected
+
+
+@pytest.mark.parametrize("rule_id,name", GOOD, ids=[f"{r}-{n}" for r, n in GOOD])
+def test_good_fixture_is_silent(rule_id, name):
+    assert noisy(check(rule_id, name)) == []
+
+
+def test_published_clip_values_are_in_the_fixtures():
+    # Read by PyYAML (a reference reader), not by trimtab.
+    clip = yaml.safe_load(fx("CLP-4", "good.yaml").read_text())["clip"]
+    assert (clip["low"], clip["high"]) == (0.2, 0.28)  # arXiv:2503.14476
+    assert yaml.safe_load(fx("CLP-5", "good.yaml").read_text())["clip"]["dual"] == 3.0  # arXiv:1912.09729, from memory
+
+
+def test_clip_never_acts_states_the_arithmetic():
+    r = check("CLP-6", "bad.yaml")
+    first, second = (f["message"] for f in r.of("CLP-6"))
+    prompts, group, mini = 64, 8, 512  # the fixture's values
+    assert first.startswith(f"{prompts * group} completions per step ({prompts} prompts x group size {group}) "
+                            f"/ {mini} per mini-batch x 1 epoch (optim.epochs not stated) = 1 optimiser update")
+    assert second.startswith("256 completions per step / 256 per mini-batch x 1 epoch = 1 optimiser update")
+    related = [(x["line"], x["col"]) for x in r.of("CLP-6")[0]["related"]]
+    assert related == [(11, 12), (8, 15)]  # batch.prompts, rollout.group_size
+
+
+def test_lower_clip_of_one_is_acceptable_with_a_reason(tmp_path):
+    text = fx("CLP-3", "good-accepted.yaml").read_text()
+    unaccepted = "\n".join(l for l in text.splitlines() if "trimtab: accept" not in l) + "\n"
+    p = tmp_path / "u.yaml"
+    p.write_text(unaccepted)
+    assert places(check_json(p), "CLP-3") == [("u.yaml", 13, 8, "warning")]
+
+
+def test_clip_rules_are_silent_without_their_inputs(tmp_path):
+    # A REINFORCE run with no clip anywhere: no clipped objective, nothing to report.
+    p = tmp_path / "r.yaml"
+    p.write_text(fx("CLP-1", "good.yaml").read_text().replace("grpo", "reinforce").replace(
+        "clip:\n  epsilon: 0.2\n", ""))
+    r = check_json(p)
+    assert [f for f in r.findings if f["rule"].startswith("CLP-")] == []
+
+
+@pytest.mark.parametrize("rule_id", [f"CLP-{n}" for n in range(1, 9)])
+def test_rules_command_shows_the_rationale_with_sources(rule_id):
+    from trimtab.engine import Registry
+
+    rule = Registry().rules[rule_id]
+    out = run_cli("rules", rule_id).out
+    assert rule.rationale in out
+    assert "arXiv:" in rule.rationale or "common practice" in rule.rationale
+
+
+def test_rules_command_names_the_published_clip_sources():
+    assert "arXiv:2503.14476" in run_cli("rules", "CLP-4").out
+    assert "arXiv:1912.09729" in run_cli("rules", "CLP-5").out

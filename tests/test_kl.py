@@ -1,0 +1,114 @@
+"""KL rules: fixtures with line-exact findings, published coefficients as check points."""
+from __future__ import annotations
+
+import pytest
+import yaml
+
+from conftest import run_cli
+from optim_support import check, fx, noisy, places
+
+BAD = [
+    ("KL-1", ["bad.yaml"], [("bad.yaml", 3, 14, "warning")]),
+    ("KL-1", ["bad-off.yaml"], [("bad-off.yaml", 12, 9, "note")]),
+    ("KL-1", ["bad-enabled.yaml"], [("bad-enabled.yaml", 16, 12, "warning")]),
+    ("KL-2", ["bad.yaml"], [("bad.yaml", 14, 9, "error")]),
+    ("KL-2", ["bad-unstated.yaml"], [("bad-unstated.yaml", 12, 9, "error")]),
+    ("KL-2", ["bad-unused.yaml"], [("bad-unused.yaml", 6, 9, "warning")]),
+    ("KL-3", ["bad.yaml"], [("bad.yaml", 17, 14, "warning")]),
+    ("KL-4", ["bad.yaml"], [("bad.yaml", 16, 14, "error"), ("bad.yaml", 34, 14, "error")]),
+    ("KL-5", ["bad.yaml"], [("bad.yaml", 11, 9, "warning"), ("bad.yaml", 24, 9, "warning"),
+                            ("bad.yaml", 37, 9, "error")]),
+    ("KL-6", ["bad.yaml"], [("bad.yaml", 13, 11, "warning"), ("bad.yaml", 29, 12, "warning")]),
+]
+
+GOOD = [
+    ("KL-1", "good.yaml"), ("KL-1", "good-accepted.yaml"), ("KL-2", "good.yaml"), ("KL-2", "good-off.yaml"),
+    ("KL-3", "good.yaml"), ("KL-4", "good.yaml"), ("KL-5", "good.yaml"), ("KL-6", "good.yaml"),
+]
+
+
+@pytest.mark.parametrize("rule_id,names,expected", BAD, ids=[f"{r}-{n[0]}" for r, n, _e in BAD])
+def test_bad_fixture_fires_at_the_line(rule_id, names, expected):
+    assert places(check(rule_id, *names), rule_id) == expected
+
+
+@pytest.mark.parametrize("rule_id,name", GOOD, ids=[f"{r}-{n}" for r, n in GOOD])
+def test_good_fixture_is_silent(rule_id, name):
+    r = check(rule_id, name)
+    assert noisy(r) == []
+
+
+def test_published_kl_coefficients_are_in_the_fixture():
+    # Read by a reference library (PyYAML, YAML 1.1), not by trimtab: the check points are really there.
+    docs = list(yaml.safe_load_all(fx("KL-5", "good.yaml").read_text()))
+    # 0.04: arXiv:2402.03300; 0.02: arXiv:2203.02155 (from memory); 0.001: arXiv:2501.12948 (from memory)
+    assert [d["kl"]["coef"] for d in docs] == [0.04, 0.02, 0.001]
+
+
+def test_kl_off_note_is_suppressed_by_an_acceptance(tmp_path):
+    text = fx("KL-1", "bad-off.yaml").read_text()
+    before = check_text(tmp_path / "a.yaml", text)
+    assert places(before, "KL-1") == [("a.yaml", 12, 9, "note")]
+    accepted = text.replace("  coef: 0.0\n", "  coef: 0.0  # trimtab: accept KL-1 -- recipe trains without KL\n")
+    assert accepted != text
+    after = check_text(tmp_path / "b.yaml", accepted)
+    assert after.of("KL-1") == []
+    assert [f for f in after.findings if f["rule"].startswith("ACC-")] == []
+    # Without a reason the acceptance accepts nothing (and says so).
+    bare = text.replace("  coef: 0.0\n", "  coef: 0.0  # trimtab: accept KL-1\n")
+    r = check_text(tmp_path / "c.yaml", bare)
+    assert places(r, "KL-1") == [("c.yaml", 12, 9, "note")]
+    assert [f["rule"] for f in r.findings if f["rule"].startswith("ACC-")] == ["ACC-1"]
+
+
+def check_text(path, text):
+    from conftest import check_json
+
+    path.write_text(text)
+    return check_json(path)
+
+
+def test_kl_off_is_not_reported_for_a_run_without_a_clipped_objective(tmp_path):
+    r = check_text(tmp_path / "r.yaml", fx("KL-2", "good-off.yaml").read_text())
+    assert r.of("KL-1") == []  # run.estimator = reinforce, no clip: KL-1 does not apply
+
+
+def test_kl_range_is_an_option(tmp_path):
+    (tmp_path / "trimtab.toml").write_text('[rules."KL-5"]\nmax = 3.0\n')
+    (tmp_path / "bad.yaml").write_text(fx("KL-5", "bad.yaml").read_text())
+    from conftest import check_json
+
+    r = check_json(tmp_path / "bad.yaml", cwd=tmp_path)
+    assert places(r, "KL-5") == [("bad.yaml", 24, 9, "warning"), ("bad.yaml", 37, 9, "error")]
+
+
+def test_messages_state_the_numbers():
+    r = check("KL-5", "bad.yaml")
+    msgs = [f["message"] for f in r.of("KL-5")]
+    assert "kl.coef = 2.0 is above the usual range 0.0001 … 0.5" in msgs[0]
+    assert "kl.coef = 1.0e-6 is below" in msgs[1]
+    r = check("KL-4", "bad.yaml")
+    assert r.of("KL-4")[0]["suggestion"] == "write k3"
+
+
+KL_IDS = ["KL-1", "KL-2", "KL-3", "KL-4", "KL-5", "KL-6"]
+
+
+@pytest.mark.parametrize("rule_id", KL_IDS)
+def test_rules_command_shows_the_rationale_with_sources(rule_id):
+    from trimtab.engine import Registry
+
+    rule = Registry().rules[rule_id]
+    r = run_cli("rules", rule_id)
+    assert r.code == 0
+    assert rule.rationale in r.out and rule.summary in r.out
+    assert "arXiv:" in rule.rationale or "common practice" in rule.rationale or "Schulman 2020" in rule.rationale
+
+
+def test_rules_command_names_the_published_kl_sources():
+    out = run_cli("rules", "KL-5").out
+    for source in ("arXiv:2402.03300", "arXiv:2203.02155", "arXiv:2501.12948"):
+        assert source in out
+    assert "min = 0.0001" in out and "max = 0.5" in out
+    out = run_cli("rules", "KL-4").out
+    assert "Approximating KL Divergence" in out and all(k in out for k in ("k1", "k2", "k3"))
