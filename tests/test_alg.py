@@ -1,0 +1,63 @@
+"""ALG rules: estimator, value model and GAE constants agree."""
+from __future__ import annotations
+
+import pytest
+import yaml
+from hypothesis import given, settings, strategies as st
+
+from conftest import check_json, run_cli
+from optim_support import check, fx, noisy, places
+
+BAD = [
+    ("ALG-1", ["bad.yaml"], [("bad.yaml", 8, 9, "warning"), ("bad.yaml", 28, 15, "warning")]),
+    ("ALG-2", ["bad.yaml"], [("bad.yaml", 6, 9, "error"), ("bad.yaml", 21, 14, "error")]),
+    ("ALG-3", ["bad.yaml"], [("bad.yaml", 19, 10, "error"), ("bad.yaml", 20, 11, "error")]),
+]
+GOOD = [("ALG-1", "good.yaml"), ("ALG-2", "good.yaml"), ("ALG-3", "good.yaml")]
+
+
+@pytest.mark.parametrize("rule_id,names,expected", BAD, ids=[r for r, _n, _e in BAD])
+def test_bad_fixture_fires_at_the_line(rule_id, names, expected):
+    assert places(check(rule_id, *names), rule_id) == expected
+
+
+@pytest.mark.parametrize("rule_id,name", GOOD, ids=[r for r, _n in GOOD])
+def test_good_fixture_is_silent(rule_id, name):
+    assert noisy(check(rule_id, name)) == []
+
+
+def test_ppo_defaults_are_in_the_fixture():
+    # gamma 0.99, lambda 0.95: arXiv:1707.06347 (from memory); read by PyYAML, a reference reader.
+    gae = next(yaml.safe_load_all(fx("ALG-3", "good.yaml").read_text()))["gae"]
+    assert (gae["gamma"], gae["lambda"]) == (0.99, 0.95)
+
+
+def test_critic_unused_points_at_the_estimator_too():
+    f = check("ALG-1", "bad.yaml").of("ALG-1")[0]
+    assert [(x["line"], x["col"]) for x in f["related"]] == [(3, 14)]
+    assert "run.estimator = grpo needs no value model" in f["message"]
+
+
+_TEMPLATE = fx("ALG-2", "good.yaml").read_text()
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.floats(min_value=-3, max_value=3, allow_nan=False))
+def test_gamma_outside_unit_interval_is_an_error(tmp_path_factory, x):
+    text = f"{x:.6e}"  # a point and a signed exponent: the same float under YAML 1.1 and 1.2
+    written = float(text)
+    p = tmp_path_factory.mktemp("g") / "g.yaml"
+    p.write_text(_TEMPLATE.replace("gamma: 0.99", f"gamma: {text}"))
+    r = check_json(p)
+    assert r.of("YML-3") == []
+    expected = [] if 0 <= written <= 1 else [("g.yaml", 19, 10, "error")]
+    assert places(r, "ALG-3") == expected
+
+
+@pytest.mark.parametrize("rule_id", ["ALG-1", "ALG-2", "ALG-3"])
+def test_rules_command_shows_the_rationale_with_sources(rule_id):
+    from trimtab.engine import Registry
+
+    rule = Registry().rules[rule_id]
+    out = run_cli("rules", rule_id).out
+    assert rule.rationale in out and "arXiv:" in rule.rationale

@@ -1,0 +1,118 @@
+"""OPT rules: learning rate, schedule, durability (including the cross-file rule), seed."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+import yaml
+
+from conftest import REPO, check_json, run_cli
+from optim_support import check, fx, noisy, places
+
+BAD = [
+    ("OPT-1", ["bad.yaml"], [("bad.yaml", 15, 7, "warning"), ("bad.yaml", 31, 7, "error"),
+                             ("bad.yaml", 39, 7, "error"), ("bad.yaml", 49, 7, "warning")]),
+    ("OPT-2", ["bad.yaml"], [("bad.yaml", 17, 17, "warning")]),
+    ("OPT-3", ["bad.yaml"], [("bad.yaml", 19, 10, "warning"), ("bad.yaml", 38, 13, "warning")]),
+    ("OPT-5", ["bad.yaml"], [("bad.yaml", 3, 14, "note")]),
+]
+GOOD = [("OPT-1", "good.yaml"), ("OPT-2", "good.yaml"), ("OPT-3", "good.yaml"), ("OPT-5", "good.yaml")]
+
+
+@pytest.mark.parametrize("rule_id,names,expected", BAD, ids=[r for r, _n, _e in BAD])
+def test_bad_fixture_fires_at_the_line(rule_id, names, expected):
+    assert places(check(rule_id, *names), rule_id) == expected
+
+
+@pytest.mark.parametrize("rule_id,name", GOOD, ids=[r for r, _n in GOOD])
+def test_good_fixture_is_silent(rule_id, name):
+    assert noisy(check(rule_id, name)) == []
+
+
+def test_published_learning_rates_are_in_the_fixture():
+    # 1e-6: arXiv:2402.03300; 3e-6: arXiv:2501.12948 (from memory). PyYAML (YAML 1.1) reads both as
+    # floats, so the fixture is written the way both YAML versions agree on.
+    docs = list(yaml.safe_load_all(fx("OPT-1", "good.yaml").read_text()))
+    rates = [d["optim"].get("lr", d["optim"].get("learning_rate")) for d in docs]
+    assert rates == [1e-6, 3e-6] and all(isinstance(x, float) for x in rates)
+
+
+def test_checkpoint_option_long_run_steps(tmp_path):
+    (tmp_path / "trimtab.toml").write_text('[rules."OPT-3"]\nlong_run_steps = 5000\n')
+    (tmp_path / "b.yaml").write_text(fx("OPT-3", "bad.yaml").read_text())
+    r = check_json(tmp_path / "b.yaml", cwd=tmp_path)
+    assert places(r, "OPT-3") == [("b.yaml", 19, 10, "warning")]  # 2000 steps is no longer "long"
+
+
+# --- the cross-file rule ----------------------------------------------------------------------
+def _shared(*names, jobs=None):
+    args = ("--jobs", str(jobs)) if jobs else ()
+    return check("OPT-4", *names, args=args)
+
+
+def _summary(result):
+    return [(f["rule"], f["location"]["path"], f["location"]["line"], f["location"]["col"], f["message"],
+             [(x["path"], x["line"], x["col"], x.get("message")) for x in f["related"]], f["fingerprint"])
+            for f in result.findings]
+
+
+def test_two_runs_sharing_a_checkpoint_dir_are_both_reported_each_pointing_at_the_other():
+    r = _shared("bad-a.yaml", "bad-b.yaml")
+    assert places(r, "OPT-4") == [("bad-a.yaml", 19, 8, "warning"), ("bad-b.yaml", 19, 8, "warning")]
+    a, b = r.of("OPT-4")
+    assert [(Path(x["path"]).name, x["line"], x["col"]) for x in a["related"]] == [("bad-b.yaml", 19, 8)]
+    assert [(Path(x["path"]).name, x["line"], x["col"]) for x in b["related"]] == [("bad-a.yaml", 19, 8)]
+    # ./checkpoints/wren-7b-tidepool/ and checkpoints/wren-7b-tidepool are the same directory
+    assert "checkpoints/wren-7b-tidepool" in a["message"] and "bad-b.yaml" in a["message"]
+
+
+def test_a_run_with_only_an_output_dir_takes_part():
+    r = _shared("bad-a.yaml", "bad-b.yaml", "bad-c.yaml")
+    assert places(r, "OPT-4") == [("bad-a.yaml", 19, 8, "warning"), ("bad-b.yaml", 19, 8, "warning"),
+                                  ("bad-b.yaml", 20, 13, "warning"), ("bad-c.yaml", 18, 13, "warning")]
+
+
+@pytest.mark.parametrize("jobs", [2, 3])
+def test_the_result_does_not_depend_on_the_number_of_jobs(jobs):
+    one = _shared("bad-a.yaml", "bad-b.yaml", "bad-c.yaml")
+    many = _shared("bad-a.yaml", "bad-b.yaml", "bad-c.yaml", jobs=jobs)
+    assert one.of("OPT-4") and _summary(many) == _summary(one)
+    assert many.code == one.code == 1
+
+
+def test_a_single_file_has_no_partner():
+    assert _shared("bad-a.yaml").of("OPT-4") == []
+    assert _shared("bad-a.yaml", jobs=2).of("OPT-4") == []
+
+
+def test_own_dirs_and_templated_dirs_are_silent():
+    r = _shared("good-a.yaml", "good-b.yaml", jobs=2)
+    assert noisy(r) == []
+
+
+def test_two_documents_of_one_file_are_two_runs(tmp_path):
+    a = fx("OPT-4", "bad-a.yaml").read_text()
+    p = tmp_path / "two.yaml"
+    p.write_text(a + "---\n" + a)
+    r = check_json(p)
+    assert a.count("\n") == 20  # so the second document's lines are 22..41 (line 21 is '---')
+    assert places(r, "OPT-4") == [("two.yaml", 19, 8, "warning"), ("two.yaml", 20, 13, "warning"),
+                                  ("two.yaml", 40, 8, "warning"), ("two.yaml", 41, 13, "warning")]
+    assert "document 2" in r.of("OPT-4")[0]["related"][0]["message"]
+
+
+@pytest.mark.parametrize("rule_id", [f"OPT-{n}" for n in range(1, 6)])
+def test_rules_command_shows_the_rationale_with_sources(rule_id):
+    from trimtab.engine import Registry
+
+    rule = Registry().rules[rule_id]
+    out = run_cli("rules", rule_id).out
+    assert rule.rationale in out
+    assert "arXiv:" in rule.rationale or "common practice" in rule.rationale
+
+
+def test_rules_command_names_the_published_lr_sources():
+    out = run_cli("rules", "OPT-1").out
+    assert "arXiv:2402.03300" in out and "arXiv:2501.12948" in out
+    out = run_cli("rules", "OPT-4").out
+    assert "Needs: checkpoint.dir, output.dir" in out
