@@ -34,6 +34,7 @@ class FileResult:
     skipped: bool = False  # read, but not an RL run config
     entries: list[SetEntry] = field(default_factory=list)
     crashed: bool = False
+    set_accepts: bool = False  # the file has acceptance comments naming a set-scope rule
 
 
 @dataclass
@@ -131,7 +132,10 @@ class Checker:
                     values = {c: _light(model.get(c)) for c in wanted if model.get(c) is not None}
                     res.entries.append(SetEntry(shown, index, values))
             res.skipped = res.runs == 0
-        res.findings = filtering.apply_acceptances(res.findings, doc.text, shown, self.active_ids)
+        # Acceptances of set-scope rules are applied once the whole set has been checked (accept_set).
+        set_ids = {r.id for r, _o, _l in self.rules("set")}
+        res.findings = filtering.apply_acceptances(res.findings, doc.text, shown, self.active_ids - set_ids)
+        res.set_accepts = bool(set_ids) and any(set_ids & set(a.ids) for a in filtering.acceptances(doc.text))
         for extra_path, extra_text in self.composer.texts(doc):
             res.findings = filtering.apply_acceptances(res.findings, extra_text, extra_path, self.active_ids,
                                                        report_unused=False)
@@ -141,6 +145,23 @@ class Checker:
         found, crashed = run_rule(r, ctx, path)
         res.findings.extend(found)
         res.crashed = res.crashed or crashed
+
+    def accept_set(self, found: list[Finding], results: list[FileResult], files: list[tuple[str, str]]):
+        """Apply the files' acceptance comments to the set-scope findings."""
+        real = {shown: path for path, shown in files}
+        set_ids = {r.id for r, _o, _l in self.rules("set")}
+        by_path: dict[str, list[Finding]] = {}
+        for f in found:
+            by_path.setdefault(f.location.path, []).append(f)
+        commented = [r.path for r in results if r.set_accepts]
+        out = [f for p, fs in by_path.items() if p not in commented for f in fs]
+        for path in commented:
+            doc = loader.load(real.get(path, path), path, self.settings.limits)
+            # Unused ones are not reported: whether a set rule fires depends on which files were
+            # checked together (a pre-commit run sees only the changed ones).
+            out.extend(filtering.apply_acceptances(by_path.get(path, []), doc.text, path, set_ids,
+                                                   report_unused=False))
+        return out
 
     def check_set(self, entries: list[SetEntry]) -> tuple[list[Finding], bool]:
         out, crashed = [], False
@@ -207,6 +228,7 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
         entries.extend(res.entries)
         crashed = crashed or res.crashed
     set_findings, set_crashed = checker.check_set(entries)
+    set_findings = checker.accept_set(set_findings, results, files)
     findings.extend(set_findings)
     findings.sort(key=Finding.sort_key)
     return RunResult(findings, len(results), sum(r.runs for r in results),

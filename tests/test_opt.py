@@ -116,3 +116,29 @@ def test_rules_command_names_the_published_lr_sources():
     assert "arXiv:2402.03300" in out and "arXiv:2501.12948" in out
     out = run_cli("rules", "OPT-4").out
     assert "Needs: checkpoint.dir, output.dir" in out
+
+
+def _accepting_copy(tmp_path):
+    for name in ("bad-a.yaml", "bad-b.yaml"):
+        (tmp_path / name).write_text(fx("OPT-4", name).read_text())
+    a = tmp_path / "bad-a.yaml"
+    text = a.read_text()
+    line = "  dir: checkpoints/wren-7b-tidepool\n"
+    assert line in text
+    a.write_text(text.replace(line, line[:-1] + "  # trimtab: accept OPT-4 -- run B resumes from run A's weights\n"))
+    return tmp_path
+
+
+@pytest.mark.parametrize("jobs", [1, 2])
+def test_an_acceptance_comment_suppresses_the_cross_file_finding_in_its_own_file(tmp_path, jobs):
+    d = _accepting_copy(tmp_path)
+    r = check_json(d / "bad-a.yaml", d / "bad-b.yaml", args=("--jobs", str(jobs)), cwd=d)
+    assert places(r, "OPT-4") == [("bad-b.yaml", 19, 8, "warning")]  # the other file did not accept it
+    assert [f for f in r.findings if f["rule"].startswith("ACC-")] == []
+
+
+def test_a_cross_file_acceptance_is_not_called_unused_when_its_partner_is_not_checked(tmp_path):
+    # A pre-commit run sees only the changed file: the acceptance must not be reported for removal.
+    d = _accepting_copy(tmp_path)
+    r = check_json(d / "bad-a.yaml", cwd=d)
+    assert r.findings == [] and r.code == 0
