@@ -112,3 +112,9 @@ def test_rules_command_names_the_published_kl_sources():
     assert "min = 0.0001" in out and "max = 0.5" in out
     out = run_cli("rules", "KL-4").out
     assert "Approximating KL Divergence" in out and all(k in out for k in ("k1", "k2", "k3"))
+
+
+def test_an_ambiguous_kl_coefficient_is_not_called_missing(tmp_path):
+    text = fx("KL-1", "bad.yaml").read_text() + "actor:\n  kl_coef: 0.04\nreward:\n  kl_coef: 0.02\n"
+    r = check_text(tmp_path / "amb.yaml", text)
+    assert [f["rule"] for f in r.findings if f["rule"] in ("VOC-1", "KL-1", "KL-2", "KL-5")] == ["VOC-1"]
