@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from trimtab import rule
 
-from ._common import CRITIC_FREE, GAE_BASED, is_off, shown, unresolved
+from ._common import CRITIC_FREE, GAE_BASED, is_off, shown
 
 
 def _critic(m):
@@ -48,7 +48,7 @@ def gae_without_critic(ctx):
     if est not in GAE_BASED:
         return
     state, v = _critic(m)
-    if state == "on" or unresolved(m, "critic.source") and state == "unstated":
+    if state == "on" or (state == "unstated" and "critic.source" in m.ambiguous):
         return
     if state == "off":
         yield ctx.finding(f"run.estimator = {est} computes GAE advantages from a value model, but the value model "

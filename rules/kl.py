@@ -141,8 +141,8 @@ def kl_estimator(ctx):
       options={"min": 1e-4, "max": 0.5})
 def kl_range(ctx):
     v = ctx.model.get("kl.coef")
-    if v is None or v.number is None or v.number == 0:
-        return
+    if v is None or v.number is None or v.number == 0 or kl_state(ctx.model)[0] == "off":
+        return  # 0 or switched off: KL-1 reports it
     x, lo, hi = v.number, ctx.options["min"], ctx.options["max"]
     if x < 0:
         yield ctx.finding(f"kl.coef = {shown(v)} is negative: the penalty becomes a bonus for moving away "
