@@ -90,9 +90,10 @@ def dual_clip(ctx):
 
 @rule("CLP-6", "clip-never-acts", "note", "One optimiser update per rollout batch: the ratio clip never acts.",
       "With exactly one optimiser update per rollout batch, the update is computed with the weights that "
-      "sampled the batch, so the probability ratio pi / pi_old is 1 for every token and the clip "
-      "(arXiv:1707.06347) has nothing to bound: the objective is the plain policy gradient. This is not "
-      "wrong (arXiv:2402.03300 trains with a single update per exploration stage), but the clip settings "
+      "sampled the batch, so the probability ratio pi / pi_old is 1 for every token (up to numerical "
+      "differences between the sampler and the trainer) and the clip (arXiv:1707.06347) has nothing to "
+      "bound: the objective is the plain policy gradient. This is not wrong (arXiv:2402.03300 trains with "
+      "a single update per exploration stage, from memory), but the clip settings "
       "then have no effect, and any tuning of them is wasted. updates = rollouts / mini-batch x epochs; an "
       "unstated optim.epochs counts as 1.")
 def clip_never_acts(ctx):
