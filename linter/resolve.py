@@ -47,9 +47,9 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     mapped = set()
     for concept, spec in opts.keys.items():
         node = _at(root, spec.key)
-        mapped.add(concept)
         if node is None:
-            continue
+            continue  # this file does not use the mapped layout: aliases and native names apply
+        mapped.add(concept)
         _store(model, concept, node, "keymap", spec.key, spec)
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
