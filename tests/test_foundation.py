@@ -298,3 +298,19 @@ def test_every_finding_location_is_a_pyyaml_node_mark():
                 assert (loc["line"], loc["col"]) in marks, (f["rule"], path, loc)
                 checked += 1
     assert checked > 0
+
+
+def test_install_adds_no_generic_top_level_modules(tmp_path):
+    # design 7: the source folders linter/ and rules/ install as trimtab / trimtab_rules only
+    code = ("import importlib.util as u, sys; "
+            "print(u.find_spec('linter') is None, u.find_spec('rules') is None, "
+            "u.find_spec('trimtab') is not None, u.find_spec('trimtab_rules') is not None)")
+    out = subprocess.run([sys.executable, "-c", code], cwd=tmp_path, capture_output=True, text=True)
+    assert out.stdout.split() == ["True", "True", "True", "True"], out.stdout + out.stderr
+
+
+def test_builtin_rules_register_through_the_entry_point_group():
+    from importlib.metadata import entry_points
+
+    eps = {ep.name: ep.value for ep in entry_points(group="trimtab")}
+    assert eps.get("builtin") == "trimtab_rules"
