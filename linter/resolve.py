@@ -120,20 +120,22 @@ def _leaves(root: Node):
 
 
 def _at(root: Node, key: str) -> Node | None:
+    """The node at a dotted key path (list items by index); a flat key written with dots in its
+    name (``"batch.mini": 96``) is found too."""
+    if isinstance(root, Mapping):
+        flat = root.get(key)
+        if flat is not None:
+            return flat
     node = root
     for part in key.split("."):
         if isinstance(node, Mapping):
-            nxt = node.get(part)
-            if nxt is None and "." not in part:
-                nxt = None
-            node = nxt
+            node = node.get(part)
         elif isinstance(node, Sequence) and part.isdigit() and int(part) < len(node.items):
             node = node.items[int(part)]
         else:
             return None
         if node is None:
-            # a flat dotted key written as one key
-            return root.get(key) if isinstance(root, Mapping) else None
+            return None
     return node
 
 
