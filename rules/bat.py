@@ -125,6 +125,11 @@ def micro_batch_fit(ctx):
     if not mini or not dp:
         return
     gs = settled(m, "rollout.group_size") or 1
+    rollouts = settled(m, "batch.rollouts")
+
+    def minis(unit):
+        return (near_divisors(rollouts, mini, unit) if rollouts else []) or near_multiples(mini, unit)
+
     mini_loc = m.values["batch.mini"].location if "batch.mini" in m.values else m.loc("batch.mini")
     rel = related(m, "train.data_parallel")
     if mini % dp:
@@ -132,7 +137,7 @@ def micro_batch_fit(ctx):
         yield ctx.finding(
             f"a mini-batch of {mini} completions does not split over {dp} data-parallel ranks: "
             f"{remainder(mini, dp)}", mini_loc, related=rel,
-            suggestion=f"use a mini-batch of {either(near_multiples(mini, unit))}", subject=(mini, dp))
+            suggestion=f"use a mini-batch of {either(minis(unit))}", subject=(mini, dp))
         return
     share = mini // dp
     if micro:
@@ -140,7 +145,7 @@ def micro_batch_fit(ctx):
         if share % micro:
             unit = lcm(dp * micro, gs if gs > 1 else 1)
             micros = [d for d in near_divisors(share, micro) if d < micro][:1]
-            hints = [f"a mini-batch of {either(near_multiples(mini, unit))}"]
+            hints = [f"a mini-batch of {either(minis(unit))}"]
             if micros:
                 hints.append(f"a micro-batch of {micros[0]}")
             loc = micro_v.location if micro_v is not None else mini_loc
@@ -256,7 +261,7 @@ def rollout_parallel(ctx):
     gpus = settled(m, gpus_c)
     if not rt or not gpus or gpus % rt == 0:
         return
-    label = "the rollout engine's GPUs" if gpus_c == "rollout.gpus" else "the world"
+    label = "the rollout engine" if gpus_c == "rollout.gpus" else "the world"
     if rt > gpus:
         msg = f"the rollout engine's tensor-parallel degree {rt} needs {rt} GPUs, but {label} has {gpus}"
     else:
@@ -341,7 +346,7 @@ def count_not_positive(ctx):
             continue  # not a number: VOC-2 reports it
         if isinstance(n, float) and not n.is_integer():
             if v.raw is not None and v.raw != v.value:
-                yield ctx.finding(f"{c}: {v.note} = {n:g}, not a whole number of {c.split('.')[-1]}",
+                yield ctx.finding(f"{c}: {v.note} = {n:g}, not a whole count",
                                   v.location, subject=(c, v.raw, n))
             continue  # a fraction as written: VOC-2 reports it
         if n <= 0:
