@@ -116,6 +116,8 @@ def _origin(model: RunModel, concept: str) -> str:
         d = model.derived.get(concept)
         if d is not None and _num(d.value) != _num(v.value):
             text += f"; but {d.note} = {_num(d.value)}"
+        elif d is not None:
+            text += f"; agrees with {d.note}"
         return text
     d = model.derived.get(concept)
     if d is None:
@@ -179,7 +181,8 @@ def rows(model: RunModel) -> list[tuple[str, str, str]]:
                         f"does not divide: {remainder(per_rank, micro * dp)}"))
         else:
             out.append(("micro-batches per rank per step", str(per_rank // (micro * dp)),
-                        f"= {rollouts}{f' x {epochs} epochs' if epochs else ''} / ({micro} x {dp} ranks)"))
+                        f"= {rollouts}{f' x {epochs} epoch' + ('s' if epochs != 1 else '') if epochs else ''} / "
+                        f"({micro} x {dp} ranks)"))
     if mini and micro and dp and mini % (micro * dp):
         out.append(("accumulation steps (implied)", "-", f"does not divide: {remainder(mini, micro * dp)}"))
     else:

@@ -359,7 +359,8 @@ def derive(model: RunModel) -> None:
         e = epochs or 1
         _put(model, "optim.updates_per_step", rollouts // mini * e,
              ("batch.rollouts", "batch.mini") + (("optim.epochs",) if epochs else ()),
-             f"{rollouts} / {mini}" + (f" x {epochs} epochs" if epochs else " (1 epoch: none stated)"))
+             f"{rollouts} / {mini}" + (f" x {epochs} epoch{'s' if epochs != 1 else ''}" if epochs
+                                           else " (1 epoch: none stated)"))
     micro, dp = settled(model, "batch.micro_per_gpu"), settled(model, "train.data_parallel")
     if mini is not None and micro is not None and dp is not None and mini % (micro * dp) == 0:
         _put(model, "batch.grad_accum", mini // (micro * dp),
