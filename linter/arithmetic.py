@@ -39,24 +39,28 @@ def near_multiples(x: int, unit: int, limit: int = 0) -> list[int]:
     return out
 
 
-def near_divisors(n: int, x: int, unit: int = 1) -> list[int]:
-    """The divisors of ``n`` that are multiples of ``unit`` nearest to ``x`` below and above it."""
-    divs = [d for d in _divisors(n) if d % max(1, unit) == 0 and d != x]
-    below = [d for d in divs if d < x]
-    above = [d for d in divs if d > x]
-    return ([below[-1]] if below else []) + ([above[0]] if above else [])
+def near_divisors(n: int, x: int, unit: int = 1, budget: int = 100_000) -> list[int]:
+    """The divisors of ``n`` that are multiples of ``unit`` nearest to ``x`` below and above it.
 
-
-def _divisors(n: int) -> list[int]:
-    small, large = [], []
-    i = 1
-    while i * i <= n:
-        if n % i == 0:
-            small.append(i)
-            if i * i != n:
-                large.append(n // i)
-        i += 1
-    return small + large[::-1]
+    The search walks outward from ``x`` over multiples of ``unit`` and gives up after ``budget``
+    candidates each way (``n`` itself still counts above), so a huge count costs no time."""
+    unit = max(1, unit)
+    below = above = None
+    k, steps = (x - 1) // unit, 0
+    while k >= 1 and steps < budget:
+        if n % (k * unit) == 0:
+            below = k * unit
+            break
+        k, steps = k - 1, steps + 1
+    k, steps = x // unit + 1, 0
+    while k * unit <= n and steps < budget:
+        if n % (k * unit) == 0:
+            above = k * unit
+            break
+        k, steps = k + 1, steps + 1
+    if above is None and n > x and n % unit == 0:
+        above = n
+    return [d for d in (below, above) if d is not None]
 
 
 def either(values: list[int]) -> str:

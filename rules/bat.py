@@ -231,11 +231,12 @@ def model_parallel(ctx):
         if options:
             hints.append(f"a {_NAMES[culprit]} of {either(options)}")
         hints.append(f"a world size of {either(near_multiples(world, par))}")
+        by = f"{product} = {par}" if len(degrees) > 1 else f"a {_NAMES[culprit]} of {par}"
         if par > world:
-            msg = (f"{product} = {par} GPUs per model replica, but the world has {world} GPUs: "
-                   f"no data-parallel rank")
+            msg = (f"{by} needs {par} GPUs per model replica, but the world has {world} GPUs: "
+                   "no data-parallel rank")
         else:
-            msg = f"a world of {world} GPUs does not divide by {product} = {par}: {remainder(world, par)}"
+            msg = f"a world of {world} GPUs does not divide by {by}: {remainder(world, par)}"
         yield ctx.finding(msg, m.values[culprit].location,
                           related=related(m, "cluster.world_size", *[c for c in degrees if c != culprit]),
                           suggestion="use " + ", or ".join(hints), subject=(world, tuple(degrees.values())))

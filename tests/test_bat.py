@@ -65,7 +65,7 @@ def test_bat5_model_parallel_points_at_the_degree_that_does_not_divide():
 
 
 def test_bat5_no_data_parallel_rank():
-    expect_one("BAT-5/bad-no-rank.yaml", "BAT-5", "error", 9, 22, "32 GPUs per model replica",
+    expect_one("BAT-5/bad-no-rank.yaml", "BAT-5", "error", 9, 22, "= 32 needs 32 GPUs per model replica",
                "world has 16 GPUs: no data-parallel rank", suggestion="a pipeline-parallel degree of 4")
 
 
