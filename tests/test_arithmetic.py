@@ -17,5 +17,8 @@ def test_nearest_values():
 
 def test_huge_counts_cost_no_time():
     start = time.perf_counter()
-    assert near_divisors(10**25 + 3, 7)[-1] == 10**25 + 3
+    n = 10**25 + 3
+    found = near_divisors(n, 7)
+    assert found and all(n % d == 0 for d in found)
+    assert near_divisors(2**61 - 1, 10) == [1, 2**61 - 1]  # a Mersenne prime: only the budget stops the walk
     assert time.perf_counter() - start < 1.0
