@@ -261,31 +261,41 @@ def _convert_units(model: RunModel, opts: ResolveOptions) -> None:
 
 
 def _data_parallel(model: RunModel):
-    v = model.values.get("train.data_parallel")
-    if v is not None and isinstance(v.number, int) and v.number > 0:
-        return v.number
+    """Data-parallel ranks for unit conversion: None when unknown or in dispute (a stated size
+    that disagrees with world / (tp x pp x cp)), so nothing is converted with a wrong count."""
     world = _world(model)
-    if world is None:
-        return None
-    par = 1
-    for name in ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel"):
-        p = model.values.get(name)
-        if p is not None and isinstance(p.number, int) and p.number > 0:
-            par *= p.number
-    if world % par:
-        return None
-    return world // par
+    computed = None
+    if world is not None:
+        par = 1
+        for name in PARALLEL:
+            p = model.values.get(name)
+            if p is not None:
+                if not isinstance(p.number, int) or p.number <= 0:
+                    return None
+                par *= p.number
+        computed = world // par if world % par == 0 else None
+    v = model.values.get("train.data_parallel")
+    if v is not None:
+        stated = v.number if isinstance(v.number, int) and v.number > 0 else None
+        if stated is None or computed is not None and computed != stated:
+            return None
+        return stated
+    return computed
 
 
 def _world(model: RunModel):
     v = model.values.get("cluster.world_size")
-    if v is not None and isinstance(v.number, int) and v.number > 0:
-        return v.number
     n, g = model.values.get("cluster.nodes"), model.values.get("cluster.gpus_per_node")
+    product = None
     if n is not None and g is not None and isinstance(n.number, int) and isinstance(g.number, int) \
             and n.number > 0 and g.number > 0:
-        return n.number * g.number
-    return None
+        product = n.number * g.number
+    if v is not None:
+        stated = v.number if isinstance(v.number, int) and v.number > 0 else None
+        if stated is None or product is not None and product != stated:
+            return None
+        return stated
+    return product
 
 
 # --- derived arithmetic -----------------------------------------------------------------------

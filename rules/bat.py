@@ -305,7 +305,8 @@ def group_split(ctx):
             where_c = "batch.prompts" if "batch.prompts" in m.values else "batch.rollouts"
             yield ctx.finding(
                 f"{rollouts} completions per step over {dp} data-parallel ranks are {share} per rank, not "
-                f"whole groups of {gs}: {remainder(share, gs)}; a group is split across ranks",
+                f"whole groups of {gs}: {remainder(share, gs)}; a group is split across ranks, "
+                f"{gs - share % gs} completions short on each",
                 m.values[where_c].location if where_c in m.values else m.loc("batch.rollouts"),
                 level="warning", related=rel_g + related(m, "train.data_parallel"),
                 suggestion=f"use {either(near_multiples(prompts, dp))} prompts per step (a multiple of the "

@@ -79,3 +79,15 @@ def test_conversion_is_shown_in_explain(tmp_path):
     out = run_cli("explain", path, cwd=path.parent).out
     assert "3 as written (per prompt, gpu) x group size 16 x 8 data-parallel ranks" in out
     assert "mini-batch (completions per update)" in out and " 384 " in out
+
+
+def test_no_conversion_with_a_disputed_rank_count(tmp_path):
+    # A stated world of 12 on 1 node x 8 GPUs: the ranks are in dispute, so a mini-batch counted per
+    # GPU is not converted with either count; BAT-4 reports the dispute, BAT-8 notes the skipped value.
+    text = RUN.format(prompts=64, mini=48, micro=6).replace("gpus_per_node: 8", "gpus_per_node: 8\n  world_size: 12")
+    folder = tmp_path / "w"
+    folder.mkdir()
+    (folder / "trimtab.toml").write_text('[keys]\n"batch.mini" = { key = "batch.mini", scope = "gpu" }\n')
+    (folder / "run.yaml").write_text(text)
+    found = [(f["rule"], f["level"], f["location"]["line"]) for f in check_json(folder / "run.yaml").findings]
+    assert found == [("BAT-4", "error", 7), ("BAT-8", "note", 10)]
