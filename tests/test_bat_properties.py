@@ -6,6 +6,8 @@ product) breaks: exactly the matching finding must appear, at the changed line.
 """
 from __future__ import annotations
 
+import atexit
+import shutil
 import tempfile
 from math import gcd
 from pathlib import Path
@@ -18,6 +20,7 @@ from trimtab.engine import Registry
 from trimtab.settings import Settings
 
 _TMP = Path(tempfile.mkdtemp(prefix="trimtab-props-"))
+atexit.register(shutil.rmtree, _TMP, True)
 _CHECKER = Checker(Settings(root=_TMP), Registry())
 
 
