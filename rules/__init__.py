@@ -2,9 +2,9 @@
 third-party plugin does, so they use nothing but the public API."""
 from trimtab import hookimpl
 
-from . import alg, clip, kl, opt, vocab, yml
+from . import alg, bat, clip, kl, length, opt, smp, vocab, yml
 
-MODULES = (yml, vocab, kl, clip, alg, opt)
+MODULES = (yml, vocab, bat, smp, length, kl, clip, alg, opt)
 
 
 @hookimpl
