@@ -136,8 +136,7 @@ def shared_dir(ctx):
 
 @rule("OPT-5", "seed-unstated", "note", "No random seed is stated.",
       "Without a seed, sampling, data order and initialisation differ between launches, and a "
-      "surprising result cannot be reproduced or bisected (common practice: state run.seed).",
-      rl_only=False)
+      "surprising result cannot be reproduced or bisected (common practice: state run.seed).")
 def seed_unstated(ctx):
     m = ctx.model
     if unresolved(m, "run.seed"):

@@ -20,8 +20,8 @@ DEMO = FIXTURES / "demo"
 CLEAN = DEMO / "configs" / "heron-3b-ledger-grpo.yaml"
 
 RUN_CONFIG = """\
-run:
-  estimator: grpo
+run: {estimator: grpo, seed: 1, ref_model: ./weights/base}
+optim: {max_grad_norm: 1.0, clip_ratio: 0.2}
 rollout:
   group_size: 8
   temperature: 0.9

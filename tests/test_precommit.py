@@ -13,8 +13,8 @@ import pytest
 from conftest import REPO
 
 BAD = """\
-run:
-  estimator: grpo
+run: {estimator: grpo, seed: 1, ref_model: ./weights/base}
+optim: {max_grad_norm: 1.0, clip_ratio: 0.2}
 rollout:
   group_size: 8
   temperature: 0.9

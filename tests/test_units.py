@@ -64,7 +64,8 @@ def _write(folder, values, keys=None):
 def test_key_map_units_give_the_same_findings(tmp_path, run, variant):
     values = RUNS[run]
     native = check_json(_write(tmp_path / "native", values)).findings
-    assert {f["rule"] for f in native} == {"BAT-2" if run == "mini" else "BAT-3"}
+    assert {f["rule"] for f in native if f["rule"].split("-")[0] in ("BAT", "SMP", "LEN")} == {
+        "BAT-2" if run == "mini" else "BAT-3"}
     keys, convert = VARIANTS[variant]
     written = {k: convert[k](v) if k in convert else v for k, v in values.items()}
     assert written != values
@@ -89,5 +90,6 @@ def test_no_conversion_with_a_disputed_rank_count(tmp_path):
     folder.mkdir()
     (folder / "trimtab.toml").write_text('[keys]\n"batch.mini" = { key = "batch.mini", scope = "gpu" }\n')
     (folder / "run.yaml").write_text(text)
-    found = [(f["rule"], f["level"], f["location"]["line"]) for f in check_json(folder / "run.yaml").findings]
+    found = [(f["rule"], f["level"], f["location"]["line"]) for f in check_json(folder / "run.yaml").findings
+             if f["rule"].startswith("BAT-")]
     assert found == [("BAT-4", "error", 7), ("BAT-8", "note", 10)]

@@ -38,7 +38,7 @@ def test_bad_fixture(rule, name, line, col, words):
 def test_good_fixture_is_silent(rule):
     folder = RULES / rule
     for good in sorted(folder.glob("good.*")):
-        r = check_json(good, cwd=folder)
+        r = check_json(good, args=("--only", "YML,VOC"), cwd=folder)
         assert r.findings == [], (good, r.findings)
         assert r.code == 0
 
@@ -82,7 +82,8 @@ def test_plugin_key_map_by_name(tmp_path):
     cli._registry = lambda: Registry(plugins=[Maps()])
     try:
         r = check_json(tmp_path / "r.yaml", cwd=tmp_path)
-        assert [(f["rule"], f["location"]["line"]) for f in r.findings] == [("VOC-2", 4)]
+        assert [(f["rule"], f["location"]["line"]) for f in r.findings if f["rule"][:3] in ("YML", "VOC")] == [
+            ("VOC-2", 4)]
         (tmp_path / "trimtab.toml").write_text('keymap = "no-such-map"\n')
         r = check_json(tmp_path / "r.yaml", cwd=tmp_path)
         assert r.code == 2 and "keymap" in r.err
