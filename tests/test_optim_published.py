@@ -42,3 +42,20 @@ def test_the_acceptance_in_a_recipe_is_needed(tmp_path, name):
     p = tmp_path / name
     p.write_text(stripped)
     assert [(n, l, c) for n, l, c, _level in places(check_json(p), rule_id)] == [(name, line, col)]
+
+
+def test_demo_repository_audit():
+    # The demo's old PPO run carries the optimisation defects; its reference recipe carries none.
+    demo = FIXTURES / "demo"
+    r = check_json(cwd=demo)
+    mine = sorted((f["rule"], f["location"]["path"], f["location"]["line"], f["location"]["col"])
+                  for f in noisy(r, ("KL", "CLP", "ALG", "OPT")) if f["level"] != "note")
+    assert mine == [
+        ("ALG-3", "configs/heron-3b-drift.yaml", 12, 11),  # lambda 1.3
+        ("CLP-1", "configs/heron-3b-drift.yaml", 4, 14),  # PPO without a clip range
+        ("KL-2", "configs/heron-3b-drift.yaml", 20, 9),  # KL 0.05, reference switched off
+        ("OPT-2", "configs/heron-3b-drift.yaml", 25, 17),  # warm-up 2000 of 1500 steps
+        ("OPT-4", "configs/heron-3b-ledger-bigbatch.yaml", 37, 8),  # the two share a checkpoint dir
+        ("OPT-4", "configs/heron-3b-tidepool-code.yaml", 42, 8),
+    ]
+    assert not [f for f in r.findings if f["location"]["path"] == "configs/heron-3b-ledger-grpo.yaml"]
