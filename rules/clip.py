@@ -101,27 +101,34 @@ def clip_never_acts(ctx):
     u = m.get("optim.updates_per_step")
     if u is None or u.number != 1 or not clipped(m):
         return
+    tail = ("= 1 optimiser update per rollout batch: the probability ratio is 1 at that update, so the ratio "
+            "clip never acts")
+    if u.via != "derived":  # stated as such
+        yield ctx.finding(f"optim.updates_per_step = {shown(u)}: one optimiser update per rollout batch, so the "
+                          "probability ratio is 1 at that update and the ratio clip never acts", u.location,
+                          subject=1)
+        return
     rollouts, mini, epochs = m.get("batch.rollouts"), m.get("batch.mini"), m.get("optim.epochs")
     parts = []
-    if rollouts is not None:
-        prompts, group = m.get("batch.prompts"), m.get("rollout.group_size")
-        if rollouts.via == "derived" and prompts is not None and group is not None:
-            parts.append(f"{num(rollouts.value)} completions per step ({num(prompts.value)} prompts x group "
-                         f"size {num(group.value)})")
-        else:
-            parts.append(f"{num(rollouts.value)} completions per step")
-    if mini is not None:
-        parts.append(f"/ {num(mini.value)} per mini-batch")
-    parts.append(f"x {num(epochs.value)} epoch{'' if epochs.value == 1 else 's'}" if epochs is not None else "x 1 epoch (optim.epochs not stated)")
+    prompts, group = m.get("batch.prompts"), m.get("rollout.group_size")
+    if rollouts.via == "derived" and prompts is not None and group is not None:
+        parts.append(f"{num(rollouts.value)} completions per step ({num(prompts.value)} prompts x group "
+                     f"size {num(group.value)})")
+    else:
+        parts.append(f"{num(rollouts.value)} completions per step")
+    parts.append(f"/ {num(mini.value)} per mini-batch")
+    if epochs is not None:
+        parts.append(f"x {num(epochs.value)} epoch{'' if epochs.value == 1 else 's'}")
+    else:
+        parts.append("x 1 epoch (optim.epochs not stated)")
     related = []
     for c, what in (("batch.rollouts", "completions per step"), ("batch.prompts", "prompts per step"),
                     ("rollout.group_size", "group size"), ("optim.epochs", "epochs")):
         v = m.values.get(c)
         if v is not None:
             related.append(v.location.with_message(what))
-    yield ctx.finding(" ".join(parts) + " = 1 optimiser update per rollout batch: the probability ratio is 1 at "
-                      "that update, so the ratio clip never acts", m.loc("batch.mini"), related=related,
-                      subject=1, key_path="optim.updates_per_step")
+    yield ctx.finding(" ".join(parts) + " " + tail, m.loc("batch.mini"), related=related, subject=1,
+                      key_path="optim.updates_per_step")
 
 
 @rule("CLP-7", "grad-clip-not-positive", "error", "The maximum gradient norm is zero or negative.",

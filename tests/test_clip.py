@@ -83,3 +83,11 @@ def test_rules_command_shows_the_rationale_with_sources(rule_id):
 def test_rules_command_names_the_published_clip_sources():
     assert "arXiv:2503.14476" in run_cli("rules", "CLP-4").out
     assert "arXiv:1912.09729" in run_cli("rules", "CLP-5").out
+
+
+def test_clip_never_acts_on_a_stated_update_count(tmp_path):
+    p = tmp_path / "u.yaml"
+    p.write_text(fx("CLP-1", "good.yaml").read_text().replace("optim:\n", "optim:\n  updates_per_step: 1\n"))
+    r = check_json(p)
+    assert places(r, "CLP-6") == [("u.yaml", 18, 21, "note")]
+    assert r.of("CLP-6")[0]["message"].startswith("optim.updates_per_step = 1: one optimiser update per rollout batch")
