@@ -1,0 +1,205 @@
+"""SEC: secrets and remote code. Literal credentials in configs (never echoed), code shipped with
+downloaded weights, and unsafe deserialisation in referenced reward code."""
+from __future__ import annotations
+
+import math
+import re
+from collections import Counter
+
+from trimtab import Mapping, Scalar, Sequence, rule
+
+from ._safety import CAUTIONS, digest, kind_of, label, mask, scanner
+
+# --- SEC-1 -----------------------------------------------------------------------------------------
+_CRED_WORDS = {"secret", "secrets", "password", "passwd", "passphrase", "pwd", "credential", "credentials",
+               "apikey", "api_key", "private_key", "access_key", "secret_key", "client_secret",
+               "auth_token", "access_token", "refresh_token", "bearer", "bearer_token", "api_token",
+               "session_token", "service_token", "hub_token", "personal_token", "webhook_secret"}
+_TOKEN_QUALIFIERS = {"api", "auth", "access", "bearer", "hub", "user", "personal", "service", "refresh",
+                     "session", "secret", "write", "read", "upload", "login"}
+# Keys that name a token of the vocabulary or a count of tokens, not a credential.
+_NOT_CRED = re.compile(r"(^|_)(max|min|num|n|pad|eos|bos|unk|sep|cls|mask|start|end|stop|special|think|answer|"
+                       r"image|vision|audio|chat|tokens?_id|id)_token(s)?$|_tokens?_(id|ids|count|limit)$|"
+                       r"^tokens?$|tokenizer|_length$|_len$|_file$|_path$|_env$|_var$|_name$")
+
+_ENV_REF = re.compile(r"\$\{[^}]*\}|^\$[A-Za-z_]\w*$|^%\(?[A-Za-z_]\w*\)?s?%?$|^env:|^\{\{.*\}\}$|"
+                      r"os\.environ|^oc\.env|^secret:|^vault:|^file:|^@", re.I)
+_PLACEHOLDER = re.compile(r"^(x+|\*+|\.+|-+|_+|#+|<[^>]*>|\[[^\]]*\]|changeme|change[_-]?me|replace[_-]?me|"
+                          r"todo|tbd|fixme|none|null|nil|redacted|placeholder|dummy|example\w*|your[_-].*|"
+                          r"insert[_-].*|set[_-]?me|fill[_-]?me|secret|password|token|test|fake\w*|"
+                          r"not[_-]?set|unset|empty)$", re.I)
+
+# Well-known credential shapes, by form only.
+_SHAPES = (
+    ("a private key block", re.compile(r"-----BEGIN [A-Z ]*PRIVATE KEY-----")),
+    ("a signed web token", re.compile(r"\beyJ[A-Za-z0-9_-]{8,}\.eyJ[A-Za-z0-9_-]{8,}\.[A-Za-z0-9_-]{8,}")),
+    ("a secret-key token", re.compile(r"\b(?:sk|rk)[-_](?:[A-Za-z0-9]+[-_])?[A-Za-z0-9]{20,}")),
+    ("a code-hosting access token", re.compile(r"\bgh[pousr]_[A-Za-z0-9]{30,}")),
+    ("a model-hub access token", re.compile(r"\bhf_[A-Za-z0-9]{30,}")),
+    ("a cloud access key id", re.compile(r"\b(?:AKIA|ASIA)[0-9A-Z]{16}\b")),
+    ("a chat-service token", re.compile(r"\bxox[abprs]-[A-Za-z0-9-]{10,}")),
+    ("a password inside a URL", re.compile(r"^[A-Za-z][A-Za-z0-9+.-]*://[^/\s:@]+:[^/\s@]+@")),
+)
+
+
+def _is_cred_key(key: str) -> bool:
+    k = key.strip().lower().replace("-", "_").replace(" ", "_")
+    if _NOT_CRED.search(k):
+        return False
+    if k in _CRED_WORDS or any(k.endswith("_" + w) or k.startswith(w + "_") for w in _CRED_WORDS):
+        return True
+    words = k.split("_")
+    if "password" in words or "secret" in words or "passwd" in words or "credentials" in words:
+        return True
+    if words[-1] in ("token", "key") and len(words) >= 2 and words[-2] in _TOKEN_QUALIFIERS | {"api", "private", "access", "secret"}:
+        return True
+    return False
+
+
+def _entropy(text: str) -> float:
+    counts = Counter(text)
+    n = len(text)
+    return -sum(c / n * math.log2(c / n) for c in counts.values())
+
+
+def _high_entropy(text: str, min_length: int, min_bits: float) -> bool:
+    if len(text) < min_length or any(c.isspace() for c in text) or "/" in text or "." in text:
+        return False
+    if re.fullmatch(r"[0-9a-fA-F-]+", text):  # commit hashes, UUIDs
+        return False
+    classes = sum(bool(re.search(p, text)) for p in (r"[a-z]", r"[A-Z]", r"[0-9]"))
+    return classes == 3 and _entropy(text) >= min_bits
+
+
+def _literal(text: str) -> bool:
+    t = text.strip()
+    return bool(t) and not _ENV_REF.search(t) and not _PLACEHOLDER.match(t) and not t.startswith(("/", "./", "~"))
+
+
+def _entries(root):
+    """(key text, value node) for every mapping entry (and sequence item under a key), each once."""
+    seen = set()
+    stack = [("", root)]
+    while stack:
+        key, node = stack.pop()
+        if id(node) in seen:
+            continue
+        seen.add(id(node))
+        if isinstance(node, Mapping):
+            for k, _kn, v, _via in node.entries():
+                yield k, v
+                stack.append((k, v))
+        elif isinstance(node, Sequence):
+            for item in node.items:
+                if isinstance(item, Scalar):
+                    yield key, item
+                else:
+                    stack.append((key, item))
+
+
+@rule("SEC-1", "literal-credential", "error", "A config holds a literal credential.",
+      "A token, password or API key written into a config is in version control, in every copy of the "
+      "repository and in every log that prints the config (CWE-798, hard-coded credentials). trimtab "
+      "looks at keys named like token, secret, password, api key or credentials whose value is a literal "
+      "(not an environment reference such as ${VAR} or a placeholder), at values of well-known "
+      "credential shapes under any key, and at high-entropy values (options min_length, default 24, "
+      "and min_entropy_bits, default 4.0 bits per character: common practice for secret scanners). "
+      "The value is never shown: findings give the key and a masked form.",
+      options={"min_length": 24, "min_entropy_bits": 4.0}, cwe=798, rl_only=False, scope="file",
+      help=CAUTIONS + " A credential that was committed should be treated as exposed: revoke and rotate "
+                      "it, and read it at run time from the environment or a secret store.")
+def literal_credential(ctx):
+    seen = set()
+    for root in ctx.doc.roots:
+        for key, node in _entries(root):
+            if not isinstance(node, Scalar) or id(node) in seen:
+                continue
+            text = node.text
+            if not isinstance(text, str) or not text.strip() or node.tag not in (None, "!", "tag:yaml.org,2002:str"):
+                continue
+            why = ""
+            if _is_cred_key(key) and _literal(text) and not isinstance(node.value12, (bool, int, float)) \
+                    and node.value12 is not None:
+                why = f"key {key!r} holds a literal value"
+            else:
+                for name, pat in _SHAPES:
+                    if pat.search(text):
+                        why = f"the value of {key!r} has the shape of {name}" if key else f"a value has the shape of {name}"
+                        break
+                else:
+                    if _high_entropy(text.strip(), ctx.options["min_length"], ctx.options["min_entropy_bits"]):
+                        why = f"the value of {key!r} looks like a credential (high entropy)"
+            if not why:
+                continue
+            seen.add(id(node))
+            loc = ctx.doc.loc(node)
+            yield ctx.finding(f"literal credential: {why} (masked: {mask(text)})", loc, subject=digest(text),
+                              suggestion="read it at run time from an environment variable or a secret store, "
+                                         "and rotate it")
+
+
+# --- SEC-2 -----------------------------------------------------------------------------------------
+_COMMIT = re.compile(r"^[0-9a-f]{40}$|^[0-9a-f]{64}$")
+
+
+@rule("SEC-2", "trust-remote-code", "warning",
+      "Weights are loaded with trust_remote_code on (an error when their revision is not pinned).",
+      "trust_remote_code runs Python files shipped with the downloaded weights, on every process that "
+      "loads them, with the job's permissions (CWE-829, inclusion of functionality from an untrusted "
+      "control sphere). With a pinned full commit hash the code is at least the code that was reviewed; "
+      "without one, whoever can push to the weights' repository can run code in the run.",
+      needs=("model.trust_remote_code",), cwe=829, rl_only=False, help=CAUTIONS)
+def trust_remote(ctx):
+    v = ctx.model.get("model.trust_remote_code")
+    on = v.value is True or (isinstance(v.value, str) and v.value.strip().lower() in ("true", "yes", "on", "1"))
+    if not on:
+        return
+    rev = ctx.model.get("model.revision")
+    src = ctx.model.get("model.source")
+    what = f" for {src.value!r}" if src is not None and isinstance(src.value, str) else ""
+    related = [src.location.with_message("the weights")] if src is not None else []
+    pinned = rev is not None and isinstance(rev.value, str) and _COMMIT.match(rev.value.strip().lower())
+    if pinned:
+        yield ctx.finding(f"trust_remote_code is on{what}: code shipped with the weights runs in the job "
+                          "(revision pinned)", v.location, related=related + [rev.location.with_message("pinned here")],
+                          subject="pinned")
+    else:
+        why = "no revision is stated" if rev is None else f"revision {str(rev.value)!r} is not a full commit hash"
+        if rev is not None:
+            related.append(rev.location.with_message("a floating revision"))
+        yield ctx.finding(f"trust_remote_code is on{what} and {why}: whatever code the weights' repository "
+                          "holds at launch runs in the job", v.location, related=related, level="error",
+                          subject="unpinned", suggestion="pin model.revision to a full commit hash, or turn "
+                                                         "trust_remote_code off")
+
+
+# --- SEC-3 -----------------------------------------------------------------------------------------
+@rule("SEC-3", "unsafe-deserialisation", "warning",
+      "Referenced reward code deserialises data unsafely.",
+      "Unpickling (pickle.load/loads, Unpickler, shelve, marshal), loading a checkpoint without "
+      "weights_only=True, reading arrays with allow_pickle=True, and yaml.load without a safe loader can "
+      "all run code named by the data (CWE-502). Found by static analysis of the referenced module and "
+      "the local modules it imports; nothing is imported or run.",
+      needs=("reward.sources",), cwe=502, help=CAUTIONS)
+def unsafe_deserialisation(ctx):
+    from trimtab import Location
+    from trimtab.codescan import parse_reference
+
+    sc = scanner(ctx)
+    for comp in ctx.model.components:
+        if kind_of(comp) not in ("rule", "code"):
+            continue
+        ref = parse_reference(comp.get("ref"))
+        if ref is None:
+            continue
+        hits = [h for h in sc.scan(sc.locate(ref)).hits if h.category == "deser"]
+        for h in hits:
+            via = f" (imported from {' -> '.join(h.via)})" if h.via else ""
+            yield ctx.finding(f"{label(comp)}: {h.what}(...) at {h.path}:{h.line} {h.why}", comp.loc("ref"),
+                              related=[Location(h.path, h.line, h.col, message=f"{h.what}(...){via}")],
+                              subject=f"{ref.text}|{h.path}|{h.what}",
+                              suggestion="use a safe format (JSON, a tensors-only format, yaml.safe_load) "
+                                         "or weights_only=True")
+
+
+RULES = [literal_credential, trust_remote, unsafe_deserialisation]
