@@ -53,8 +53,9 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         _store(model, concept, node, "keymap", spec.key, spec)
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
+    sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
     for path, node in leaves:
-        if id(node) in taken:
+        if id(node) in taken or _inside_sources(path, sources_key):
             continue
         leaf = normalise_key(path[-1])
         parents = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
@@ -100,6 +101,20 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     markers = sum(1 for c in RL_MARKERS if c in model.values)
     model.is_rl = opts.force_rl or markers >= RL_MIN_MARKERS or "run.estimator" in model.values and markers >= 2
     return model
+
+
+def _inside_sources(path: tuple, sources_key: tuple | None) -> bool:
+    """A key inside one reward component (a field of reward.sources, not a concept of the run)."""
+    for i in range(len(path) - 1):
+        if sources_key is not None and path[:i + 1] == sources_key:
+            return True
+        parents = [normalise_key(p) for p in path[:i] if not p.isdigit()]
+        for alias in ALIASES.get(normalise_key(path[i]), ()):
+            if alias.concept != "reward.sources" or alias.not_under and any(p in alias.not_under for p in parents):
+                continue
+            if not alias.under or parents and parents[-1] in alias.under:
+                return True
+    return False
 
 
 def _leaves(root: Node):

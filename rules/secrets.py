@@ -8,7 +8,7 @@ from collections import Counter
 
 from trimtab import Mapping, Scalar, Sequence, rule
 
-from ._safety import CAUTIONS, digest, kind_of, label, mask, scanner
+from ._safety import CAUTIONS, digest, kind_of, label, mask, safe_url, scanner
 
 # --- SEC-1 -----------------------------------------------------------------------------------------
 _CRED_WORDS = {"secret", "secrets", "password", "passwd", "passphrase", "pwd", "credential", "credentials",
@@ -133,7 +133,10 @@ def literal_credential(ctx):
                 continue
             seen.add(id(node))
             loc = ctx.doc.loc(node)
-            yield ctx.finding(f"literal credential: {why} (masked: {mask(text)})", loc, subject=digest(text),
+            shown = mask(text)
+            if "://" in text and "@" in text:
+                shown = safe_url(text) + ", user information masked"
+            yield ctx.finding(f"literal credential: {why} (masked: {shown})", loc, subject=digest(text),
                               suggestion="read it at run time from an environment variable or a secret store, "
                                          "and rotate it")
 
