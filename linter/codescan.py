@@ -188,8 +188,9 @@ class Scanner:
                 continue
             self.roots.append(real)
             self.root_names.append(self._rel(real) or ".")
-        self._modules: dict[Path, ModuleInfo] = {}
-        self._scans: dict[Path, Scan] = {}
+        # caches, per module path, checked against the file's size and modification time
+        self._modules: dict[Path, tuple[tuple, ModuleInfo]] = {}
+        self._scans: dict[Path, tuple[list, Scan]] = {}
 
     # -- locating ---------------------------------------------------------------------------
     def _rel(self, real: Path) -> str:
@@ -267,9 +268,12 @@ class Scanner:
     # -- reading ----------------------------------------------------------------------------
     def module(self, real: Path) -> ModuleInfo:
         """The summary of one module file (cached per path). ``real`` is inside the repository."""
-        info = self._modules.get(real)
-        if info is None:
-            info = self._modules[real] = _summarise(real, self._rel(real))
+        sig = _signature(real)
+        cached = self._modules.get(real)
+        if cached is not None and cached[0] == sig:
+            return cached[1]
+        info = _summarise(real, self._rel(real))
+        self._modules[real] = (sig, info)
         return info
 
     def scan(self, located: Located) -> Scan:
@@ -277,8 +281,8 @@ class Scanner:
         if located.status != "ok" or located.real is None:
             return Scan()
         cached = self._scans.get(located.real)
-        if cached is not None:
-            return cached
+        if cached is not None and all(_signature(p) == sig for p, sig in cached[0]):
+            return cached[1]
         out = Scan()
         seen = {located.real}
         queue = [(located.real, 0, ())]
@@ -303,7 +307,7 @@ class Scanner:
                     elif status == "ok" and found not in seen:
                         seen.add(found)
                         queue.append((found, depth + 1, chain + (info.path,)))
-        self._scans[located.real] = out
+        self._scans[located.real] = ([(p, self._modules[p][0]) for p in seen if p in self._modules], out)
         return out
 
     def _import_targets(self, real: Path, level: int, mod: str, names: tuple[str, ...]):
@@ -345,6 +349,14 @@ def _escape_reason(text: str) -> str:
     if ".." in t.split("/"):
         return "contains '..' (leaves the search root)"
     return ""
+
+
+def _signature(real: Path) -> tuple:
+    try:
+        st = os.stat(real)
+    except OSError:
+        return ()
+    return (st.st_size, st.st_mtime_ns, st.st_ino)
 
 
 def _inside(real: Path, root: Path) -> bool:

@@ -55,12 +55,15 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
     sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
     for path, node in leaves:
-        if id(node) in taken or _inside_sources(path, sources_key):
+        if id(node) in taken:
             continue
+        # keys inside one reward component are its fields, not concepts of the run (a sandbox
+        # section written inside the component still describes where its code runs)
+        inside = _inside_sources(path, sources_key)
         leaf = normalise_key(path[-1])
         parents = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
         for alias in ALIASES.get(leaf, ()):
-            if alias.concept in mapped:
+            if alias.concept in mapped or inside and not alias.concept.startswith("sandbox."):
                 continue
             if alias.not_under and any(p in alias.not_under for p in parents):
                 continue

@@ -8,7 +8,7 @@ import re
 from pathlib import Path
 from urllib.parse import urlsplit
 
-from trimtab import Location, rule
+from trimtab import Location, Scalar, rule
 
 from ._safety import CAUTIONS, kind_of, label, safe_url, scanner
 
@@ -248,7 +248,7 @@ def weights(ctx):
     for comp, w in stated:
         val = w.value
         if isinstance(val, bool) or not isinstance(val, (int, float)):
-            shown = getattr(w.node, "text", val)
+            shown = w.node.text if isinstance(w.node, Scalar) else f"<{getattr(w.node, 'kind', type(val).__name__)}>"
             why = ""
             node = w.node
             if getattr(node, "plain", False) and isinstance(node.value12, (int, float)) and \

@@ -38,6 +38,7 @@ _SHAPES = (
     ("a model-hub access token", re.compile(r"\bhf_[A-Za-z0-9]{30,}")),
     ("a cloud access key id", re.compile(r"\b(?:AKIA|ASIA)[0-9A-Z]{16}\b")),
     ("a chat-service token", re.compile(r"\bxox[abprs]-[A-Za-z0-9-]{10,}")),
+    ("a bearer token", re.compile(r"\bBearer\s+[A-Za-z0-9._~+/-]{20,}=*")),
     ("a password inside a URL", re.compile(r"^[A-Za-z][A-Za-z0-9+.-]*://[^/\s:@]+:[^/\s@]+@")),
 )
 

@@ -141,3 +141,33 @@ def test_columns_are_characters_not_bytes(tmp_path):
     # ast gives col_offset in UTF-8 bytes (Python docs, ast module); findings count characters
     hits = _scan_source(tmp_path, "def f(c):\n    é = 1; exec(c)\n")
     assert [(h.line, h.col) for h in hits] == [(2, 12)]
+
+
+def test_sandbox_written_inside_a_mapping_layout_component(tmp_path):
+    (tmp_path / "run.yaml").write_text("""run:
+  estimator: grpo
+rollout:
+  group_size: 8
+kl_coef: 0.01
+rewards:
+  tests:
+    kind: code
+    ref: tidepool_tests
+    revision: abc
+    sandbox:
+      kind: container
+      network: true
+      timeout_s: 10
+      memory_mb: 512
+      processes: 8
+""")
+    res = check_json(tmp_path / "run.yaml")
+    assert res.of("EXE-1") == []
+    assert at(res, "EXE-2") == [(13, 16)]
+    # the component's own revision is a field of the component, not the policy's model.revision
+    from trimtab.explain import models
+    from trimtab.engine import Registry
+    from trimtab.settings import Settings
+
+    (m,), _ = models(str(tmp_path / "run.yaml"), Settings(root=tmp_path), Registry())
+    assert "model.revision" not in m.values and m.components[0].get("revision") == "abc"

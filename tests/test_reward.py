@@ -2,7 +2,9 @@
 silent on its good fixture."""
 from __future__ import annotations
 
+import os
 import re
+import shutil
 
 import pytest
 
@@ -183,3 +185,48 @@ def test_rew10_samples_use_the_template_tags_in_order():
     samples = sample_answers("Think in <think></think>, then answer in <answer></answer>.")
     assert samples and all(s.index("<think>") < s.index("</think>") < s.index("<answer>") for s in samples)
     assert sample_answers("no tags here, only {problem}") == []
+
+
+# --- robustness: any shape of reward.sources gives findings, never a crash ------------------------------
+from hypothesis import HealthCheck, given, settings as hsettings, strategies as st  # noqa: E402
+
+_SCALARS = st.one_of(st.none(), st.booleans(), st.integers(-3, 3), st.floats(-2, 2, allow_nan=False),
+                     st.sampled_from(["rule", "code", "model", "judge", "remote", "main", "rewards.x:f",
+                                      "a/b.py:f", "../up.py:f", "/abs.py:f", "lowfield/wren-rm",
+                                      "http://10.0.0.1/s", "https://h/s", "./models/none", "", "a.b.c"]))
+_FIELDS = st.sampled_from(["kind", "ref", "fn", "model", "weight", "revision", "endpoint", "timeout_s", "name"])
+_COMPONENT = st.one_of(_SCALARS, st.dictionaries(_FIELDS, st.one_of(_SCALARS, st.lists(_SCALARS, max_size=2)),
+                                                 max_size=6))
+_SOURCES = st.one_of(st.lists(_COMPONENT, max_size=4),
+                     st.dictionaries(st.sampled_from(["a", "b", "c"]), _COMPONENT, max_size=3))
+
+
+@hsettings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(sources=_SOURCES)
+def test_any_reward_sources_shape_never_crashes(tmp_path, sources):
+    import yaml
+
+    doc = {"run": {"estimator": "grpo"}, "rollout": {"group_size": 8}, "kl_coef": 0.001, "rewards": sources,
+           "sandbox": {"kind": "process"}}
+    (tmp_path / "run.yaml").write_text(yaml.safe_dump(doc))
+    (tmp_path / "trimtab.toml").write_text("")
+    res = check_json(tmp_path / "run.yaml", cwd=tmp_path)
+    assert res.code in (0, 1), res.err
+    assert "TOOL-1" not in res.ids(), [f["message"] for f in res.of("TOOL-1")]
+
+
+def test_module_cache_follows_file_changes(tmp_path):
+    repo = tmp_path / "repo"
+    shutil.copytree(R / "REW-1" / "good", repo)
+    assert check_json(repo / "strings.yaml", cwd=repo).of("REW-1") == []
+    mod = repo / "rewards" / "tidepool.py"
+    mod.write_text(mod.read_text().replace("def format_ok", "def format_okay"))
+    os.utime(mod, ns=(1, 1))  # a different modification time even on a coarse clock
+    assert at(check_json(repo / "strings.yaml", cwd=repo), "REW-1") == [(11, 7)]
+
+
+def test_parallel_jobs_give_the_same_findings():
+    base = R / "REW-1" / "bad"
+    one = check_json(base, cwd=base)
+    two = check_json(base, args=("--jobs", "2"), cwd=base)
+    assert one.findings == two.findings and one.of("REW-1")
