@@ -282,3 +282,16 @@ def test_sarif_with_safety_findings_validates_against_the_schema():
     jsonschema.Draft4Validator(schema).validate(log)
     assert log["runs"][0]["results"][0]["relatedLocations"][0]["physicalLocation"]["artifactLocation"]["uri"] \
         == "rewards/tidepool_exec.py"
+
+
+def test_every_safety_rule_carries_the_cautions():
+    from trimtab.engine import Registry
+
+    rules = Registry().rules
+    safety = [r for r in rules.values() if r.area in ("EXE", "SEC")] + [rules[i] for i in ("REW-3", "REW-4", "REW-5")]
+    assert len(safety) == 14
+    for r in safety:
+        for words in ("untrusted", "isolated", "credentials", "network", "wall-clock time, memory",
+                      "number of processes", "security policy and local rules"):
+            assert words in r.help, (r.id, words)
+    assert {r.id: r.cwe for r in rules.values() if r.cwe} == EXPECTED_RULE_CWE
