@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .model import Component, RunModel, Value
-from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, normalise_key
+from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, normalise_key
 
 
 @dataclass(frozen=True)
@@ -57,13 +57,13 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     for path, node in leaves:
         if id(node) in taken:
             continue
-        # keys inside one reward component are its fields, not concepts of the run (a sandbox
-        # section written inside the component still describes where its code runs)
-        inside = _inside_sources(path, sources_key)
+        # keys inside one reward component are its fields, not concepts of the run
+        if _inside_sources(path, sources_key):
+            continue
         leaf = normalise_key(path[-1])
         parents = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
         for alias in ALIASES.get(leaf, ()):
-            if alias.concept in mapped or inside and not alias.concept.startswith("sandbox."):
+            if alias.concept in mapped:
                 continue
             if alias.not_under and any(p in alias.not_under for p in parents):
                 continue
@@ -214,6 +214,7 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Compo
         if isinstance(item, Scalar):
             comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component")
         elif isinstance(item, Mapping):
+            _component_sandbox(model, comp, item)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
@@ -224,6 +225,29 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Compo
                         break
         out.append(comp)
     return out
+
+
+def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
+    """A sandbox section inside one component: its fields become ``sandbox.*`` fields of the
+    component (they describe where that component's code runs)."""
+    for word, _k, sub, _via in item.entries():
+        if normalise_key(word) not in SANDBOX:
+            continue
+        if isinstance(sub, Scalar):
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", sub.value(model.version), model.doc.loc(sub), sub,
+                                                "component", word)
+            return
+        if not isinstance(sub, Mapping):
+            return
+        for name, _kn, v, _via2 in sub.entries():
+            if not isinstance(v, Scalar):
+                continue
+            for alias in ALIASES.get(normalise_key(name), ()):
+                if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
+                    comp.fields[alias.concept] = Value(alias.concept, v.value(model.version), model.doc.loc(v), v,
+                                                       "component", f"{word}.{name}")
+                    break
+        return
 
 
 # --- units ------------------------------------------------------------------------------

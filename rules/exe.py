@@ -21,13 +21,35 @@ def _text(v):
     return None if v.value is None else str(v.value).strip().lower()
 
 
-def _sandbox(ctx):
-    """(code rewards, sandbox kind Value or None, sandbox stated and not none)."""
+class Box:
+    """The sandbox that a group of code rewards runs in: the run's own, or one written inside a
+    component (which then applies to that component only)."""
+
+    def __init__(self, ctx, rewards, comp=None):
+        self.ctx, self.rewards, self.comp = ctx, rewards, comp
+        self.kind = self.get("sandbox.kind")
+        text = _text(self.kind)
+        self.active = self.kind is not None and text is not None and text not in _NONE
+
+    def get(self, concept):
+        if self.comp is not None:
+            return self.comp.fields.get(concept)
+        return self.ctx.model.get(concept)
+
+
+def boxes(ctx) -> list[Box]:
     rewards = code_rewards(ctx)
-    kind = ctx.model.get("sandbox.kind")
-    text = _text(kind)
-    active = kind is not None and text is not None and text not in _NONE
-    return rewards, kind, active
+    own = [cr for cr in rewards if any(k.startswith("sandbox.") for k in cr.comp.fields)]
+    out = [Box(ctx, [cr], cr.comp) for cr in own]
+    shared = [cr for cr in rewards if cr not in own]
+    if shared:
+        out.append(Box(ctx, shared))
+    return out
+
+
+def _sandbox(ctx):
+    """(code rewards, sandbox kind Value or None, active, getter) for each sandbox in use."""
+    return [(b.rewards, b.kind, b.active, b.get) for b in boxes(ctx)]
 
 
 def _related(rewards, message="the code-executing reward"):
@@ -58,9 +80,12 @@ def _limit_missing(v) -> bool:
       "runpy, ctypes loading, multiprocessing with a code-running target); it never imports or runs them.",
       needs=SOURCES, cwe=94, help=CAUTIONS)
 def unsandboxed(ctx):
-    rewards, kind, active = _sandbox(ctx)
-    if not rewards or active:
-        return
+    for rewards, kind, active, get in _sandbox(ctx):
+        if not active:
+            yield from _unsandboxed(ctx, rewards, kind)
+
+
+def _unsandboxed(ctx, rewards, kind):
     if kind is None:
         state = "no sandbox is configured (sandbox.kind is not stated)"
     else:
@@ -82,11 +107,11 @@ def unsandboxed(ctx):
       "and the metadata endpoints of the cluster (common practice: no network in code sandboxes).",
       needs=SOURCES, help=CAUTIONS)
 def network(ctx):
-    rewards, kind, active = _sandbox(ctx)
-    v = ctx.model.get("sandbox.network")
-    if rewards and active and v is not None and _text(v) in _ON:
-        yield ctx.finding(f"sandbox.network is {_text(v)}: generated code can reach the network", v.location,
-                          related=_related(rewards), subject=_text(v), suggestion="network: false")
+    for rewards, kind, active, get in _sandbox(ctx):
+        v = get("sandbox.network")
+        if active and v is not None and _text(v) in _ON:
+            yield ctx.finding(f"sandbox.network is {_text(v)}: generated code can reach the network",
+                              v.location, related=_related(rewards), subject=_text(v), suggestion="network: false")
 
 
 @rule("EXE-3", "sandbox-no-timeout", "error", "The code sandbox has no wall-clock timeout.",
@@ -94,15 +119,13 @@ def network(ctx):
       "(CWE-400). Every execution needs a wall-clock limit.",
       needs=SOURCES, cwe=400, help=CAUTIONS)
 def no_timeout(ctx):
-    rewards, kind, active = _sandbox(ctx)
-    if not (rewards and active):
-        return
-    v = ctx.model.get("sandbox.timeout_s")
-    if _limit_missing(v):
-        where = v.location if v is not None else kind.location
-        shown = "is not stated" if v is None else f"is {_text(v)}"
-        yield ctx.finding(f"sandbox.timeout_s {shown}: generated code can run without a time limit", where,
-                          related=_related(rewards), subject=shown, suggestion="timeout_s: 10")
+    for rewards, kind, active, get in _sandbox(ctx):
+        v = get("sandbox.timeout_s")
+        if active and _limit_missing(v):
+            where = v.location if v is not None else kind.location
+            shown = "is not stated" if v is None else f"is {_text(v)}"
+            yield ctx.finding(f"sandbox.timeout_s {shown}: generated code can run without a time limit", where,
+                              related=_related(rewards), subject=shown, suggestion="timeout_s: 10")
 
 
 @rule("EXE-4", "sandbox-long-timeout", "warning", "The code sandbox's timeout is longer than the option allows.",
@@ -111,12 +134,12 @@ def no_timeout(ctx):
       "max_timeout_s (default 60 s, common practice) sets the threshold.",
       needs=SOURCES, cwe=400, options={"max_timeout_s": 60.0}, help=CAUTIONS)
 def long_timeout(ctx):
-    rewards, kind, active = _sandbox(ctx)
-    v = ctx.model.get("sandbox.timeout_s")
     limit = ctx.options["max_timeout_s"]
-    if rewards and active and v is not None and v.number is not None and v.number > limit:
-        yield ctx.finding(f"sandbox.timeout_s = {v.number:g} s is over the {limit:g} s limit (option "
-                          "max_timeout_s)", v.location, related=_related(rewards), subject=v.number)
+    for rewards, kind, active, get in _sandbox(ctx):
+        v = get("sandbox.timeout_s")
+        if active and v is not None and v.number is not None and v.number > limit:
+            yield ctx.finding(f"sandbox.timeout_s = {v.number:g} s is over the {limit:g} s limit (option "
+                              "max_timeout_s)", v.location, related=_related(rewards), subject=v.number)
 
 
 @rule("EXE-5", "sandbox-no-limits", "warning", "The code sandbox has no memory limit or no process limit.",
@@ -124,12 +147,15 @@ def long_timeout(ctx):
       "bomb takes the machine down (CWE-770, allocation without limits).",
       needs=SOURCES, cwe=770, help=CAUTIONS)
 def no_limits(ctx):
-    rewards, kind, active = _sandbox(ctx)
-    if not (rewards and active):
-        return
+    for rewards, kind, active, get in _sandbox(ctx):
+        if active:
+            yield from _no_limits(ctx, rewards, kind, get)
+
+
+def _no_limits(ctx, rewards, kind, get):
     for concept, what, fix in (("sandbox.memory_mb", "memory", "memory_mb: 1024"),
                                ("sandbox.processes", "process", "processes: 16")):
-        v = ctx.model.get(concept)
+        v = get(concept)
         if _limit_missing(v):
             shown = "is not stated" if v is None else f"is {_text(v)}"
             yield ctx.finding(f"{concept} {shown}: no {what} limit for generated code",
@@ -142,11 +168,12 @@ def no_limits(ctx):
       "itself (common practice: a read-only or no host mount, with a scratch tmpfs).",
       needs=SOURCES, help=CAUTIONS)
 def writable(ctx):
-    rewards, kind, active = _sandbox(ctx)
-    v = ctx.model.get("sandbox.filesystem")
-    if rewards and active and v is not None and _text(v) in _WRITABLE:
-        yield ctx.finding(f"sandbox.filesystem is {_text(v)}: generated code can write host files", v.location,
-                          related=_related(rewards), subject=_text(v), suggestion="filesystem: read-only")
+    for rewards, kind, active, get in _sandbox(ctx):
+        v = get("sandbox.filesystem")
+        if active and v is not None and _text(v) in _WRITABLE:
+            yield ctx.finding(f"sandbox.filesystem is {_text(v)}: generated code can write host files",
+                              v.location, related=_related(rewards), subject=_text(v),
+                              suggestion="filesystem: read-only")
 
 
 @rule("EXE-7", "sandbox-privileged", "error", "Generated code runs as root or in a privileged sandbox.",
@@ -154,14 +181,17 @@ def writable(ctx):
       "needs no privileges (CWE-250, execution with unnecessary privileges).",
       needs=SOURCES, cwe=250, help=CAUTIONS)
 def privileged(ctx):
-    rewards, kind, active = _sandbox(ctx)
-    if not (rewards and active):
-        return
-    user = ctx.model.get("sandbox.user")
+    for rewards, kind, active, get in _sandbox(ctx):
+        if active:
+            yield from _privileged(ctx, rewards, get)
+
+
+def _privileged(ctx, rewards, get):
+    user = get("sandbox.user")
     if user is not None and _text(user) in ("root", "0", "uid 0", "0:0"):
         yield ctx.finding(f"sandbox.user is {_text(user)}: generated code runs as root", user.location,
                           related=_related(rewards), subject="root", suggestion="run as an unprivileged user")
-    priv = ctx.model.get("sandbox.privileged")
+    priv = get("sandbox.privileged")
     if priv is not None and _text(priv) in ("true", "yes", "on"):
         yield ctx.finding("sandbox.privileged is true: generated code runs in a privileged sandbox",
                           priv.location, related=_related(rewards), subject="privileged",
@@ -175,11 +205,11 @@ def privileged(ctx):
       "model-written code.",
       needs=SOURCES, help=CAUTIONS)
 def process_kind(ctx):
-    rewards, kind, active = _sandbox(ctx)
-    if rewards and active and _text(kind) in ("process", "subprocess", "local"):
-        yield ctx.finding(f"sandbox.kind is {_text(kind)}: generated code runs as a plain subprocess on the "
-                          "training host, which isolates nothing", kind.location, related=_related(rewards),
-                          subject=_text(kind), suggestion="kind: container (or vm)")
+    for rewards, kind, active, get in _sandbox(ctx):
+        if active and _text(kind) in ("process", "subprocess", "local"):
+            yield ctx.finding(f"sandbox.kind is {_text(kind)}: generated code runs as a plain subprocess on the "
+                              "training host, which isolates nothing", kind.location, related=_related(rewards),
+                              subject=_text(kind), suggestion="kind: container (or vm)")
 
 
 RULES = [unsandboxed, network, no_timeout, long_timeout, no_limits, writable, privileged, process_kind]

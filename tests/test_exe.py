@@ -171,3 +171,29 @@ rewards:
 
     (m,), _ = models(str(tmp_path / "run.yaml"), Settings(root=tmp_path), Registry())
     assert "model.revision" not in m.values and m.components[0].get("revision") == "abc"
+
+
+def test_sandbox_per_component_in_a_list_layout(tmp_path):
+    (tmp_path / "run.yaml").write_text("""run:
+  estimator: grpo
+rollout:
+  group_size: 8
+kl_coef: 0.01
+rewards:
+  - name: guarded_tests
+    kind: code
+    ref: tidepool_tests
+    sandbox:
+      kind: vm
+      network: false
+      timeout_s: 10
+      memory_mb: 512
+      processes: 8
+  - name: bare_tests
+    kind: code
+    ref: tidepool_more_tests
+""")
+    res = check_json(tmp_path / "run.yaml")
+    assert at(res, "EXE-1") == [(18, 10)]  # only the component without its own sandbox
+    assert "bare_tests" in res.of("EXE-1")[0]["message"]
+    assert [f for f in res.findings if f["rule"].startswith("EXE") and f["rule"] != "EXE-1"] == []
