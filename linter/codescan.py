@@ -29,7 +29,7 @@ OS_RUNNERS = (
 )
 SUBPROCESS_RUNNERS = ("Popen", "run", "call", "check_call", "check_output", "getoutput", "getstatusoutput")
 CTYPES_LOADERS = ("CDLL", "PyDLL", "WinDLL", "OleDLL", "LibraryLoader", "cdll.LoadLibrary",
-                  "pydll.LoadLibrary", "windll.LoadLibrary", "oledll.LoadLibrary", "util.find_library")
+                  "pydll.LoadLibrary", "windll.LoadLibrary", "oledll.LoadLibrary")
 
 CODE_RUNNERS: dict[str, str] = {
     "exec": "runs a string as Python code",
@@ -53,8 +53,7 @@ for _n in CTYPES_LOADERS:
     CODE_RUNNERS["ctypes." + _n] = "loads native code"
 
 # Process pools and processes: code-running only when their target runs code.
-PROCESS_STARTERS = ("multiprocessing.Process", "multiprocessing.Pool", "multiprocessing.pool.Pool",
-                    "multiprocessing.get_context")
+PROCESS_STARTERS = ("multiprocessing.Process", "multiprocessing.Pool", "multiprocessing.pool.Pool")
 
 DESERIALISERS: dict[str, str] = {
     "pickle.load": "unpickles a file (runs any callable the data names)",
