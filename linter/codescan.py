@@ -517,6 +517,12 @@ class _Visitor:
                 self._hit("deser", q or "load", "loads a checkpoint without weights_only=True "
                                                 "(a pickle inside may run code)", call)
             return
+        for arg in list(call.args) + [k.value for k in call.keywords]:
+            if isinstance(arg, (ast.Name, ast.Attribute)):
+                aq = self.qualname(arg)
+                if aq in CODE_RUNNERS:
+                    self._hit("exec", aq, f"is passed to {q or 'a call'} ({CODE_RUNNERS[aq]})", call)
+                    return
         ap = _kw(call, "allow_pickle")
         if isinstance(ap, ast.Constant) and ap.value is True:
             self._hit("deser", q or "call", "reads data with allow_pickle=True", call)

@@ -121,6 +121,8 @@ def test_os_family_coverage_against_the_standard_library(tmp_path):
     ("import ctypes\ndef f(c):\n    ctypes.cdll.LoadLibrary(c)\n", "ctypes.cdll.LoadLibrary"),
     ("import multiprocessing\ndef f(c):\n    multiprocessing.Process(target=exec, args=(c,)).start()\n",
      "multiprocessing.Process"),
+    ("import multiprocessing\ndef f(cs):\n    with multiprocessing.Pool(4) as p:\n        p.map(eval, cs)\n", "eval"),
+    ("import threading\ndef f(c):\n    threading.Thread(target=exec, args=(c,)).start()\n", "exec"),
 ])
 def test_detectors(tmp_path, source, what):
     hits = _scan_source(tmp_path, source)
