@@ -375,7 +375,9 @@ def _has_link(lexical: Path, root: Path) -> bool:
 def _summarise(real: Path, rel: str) -> ModuleInfo:
     info = ModuleInfo(rel)
     try:
-        with open(real, "rb") as fh:
+        # the path was checked to lie inside the repository; O_NOFOLLOW refuses a link swapped in since
+        fd = os.open(real, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_NONBLOCK", 0))
+        with os.fdopen(fd, "rb") as fh:
             data = fh.read(MAX_BYTES + 1)
     except OSError as exc:
         info.error = f"cannot be read ({exc.strerror or type(exc).__name__})"

@@ -69,7 +69,13 @@ def _high_entropy(text: str, min_length: int, min_bits: float) -> bool:
     if re.fullmatch(r"[0-9a-fA-F-]+", text):  # commit hashes, UUIDs
         return False
     classes = sum(bool(re.search(p, text)) for p in (r"[a-z]", r"[A-Z]", r"[0-9]"))
-    return classes == 3 and _entropy(text) >= min_bits
+    if classes < 3 or _entropy(text) < min_bits:
+        return False
+    # Words and numbers (run names, dataset ids) change character class rarely; random tokens change
+    # it at about 6 of 10 characters (for letters and digits drawn evenly). Require 45 in 100.
+    kinds = [("l" if c.islower() else "u" if c.isupper() else "d" if c.isdigit() else "o") for c in text]
+    switches = sum(1 for a, b in zip(kinds, kinds[1:]) if a != b)
+    return switches / (len(text) - 1) >= 0.45
 
 
 def _literal(text: str) -> bool:
@@ -103,8 +109,10 @@ def _entries(root):
       "repository and in every log that prints the config (CWE-798, hard-coded credentials). trimtab "
       "looks at keys named like token, secret, password, api key or credentials whose value is a literal "
       "(not an environment reference such as ${VAR} or a placeholder), at values of well-known "
-      "credential shapes under any key, and at high-entropy values (options min_length, default 24, "
-      "and min_entropy_bits, default 4.0 bits per character: common practice for secret scanners). "
+      "credential shapes under any key, and at random-looking values: at least min_length characters "
+      "(default 24), at least min_entropy_bits of Shannon entropy per character (default 4.0; common "
+      "practice), upper case, lower case and digits mixed, and a character class that changes at 45 in "
+      "100 characters or more (words and numbers in run names change it far less often). "
       "The value is never shown: findings give the key and a masked form.",
       options={"min_length": 24, "min_entropy_bits": 4.0}, cwe=798, rl_only=False, scope="file",
       help=CAUTIONS + " A credential that was committed should be treated as exposed: revoke and rotate "

@@ -72,3 +72,19 @@ def test_sec3_good():
     res = check_json(R / "SEC-3" / "good" / "run.yaml", cwd=R / "SEC-3" / "good")
     assert res.of("SEC-3") == []
     assert res.code == 0, res.findings
+
+
+def test_sec1_random_tokens_are_found_and_run_names_are_not():
+    import random
+    import string
+
+    from trimtab_rules.secrets import _high_entropy
+
+    rng = random.Random(20261201)  # invented tokens, seeded
+    alphabet = string.ascii_letters + string.digits
+    tokens = ["".join(rng.choice(alphabet) for _ in range(32)) for _ in range(500)]
+    found = sum(_high_entropy(t, 24, 4.0) for t in tokens)
+    assert found >= 450, found  # measured here: about 97 in 100 of random 32-character tokens
+    names = ["wren7B-GRPO-tidepool-2026", "WrenGrpoTidepoolRun2026v3", "lowfieldLabsWren7bTidepoolRL",
+             "TidepoolArithmeticV2Split", "3f9c2a7e1b8d4c6f0a5e9d2b7c1f4a8e6d3b0c9f", "ckpt-step-000120-Final"]
+    assert [n for n in names if _high_entropy(n, 24, 4.0)] == []
