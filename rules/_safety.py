@@ -5,7 +5,6 @@ from __future__ import annotations
 import hashlib
 import re
 from dataclasses import dataclass
-from urllib.parse import urlsplit
 
 from trimtab import Location
 
@@ -129,6 +128,8 @@ def digest(value: str) -> str:
 
 def safe_url(url: str) -> str:
     """The URL without user information, query or fragment (they can carry credentials)."""
+    from urllib.parse import urlsplit
+
     try:
         parts = urlsplit(url.strip())
     except ValueError:

@@ -2,11 +2,9 @@
 reward comes from, how a remote reward is reached, the weights, and the answer-format pattern."""
 from __future__ import annotations
 
-import ipaddress
 import os
 import re
 from pathlib import Path
-from urllib.parse import urlsplit
 
 from trimtab import Location, Scalar, rule
 
@@ -148,6 +146,8 @@ def _remote(ctx):
 
 
 def _loopback(host: str) -> bool:
+    import ipaddress
+
     if host in ("localhost", "localhost.localdomain") or host.endswith(".localhost"):
         return True
     try:
@@ -163,6 +163,8 @@ def _loopback(host: str) -> bool:
       "accepted for loopback (localhost, 127.0.0.0/8, ::1).",
       needs=SOURCES, cwe=319, help=CAUTIONS)
 def remote_plain_http(ctx):
+    from urllib.parse import urlsplit
+
     for comp, ep in _remote(ctx):
         if not ep:
             continue

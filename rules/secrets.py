@@ -2,6 +2,7 @@
 downloaded weights, and unsafe deserialisation in referenced reward code."""
 from __future__ import annotations
 
+import functools
 import math
 import re
 from collections import Counter
@@ -18,34 +19,41 @@ _CRED_WORDS = {"secret", "secrets", "password", "passwd", "passphrase", "pwd", "
 _TOKEN_QUALIFIERS = {"api", "auth", "access", "bearer", "hub", "user", "personal", "service", "refresh",
                      "session", "secret", "write", "read", "upload", "login"}
 # Keys that name a token of the vocabulary or a count of tokens, not a credential.
-_NOT_CRED = re.compile(r"(^|_)(max|min|num|n|pad|eos|bos|unk|sep|cls|mask|start|end|stop|special|think|answer|"
-                       r"image|vision|audio|chat|tokens?_id|id)_token(s)?$|_tokens?_(id|ids|count|limit)$|"
-                       r"^tokens?$|tokenizer|_length$|_len$|_file$|_path$|_env$|_var$|_name$")
+_NOT_CRED_TEXT = (r"(^|_)(max|min|num|n|pad|eos|bos|unk|sep|cls|mask|start|end|stop|special|think|answer|"
+                  r"image|vision|audio|chat|tokens?_id|id)_token(s)?$|_tokens?_(id|ids|count|limit)$|"
+                  r"^tokens?$|tokenizer|_length$|_len$|_file$|_path$|_env$|_var$|_name$", 0)
 
-_ENV_REF = re.compile(r"\$\{[^}]*\}|^\$[A-Za-z_]\w*$|^%\(?[A-Za-z_]\w*\)?s?%?$|^env:|^\{\{.*\}\}$|"
-                      r"os\.environ|^oc\.env|^secret:|^vault:|^file:|^@", re.I)
-_PLACEHOLDER = re.compile(r"^(x+|\*+|\.+|-+|_+|#+|<[^>]*>|\[[^\]]*\]|changeme|change[_-]?me|replace[_-]?me|"
-                          r"todo|tbd|fixme|none|null|nil|redacted|placeholder|dummy|example\w*|your[_-].*|"
-                          r"insert[_-].*|set[_-]?me|fill[_-]?me|secret|password|token|test|fake\w*|"
-                          r"not[_-]?set|unset|empty)$", re.I)
+_ENV_REF_TEXT = (r"\$\{[^}]*\}|^\$[A-Za-z_]\w*$|^%\(?[A-Za-z_]\w*\)?s?%?$|^env:|^\{\{.*\}\}$|"
+                 r"os\.environ|^oc\.env|^secret:|^vault:|^file:|^@", re.I)
+_PLACEHOLDER_TEXT = (r"^(x+|\*+|\.+|-+|_+|#+|<[^>]*>|\[[^\]]*\]|changeme|change[_-]?me|replace[_-]?me|"
+                     r"todo|tbd|fixme|none|null|nil|redacted|placeholder|dummy|example\w*|your[_-].*|"
+                     r"insert[_-].*|set[_-]?me|fill[_-]?me|secret|password|token|test|fake\w*|"
+                     r"not[_-]?set|unset|empty)$", re.I)
 
 # Well-known credential shapes, by form only.
-_SHAPES = (
-    ("a private key block", re.compile(r"-----BEGIN [A-Z ]*PRIVATE KEY-----")),
-    ("a signed web token", re.compile(r"\beyJ[A-Za-z0-9_-]{8,}\.eyJ[A-Za-z0-9_-]{8,}\.[A-Za-z0-9_-]{8,}")),
-    ("a secret-key token", re.compile(r"\b(?:sk|rk)[-_](?:[A-Za-z0-9]+[-_])?[A-Za-z0-9]{20,}")),
-    ("a code-hosting access token", re.compile(r"\bgh[pousr]_[A-Za-z0-9]{30,}")),
-    ("a model-hub access token", re.compile(r"\bhf_[A-Za-z0-9]{30,}")),
-    ("a cloud access key id", re.compile(r"\b(?:AKIA|ASIA)[0-9A-Z]{16}\b")),
-    ("a chat-service token", re.compile(r"\bxox[abprs]-[A-Za-z0-9-]{10,}")),
-    ("a bearer token", re.compile(r"\bBearer\s+[A-Za-z0-9._~+/-]{20,}=*")),
-    ("a password inside a URL", re.compile(r"^[A-Za-z][A-Za-z0-9+.-]*://[^/\s:@]+:[^/\s@]+@")),
+_SHAPES_TEXT = (
+    ("a private key block", r"-----BEGIN [A-Z ]*PRIVATE KEY-----"),
+    ("a signed web token", r"\beyJ[A-Za-z0-9_-]{8,}\.eyJ[A-Za-z0-9_-]{8,}\.[A-Za-z0-9_-]{8,}"),
+    ("a secret-key token", r"\b(?:sk|rk)[-_](?:[A-Za-z0-9]+[-_])?[A-Za-z0-9]{20,}"),
+    ("a code-hosting access token", r"\bgh[pousr]_[A-Za-z0-9]{30,}"),
+    ("a model-hub access token", r"\bhf_[A-Za-z0-9]{30,}"),
+    ("a cloud access key id", r"\b(?:AKIA|ASIA)[0-9A-Z]{16}\b"),
+    ("a chat-service token", r"\bxox[abprs]-[A-Za-z0-9-]{10,}"),
+    ("a bearer token", r"\bBearer\s+[A-Za-z0-9._~+/-]{20,}=*"),
+    ("a password inside a URL", r"^[A-Za-z][A-Za-z0-9+.-]*://[^/\s:@]+:[^/\s@]+@"),
 )
+
+
+@functools.lru_cache(maxsize=1)
+def _patterns():
+    """The pattern tables, compiled on first use (start-up stays fast)."""
+    return (re.compile(*_NOT_CRED_TEXT), re.compile(*_ENV_REF_TEXT), re.compile(*_PLACEHOLDER_TEXT),
+            tuple((name, re.compile(text)) for name, text in _SHAPES_TEXT))
 
 
 def _is_cred_key(key: str) -> bool:
     k = key.strip().lower().replace("-", "_").replace(" ", "_")
-    if _NOT_CRED.search(k):
+    if _patterns()[0].search(k):
         return False
     if k in _CRED_WORDS or any(k.endswith("_" + w) or k.startswith(w + "_") for w in _CRED_WORDS):
         return True
@@ -80,7 +88,8 @@ def _high_entropy(text: str, min_length: int, min_bits: float) -> bool:
 
 def _literal(text: str) -> bool:
     t = text.strip()
-    return bool(t) and not _ENV_REF.search(t) and not _PLACEHOLDER.match(t) and not t.startswith(("/", "./", "~"))
+    _n, env, placeholder, _s = _patterns()
+    return bool(t) and not env.search(t) and not placeholder.match(t) and not t.startswith(("/", "./", "~"))
 
 
 def _entries(root):
@@ -131,7 +140,7 @@ def literal_credential(ctx):
                     and node.value12 is not None:
                 why = f"key {key!r} holds a literal value"
             else:
-                for name, pat in _SHAPES:
+                for name, pat in _patterns()[3]:
                     if pat.search(text):
                         why = f"the value of {key!r} has the shape of {name}" if key else f"a value has the shape of {name}"
                         break
