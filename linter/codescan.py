@@ -190,6 +190,7 @@ class Scanner:
         # caches, per module path, checked against the file's size and modification time
         self._modules: dict[Path, tuple[tuple, ModuleInfo]] = {}
         self._scans: dict[Path, tuple[list, Scan]] = {}
+        self._located: dict[Reference, tuple[tuple, Located]] = {}
 
     # -- locating ---------------------------------------------------------------------------
     def _rel(self, real: Path) -> str:
@@ -232,6 +233,15 @@ class Scanner:
         return "missing", None, "", tried
 
     def locate(self, ref: Reference) -> Located:
+        hit = self._located.get(ref)
+        if hit is not None and hit[1].real is not None and _signature(hit[1].real) == hit[0]:
+            return hit[1]
+        found = self._locate(ref)
+        if found.real is not None:  # found files are cached; a missing one is looked for again
+            self._located[ref] = (_signature(found.real), found)
+        return found
+
+    def _locate(self, ref: Reference) -> Located:
         if not self.roots:
             return Located("bad-root", ref, reason="no usable search root inside the repository")
         if ref.file:

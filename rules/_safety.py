@@ -98,9 +98,13 @@ class CodeReward:
 
 
 def code_rewards(ctx) -> list[CodeReward]:
-    """Components that execute generated code: declared so, or found so by static analysis."""
+    """Components that execute generated code: declared so, or found so by static analysis.
+    Computed once per run (every EXE rule asks)."""
     from trimtab.codescan import parse_reference
 
+    memo = vars(ctx.model).get("_code_rewards")
+    if memo is not None:
+        return memo
     out = []
     for comp in ctx.model.components:
         kind = kind_of(comp)
@@ -112,6 +116,7 @@ def code_rewards(ctx) -> list[CodeReward]:
             calls = [h for h in sc.scan(located).hits if h.category == "exec"]
         if kind == "code" or calls:
             out.append(CodeReward(comp, kind == "code", calls))
+    vars(ctx.model)["_code_rewards"] = out
     return out
 
 

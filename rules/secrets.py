@@ -47,15 +47,18 @@ _SHAPES_TEXT = (
 @functools.lru_cache(maxsize=1)
 def _patterns():
     """The pattern tables, compiled on first use (start-up stays fast)."""
+    words = "|".join(sorted(map(re.escape, _CRED_WORDS), key=len, reverse=True))
     return (re.compile(*_NOT_CRED_TEXT), re.compile(*_ENV_REF_TEXT), re.compile(*_PLACEHOLDER_TEXT),
-            tuple((name, re.compile(text)) for name, text in _SHAPES_TEXT))
+            tuple((name, re.compile(text)) for name, text in _SHAPES_TEXT),
+            re.compile(rf"(?:^|_)(?:{words})(?:_|$)"))
 
 
+@functools.lru_cache(maxsize=4096)
 def _is_cred_key(key: str) -> bool:
     k = key.strip().lower().replace("-", "_").replace(" ", "_")
     if _patterns()[0].search(k):
         return False
-    if k in _CRED_WORDS or any(k.endswith("_" + w) or k.startswith(w + "_") for w in _CRED_WORDS):
+    if _patterns()[4].search(k):
         return True
     words = k.split("_")
     if "password" in words or "secret" in words or "passwd" in words or "credentials" in words:
@@ -88,7 +91,7 @@ def _high_entropy(text: str, min_length: int, min_bits: float) -> bool:
 
 def _literal(text: str) -> bool:
     t = text.strip()
-    _n, env, placeholder, _s = _patterns()
+    _n, env, placeholder, _s, _w = _patterns()
     return bool(t) and not env.search(t) and not placeholder.match(t) and not t.startswith(("/", "./", "~"))
 
 
