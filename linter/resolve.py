@@ -215,6 +215,11 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Compo
             comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component")
         elif isinstance(item, Mapping):
             _component_sandbox(model, comp, item)
+            for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
+                if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
+                                                   for a in ALIASES.get(normalise_key(word), ())):
+                    comp.fields["trust_remote_code"] = Value("trust_remote_code", sub.value(model.version),
+                                                             doc.loc(sub), sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:

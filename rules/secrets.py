@@ -166,35 +166,53 @@ def literal_credential(ctx):
 _COMMIT = re.compile(r"^[0-9a-f]{40}$|^[0-9a-f]{64}$")
 
 
+def _on(value) -> bool:
+    return value is True or (isinstance(value, str) and value.strip().lower() in ("true", "yes", "on", "1"))
+
+
+def _pinned(value) -> bool:
+    return isinstance(value, str) and bool(_COMMIT.match(value.strip().lower()))
+
+
 @rule("SEC-2", "trust-remote-code", "warning",
       "Weights are loaded with trust_remote_code on (an error when their revision is not pinned).",
       "trust_remote_code runs Python files shipped with the downloaded weights, on every process that "
       "loads them, with the job's permissions (CWE-829, inclusion of functionality from an untrusted "
       "control sphere). With a pinned full commit hash the code is at least the code that was reviewed; "
-      "without one, whoever can push to the weights' repository can run code in the run.",
-      needs=("model.trust_remote_code",), cwe=829, rl_only=False, help=CAUTIONS)
+      "without one, whoever can push to the weights' repository can run code in the run. Checked for the "
+      "policy weights and for each reward model or judge that sets it.",
+      cwe=829, rl_only=False, help=CAUTIONS)
 def trust_remote(ctx):
     v = ctx.model.get("model.trust_remote_code")
-    on = v.value is True or (isinstance(v.value, str) and v.value.strip().lower() in ("true", "yes", "on", "1"))
-    if not on:
-        return
-    rev = ctx.model.get("model.revision")
-    src = ctx.model.get("model.source")
-    what = f" for {src.value!r}" if src is not None and isinstance(src.value, str) else ""
-    related = [src.location.with_message("the weights")] if src is not None else []
-    pinned = rev is not None and isinstance(rev.value, str) and _COMMIT.match(rev.value.strip().lower())
-    if pinned:
-        yield ctx.finding(f"trust_remote_code is on{what}: code shipped with the weights runs in the job "
+    if v is not None and _on(v.value):
+        src = ctx.model.get("model.source")
+        yield from _remote_code(ctx, v, ctx.model.get("model.revision"),
+                                src.value if src is not None and isinstance(src.value, str) else None,
+                                src.location if src is not None else None, "model.revision")
+    for comp in ctx.model.components:
+        t = comp.fields.get("trust_remote_code")
+        if t is not None and _on(t.value):
+            ref = comp.get("ref")
+            yield from _remote_code(ctx, t, comp.fields.get("revision"), ref if isinstance(ref, str) else None,
+                                    comp.loc("ref") if comp.fields.get("ref") is not None else None,
+                                    "the component's revision", label(comp) + ": ")
+
+
+def _remote_code(ctx, v, rev, what, where, rev_name, prefix=""):
+    shown = f" for {what!r}" if what else ""
+    related = [where.with_message("the weights")] if where is not None else []
+    if rev is not None and _pinned(rev.value):
+        yield ctx.finding(f"{prefix}trust_remote_code is on{shown}: code shipped with the weights runs in the job "
                           "(revision pinned)", v.location, related=related + [rev.location.with_message("pinned here")],
-                          subject="pinned")
-    else:
-        why = "no revision is stated" if rev is None else f"revision {str(rev.value)!r} is not a full commit hash"
-        if rev is not None:
-            related.append(rev.location.with_message("a floating revision"))
-        yield ctx.finding(f"trust_remote_code is on{what} and {why}: whatever code the weights' repository "
-                          "holds at launch runs in the job", v.location, related=related, level="error",
-                          subject="unpinned", suggestion="pin model.revision to a full commit hash, or turn "
-                                                         "trust_remote_code off")
+                          subject=f"pinned|{what}")
+        return
+    why = "no revision is stated" if rev is None else f"revision {str(rev.value)!r} is not a full commit hash"
+    if rev is not None:
+        related.append(rev.location.with_message("a floating revision"))
+    yield ctx.finding(f"{prefix}trust_remote_code is on{shown} and {why}: whatever code the weights' repository "
+                      "holds at launch runs in the job", v.location, related=related, level="error",
+                      subject=f"unpinned|{what}",
+                      suggestion=f"pin {rev_name} to a full commit hash, or turn trust_remote_code off")
 
 
 # --- SEC-3 -----------------------------------------------------------------------------------------

@@ -88,3 +88,26 @@ def test_sec1_random_tokens_are_found_and_run_names_are_not():
     names = ["wren7B-GRPO-tidepool-2026", "WrenGrpoTidepoolRun2026v3", "lowfieldLabsWren7bTidepoolRL",
              "TidepoolArithmeticV2Split", "3f9c2a7e1b8d4c6f0a5e9d2b7c1f4a8e6d3b0c9f", "ckpt-step-000120-Final"]
     assert [n for n in names if _high_entropy(n, 24, 4.0)] == []
+
+
+def test_sec2_reward_model_component(tmp_path):
+    (tmp_path / "run.yaml").write_text("""run:
+  estimator: grpo
+rollout:
+  group_size: 8
+kl_coef: 0.001
+rewards:
+  - name: answer_check
+    kind: rule
+    ref: tidepool_exact_match
+  - name: helpfulness
+    kind: model
+    ref: lowfield/wren-rm-7b
+    revision: main
+    trust_remote_code: true
+""")
+    res = check_json(tmp_path / "run.yaml")
+    assert at(res, "SEC-2") == [(14, 24)]
+    f = res.of("SEC-2")[0]
+    assert f["level"] == "error" and "revision 'main' is not a full commit hash" in f["message"]
+    assert {r["line"] for r in f["related"]} == {12, 13}
