@@ -167,6 +167,11 @@ def batch_steps(model: RunModel) -> Picture:
         k, e = R // M, E or 1
         upd.text = (f"{k} mini-batch{'es' if k != 1 else ''} \u00d7 {e} epoch{'s' if e != 1 else ''} = "
                     f"{k * e} update{'s' if k * e != 1 else ''}")
+    elif R is not None and M and M > 0:
+        k, e = R // M, E or 1
+        upd.text = (f"{k} whole mini-batch{'es' if k != 1 else ''} \u00d7 {e} epoch{'s' if e != 1 else ''} = "
+                    f"{k * e} update{'s' if k * e != 1 else ''}; the {R % M} completions left over make no "
+                    "whole mini-batch")
     else:
         upd.text = f"{_v(E)} epoch(s) over each step's completions"
         upd.known = False
@@ -209,7 +214,7 @@ class Config:
     path: str  # as shown
     text: str
     models: list[RunModel]
-    problems: list[str]
+    problems: list  # the loader's Problems (document.Problem)
     findings: list[Finding]
 
 
@@ -322,8 +327,11 @@ class Page:
                f"<h2>{_e(c.path)}</h2>",
                '<p class="tally">' + ", ".join(f'<span class="lvl-{l}">{SHAPE[l]} {per[l]} {l}(s)</span>'
                                              for l in LEVELS) + "</p>"]
-        for p in c.problems:
-            out.append(f'<p class="problem">{SHAPE[Level.ERROR]} cannot read all of it: {_e(p)}</p>')
+        reported = {f.location.line for f in c.findings}
+        for p in c.problems:  # read problems that no finding reports (e.g. its rule was skipped)
+            if p.line not in reported:
+                where = f"line {p.line}: " if p.line else ""
+                out.append(f'<p class="problem">{SHAPE[Level.ERROR]} cannot read all of it: {where}{_e(p.message)}</p>')
         if c.findings:
             out.append('<h3>Findings</h3><ol class="finding-index">')
             for f in c.findings:
@@ -692,11 +700,11 @@ def batch_svg(page: Page, rid: str, pic: Picture) -> str:
         lanes_h = bar_h
     y += max(lanes_h + 24, 112)
     s = steps["updates"]
-    body.append(_svg_text(12, y, "6  " + s.title, "step-title"))
-    body.append(_svg_text(BAR_X, y, s.text, "note strong"))
-    if s.quantities[0].value is not None:
-        body.append(_origin(page, s.quantities[0], BAR_X, y + 16))
-    height = y + 30
+    body += _label(page, 12, y, "6  " + s.title, [("epochs E", s.quantities[0])])
+    parts = s.text.split("; ")
+    for n, part in enumerate(parts):
+        body.append(_svg_text(BAR_X, y + 17 + n * 15, part, "note strong" if n == 0 else "note"))
+    height = y + max(17 + 15 * len(parts), 40) + 8
     broken = [x.broken for x in pic.steps if x.broken]
     desc = "; ".join(f"{x.title}: {x.text}" for x in pic.steps)
     return "\n".join([
@@ -881,9 +889,9 @@ def audit(paths: list[str], settings, registry, options, gate: Level) -> tuple[s
     shown_paths = set()
     for path, shown in files:
         doc = loader.load(path, shown, settings.limits)
-        runs, problems = models(path, settings, registry, options.overrides)
+        runs, _problems = models(path, settings, registry, options.overrides)
         mine = [f for f in findings if f.location.path == shown]
-        configs.append(Config(shown, doc.text, runs, problems, mine))
+        configs.append(Config(shown, doc.text, runs, list(doc.problems), mine))
         shown_paths.add(shown)
     other = [f for f in findings if f.location.path not in shown_paths]
     counts = summary_counts(findings)

@@ -291,3 +291,14 @@ def test_bad_input_gives_located_findings_and_a_status_not_a_traceback(tmp_path)
 def test_standard_output(tmp_path):
     res = run_cli("audit", str(CLEAN), "--html", "-", cwd=REPO)
     assert res.code == 0 and res.out.startswith("<!DOCTYPE html>")
+
+
+def test_read_problems_show_once_or_when_their_rule_is_skipped(tmp_path):
+    _res, page = audit_page(tmp_path, BROKEN)
+    assert 'class="problem"' not in page  # the duplicate key is reported by YML-2 already
+    _res, page = audit_page(tmp_path, BROKEN, args=("--skip", "YML-2"))
+    tree = parse(page)
+    (p,) = tree.find("p", "problem")
+    lines = [i for i, l in enumerate(BROKEN.read_text(encoding="utf-8").splitlines(), 1)
+             if l.strip().startswith("kl_coef:")]
+    assert "kl_coef" in p["text"] and f"line {lines[1]}:" in p["text"]
