@@ -217,6 +217,7 @@ class Config:
     models: list[RunModel]
     problems: list  # the loader's Problems (document.Problem)
     findings: list[Finding]
+    base_of: list[str] = field(default_factory=list)  # for a base file: the configs composed from it
 
 
 class Page:
@@ -257,7 +258,7 @@ class Page:
     def render(self) -> str:
         failing = sum(n for lvl, n in self.counts.items() if Level.parse(lvl) >= self.gate)
         verdict = "incomplete" if self.incomplete else ("fails" if failing else "passes")
-        title = f"trimtab audit: {len(self.configs)} config(s), gate {verdict}"
+        title = f"trimtab audit: {sum(1 for c in self.configs if not c.base_of)} config(s), gate {verdict}"
         out = [
             "<!DOCTYPE html>",
             '<html lang="en">',
@@ -306,7 +307,7 @@ class Page:
         for lvl in LEVELS:
             rows.append(f'<th scope="col" class="lvl-{lvl}">{SHAPE[lvl]} {lvl}s</th>')
         rows.append("</tr></thead><tbody><tr>")
-        rows.append(f"<td>{len(self.configs)}</td><td>{runs}</td>")
+        rows.append(f"<td>{sum(1 for c in self.configs if not c.base_of)}</td><td>{runs}</td>")
         for lvl in LEVELS:
             rows.append(f'<td class="count" data-level="{lvl}">{self.counts.get(str(lvl), 0)}</td>')
         rows.append("</tr></tbody></table>")
@@ -316,18 +317,26 @@ class Page:
             tally = ", ".join(f"{SHAPE[l]} {per[l]} {l}" for l in LEVELS if per[l]) or "no findings"
             broken = sum(1 for m in c.models if m.is_rl for s in batch_steps(m).steps if s.broken)
             extra = f"; {broken} broken step(s) in the batch arithmetic" if broken else ""
-            rows.append(f'<li><a href="#cfg-{i + 1}">{_e(c.path)}</a> \u2014 {tally}{extra}</li>')
+            base = "base file " if c.base_of else ""
+            rows.append(f'<li>{base}<a href="#cfg-{i + 1}">{_e(c.path)}</a> \u2014 {tally}{extra}</li>')
         rows.append("</ol></nav>")
         return "\n".join(rows)
+
+    def _index(self, path: str) -> int:
+        return next(i for i, c in enumerate(self.configs) if c.path == path) + 1
 
     # one config ------------------------------------------------------------------------------------
     def _config(self, i: int, c: Config) -> str:
         fid = self.file_ids[c.path]
         per = _per_level(c.findings)
-        out = [f'<section class="config" id="cfg-{i + 1}" data-path="{_e(c.path)}">',
-               f"<h2>{_e(c.path)}</h2>",
-               '<p class="tally">' + ", ".join(f'<span class="lvl-{l}">{SHAPE[l]} {per[l]} {l}(s)</span>'
-                                             for l in LEVELS) + "</p>"]
+        kind = ' data-base="1"' if c.base_of else ""
+        out = [f'<section class="config" id="cfg-{i + 1}" data-path="{_e(c.path)}"{kind}>',
+               f"<h2>{'Base file ' if c.base_of else ''}{_e(c.path)}</h2>"]
+        if c.base_of:
+            out.append('<p class="muted">Composed into ' + ", ".join(
+                f'<a href="#cfg-{self._index(b)}">{_e(b)}</a>' for b in c.base_of) + "</p>")
+        out.append('<p class="tally">' + ", ".join(f'<span class="lvl-{l}">{SHAPE[l]} {per[l]} {l}(s)</span>'
+                                                 for l in LEVELS) + "</p>")
         reported = {f.location.line for f in c.findings}
         for p in c.problems:  # read problems that no finding reports (e.g. its rule was skipped)
             if p.line not in reported:
@@ -341,7 +350,7 @@ class Page:
                            f"{SHAPE[f.level]} {f.level} {_e(f.rule_id)}</a> {where}: {_e(f.message)}</li>")
             out.append("</ol>")
         rl = [m for m in c.models if m.is_rl]
-        if not c.models and not c.problems:
+        if not c.models and not c.problems and not c.base_of:
             out.append('<p class="muted">No YAML document in this file.</p>')
         for m in c.models:
             if not m.is_rl:
@@ -899,6 +908,20 @@ def audit(paths: list[str], settings, registry, options, gate: Level) -> tuple[s
         mine = [f for f in findings if f.location.path == shown]
         configs.append(Config(shown, doc.text, runs, list(doc.problems), mine))
         shown_paths.add(shown)
+    # base files the runs were composed from (RunModel.files): shown too, so that findings and
+    # related locations in them have a line to point at
+    bases: dict[str, list[str]] = {}
+    for c in configs:
+        for m in c.models:
+            for name in m.files:
+                if name and name not in shown_paths and c.path not in bases.get(name, []):
+                    bases.setdefault(name, []).append(c.path)
+    for name in sorted(bases):
+        disk = Path(name) if Path(name).is_absolute() else settings.root / name
+        doc = loader.load(str(disk), name, settings.limits)
+        mine = [f for f in findings if f.location.path == name]
+        configs.append(Config(name, doc.text, [], list(doc.problems), mine, base_of=bases[name]))
+        shown_paths.add(name)
     other = [f for f in findings if f.location.path not in shown_paths]
     counts = summary_counts(findings)
     incomplete = result.crashed or bool(registry.errors)

@@ -335,3 +335,49 @@ def test_edge_values_draw_no_impossible_shapes(tmp_path):
     assert broken3 == ["completions", "mini", "micro", "engine-model"]
     # document 1's mini-batch is negative: told in words; nothing drawn from it
     assert tree.find("li", data_step="mini", data_broken="1")
+
+
+def test_base_files_of_a_composed_run_are_shown_and_linkable(tmp_path, monkeypatch):
+    """Composition is a pass-through today; a run composed from a base file lists it in
+    RunModel.files, and the page then shows the base file so related locations can point into it."""
+    from trimtab import compose
+    from trimtab.engine import Registry, rule
+    from trimtab.findings import Location
+
+    base = "fixtures/audit/clean.yaml"
+    real = compose.Composer.compose
+
+    def composed(self, doc, root, path):
+        out = real(self, doc, root, path)
+        out.files = out.files + [base]
+        return out
+
+    monkeypatch.setattr(compose.Composer, "compose", composed)
+
+    @rule("TST-1", "points-into-base", "note", "test rule", "test only")
+    def points(ctx):
+        yield ctx.finding("stated in the base", ctx.model.loc("batch.mini"),
+                          related=[Location(base, 15, 3, message="the base's mini-batch")], subject=1)
+
+    from trimtab import hookimpl
+
+    class Plugin:
+        @hookimpl
+        def trimtab_rules(self):
+            return [points]
+
+    from trimtab.audit import audit
+    from trimtab.check import CheckOptions
+    from trimtab.findings import Level
+    from trimtab.settings import load
+
+    page, _code = audit([str(BROKEN)], load(None, REPO), Registry([Plugin()]), CheckOptions(), Level.WARNING)
+    tree = parse(page)
+    sections = [(s["attrs"]["data-path"], s["attrs"].get("data-base")) for s in tree.find("section", "config")]
+    assert sections == [("fixtures/audit/mini-remainder.yaml", None), (base, "1")]
+    (marker,) = [m for m in tree.find("div", "finding") if m["attrs"]["data-rule"] == "TST-1"]
+    assert inside(marker, "section", "config")["data-path"] == "fixtures/audit/mini-remainder.yaml"
+    links = [el["attrs"]["href"] for el in tree.elements if el["tag"] == "a" and inside(el, "ul", "related")
+             and inside(el, "div", "finding", data_rule="TST-1")]
+    assert links == ["#f2-L15"] and tree.find("tr", id="f2-L15")
+    assert "has-related" in tree.find("tr", id="f2-L15")[0]["attrs"]["class"]
