@@ -133,7 +133,7 @@ def batch_steps(model: RunModel) -> Picture:
             mini.remainder = r
             mini.text = f"{R} = {k} \u00d7 {M} + {r}: {k} whole mini-batches, remainder {r}"
         else:
-            mini.text = f"{R} / {M} = {k} mini-batches of {M}"
+            mini.text = f"{R} / {M} = {k} mini-batch{'es' if k != 1 else ''} of {M}"
     elif M is not None and M <= 0:
         mini.broken, mini.text = f"a mini-batch of {M} completions", f"mini-batch {M}"
     else:
@@ -161,6 +161,21 @@ def batch_steps(model: RunModel) -> Picture:
         micro.text = (f"{_v(D)} data-parallel ranks \u00d7 {_v(u)} per micro-batch \u00d7 {_v(A)} accumulation "
                       f"steps")
         micro.known = False
+        world = q["cluster.world_size"].value
+        par = [model.int(c) for c in ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel")
+               if model.int(c)]
+        if D is None and world and world > 0 and par and all(x > 0 for x in par):
+            X = 1
+            for x in par:
+                X *= x
+            k, r = divmod(world, X)
+            if r:  # the ranks themselves cannot be counted: the world does not split into model-parallel groups
+                group = " \u00d7 ".join(map(str, par)) if len(par) > 1 else str(X)
+                micro.broken = (f"{world} GPUs do not split into model-parallel groups of {group}: "
+                                f"{world} = {k} \u00d7 {X} + {r}")
+                micro.remainder = r
+                micro.text = f"data-parallel ranks: {world} GPUs = {k} \u00d7 {X} + {r}"
+                micro.known = True
     steps.append(micro)
     upd = Step("updates", "Optimiser updates per step", "", [q["optim.epochs"]])
     if R is not None and R > 0 and M is not None and M > 0 and R % M == 0:
@@ -662,7 +677,7 @@ def batch_svg(page: Page, rid: str, pic: Picture) -> str:
             body += _broken_box(rid, BAR_X + k * M * scale, y, r * scale, bar_h,
                                 f"remainder {r}: {R} = {k} \u00d7 {M} + {r}", "mini", s.broken)
         else:
-            body.append(_svg_text(BAR_X, y + bar_h + 16, f"{k} mini-batches of {M}", "note"))
+            body.append(_svg_text(BAR_X, y + bar_h + 16, f"{k} mini-batch{'es' if k != 1 else ''} of {M}", "note"))
     else:
         body.append(_unknown(y, bar_h, "mini-batch or completions per step not found"))
     y += row_h
@@ -710,6 +725,10 @@ def batch_svg(page: Page, rid: str, pic: Picture) -> str:
             body += _broken_box(rid, BAR_X + k * cw - 18, top, 18, lanes_h - 3,
                                 f"stated accumulation {A} \u2260 {k}", "micro", s.broken)
         lanes_h += 22
+    elif s.broken:  # the data-parallel ranks do not divide out of the world size
+        body += _broken_box(rid, BAR_X, top, BAR_W, bar_h, f"remainder {s.remainder}: {s.text.split(': ', 1)[-1]}",
+                            "micro", s.broken)
+        lanes_h = bar_h + 16
     else:
         body.append(_unknown(y, bar_h, "mini-batch, micro-batch or data-parallel ranks not found"))
         lanes_h = bar_h

@@ -333,6 +333,13 @@ def test_edge_values_draw_no_impossible_shapes(tmp_path):
     assert R != P * G
     broken3 = [g["attrs"]["data-broken"] for g in tree.find("g", "broken") if inside(g, "section", "run", data_run="3")]
     assert broken3 == ["completions", "mini", "micro", "engine-model"]
+    # document 6: 12 GPUs do not split into tensor-parallel groups of 8 (12 = 1 x 8 + 4)
+    topo = docs[5]
+    world = topo["cluster"]["nodes"] * topo["cluster"]["gpus_per_node"]
+    tp = topo["train"]["tensor_parallel_size"]
+    (g,) = [g for g in tree.find("g", "broken") if inside(g, "section", "run", data_run="6")]
+    assert g["attrs"]["data-broken"] == "micro"
+    assert f"remainder {world % tp}: {world} GPUs = {world // tp} \u00d7 {tp} + {world % tp}" in g["text"]
     # document 1's mini-batch is negative: told in words; nothing drawn from it
     assert tree.find("li", data_step="mini", data_broken="1")
 
