@@ -459,7 +459,7 @@ class Page:
                     related.setdefault(r.line, []).append((f, r))
         out = ['<table class="src"><tbody>']
         if at.get(0):
-            out.append(f'<tr class="marks"><td class="ln"></td><td>'
+            out.append('<tr class="marks" data-for-line="0"><td class="ln"></td><td>'
                        + "".join(self._finding(f) for f in at[0]) + "</td></tr>")
         for n, text in enumerate(lines, 1):
             found = at.get(n, [])

@@ -32,14 +32,14 @@ class Tree(HTMLParser):
         self.starttags: list[tuple[str, dict]] = []
 
     def handle_starttag(self, tag, attrs):
-        el = {"tag": tag, "attrs": dict(attrs), "text": "", "parents": [(p["tag"], p["attrs"]) for p in self.stack]}
+        el = {"tag": tag, "attrs": dict(attrs), "text": [], "parents": [(p["tag"], p["attrs"]) for p in self.stack]}
         self.elements.append(el)
         self.starttags.append((tag, dict(attrs)))
         if tag not in self.VOID:
             self.stack.append(el)
 
     def handle_startendtag(self, tag, attrs):
-        el = {"tag": tag, "attrs": dict(attrs), "text": "", "parents": [(p["tag"], p["attrs"]) for p in self.stack]}
+        el = {"tag": tag, "attrs": dict(attrs), "text": [], "parents": [(p["tag"], p["attrs"]) for p in self.stack]}
         self.elements.append(el)
         self.starttags.append((tag, dict(attrs)))
 
@@ -51,7 +51,12 @@ class Tree(HTMLParser):
 
     def handle_data(self, data):
         for el in self.stack:
-            el["text"] += data
+            el["text"].append(data)
+
+    def close(self):
+        super().close()
+        for el in self.elements:
+            el["text"] = "".join(el["text"])
 
     def find(self, tag=None, cls=None, **attrs):
         out = []
@@ -388,3 +393,63 @@ def test_base_files_of_a_composed_run_are_shown_and_linkable(tmp_path, monkeypat
              and inside(el, "div", "finding", data_rule="TST-1")]
     assert links == ["#f2-L15"] and tree.find("tr", id="f2-L15")
     assert "has-related" in tree.find("tr", id="f2-L15")[0]["attrs"]["class"]
+
+
+_REGISTRY = None
+
+
+def _quoted(text: str) -> str:
+    """A YAML double-quoted scalar for any text: printable ASCII as is, everything else as a
+    \\u or \\U escape (YAML 1.2.2, section 5.7, escaped characters)."""
+    out = []
+    for ch in text:
+        if " " <= ch <= "~" and ch not in '"\\':
+            out.append(ch)
+        elif ord(ch) > 0xFFFF:
+            out.append(f"\\U{ord(ch):08x}")
+        else:
+            out.append(f"\\u{ord(ch):04x}")
+    return '"' + "".join(out) + '"'
+
+
+def _page_for_name(tmp_path, name: str) -> str:
+    from trimtab.audit import audit
+    from trimtab.check import CheckOptions
+    from trimtab.findings import Level
+    from trimtab.settings import load
+
+    global _REGISTRY
+    _REGISTRY = _REGISTRY or _registry()
+    cfg = tmp_path / "named.yaml"
+    cfg.write_text(f"run:\n  name: {_quoted(name)}\n  estimator: grpo\nrollout:\n  group_size: 4\n"
+                   "  temperature: 1.0\nbatch:\n  prompts_per_step: 8\n", encoding="utf-8")
+    page, _code = audit([str(cfg)], load(None, REPO), _REGISTRY, CheckOptions(), Level.WARNING)
+    return page
+
+
+def _shape(page: str) -> list:
+    return [(tag, sorted(attrs)) for tag, attrs in parse(page).starttags]
+
+
+def test_any_value_text_leaves_the_page_structure_alone(tmp_path):
+    from hypothesis import HealthCheck, given, settings
+    from hypothesis import strategies as st
+
+    benign = _shape(_page_for_name(tmp_path, "plain"))
+    specials = st.sampled_from(['"', "'", "<", ">", "&", "</code>", "<script>", "-->", "<!--", "]]>", "\u202e",
+                                "\x00", "\r", "\n", "\t", "&lt;", "</svg>", "<a href='javascript:x'>", "\ufeff"])
+    text = st.lists(st.one_of(specials, st.text(st.characters(blacklist_categories=("Cs",)), max_size=6)),
+                    max_size=8).map("".join)
+
+    @settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+    @given(text)
+    def check(name):
+        page = _page_for_name(tmp_path, name)
+        assert yaml.safe_load(_quoted(name)) == name  # the reference reader reads back the same text
+        assert _shape(page) == benign
+        tree = parse(page)
+        (cell,) = [el for el in tree.find("tr", data_concept="run.name")]
+        if not any(ch in name for ch in "\x00\u202e\ufeff") and name.isprintable():
+            assert name in cell["text"]
+
+    check()
