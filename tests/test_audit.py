@@ -274,7 +274,9 @@ def test_exit_status_follows_the_gate(tmp_path):
     res, _page = audit_page(tmp_path, CLEAN)
     assert res.code == 0
     res, page = audit_page(tmp_path, BROKEN, args=("--gate", "error"))
-    assert res.code == 0 and 'data-verdict="passes"' in page
+    assert res.code == 1 and 'data-verdict="fails"' in page  # BAT-2 and LEN-2 are errors
+    res, page = audit_page(tmp_path, BROKEN, args=("--gate", "error", "--skip", "BAT,LEN"))
+    assert res.code == 0 and 'data-verdict="passes"' in page  # what is left are warnings
     res, page = audit_page(tmp_path, BROKEN)
     assert res.code == 1 and 'data-verdict="fails"' in page
 
