@@ -62,13 +62,15 @@ def kl_unstated(ctx):
 @rule("KL-2", "kl-reference-mismatch", "error",
       "KL is on without a reference model, or a reference model is loaded while KL is off.",
       "The KL term measures the policy against a reference policy (usually the initial weights). A "
-      "positive coefficient with the reference switched off (or not stated, when the option "
-      "report_unstated is true) either fails at launch or, in trainers that quietly skip the term, "
-      "trains without the regularisation the config asks for: an error. The reverse, a reference "
-      "model configured while KL is explicitly off, keeps a second copy of the weights in memory "
-      "(and a forward pass per batch) for nothing: a warning. Basis: the KL-penalised objective "
+      "positive coefficient with the reference model written as absent or switched off (false, null, "
+      "none, off) either fails at launch or, in trainers that quietly skip the term, trains without the "
+      "regularisation the config asks for: an error. A reference that is simply not mentioned is "
+      "reported only when the option report_unstated is true (default false: trainers commonly build "
+      "the reference from the initial policy weights when KL is on, common practice). The reverse, a "
+      "reference model configured while KL is explicitly off, keeps a second copy of the weights in "
+      "memory (and a forward pass per batch) for nothing: a warning. Basis: the KL-penalised objective "
       "(arXiv:2203.02155, from memory; arXiv:2402.03300).",
-      options={"report_unstated": True})
+      options={"report_unstated": False})
 def kl_reference(ctx):
     m = ctx.model
     state, v = kl_state(m)

@@ -280,8 +280,8 @@ def test_sarif_with_safety_findings_validates_against_the_schema():
     R = FIXTURES / "rules"
     log = _sarif([R / "EXE-1" / "bad"], R / "EXE-1" / "bad")
     jsonschema.Draft4Validator(schema).validate(log)
-    assert log["runs"][0]["results"][0]["relatedLocations"][0]["physicalLocation"]["artifactLocation"]["uri"] \
-        == "rewards/tidepool_exec.py"
+    exe = [r for r in log["runs"][0]["results"] if r["ruleId"] == "EXE-1"]
+    assert exe[0]["relatedLocations"][0]["physicalLocation"]["artifactLocation"]["uri"] == "rewards/tidepool_exec.py"
 
 
 def test_every_safety_rule_carries_the_cautions():
