@@ -2,9 +2,9 @@
 third-party plugin does, so they use nothing but the public API."""
 from trimtab import hookimpl
 
-from . import vocab, yml
+from . import compose, vocab, yml
 
-MODULES = (yml, vocab)
+MODULES = (yml, vocab, compose)
 
 
 @hookimpl
