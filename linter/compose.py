@@ -743,7 +743,7 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
     include one of ``seeds`` (shown paths, e.g. the files changed in a commit)."""
     layers = list(getattr(settings, "layers", []) or [])
     key = getattr(settings, "bases_key", "") or ""
-    if not seeds or (not layers and not key):
+    if not seeds or (not layers and not key and not getattr(settings, "overrides", "")):
         return files
     from .discover import discover, matches
 
@@ -751,6 +751,12 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
     candidates, _missing = discover([], root, settings.include, settings.exclude)
     have = {shown for _p, shown in files}
     out = list(files)
+    overrides = getattr(settings, "overrides", "") or ""
+    if overrides and (root / overrides).resolve().relative_to(root).as_posix() in seeds:
+        # the overrides file applies to every run: all of them are checked again
+        by_shown = {shown: disk for disk, shown in candidates}
+        by_shown.update({shown: disk for disk, shown in files})
+        return sorted(((disk, shown) for shown, disk in by_shown.items()), key=lambda kv: kv[1])
     memo: dict[str, set[str]] = {}
 
     def shown_of(p: Path) -> str | None:
