@@ -420,5 +420,6 @@ def test_changed_base_rechecks_its_dependants(tmp_path):
 
 def test_changed_overrides_file_rechecks_every_run():
     res = check_json("launch/overrides.yaml", cwd=COMPOSE / "after")
-    # the overrides file, the experiment, and the two bases (checked as files)
-    assert res.json["summary"]["files"] == 4 and res.json["summary"]["runs"] == 1
+    # every file: the overrides file and bases/cluster.yaml (declared bases: files, not runs), the
+    # experiment, and bases/grpo.yaml (named by `inherit` only, so also a run of its own)
+    assert res.json["summary"]["files"] == 4 and res.json["summary"]["runs"] == 2
