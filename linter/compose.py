@@ -23,8 +23,6 @@ Document as ``CompositionProblem``s; the CMP rules report them. The composer kno
 """
 from __future__ import annotations
 
-import difflib
-import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -679,6 +677,8 @@ class _Interp:
         finally:
             self.active.pop()
         if found is None and parts not in self.cyclic and not _ENV.fullmatch(target):
+            import difflib
+
             near = difflib.get_close_matches(target, self.paths(), n=1)
             hint = f" (did you mean {near[0]}?)" if near else ""
             self.c._problem(UNKNOWN, f"{'.'.join(parts)}: ${{{target}}} refers to {target}, which the composed "

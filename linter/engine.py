@@ -98,11 +98,13 @@ class Context:
             for comp in self.model.components:
                 values.extend(comp.fields.values())
             for v in values:
-                if v.chain:
-                    index.setdefault(_place_key(v.location), []).append(v)
+                index.setdefault(_place_key(v.location), []).append(v)
         seen = {_place_key(location)} | {_place_key(r) for r in out}
         for loc in [location] + list(out):
-            for v in index.get(_place_key(loc), ()):
+            found = index.get(_place_key(loc), ())
+            if loc.key_path and any(v.location.key_path == loc.key_path for v in found):
+                found = [v for v in found if v.location.key_path == loc.key_path]
+            for v in found:
                 for hop in v.chain:
                     k = _place_key(hop)
                     if k not in seen:

@@ -152,6 +152,9 @@ def _chain(model: RunModel, key: str) -> list[Location]:
 def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None):
     doc = model.doc
     loc = doc.loc(node)
+    if model.chains and key and loc.key_path != key:
+        # reached through a reference: written at the target's line, known by the key that refers to it
+        loc = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, key)
     chain = _chain(model, key)
     if concept == "reward.sources":
         model.values[concept] = Value(concept, node, loc, node, via, key, chain)

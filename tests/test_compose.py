@@ -423,3 +423,18 @@ def test_changed_overrides_file_rechecks_every_run():
     # every file: the overrides file and bases/cluster.yaml (declared bases: files, not runs), the
     # experiment, and bases/grpo.yaml (named by `inherit` only, so also a run of its own)
     assert res.json["summary"]["files"] == 4 and res.json["summary"]["runs"] == 2
+
+
+def test_two_keys_reaching_one_line_keep_their_own_chains(tmp_path):
+    # JSON is YAML 1.2 (YAML 1.2.2, section 1.3): the same composition applies to .json runs
+    (tmp_path / "trimtab.toml").write_text('bases_key = "inherit"\n')
+    (tmp_path / "base.json").write_text('{"algorithm": "grpo", "rollout": {"group_size": 8, "temperature": "warm"}}\n')
+    (tmp_path / "exp.json").write_text('{"inherit": "base.json", "batch": {"prompts": 16},\n'
+                                       ' "kl": {"coef": "${rollout.temperature}"}}\n')
+    res = check_json("exp.json", cwd=tmp_path)
+    by_key = {f["key_path"]: f for f in res.of("VOC-2")}
+    assert sorted(by_key) == ["kl.coef", "rollout.temperature"]
+    for f in by_key.values():
+        assert (f["location"]["path"], f["location"]["line"], f["location"]["col"]) == ("base.json", 1, 67)
+    assert [(r["path"], r["line"]) for r in by_key["kl.coef"]["related"]] == [("exp.json", 2), ("exp.json", 0)]
+    assert [(r["path"], r["line"]) for r in by_key["rollout.temperature"]["related"]] == [("exp.json", 0)]
