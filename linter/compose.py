@@ -334,7 +334,8 @@ class Composer:
     # --- bases -----------------------------------------------------------------------------------
     def _layers(self, doc: Document, root: Node, path: str) -> list[tuple[str, Document, Mapping]]:
         out: list[tuple[str, Document, Mapping]] = []
-        if not isinstance(root, Mapping):
+        if not isinstance(root, Mapping) or not (self.layers or self.overrides_doc is not None or (
+                self.bases_key and root.get(self.bases_key) is not None)):
             return [("experiment", doc, root)]
         top = Path(path).resolve()
         stack = [(top, doc.path)]
