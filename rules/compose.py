@@ -31,11 +31,12 @@ def reference_cycle(ctx):
     return _report(ctx, "compose-cycle")
 
 
-@rule("CMP-2", "reference-unknown", "error", "A `${...}` reference names a key the composed run does not have.",
+@rule("CMP-2", "reference-unknown", "warning", "A `${...}` reference names a key the composed run does not have.",
       _LAYERS + "The reference resolves against the whole composed run (bases, file, overrides); a target "
       "that none of them has is usually a typo or a key a base renamed. The finding points at the line that "
-      "refers. An upper-case name without dots (`${HOME}`) is taken for an environment variable and left "
-      "alone. Common practice.",
+      "refers. A warning, not an error: a launcher may supply variables of its own that no file shows. An "
+      "upper-case name without dots (`${HOME}`) is taken for an environment variable and left alone. "
+      "Common practice.",
       rl_only=False, scope="file")
 def reference_unknown(ctx):
     return _report(ctx, "compose-unknown")

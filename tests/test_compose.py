@@ -438,3 +438,16 @@ def test_two_keys_reaching_one_line_keep_their_own_chains(tmp_path):
         assert (f["location"]["path"], f["location"]["line"], f["location"]["col"]) == ("base.json", 1, 67)
     assert [(r["path"], r["line"]) for r in by_key["kl.coef"]["related"]] == [("exp.json", 2), ("exp.json", 0)]
     assert [(r["path"], r["line"]) for r in by_key["rollout.temperature"]["related"]] == [("exp.json", 0)]
+
+
+def test_set_past_the_end_of_a_list_and_a_base_that_is_not_a_mapping(tmp_path):
+    (tmp_path / "trimtab.toml").write_text('bases_key = "inherit"\n')
+    (tmp_path / "list.yaml").write_text("- just\n- a list\n")
+    (tmp_path / "run.yaml").write_text("inherit: list.yaml\nalgorithm: grpo\nrollout:\n  group_size: 8\n"
+                                       "kl:\n  coef: 0.01\nrewards:\n  - kind: rule\n")
+    res = check_json("run.yaml", args=["--set", "rewards.3.weight=1"], cwd=tmp_path)
+    (cmp6,) = res.of("CMP-6")
+    assert "rewards is a list of 1 item(s); there is no item 3" in cmp6["message"]
+    (cmp7,) = res.of("CMP-7")
+    assert (cmp7["location"]["path"], cmp7["location"]["line"], cmp7["location"]["col"]) == ("run.yaml", 1, 10)
+    assert "does not hold a mapping" in cmp7["message"]
