@@ -130,7 +130,7 @@ def cmd_check(args) -> int:
             raise SettingsError(str(exc)) from None
         files = [(p, s) for p, s in files if s in changed]
     files = _with_dependants(args, files, changed if args.since else None, settings)
-    jobs = args.jobs or settings.jobs
+    jobs = args.jobs if args.jobs is not None else settings.jobs
     if jobs < 1:
         raise SettingsError(f"--jobs {jobs}: expected a number of at least 1")
     progress = None
