@@ -234,8 +234,8 @@ def _convert_units(model: RunModel, opts: ResolveOptions) -> None:
     for concept, spec in opts.keys.items():
         v = model.values.get(concept)
         c = CONCEPTS.get(concept)
-        if v is None or c is None or not c.per or v.number is None:
-            continue
+        if v is None or v.via != "keymap" or c is None or not c.per or v.number is None:
+            continue  # only values read through the key map are counted in the key map's unit
         factor_num, factor_den, notes, missing = 1, 1, [], []
         if spec.per and spec.per != c.per:
             g = model.values.get("rollout.group_size")
