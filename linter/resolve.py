@@ -85,11 +85,15 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         if found:
             best = max(s for s, _p, _n in found)
             top = [(p, n) for s, p, n in found if s == best]
-            distinct = {id(n): (p, n) for p, n in top}
+            distinct = {}
+            for p, n in top:
+                # one node at two paths: a reference and its target; the referring path tells the story
+                if id(n) not in distinct or ".".join(p) in model.chains:
+                    distinct[id(n)] = (p, n)
             if len(distinct) > 1:
                 model.ambiguous[concept] = [doc.loc(n, ".".join(p)) for p, n in distinct.values()]
                 continue
-            path, node = top[0]
+            path, node = next(iter(distinct.values()))
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
             _store(model, concept, node, "alias", ".".join(path))

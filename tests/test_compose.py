@@ -451,3 +451,30 @@ def test_set_past_the_end_of_a_list_and_a_base_that_is_not_a_mapping(tmp_path):
     (cmp7,) = res.of("CMP-7")
     assert (cmp7["location"]["path"], cmp7["location"]["line"], cmp7["location"]["col"]) == ("run.yaml", 1, 10)
     assert "does not hold a mapping" in cmp7["message"]
+
+
+def test_built_in_arithmetic_rule_sees_the_composed_run():
+    # BAT-2 (built in): 64 prompts x 10 completions = 640 completions do not split into mini-batches of 96
+    res = check_json("experiments/tidepool.yaml", cwd=COMPOSE / "after")
+    (f,) = res.of("BAT-2")
+    assert f["message"].startswith("640 completions per step do not split into mini-batches of 96")
+    assert (f["location"]["path"], f["location"]["line"], f["location"]["col"]) == ("experiments/tidepool.yaml", 5, 9)
+    assert [(r["path"], r["line"], r["col"]) for r in f["related"]] == [
+        ("bases/grpo.yaml", 6, 12), ("launch/overrides.yaml", 3, 15), ("bases/grpo.yaml", 8, 15)]
+    # each file alone: no BAT-2 (no single file holds prompts, group size and mini-batch)
+    for name in ("bases/grpo.yaml", "experiments/tidepool.yaml"):
+        plain = check_json(str(COMPOSE / "after" / name), cwd=FIXTURES)  # no layered settings here
+        assert not plain.of("BAT-2")
+
+
+def test_reference_and_target_both_matching_a_concept_word(tmp_path):
+    from trimtab.explain import models
+
+    (tmp_path / "trimtab.toml").write_text("")
+    run_file = tmp_path / "run.yaml"
+    run_file.write_text("algorithm: grpo\nrollout:\n  group_size: 8\nsweep:\n  lr: 2.0e-6\noptim:\n  lr: ${sweep.lr}\n")
+    (m,), _ = models(str(run_file), load_settings(start=tmp_path), Registry())
+    v = m.values["optim.lr"]
+    assert "optim.lr" not in m.ambiguous and v.key == "optim.lr" and v.value == 2e-6
+    assert (v.location.line, v.location.key_path) == (5, "optim.lr")  # written at sweep.lr, line 5
+    assert [(h.line, h.col) for h in v.chain] == [(7, 7)]  # the reference
