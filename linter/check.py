@@ -34,6 +34,7 @@ class FileResult:
     skipped: bool = False  # read, but not an RL run config
     entries: list[SetEntry] = field(default_factory=list)
     crashed: bool = False
+    accepted_at: set = field(default_factory=set)  # (path, line) of findings accepted in a base's text
 
 
 @dataclass
@@ -140,8 +141,11 @@ class Checker:
             res.skipped = res.runs == 0
         res.findings = filtering.apply_acceptances(res.findings, doc.text, shown, self.active_ids)
         for extra_path, extra_text in self.composer.texts(doc):
-            res.findings = filtering.apply_acceptances(res.findings, extra_text, extra_path, self.active_ids,
+            before = res.findings
+            res.findings = filtering.apply_acceptances(before, extra_text, extra_path, self.active_ids,
                                                        report_unused=False)
+            kept = {id(f) for f in res.findings}
+            res.accepted_at |= {(f.location.path, f.location.line) for f in before if id(f) not in kept}
         return res
 
     def _run(self, r: Rule, ctx: Context, path: str, res: FileResult) -> None:
@@ -235,7 +239,14 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
     findings: list[Finding] = []
     entries: list[SetEntry] = []
     crashed = False
+    accepted_at: set = set()
     for res in results:
+        accepted_at |= res.accepted_at
+    for res in results:
+        if accepted_at:  # an acceptance in a base used by a run built on it is not unused
+            res.findings = [f for f in res.findings if not (
+                f.rule_id == filtering.ACC_UNUSED and ({(f.location.path, f.location.line),
+                                                        (f.location.path, f.location.line + 1)} & accepted_at))]
         findings.extend(res.findings)
         entries.extend(res.entries)
         crashed = crashed or res.crashed

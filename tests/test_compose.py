@@ -337,7 +337,14 @@ def test_acceptance_in_a_base_file(tmp_path):
     base = repo / "bases/recipe.yaml"
     base.write_text(base.read_text().replace("temperature: warm",
                                              "temperature: warm  # trimtab: accept VOC-2 -- read by the launcher"))
-    assert not of(check_dir(repo), "VOC-2")
+    findings = check_dir(repo)
+    assert not of(findings, "VOC-2")
+    # the base checked as a file of its own does not call the acceptance unused: the run uses it
+    assert not of(findings, "ACC-2")
+    base.write_text(base.read_text().replace("accept VOC-2", "accept VOC-3"))
+    (unused,) = of(check_dir(repo), "ACC-2")
+    assert where(unused.location) == ("bases/recipe.yaml", 7, 22)
+    assert where(of(check_dir(repo), "VOC-2")[0].location) == ("bases/recipe.yaml", 7, 16)
 
 
 def test_a_base_is_loaded_once_per_process(tmp_path):
