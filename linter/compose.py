@@ -666,7 +666,7 @@ class _Interp:
             changed = True
             hops.append(tn.location(f"supplies {tn.text} to {dotted} through ${{{target}}}"))
         if not changed:
-            return plain
+            return (raw, src, inherited)  # nothing of ours in it (${HOME}, ${{ ci.syntax }}): as written
         pieces.append(text[pos:])
         new = _place(Scalar("".join(pieces), '"', None), raw, raw.path)
         return (new, src, inherited + hops)

@@ -485,3 +485,17 @@ def test_reference_and_target_both_matching_a_concept_word(tmp_path):
     assert "optim.lr" not in m.ambiguous and v.key == "optim.lr" and v.value == 2e-6
     assert (v.location.line, v.location.key_path) == (5, "optim.lr")  # written at sweep.lr, line 5
     assert [(h.line, h.col) for h in v.chain] == [(7, 7)]  # the reference
+
+
+def test_text_that_only_looks_like_a_reference_stays_as_written(tmp_path):
+    from trimtab.explain import models
+
+    (tmp_path / "trimtab.toml").write_text("")
+    run_file = tmp_path / "run.yaml"
+    run_file.write_text("algorithm: grpo\nrollout:\n  group_size: 8\ncheckpoint_dir: ${HOME}/wren\n"
+                        "run_name: ${{ matrix.name }}\nmodel_path: $${literal}\n")
+    (m,), problems = models(str(run_file), load_settings(start=tmp_path), Registry())
+    assert not problems
+    assert m.values["checkpoint.dir"].value == "${HOME}/wren"
+    assert m.values["run.name"].value == "${{ matrix.name }}"
+    assert m.values["model.source"].value == "${literal}"  # $${ is the escape for a literal ${
