@@ -499,3 +499,13 @@ def test_text_that_only_looks_like_a_reference_stays_as_written(tmp_path):
     assert m.values["checkpoint.dir"].value == "${HOME}/wren"
     assert m.values["run.name"].value == "${{ matrix.name }}"
     assert m.values["model.source"].value == "${literal}"  # $${ is the escape for a literal ${
+
+
+def test_json_report_with_command_line_and_base_locations_validates():
+    import jsonschema
+
+    schema = json.loads((Path(__file__).resolve().parents[1] / "linter" / "report.schema.json").read_text())
+    res = check_json("experiments/tidepool.yaml", args=["--set", "rollout.temperature=warm", "--set", "run_name.x=1"],
+                     cwd=COMPOSE / "after")
+    jsonschema.Draft7Validator(schema).validate(res.json)
+    assert {f["rule"] for f in res.findings} >= {"VOC-2", "CMP-6", "BAT-2"}
