@@ -41,6 +41,7 @@ BASE_CYCLE = "compose-base-cycle"
 BASE_OUTSIDE = "compose-base-outside"
 OVERRIDE = "compose-override"
 MALFORMED = "compose-malformed"
+OVERRIDE_NEW = "compose-override-new"
 
 _REF = re.compile(r"\$\$\{|\$\{([^{}$]*)\}")
 _WHOLE = re.compile(r"\$\{([^{}$]*)\}")
@@ -173,6 +174,17 @@ class _M:
     def __init__(self, node):
         self.node = node
         self.items: dict[str, tuple] = {}  # name -> (key node, child: _M | _S | Node)
+
+
+def _paths_of(top: "_M", limit: int = 5000) -> list[str]:
+    out, stack = [], [((), top)]
+    while stack and len(out) < limit:
+        p, m = stack.pop()
+        if isinstance(m, _M):
+            for name, (_k, c) in m.items.items():
+                out.append(".".join(p + (name,)))
+                stack.append((p + (name,), c))
+    return out
 
 
 class _S:
@@ -510,6 +522,13 @@ class Composer:
             return
         key = _place(GivenScalar(last, None, None), None, p)
         old = cur.items.get(last)
+        if old is None and not _removes(g.node):
+            import difflib
+
+            near = difflib.get_close_matches(g.key, _paths_of(top), n=1)
+            hint = f"; did you mean {near[0]}?" if near else ""
+            self._problem(OVERRIDE_NEW, f"--set {g.key} adds a key that no layer of the run has; a trainer that "
+                                        f"does not read it ignores the override{hint}", cmd, subject=g.key)
         self._write(cur, last, old[0] if old else key, g.node, "--set", p)
 
     def _role_of(self, p: tuple) -> str:

@@ -84,5 +84,14 @@ def composition_malformed(ctx):
     return _report(ctx, "compose-malformed")
 
 
+@rule("CMP-8", "override-adds-key", "note", "A --set override adds a key that no layer of the run has.",
+      _LAYERS + "An override usually changes a value the run already has; one that adds a new key is often "
+      "a misspelt key path (`--set rollout.group_sise=8`), which a trainer silently ignores. A note: adding "
+      "a key on purpose is fine. The finding suggests the nearest key the run has.",
+      rl_only=False, scope="file")
+def override_adds_key(ctx):
+    return _report(ctx, "compose-override-new")
+
+
 RULES = [reference_cycle, reference_unknown, base_missing, base_cycle, base_outside, override_not_applied,
-         composition_malformed]
+         composition_malformed, override_adds_key]

@@ -509,3 +509,12 @@ def test_json_report_with_command_line_and_base_locations_validates():
                      cwd=COMPOSE / "after")
     jsonschema.Draft7Validator(schema).validate(res.json)
     assert {f["rule"] for f in res.findings} >= {"VOC-2", "CMP-6", "BAT-2"}
+
+
+def test_cmp_8_bad_and_good():
+    folder = RULES / "CMP-8"
+    bad = check_json("bad.yaml", args=["--set", "rollout.group_sise=16"], cwd=folder)
+    (f,) = bad.of("CMP-8")
+    assert f["level"] == "note" and f["location"]["path"] is None
+    assert f["location"]["key_path"] == "rollout.group_sise" and "did you mean rollout.group_size?" in f["message"]
+    assert not check_json("good.yaml", args=["--set", "rollout.group_size=16"], cwd=folder).of("CMP-8")
