@@ -518,3 +518,41 @@ def test_cmp_8_bad_and_good():
     assert f["level"] == "note" and f["location"]["path"] is None
     assert f["location"]["key_path"] == "rollout.group_sise" and "did you mean rollout.group_size?" in f["message"]
     assert not check_json("good.yaml", args=["--set", "rollout.group_size=16"], cwd=folder).of("CMP-8")
+
+
+_TOKENS = ["1", "0.5", "warm", "${a}", "${b.x}", "${a.y.z}", "'t${c}'", "${rollout}", "!trimtab/remove", "[1, 2]",
+           "${b.x.0}", "${HOME}", "$${a}", "${nope.nothing}", "${a.y}"]
+_tree = st.recursive(st.sampled_from(_TOKENS),
+                     lambda kids: st.dictionaries(st.sampled_from(["a", "b", "c", "x", "y", "z", "rollout"]), kids,
+                                                  min_size=1, max_size=3), max_leaves=8)
+
+
+def _yaml(node, indent=0) -> str:
+    pad = " " * indent
+    if not isinstance(node, dict):
+        return node
+    return "\n" + "\n".join(f"{pad}{k}: {_yaml(v, indent + 2)}" for k, v in node.items())
+
+
+@given(st.lists(st.dictionaries(st.sampled_from(["a", "b", "c", "rollout"]), _tree, min_size=1, max_size=4),
+                min_size=1, max_size=3),
+       st.lists(st.tuples(st.sampled_from(["a", "b.x", "a.y.z", "rollout.n", "c.0"]), st.sampled_from(_TOKENS)),
+                max_size=2))
+@hsettings(max_examples=40, deadline=None)
+def test_any_layering_composes_without_a_traceback(layers, sets):
+    """Random layers with references (cycles, unknown targets, text), removal markers and --set values:
+    composition and every rule finish; nothing crashes (a crash would be a TOOL-1 finding)."""
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as tmp:
+        root = Path(tmp)
+        (root / "trimtab.toml").write_text('bases_key = "inherit"\nrun_configs = ["*.yaml"]\n')
+        names = []
+        for i, layer in enumerate(layers):
+            head = f"inherit: {names[-1]}\n" if names else ""
+            (root / f"l{i}.yaml").write_text(head + _yaml(layer).lstrip("\n") + "\n")
+            names.append(f"l{i}.yaml")
+        settings = load_settings(start=root)
+        checker = Checker(settings, Registry(), CheckOptions(overrides=[(k, v) for k, v in sets]))
+        result = run(checker, [(str(root / n), n) for n in names])
+        assert not result.crashed, [f.message for f in result.findings if f.rule_id == "TOOL-1"]
