@@ -158,6 +158,16 @@ def _removes(node: Node) -> bool:
     return isinstance(node, Scalar) and node.tag == REMOVE_TAG
 
 
+def _holds_ref(node: Node) -> bool:
+    if isinstance(node, Scalar):
+        return "${" in node.text
+    if isinstance(node, (Mapping, Sequence)):
+        from .document import walk
+
+        return any(isinstance(n, Scalar) and "${" in n.text for n in walk(node))
+    return False
+
+
 def _child(node: Node, name: str):
     if isinstance(node, Mapping):
         return node.get(name)
@@ -223,6 +233,8 @@ class Composer:
         if self.overrides_doc is not None:
             self.base_files.add(self.overrides_doc.path)
         self._used: dict[str, dict[str, str]] = {}
+        self._places: dict[str, tuple] = {}
+        self._source_shown = self._shown(Path(settings.source)) if getattr(settings, "source", None) else "settings"
 
     # --- settings-level inputs: parsed once ----------------------------------------------------
     def _parse_given(self, key: str, text: str) -> _Given:
@@ -277,13 +289,6 @@ class Composer:
         except ValueError:
             return path.as_posix()
 
-    def _inside(self, path: Path) -> bool:
-        try:
-            path.resolve().relative_to(self.root)
-            return True
-        except ValueError:
-            return False
-
     # --- the public entry points -----------------------------------------------------------------
     def compose(self, doc: Document, root: Node, path: str) -> Composed:
         self._doc = doc
@@ -304,6 +309,7 @@ class Composer:
         if plain or not isinstance(root, Mapping):
             return Composed(root, self._flush(), files)
         self.hist: dict[tuple, list[tuple[Node, str, str]]] = {}
+        self.refs: set[tuple] = set()  # every path on the way to a value that holds a ${...}
         top = _M(root)
         for role, d, r in layers:
             self._merge(top, r, role, (), True)
@@ -312,17 +318,19 @@ class Composer:
         built = self._build(top, ())
         out = ComposedMapping()
         _place(out, root, ())
-        if interpolate:
+        chains: dict[str, list[Location]] = {}
+        for p in self.hist:  # values that no reference touches: the layers they replaced
+            chain = self.superseded(p)
+            if chain:
+                chains[".".join(p)] = chain
+        if interpolate and self.refs:
             interp = _Interp(self, built)
             new = interp.rebuild((), 0)
             out.pairs = [(k, v) for _n, k, v, _via in new.entries()] if isinstance(new, Mapping) else []
-            out.chains = interp.chains
+            chains.update(interp.chains)
         else:
             out.pairs = list(built.pairs)
-            for p in self.hist:
-                chain = self.superseded(p)
-                if chain:
-                    out.chains[".".join(p)] = chain
+        out.chains = chains
         return Composed(out, self._flush(), files)
 
     def texts(self, doc: Document):
@@ -349,17 +357,17 @@ class Composer:
         if not isinstance(root, Mapping) or not (self.layers or self.overrides_doc is not None or (
                 self.bases_key and root.get(self.bases_key) is not None)):
             return [("experiment", doc, root)]
-        top = Path(path).resolve()
+        top = self._where(Path(path))[0]
         stack = [(top, doc.path)]
         from .discover import matches
 
-        source = self._shown(Path(self.settings.source)) if self.settings.source else "settings"
+        source = self._source_shown
         for i, entry in enumerate(self.layers):
             if not matches(doc.path, [entry.get("files", "")]):
                 continue
             for b in entry.get("bases", []):
                 real = (self.root / b)
-                if real.resolve() == top:
+                if self._where(real)[0] == top:
                     continue  # a glob that also matches the base itself
                 naming = Location(doc.path, 0, 0, message="", key_path="")
                 related = [Location(source, 0, 0, message=f"layers entry {i + 1} names base {b!r} for files "
@@ -388,14 +396,27 @@ class Composer:
                                          f"paths, found {_show(it)}", it.location(), subject=self.bases_key)
         return out
 
+    def _where(self, real: Path) -> tuple:
+        """(resolved path, shown path or None when outside the repository, is a file): once per path
+        for the life of this composer (one check)."""
+        key = str(real)
+        hit = self._places.get(key)
+        if hit is None:
+            resolved = real.resolve()
+            try:
+                shown = resolved.relative_to(self.root).as_posix()
+            except ValueError:
+                shown = None
+            hit = self._places[key] = (resolved, shown, resolved.is_file())
+        return hit
+
     def _add_base(self, real: Path, name: str, naming: Location, related: list, stack: list, out: list) -> None:
-        shown_real = real.resolve()
+        shown_real, shown, is_file = self._where(real)
         chain = [s for _r, s in stack]
-        if not self._inside(real):
+        if shown is None:
             self._problem(BASE_OUTSIDE, f"base {name!r} is outside the repository; trimtab reads no file "
                                         "outside the repository root", naming, related, subject=name)
             return
-        shown = self._shown(real)
         for i, (r, _s) in enumerate(stack):
             if r == shown_real:
                 cycle = " -> ".join(chain[i:] + [shown])
@@ -404,7 +425,7 @@ class Composer:
         if len(stack) > _MAX_DEPTH:
             self._problem(BASE_CYCLE, f"bases nest deeper than {_MAX_DEPTH} files", naming, related, subject=name)
             return
-        if not real.is_file():
+        if not is_file:
             looked = f" (looked for {shown})" if shown != name else ""
             self._problem(BASE_MISSING, f"base {name!r} does not exist{looked}", naming, related, subject=name)
             return
@@ -457,6 +478,12 @@ class Composer:
             self._forget_below(p)
         self.hist.setdefault(p, []).append((v, role, "set"))
         dst.items[name] = (k, v)
+        if _holds_ref(v):
+            self._mark_ref(p)
+
+    def _mark_ref(self, p: tuple) -> None:
+        for i in range(len(p) + 1):
+            self.refs.add(p[:i])
 
     def _forget_below(self, p: tuple) -> None:
         n = len(p)
@@ -519,6 +546,8 @@ class Composer:
                 return
             self.hist[p].append((g.node, "--set", "set"))
             cur.items[int(last)] = g.node
+            if _holds_ref(g.node):
+                self._mark_ref(p)
             return
         key = _place(GivenScalar(last, None, None), None, p)
         old = cur.items.get(last)
@@ -731,6 +760,8 @@ class _Interp:
         if r is None:  # cannot happen for a path taken from the tree; keep the raw node
             return _child(self.at(parts[:-1])[0], parts[-1])
         node, src, hops = r
+        if src == parts and not hops and parts not in self.c.refs:
+            return node  # no reference in or above it: as merged (its chain is the layers it replaced)
         chain = self.c.superseded(src) + hops
         if chain and parts:
             self.chains[".".join(parts)] = chain
