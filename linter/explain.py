@@ -2,6 +2,7 @@
 with its inputs, and the concepts that were not found."""
 from __future__ import annotations
 
+import re
 from typing import TextIO
 
 from . import arithmetic, loader
@@ -9,6 +10,8 @@ from .check import CheckOptions, Checker
 from .model import RunModel
 from .resolve import resolve
 from .vocabulary import CONCEPTS
+
+_USERINFO = re.compile(r"(?<=://)[^/@\s]+@")  # a URL's user information (may hold a password)
 
 
 def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel], list[str]]:
@@ -40,7 +43,8 @@ def _show(value) -> str:
         return f"<{value.kind}>"
     if isinstance(value, float):
         return repr(value)
-    return str(value)
+    # a URL's user information can hold a password: never show it
+    return _USERINFO.sub("****@", str(value))
 
 
 def _wrap(text: str, width: int = 96) -> str:

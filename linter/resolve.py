@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .model import Component, RunModel, Value
-from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, normalise_key
+from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, normalise_key
 
 
 @dataclass(frozen=True)
@@ -55,8 +55,12 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         _store(model, concept, node, "keymap", spec.key, spec)
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
+    sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
     for path, node in leaves:
         if id(node) in taken:
+            continue
+        # keys inside one reward component are its fields, not concepts of the run
+        if _inside_sources(path, sources_key):
             continue
         leaf = normalise_key(path[-1])
         parents = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
@@ -106,6 +110,20 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     markers = sum(1 for c in RL_MARKERS if c in model.values)
     model.is_rl = opts.force_rl or markers >= RL_MIN_MARKERS or "run.estimator" in model.values and markers >= 2
     return model
+
+
+def _inside_sources(path: tuple, sources_key: tuple | None) -> bool:
+    """A key inside one reward component (a field of reward.sources, not a concept of the run)."""
+    for i in range(len(path) - 1):
+        if sources_key is not None and path[:i + 1] == sources_key:
+            return True
+        parents = [normalise_key(p) for p in path[:i] if not p.isdigit()]
+        for alias in ALIASES.get(normalise_key(path[i]), ()):
+            if alias.concept != "reward.sources" or alias.not_under and any(p in alias.not_under for p in parents):
+                continue
+            if not alias.under or parents and parents[-1] in alias.under:
+                return True
+    return False
 
 
 def _leaves(root: Node):
@@ -214,6 +232,12 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
             comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component",
                                        chain=_chain(model, at))
         elif isinstance(item, Mapping):
+            _component_sandbox(model, comp, item)
+            for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
+                if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
+                                                   for a in ALIASES.get(normalise_key(word), ())):
+                    comp.fields["trust_remote_code"] = Value("trust_remote_code", sub.value(model.version),
+                                                             doc.loc(sub), sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
@@ -225,6 +249,29 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                         break
         out.append(comp)
     return out
+
+
+def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
+    """A sandbox section inside one component: its fields become ``sandbox.*`` fields of the
+    component (they describe where that component's code runs)."""
+    for word, _k, sub, _via in item.entries():
+        if normalise_key(word) not in SANDBOX:
+            continue
+        if isinstance(sub, Scalar):
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", sub.value(model.version), model.doc.loc(sub), sub,
+                                                "component", word)
+            return
+        if not isinstance(sub, Mapping):
+            return
+        for name, _kn, v, _via2 in sub.entries():
+            if not isinstance(v, Scalar):
+                continue
+            for alias in ALIASES.get(normalise_key(name), ()):
+                if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
+                    comp.fields[alias.concept] = Value(alias.concept, v.value(model.version), model.doc.loc(v), v,
+                                                       "component", f"{word}.{name}")
+                    break
+        return
 
 
 # --- units ------------------------------------------------------------------------------
