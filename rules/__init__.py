@@ -2,9 +2,9 @@
 third-party plugin does, so they use nothing but the public API."""
 from trimtab import hookimpl
 
-from . import alg, bat, clip, exe, kl, length, opt, reward, secrets, smp, vocab, yml
+from . import alg, bat, clip, compose, exe, kl, length, opt, reward, secrets, smp, vocab, yml
 
-MODULES = (yml, vocab, bat, smp, length, reward, exe, secrets, kl, clip, alg, opt)
+MODULES = (yml, vocab, bat, smp, length, reward, exe, secrets, compose, kl, clip, alg, opt)
 
 
 @hookimpl
