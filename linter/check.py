@@ -164,10 +164,13 @@ class Checker:
         by_path: dict[str, list[Finding]] = {}
         for f in found:
             by_path.setdefault(f.location.path, []).append(f)
-        commented = [r.path for r in results if r.set_accepts]
+        checked = {r.path for r in results}
+        # files with acceptances of set rules, and files that were not checked themselves (the bases a
+        # composed run inherits its values from)
+        commented = [r.path for r in results if r.set_accepts] + sorted(p for p in by_path if p and p not in checked)
         out = [f for p, fs in by_path.items() if p not in commented for f in fs]
         for path in commented:
-            doc = loader.load(real.get(path, path), path, self.settings.limits)
+            doc = loader.load(real.get(path, str(self.settings.root / path)), path, self.settings.limits)
             # Unused ones are not reported: whether a set rule fires depends on which files were
             # checked together (a pre-commit run sees only the changed ones).
             out.extend(filtering.apply_acceptances(by_path.get(path, []), doc.text, path, set_ids,

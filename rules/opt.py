@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import posixpath
 
-from trimtab import rule
+from trimtab import Location, rule
 
 from ._common import anchor, num, shown, unresolved
 
@@ -117,21 +117,38 @@ def shared_dir(ctx):
             v = entry.values.get(concept)
             d = _norm(v.value) if v is not None else None
             if d is None or d in dirs_here:
-                continue  # one run writing checkpoints inside its own output directory is fine
+                continue  # checkpoints and outputs of one run in one directory: no clash
             dirs_here.add(d)
             owners.setdefault(d, []).append((entry, concept))
     for d in sorted(owners):
         group = owners[d]
         if len(group) < 2:
             continue
+        # One finding per place the directory is written. Runs composed from a shared base file meet at
+        # the base's line: that line gets one finding naming every run that inherits it.
+        places: dict[tuple, list[tuple[object, str]]] = {}
         for entry, concept in group:
-            others = [(e, c) for e, c in group if e is not entry]
+            loc = entry.values[concept].location
+            places.setdefault((loc.path or "", loc.line, loc.col), []).append((entry, concept))
+        for members in places.values():
+            entry, concept = members[0]
             v = entry.values[concept]
-            related = [e.values[c].location.with_message(
-                f"the same directory ({c}{f' of document {e.index + 1}' if e.index else ''})") for e, c in others]
-            names = ", ".join(_label(e) for e, _c in others)
-            yield ctx.finding(f"{concept} = {v.value}: also written to by {names}; the runs overwrite each "
-                              "other's checkpoints and outputs", v.location, related=related, subject=d)
+            here = {id(e) for e, _c in members}
+            others = [(e, c) for e, c in group if id(e) not in here]
+            related = [e.values[c].location.with_message(f"the same directory ({c}{_doc(e)})") for e, c in others]
+            related += [Location(e.path, 0, 0, message=f"in the run composed from {_label(e)}")
+                        for e, _c in members if e.path != v.location.path]
+            if len(members) == 1:
+                text = f"{concept} = {v.value}: also written to by {', '.join(_label(e) for e, _c in others)}"
+            else:
+                runs = [_label(e) for e, _c in members] + [_label(e) for e, _c in others]
+                text = f"{concept} = {v.value} is written to by {len(runs)} runs ({', '.join(runs)})"
+            yield ctx.finding(text + "; the runs overwrite each other's checkpoints and outputs", v.location,
+                              related=related, subject=d)
+
+
+def _doc(entry) -> str:
+    return f" of document {entry.index + 1}" if entry.index else ""
 
 
 @rule("OPT-5", "seed-unstated", "note", "No random seed is stated.",

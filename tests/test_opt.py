@@ -142,3 +142,30 @@ def test_a_cross_file_acceptance_is_not_called_unused_when_its_partner_is_not_ch
     d = _accepting_copy(tmp_path)
     r = check_json(d / "bad-a.yaml", cwd=d)
     assert r.findings == [] and r.code == 0
+
+
+COMPOSED = fx("OPT-4", "composed")
+
+
+@pytest.mark.parametrize("jobs", [1, 2])
+def test_runs_inheriting_one_directory_from_a_base_get_one_finding_at_the_base_line(jobs):
+    r = check_json(COMPOSED / "experiments", args=("--jobs", str(jobs)), cwd=COMPOSED)
+    assert places(r, "OPT-4") == [("grpo.yaml", 18, 8, "warning")]
+    f = r.of("OPT-4")[0]
+    assert f["location"]["path"] == "bases/grpo.yaml"
+    assert "written to by 2 runs (experiments/one.yaml, experiments/two.yaml)" in f["message"]
+    assert [(x["path"], x["line"]) for x in f["related"]] == [("experiments/one.yaml", 0), ("experiments/two.yaml", 0)]
+
+
+def test_an_acceptance_in_the_base_accepts_the_inherited_clash(tmp_path):
+    import shutil
+
+    d = tmp_path / "c"
+    shutil.copytree(COMPOSED, d)
+    (d / ".git").mkdir()
+    base = d / "bases" / "grpo.yaml"
+    base.write_text(base.read_text().replace(
+        "  dir: checkpoints/wren-sweep\n",
+        "  dir: checkpoints/wren-sweep  # trimtab: accept OPT-4 -- sweep points resume each other\n"))
+    r = check_json(d / "experiments", cwd=d)
+    assert r.of("OPT-4") == [] and r.findings == []
