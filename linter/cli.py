@@ -122,7 +122,10 @@ def cmd_check(args) -> int:
     registry = _registry()
     options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
     checker = Checker(settings, registry, options)
-    files, missing = discover(args.paths, settings.root, settings.include, settings.exclude)
+    used: set[str] = set()
+    files, missing = discover(args.paths, settings.root, settings.include, settings.exclude, used)
+    for idle in settings.check_include(used, bool(args.paths)):
+        print(f"trimtab: note: setting {idle} matches no file", file=sys.stderr)
     if args.since:
         try:
             changed = set(changed_since(args.since, settings.root))
@@ -142,7 +145,7 @@ def cmd_check(args) -> int:
         progress.close()
     findings = result.findings
     for m in missing:
-        findings.insert(0, Finding("YML-6", Level.ERROR, "cannot be read: no such file or folder",
+        findings.insert(0, Finding("YML-6", Level.ERROR, getattr(m, "reason", "cannot be read: no such file or folder"),
                                    Location(m), subject=m).finish())
     accepted_path = args.accepted or settings.accepted
     if args.write_accepted:
