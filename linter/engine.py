@@ -81,8 +81,26 @@ class Context:
         if level is not None and self.level != self.rule.level:
             # the user changed this rule's level in settings: that applies to all its findings
             lvl = self.level
-        return Finding(self.rule.id, lvl, message, location, list(related), key_path or location.key_path,
-                       suggestion, help or self.rule.help, fix, subject, cwe=self.rule.cwe)
+        return Finding(self.rule.id, lvl, message, location, self._with_hops(location, related),
+                       key_path or location.key_path, suggestion, help or self.rule.help, fix, subject,
+                       cwe=self.rule.cwe)
+
+    def _with_hops(self, location: Location, related: Iterable[Location]) -> list[Location]:
+        """The rule's related locations, plus the hops (Value.chain: merges, aliases, bases) of
+        the value written at the finding's place, so that a finding on a value reached through
+        '<<' or an alias also shows where it was merged or used."""
+        out = list(related)
+        if self.model is None or not location.line:
+            return out
+        here = (location.path, location.line, location.col)
+        have = {(r.path, r.line, r.col) for r in out} | {here}
+        for v in list(self.model.values.values()) + list(self.model.derived.values()):
+            if v.chain and (v.location.path, v.location.line, v.location.col) == here:
+                for hop in v.chain:
+                    if (hop.path, hop.line, hop.col) not in have:
+                        have.add((hop.path, hop.line, hop.col))
+                        out.append(hop)
+        return out
 
 
 class Registry:
