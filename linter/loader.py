@@ -363,7 +363,9 @@ class _Builder:
             if start < len(text) and text[start] in "!&":
                 m = _TAG_PREFIX.match(text, start)
                 if m:
-                    tag = _tag(raw.tag)
+                    # the non-specific tag '!' means "a string" (YAML 1.2.2, section 6.9.1);
+                    # some readers resolve it like a plain scalar
+                    tag = "!" if m.group(1) == "!" else _tag(raw.tag)
             node: Node = Scalar(raw.value, raw.style or None, tag)
             self._place(node, raw, path)
             self.memo[id(raw)] = node
