@@ -50,9 +50,15 @@ def matches(rel: str, patterns) -> bool:
 
 
 def relpath(path: Path, root: Path) -> str:
+    """The path as the user wrote or sees it: relative to the root, links not followed (a link
+    is shown by its own name), else resolved, else as given."""
+    try:
+        return Path(os.path.abspath(path)).relative_to(root).as_posix()
+    except ValueError:
+        pass
     try:
         return path.resolve().relative_to(root).as_posix()
-    except ValueError:
+    except (ValueError, OSError, RuntimeError):
         return path.as_posix()
 
 

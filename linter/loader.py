@@ -284,6 +284,15 @@ def _parse_problem(doc: Document, exc: Exception, limits: Limits = Limits()) -> 
     message = f"{context}: {problem}" if context else str(problem)
     line = mark.line + 1 if mark is not None else 0
     col = mark.column + 1 if mark is not None else 0
+    position = getattr(exc, "position", None)  # a reader error (a control character) has only this
+    if mark is None and isinstance(position, int) and 0 <= position <= len(doc.text):
+        before = doc.text[:position]
+        line = before.count("\n") + 1
+        col = position - (before.rfind("\n") + 1) + 1
+        reason = getattr(exc, "reason", "") or "is not allowed"
+        char = getattr(exc, "character", None)
+        shown = f"#x{ord(char):04x}" if isinstance(char, str) else f"#x{char:04x}" if isinstance(char, int) else "a character"
+        message = f"character {shown} {reason}" if "character" not in str(reason) else f"{shown}: {reason}"
     if _NESTING in str(problem):
         doc.problems.append(Problem("depth", f"nests deeper than {limits.max_depth} levels (setting "
                                     "limits.max_depth); the parser stops here", line, col))

@@ -105,7 +105,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
 
 # How many times, in all, a section reached again through an alias may be walked again: aliased
 # sections resolve at every place they are used, while a nested-alias document stays linear.
-REVISIT_BUDGET = 2_000
+REVISIT_BUDGET = 500
 
 
 def _leaves(root: Node):
