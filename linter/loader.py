@@ -168,7 +168,7 @@ def parse_bytes(doc: Document, data: bytes, limits: Limits) -> Document:
     if text.startswith("\ufeff"):
         doc.bom, text = "\ufeff", text[1:]
     doc.text = text
-    if doc.fmt == "json" and not _json_ok(doc, text):
+    if doc.fmt == "json" and not _json_ok(doc, text, limits):
         return doc
     # Building the node graph creates many small objects and no garbage: pausing the cyclic
     # collector meanwhile cuts the time on a large file by about a third (measured here on a
@@ -206,22 +206,29 @@ def _compose(doc: Document, text: str, limits: Limits) -> Document:
     return doc
 
 
-def _deep_mark(text: str, max_depth: int) -> tuple[int, int]:
-    """Where nesting first passes ``max_depth``, found with the event parser (which, unlike a
-    composer, does not recurse); (0, 0) when it cannot be found."""
+def _deep_mark(text: str, max_depth: int, upto: int | None = None) -> tuple[int, int]:
+    """Where nesting first passes ``max_depth``, found with an event parser (which, unlike a
+    composer, does not recurse): libyaml's, else (when libyaml stops before it yields the event,
+    at its own limit of 1000 levels) PyYAML's pure-Python one on the text up to where libyaml
+    stopped (``upto``). (0, 0) when it cannot be found."""
     import yaml
 
-    depth = 0
-    try:
-        for event in yaml.parse(text, Loader=yaml.SafeLoader):
-            if isinstance(event, yaml.CollectionStartEvent):
-                depth += 1
-                if depth > max_depth:
-                    return event.start_mark.line + 1, event.start_mark.column + 1
-            elif isinstance(event, yaml.CollectionEndEvent):
-                depth -= 1
-    except Exception:
-        pass
+    readers = [yaml.SafeLoader]
+    if getattr(yaml, "__with_libyaml__", False):
+        readers.insert(0, yaml.CSafeLoader)
+    for reader in readers:
+        depth = 0
+        try:
+            part = text if reader is not yaml.SafeLoader or upto is None else text[:upto]
+            for event in yaml.parse(part, Loader=reader):
+                if isinstance(event, yaml.CollectionStartEvent):
+                    depth += 1
+                    if depth > max_depth:
+                        return event.start_mark.line + 1, event.start_mark.column + 1
+                elif isinstance(event, yaml.CollectionEndEvent):
+                    depth -= 1
+        except Exception:
+            continue
     return 0, 0
 
 
@@ -257,7 +264,30 @@ def _decode(doc: Document, data: bytes) -> str | None:
     return text
 
 
-def _json_ok(doc: Document, text: str) -> bool:
+def _json_deep_mark(text: str, max_depth: int) -> tuple[int, int]:
+    """Where JSON brackets (outside strings) first nest past ``max_depth``."""
+    depth, in_str, escaped = 0, False, False
+    for i, ch in enumerate(text):
+        if in_str:
+            if escaped:
+                escaped = False
+            elif ch == "\\":
+                escaped = True
+            elif ch == '"':
+                in_str = False
+        elif ch == '"':
+            in_str = True
+        elif ch in "[{":
+            depth += 1
+            if depth > max_depth:
+                line = text.count("\n", 0, i) + 1
+                return line, i - (text.rfind("\n", 0, i) + 1) + 1
+        elif ch in "]}":
+            depth -= 1
+    return 0, 0
+
+
+def _json_ok(doc: Document, text: str, limits: Limits = Limits()) -> bool:
     import json
 
     try:
@@ -266,7 +296,8 @@ def _json_ok(doc: Document, text: str) -> bool:
         _fail(doc, "json", f"is not valid JSON: {exc.msg}", exc.lineno, exc.colno)
         return False
     except RecursionError:
-        _fail(doc, "depth", "nests deeper than the JSON reader can follow")
+        line, col = _json_deep_mark(text, limits.max_depth)
+        _fail(doc, "depth", f"nests deeper than {limits.max_depth} levels (setting limits.max_depth)", line, col)
         return False
     except ValueError as exc:  # e.g. an integer longer than the interpreter converts
         _fail(doc, "json", f"is not readable as JSON: {exc}")
@@ -294,8 +325,12 @@ def _parse_problem(doc: Document, exc: Exception, limits: Limits = Limits()) -> 
         shown = f"#x{ord(char):04x}" if isinstance(char, str) else f"#x{char:04x}" if isinstance(char, int) else "a character"
         message = f"character {shown} {reason}" if "character" not in str(reason) else f"{shown}: {reason}"
     if _NESTING in str(problem):
+        upto = mark.index + 1 if mark is not None else None
+        line, col = _deep_mark(doc.text, limits.max_depth, upto) if limits.max_depth < 1000 else (0, 0)
+        if not line:
+            line, col = (mark.line + 1, mark.column + 1) if mark is not None else (0, 0)
         doc.problems.append(Problem("depth", f"nests deeper than {limits.max_depth} levels (setting "
-                                    "limits.max_depth); the parser stops here", line, col))
+                                    "limits.max_depth)", line, col))
         return
     related = []
     cmark = getattr(exc, "context_mark", None)

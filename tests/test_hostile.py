@@ -114,8 +114,13 @@ def _mine(doc):
 
 def _variants(data: bytes):
     """The file as written, with CRLF line ends, with a UTF-8 byte-order mark, and as UTF-16
-    with a byte-order mark."""
+    with a byte-order mark (for fixtures that are UTF-8 text)."""
     yield "as written", data
+    try:
+        data.decode("utf-8")
+    except UnicodeDecodeError:
+        return
+    data = data.removeprefix(codecs.BOM_UTF8)
     crlf = data.replace(b"\r\n", b"\n").replace(b"\n", b"\r\n")
     yield "CRLF", crlf
     yield "UTF-8 BOM", codecs.BOM_UTF8 + data
@@ -126,20 +131,24 @@ def _variants(data: bytes):
 def test_fixture_locations_equal_pyyaml_marks():
     files = sorted(p for p in FIXTURES.glob("**/*.y*ml"))
     assert len(files) >= 8 and any(p.parent == HOSTILE for p in files)
-    compared = 0
+    compared, unread = 0, []
     for path in files:
         for how, data in _variants(path.read_bytes()):
             try:
                 ref = _reference(data)
-            except yaml.YAMLError:
+            except (yaml.YAMLError, RecursionError):
                 continue  # a fixture that is broken on purpose: its finding is another test's
             doc = loader.parse_bytes(loader.Document(str(path)), data, loader.Limits())
-            assert doc.readable, (path, how, doc.problems)
+            if not doc.readable:
+                unread.append(f"{path.relative_to(FIXTURES)} ({how})")
+                continue
             assert _mine(doc) == ref, (path.relative_to(FIXTURES), how,
                                        [(a, b) for a, b in zip(_mine(doc), ref) if a != b][:3])
             compared += len(ref)
+    # a fixture the reference reads but trimtab refuses (over a limit, say) has its own finding
+    assert len(unread) <= len(files) // 10, unread
     MEASURED.append(f"location oracle: {compared} nodes of {len(files)} fixtures x 5 encodings/line ends "
-                    "equal PyYAML's marks")
+                    f"equal PyYAML's marks" + (f"; not compared: {', '.join(unread)}" if unread else ""))
 
 
 def test_oracle_covers_tabs_flow_and_multiline():
@@ -228,14 +237,16 @@ def test_nesting_far_past_the_limit_is_located_not_a_recursion(repo, text):
     with bounded(20):
         r = check(path, cwd=repo)
     [f] = r.of("YML-5")
-    assert f["location"]["line"] == 1 and f["location"]["col"] > 1, f
+    # the bracket that passes 200 levels: the 201st '[' (column 201), or the 201st '{' (column 4 * 200 + 1)
+    assert (f["location"]["line"], f["location"]["col"]) in ((1, 201), (1, 801)), f
 
 
-def test_deep_json_is_a_finding(repo):
+def test_deep_json_is_a_located_finding(repo):
     path = repo / "deep.json"
-    path.write_text("[" * 50_000 + "]" * 50_000)
+    path.write_text('{"a": "[[[[",\n "b": ' + "[" * 50_000 + "]" * 50_000 + "}")
     r = check(path, cwd=repo)
-    assert r.of("YML-5") and r.code == 1, r.out
+    [f] = r.of("YML-5")
+    assert (f["location"]["line"], f["location"]["col"]) == (2, 6 + 200) and r.code == 1, f
 
 
 def test_file_past_the_size_limit_is_not_read(repo):
@@ -250,11 +261,11 @@ def test_file_past_the_size_limit_is_not_read(repo):
 def test_hundred_thousand_lines_check_in_linear_time(repo, checker_factory):
     checker = checker_factory(repo)
 
-    def cpu(n: int) -> float:
+    def cpu(n: int, tries: int) -> float:
         path = repo / f"rows{n}.yaml"
         path.write_text("# a long data manifest\nrows:\n" + "".join(f"  - id: {i}\n" for i in range(n - 2)))
         best = float("inf")
-        for _ in range(2):
+        for _ in range(tries):
             start = time.process_time()  # CPU time: other processes on the host do not count
             with bounded(60):
                 res = checker.check_file(str(path), path.name)
@@ -262,7 +273,7 @@ def test_hundred_thousand_lines_check_in_linear_time(repo, checker_factory):
         no_internal_errors(res.findings)
         return best
 
-    small, large = cpu(25_000), cpu(100_000)
+    small, large = cpu(25_000, 2), cpu(100_000, 1)
     ratio = large / small
     MEASURED.append(f"100,000-line file: {large:.2f} s CPU; 25,000 lines {small:.2f} s (ratio {ratio:.1f}, linear = 4)")
     assert ratio < 7, f"4x the lines took {ratio:.1f}x the time: not linear"
@@ -521,7 +532,7 @@ def mutated(draw):
 _FUZZ_DIR = None
 
 
-@hsettings(max_examples=250, deadline=None, suppress_health_check=list(HealthCheck), derandomize=True)
+@hsettings(max_examples=300, deadline=None, suppress_health_check=list(HealthCheck), derandomize=True)
 @given(data=mutated())
 def test_fuzzed_fixture_configs_never_crash(data):
     global _FUZZ_DIR
