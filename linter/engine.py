@@ -77,10 +77,10 @@ class Context:
     def finding(self, message: str, location: Location, *, related: Iterable[Location] = (),
                 level: str | Level | None = None, key_path: str = "", suggestion: str = "",
                 subject: Any = None, fix=None, help: str = "") -> Finding:
-        lvl = Level.parse(level) if level is not None else self.level
-        if level is not None and self.level != self.rule.level:
-            # the user changed this rule's level in settings: that applies to all its findings
-            lvl = self.level
+        if self.level != self.rule.level:
+            lvl = self.level  # the user set this rule's level in settings: it applies to all its findings
+        else:
+            lvl = Level.parse(level) if level is not None else self.level
         return Finding(self.rule.id, lvl, message, location, self._with_hops(location, related),
                        key_path or location.key_path, suggestion, help or self.rule.help, fix, subject,
                        cwe=self.rule.cwe)

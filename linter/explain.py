@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import TextIO
 
-from . import loader
+from . import arithmetic, loader
 from .check import CheckOptions, Checker
 from .model import RunModel
 from .resolve import resolve
@@ -78,6 +78,7 @@ def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
                 stated = m.values.get(name)
                 extra = f"  (stated: {_show(stated.value)})" if stated is not None else ""
                 out.write(f"  {name:<{width}}  {_show(v.value):<16}  = {v.note}  from {', '.join(v.inputs)}{extra}\n")
+        out.write(arithmetic.render(m))
         if m.ambiguous:
             out.write("\nAmbiguous (set them in [tool.trimtab.keys]):\n")
             for name, locs in sorted(m.ambiguous.items()):

@@ -3,7 +3,6 @@ from the working directory, validated against the schema shipped in the package.
 from __future__ import annotations
 
 import json
-import os
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -220,11 +219,3 @@ def parse_keys(table: dict) -> dict[str, KeySpec]:
                                    tuple(sorted(spec.get("fields", {}).items())))
     return out
 
-
-def relative(path: str | os.PathLike, root: Path) -> str:
-    """A path as shown to the user: relative to the repository root when inside it."""
-    p = Path(path)
-    try:
-        return p.resolve().relative_to(root.resolve()).as_posix() if p.is_absolute() or True else str(p)
-    except ValueError:
-        return p.as_posix()

@@ -2,9 +2,9 @@
 third-party plugin does, so they use nothing but the public API."""
 from trimtab import hookimpl
 
-from . import vocab, yml
+from . import bat, length, smp, vocab, yml
 
-MODULES = (yml, vocab)
+MODULES = (yml, vocab, bat, smp, length)
 
 
 @hookimpl
