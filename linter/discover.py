@@ -138,7 +138,9 @@ def _walk(top: Path, root: Path, include, exclude, found: dict, missing: list | 
                 continue
             if used is not None:
                 used.update(hit)
-            if full.exists() and not inside(full, root):
+            # os.walk does not follow links into folders, so only a file that is itself a link
+            # can lead out of the repository (and only it costs a resolve)
+            if os.path.islink(full) and full.exists() and not inside(full, root):
                 if missing is not None:
                     missing.append(_outside(full, root))
                 continue
