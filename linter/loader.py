@@ -11,6 +11,7 @@ import gc
 import os
 import re
 import stat
+import warnings
 from dataclasses import dataclass
 
 from .document import Document, Mapping, Node, Problem, Scalar, Sequence, key_text
@@ -150,7 +151,8 @@ def read(path: str, limits: Limits = Limits()) -> tuple[bytes | None, str]:
     finally:
         os.close(fd)
     changed = (before.st_size, before.st_mtime_ns) != (after.st_size, after.st_mtime_ns)
-    if len(data) <= limits.max_bytes and len(data) != after.st_size:
+    if len(data) <= limits.max_bytes and after.st_size and len(data) != after.st_size:
+        # (a size of 0 is what some pseudo file systems report for any file: not a change)
         changed = True
     if now is None or (now.st_ino, now.st_dev, now.st_size, now.st_mtime_ns) != (
             after.st_ino, after.st_dev, after.st_size, after.st_mtime_ns):
@@ -185,7 +187,9 @@ def parse_bytes(doc: Document, data: bytes, limits: Limits) -> Document:
 def _compose(doc: Document, text: str, limits: Limits) -> Document:
     be = backend()
     try:
-        raw_roots = [r for r in be.compose_all(text) if r is not None]
+        with warnings.catch_warnings():  # a parser's own warnings (a reused anchor) are not output
+            warnings.simplefilter("ignore")
+            raw_roots = [r for r in be.compose_all(text) if r is not None]
     except be.errors as exc:
         _parse_problem(doc, exc, limits)
         return doc
