@@ -80,6 +80,10 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("trimtab: interrupted", file=sys.stderr)
         return EXIT_INCOMPLETE
+    except OSError as exc:  # a report or accepted-findings file that cannot be written: say so plainly
+        where = exc.filename if exc.filename is not None else "a file"
+        print(f"trimtab: error: {where}: cannot be written or read: {exc.strerror or exc}", file=sys.stderr)
+        return EXIT_INCOMPLETE
     parser.error(f"unknown command {args.command}")
     return EXIT_INCOMPLETE
 
@@ -111,6 +115,22 @@ def _overrides(items: list[str]) -> list[tuple[str, str]]:
     return out
 
 
+def _refuse_overwrite(files, target, option: str) -> None:
+    """trimtab never writes to a file it checks: an output path that is one of them is refused."""
+    from .settings import SettingsError
+
+    if not target or not os.path.exists(target):
+        return
+    for path, shown in files:
+        try:
+            same = os.path.samefile(path, target)
+        except OSError:
+            continue
+        if same:
+            raise SettingsError(f"{option} {target}: expected a report file, found {shown}, one of the "
+                                "files being checked; it is not overwritten")
+
+
 def cmd_check(args) -> int:
     from . import filtering
     from .check import CheckOptions, Checker, run, summary_counts
@@ -132,6 +152,8 @@ def cmd_check(args) -> int:
         except ValueError as exc:
             raise SettingsError(str(exc)) from None
         files = [(p, s) for p, s in files if s in changed]
+    _refuse_overwrite(files, args.output, "--output")
+    _refuse_overwrite(files, args.write_accepted, "--write-accepted")
     jobs = args.jobs if args.jobs is not None else settings.jobs
     if jobs < 1:
         raise SettingsError(f"--jobs {jobs}: expected a number of at least 1")

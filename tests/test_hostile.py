@@ -616,3 +616,22 @@ def test_published_key_map_naming_an_unknown_concept_is_refused(repo):
     registry = Registry(plugins=[Plugin()])
     with pytest.raises(SettingsError, match=r"lowfield-trainer.*keys\.optim\.speed.*unknown concept"):
         Checker(Settings(root=repo, keymap="lowfield-trainer"), registry)
+
+
+# --- output paths ---------------------------------------------------------------------------------
+@pytest.mark.parametrize("option", ["--output", "--write-accepted"])
+def test_an_output_path_that_is_a_checked_file_is_refused(repo, option):
+    path = repo / "good.yaml"
+    path.write_text(GOOD)
+    before = (path.read_bytes(), path.stat().st_mtime_ns)
+    r = run_cli("check", option, "good.yaml", cwd=repo)
+    assert r.code == 2 and f"{option} good.yaml" in r.err and "not overwritten" in r.err, r.err
+    assert (path.read_bytes(), path.stat().st_mtime_ns) == before
+
+
+@pytest.mark.parametrize("option", ["--output", "--write-accepted"])
+def test_an_output_path_that_cannot_be_written_exits_2(repo, option):
+    (repo / "good.yaml").write_text(GOOD)
+    (repo / "reports").mkdir()
+    r = run_cli("check", option, "reports", cwd=repo)
+    assert r.code == 2 and "Traceback" not in r.err and "reports: cannot be written" in r.err, r.err
