@@ -54,7 +54,21 @@ def build_parser() -> argparse.ArgumentParser:
 
     r = sub.add_parser("rules", help="list the rules, or show one rule's rationale")
     r.add_argument("rule_id", nargs="?", metavar="ID")
+    _add_audit(sub)
     return p
+
+
+def _add_audit(sub) -> None:
+    a = sub.add_parser("audit", help="write a self-contained HTML page: sources with findings in place, "
+                                     "batch arithmetic and token budget drawn, resolved concepts")
+    a.add_argument("configs", nargs="+", metavar="CONFIG", help="run config files or folders")
+    a.add_argument("--html", required=True, metavar="FILE", help="write the page here ('-': standard output)")
+    a.add_argument("--gate", choices=("error", "warning", "note"),
+                   help="lowest level the page's verdict and the exit status count (default: settings)")
+    a.add_argument("--only", type=_ids, default=set(), metavar="IDS", help="only these rule ids or areas")
+    a.add_argument("--skip", type=_ids, default=set(), metavar="IDS", help="not these rule ids or areas")
+    a.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                   help="override a value of the run (repeatable)")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -72,6 +86,8 @@ def main(argv: list[str] | None = None) -> int:
             return cmd_explain(args)
         if args.command == "rules":
             return cmd_rules(args)
+        if args.command == "audit":
+            return cmd_audit(args)
     except SettingsError as exc:
         print(f"trimtab: error: {exc}", file=sys.stderr)
         return EXIT_INCOMPLETE
@@ -143,7 +159,7 @@ def cmd_check(args) -> int:
     options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
     checker = Checker(settings, registry, options)
     used: set[str] = set()
-    files, missing = discover(args.paths, settings.root, settings.include, settings.exclude, used)
+    files, missing = discover(args.paths, settings.root, settings.include, settings.exclude, used, confine=True)
     for idle in settings.check_include(used, bool(args.paths)):
         print(f"trimtab: note: setting {idle} matches no file", file=sys.stderr)
     if args.since:
@@ -152,6 +168,7 @@ def cmd_check(args) -> int:
         except ValueError as exc:
             raise SettingsError(str(exc)) from None
         files = [(p, s) for p, s in files if s in changed]
+    files = _with_dependants(args, files, changed if args.since else None, settings)
     _refuse_overwrite(files, args.output, "--output")
     _refuse_overwrite(files, args.write_accepted, "--write-accepted")
     jobs = args.jobs if args.jobs is not None else settings.jobs
@@ -212,6 +229,18 @@ def cmd_check(args) -> int:
     return code
 
 
+def _with_dependants(args, files, changed, settings):
+    """A base among the files to check (given, or changed since a ref) brings the files built on it."""
+    if not (args.paths or changed is not None):
+        return files  # the whole repository is checked anyway
+    from .compose import with_dependants
+    from .discover import relpath
+
+    seeds = set(changed or ()) | {s for _p, s in files}
+    seeds |= {relpath(Path(p), settings.root.resolve()) for p in args.paths if Path(p).is_file()}
+    return with_dependants(files, seeds, settings)
+
+
 def _catalogue(registry):
     from .engine import TOOL_RULES
 
@@ -243,6 +272,25 @@ def cmd_rules(args) -> int:
     for r in rules.values():
         print(f"{r.id:<8} {str(r.level):<8} {r.name:<34} {r.summary}")
     return EXIT_OK
+
+
+def cmd_audit(args) -> int:
+    from .audit import audit, write
+    from .check import CheckOptions
+    from .findings import Level
+
+    settings = _settings(args)
+    registry = _registry()
+    options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
+    page, code = audit(args.configs, settings, registry, options, Level.parse(args.gate or settings.gate))
+    try:
+        write(page, args.html)
+    except OSError as exc:
+        print(f"trimtab: error: cannot write {args.html}: {exc.strerror or exc}", file=sys.stderr)
+        return EXIT_INCOMPLETE
+    if args.html != "-":
+        print(f"trimtab: audit page written to {args.html}", file=sys.stderr)
+    return code
 
 
 def cmd_explain(args) -> int:

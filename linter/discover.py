@@ -92,13 +92,16 @@ def _outside(path: Path, root: Path) -> Refused:
 
 
 def discover(paths: list[str], root: Path, include: list[str], exclude: list[str],
-             used: set | None = None) -> tuple[list[tuple[str, str]], list[str]]:
+             used: set | None = None, confine: bool = False) -> tuple[list[tuple[str, str]], list[str]]:
     """((path on disk, path shown), missing) for the paths given, or for the include globs
     under ``root`` when none are given. A file named explicitly is checked whatever its name.
 
     ``missing`` lists paths that are not checked: absent ones, and (as ``Refused`` with a reason)
-    files whose real location is outside the repository root, such as a link leading out of it;
-    their content is never read. ``used`` collects the include globs that matched a file."""
+    symbolic links whose target is outside the repository root (a link committed to lead a gate
+    to a file elsewhere); their target is never read. With ``confine`` (the check gate), any path
+    given that lies outside the root is refused the same way; without it (a one-off audit of a
+    config kept elsewhere) a path named explicitly is read. ``used`` collects the include globs
+    that matched a file."""
     root = root.resolve()
     found: dict[str, str] = {}
     missing: list[str] = []
@@ -108,12 +111,12 @@ def discover(paths: list[str], root: Path, include: list[str], exclude: list[str
     for p in paths:
         path = Path(p)
         if path.is_dir():
-            if not inside(path, root):
+            if (confine or path.is_symlink()) and not inside(path, root):
                 missing.append(_outside(path, root))
                 continue
             _walk(path, root, include, exclude, found, missing, used)
         elif path.exists() or path.is_symlink():
-            if path.exists() and not inside(path, root):
+            if path.exists() and (confine or path.is_symlink()) and not inside(path, root):
                 missing.append(_outside(path, root))
                 continue
             shown = relpath(path, root) if path.exists() else path.as_posix()

@@ -33,6 +33,7 @@ _BOMS = (
     (codecs.BOM_UTF16_BE, "utf-16-be"),
 )
 _TAG_PREFIX = re.compile(r"(?:&\S+[ \t]+)?(!\S*)")
+_ANCHOR = re.compile(r"(?:![^\s,\[\]{}]*[ \t]+)?&([^\s,\[\]{}]+)")
 
 
 class _Backend:
@@ -401,6 +402,11 @@ class _Builder:
         node.start, node.end = sm.index, em.index
         node.path = path
         node.anchor = getattr(raw, "anchor", None)
+        if node.anchor is None:
+            # PyYAML's nodes do not keep their anchor; a node's start mark is at its properties
+            m = _ANCHOR.match(self.doc.text, sm.index)
+            if m:
+                node.anchor = m.group(1)
         node.file = self.doc.path
 
     def _node(self, raw, path: tuple, depth: int, role: str = "") -> Node | None:

@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .model import Component, RunModel, Value
-from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, normalise_key
+from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, normalise_key
 
 
 @dataclass(frozen=True)
@@ -42,6 +42,8 @@ _FIELD_WORDS = {
 
 def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> RunModel:
     model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version)
+    # A composed run's root carries, per dotted key path, the places a value passed through.
+    model.chains = getattr(root, "chains", None) or {}
     leaves = list(_leaves(root))
     chains = {p: c for p, _n, c in reversed(leaves)}  # the first way each key path was reached
     taken: set[int] = set()
@@ -54,8 +56,12 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         _store(model, concept, node, "keymap", spec.key, spec, chains.get(tuple(spec.key.split("."))))
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
+    sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
     for path, node, _chain in leaves:
         if id(node) in taken:
+            continue
+        # keys inside one reward component are its fields, not concepts of the run
+        if _inside_sources(path, sources_key):
             continue
         leaf = normalise_key(path[-1])
         parents = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
@@ -84,11 +90,15 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         if found:
             best = max(s for s, _p, _n in found)
             top = [(p, n) for s, p, n in found if s == best]
-            distinct = {id(n): (p, n) for p, n in top}
+            distinct = {}
+            for p, n in top:
+                # one node at two paths: a reference and its target; the referring path tells the story
+                if id(n) not in distinct or ".".join(p) in model.chains:
+                    distinct[id(n)] = (p, n)
             if len(distinct) > 1:
                 model.ambiguous[concept] = [doc.loc(n, ".".join(p)) for p, n in distinct.values()]
                 continue
-            path, node = top[0]
+            path, node = next(iter(distinct.values()))
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
             _store(model, concept, node, "alias", ".".join(path), chain=chains.get(path))
@@ -106,6 +116,20 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
 # How many times, in all, a section reached again through an alias may be walked again: aliased
 # sections resolve at every place they are used, while a nested-alias document stays linear.
 REVISIT_BUDGET = 500
+
+
+def _inside_sources(path: tuple, sources_key: tuple | None) -> bool:
+    """A key inside one reward component (a field of reward.sources, not a concept of the run)."""
+    for i in range(len(path) - 1):
+        if sources_key is not None and path[:i + 1] == sources_key:
+            return True
+        parents = [normalise_key(p) for p in path[:i] if not p.isdigit()]
+        for alias in ALIASES.get(normalise_key(path[i]), ()):
+            if alias.concept != "reward.sources" or alias.not_under and any(p in alias.not_under for p in parents):
+                continue
+            if not alias.under or parents and parents[-1] in alias.under:
+                return True
+    return False
 
 
 def _leaves(root: Node):
@@ -130,7 +154,7 @@ def _leaves(root: Node):
                 hops = chain
                 if via is not None:
                     hops = hops + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
-                elif v.path != p and isinstance(k, Scalar) and k.path == path:
+                elif v.anchor and v.path != p and isinstance(k, Scalar) and k.path == path:
                     hops = hops + (k.location(f"{'.'.join(p)} is an alias of {'.'.join(v.path) or 'the top level'}"),)
                 yield p, v, list(hops)
                 if isinstance(v, Mapping):
@@ -170,22 +194,30 @@ def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: 
     if chain and v is not None and v.node is node:
         # a value written elsewhere (at an anchor) and reached through merges or aliases points
         # at the anchor's line; each hop (the '<<' or the key holding the alias) is a related location
-        v.chain.extend(chain)
+        v.chain.extend(h for h in chain if h not in v.chain)
+
+
+def _chain(model: RunModel, key: str) -> list[Location]:
+    return list(model.chains.get(key, ())) if model.chains else []
 
 
 def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None):
     doc = model.doc
     loc = doc.loc(node)
+    if model.chains and key and loc.key_path != key:
+        # reached through a reference: written at the target's line, known by the key that refers to it
+        loc = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, key)
+    chain = _chain(model, key)
     if concept == "reward.sources":
-        model.values[concept] = Value(concept, node, loc, node, via, key)
-        model.components = _components(model, node, spec)
+        model.values[concept] = Value(concept, node, loc, node, via, key, chain)
+        model.components = _components(model, node, spec, key)
         return
     if isinstance(node, (Mapping, Sequence)):
         if CONCEPTS[concept].type == "any":
-            model.values[concept] = Value(concept, True, loc, node, via, key, raw=node)
+            model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
         return
     value = node.value(model.version)
-    v = Value(concept, value, loc, node, via, key, raw=value)
+    v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
     model.values[concept] = v
@@ -207,7 +239,7 @@ def _fits(value, expected: str) -> bool:
     return True
 
 
-def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Component]:
+def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:
     doc = model.doc
     names = dict(spec.fields) if spec and spec.fields else {}
     out = []
@@ -219,23 +251,55 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Compo
         return out
     for i, (name_node, item) in enumerate(items):
         comp = Component(i, doc.loc(item))
+        at = f"{key}.{name_node.text if isinstance(name_node, Scalar) else i}"
         if name_node is not None:
             comp.fields["name"] = Value("name", name_node.text if isinstance(name_node, Scalar) else "?",
                                         doc.loc(name_node), name_node, "component")
             comp.location = doc.loc(name_node)
         if isinstance(item, Scalar):
-            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component")
+            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component",
+                                       chain=_chain(model, at))
         elif isinstance(item, Mapping):
+            _component_sandbox(model, comp, item)
+            for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
+                if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
+                                                   for a in ALIASES.get(normalise_key(word), ())):
+                    comp.fields["trust_remote_code"] = Value("trust_remote_code", sub.value(model.version),
+                                                             doc.loc(sub), sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
                     sub = item.get(w)
                     if sub is not None:
                         val = sub.value(model.version) if isinstance(sub, Scalar) else sub
-                        comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w)
+                        comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
+                                                        _chain(model, f"{at}.{w}"))
                         break
         out.append(comp)
     return out
+
+
+def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
+    """A sandbox section inside one component: its fields become ``sandbox.*`` fields of the
+    component (they describe where that component's code runs)."""
+    for word, _k, sub, _via in item.entries():
+        if normalise_key(word) not in SANDBOX:
+            continue
+        if isinstance(sub, Scalar):
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", sub.value(model.version), model.doc.loc(sub), sub,
+                                                "component", word)
+            return
+        if not isinstance(sub, Mapping):
+            return
+        for name, _kn, v, _via2 in sub.entries():
+            if not isinstance(v, Scalar):
+                continue
+            for alias in ALIASES.get(normalise_key(name), ()):
+                if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
+                    comp.fields[alias.concept] = Value(alias.concept, v.value(model.version), model.doc.loc(v), v,
+                                                       "component", f"{word}.{name}")
+                    break
+        return
 
 
 # --- units ------------------------------------------------------------------------------

@@ -635,3 +635,19 @@ def test_an_output_path_that_cannot_be_written_exits_2(repo, option):
     (repo / "reports").mkdir()
     r = run_cli("check", option, "reports", cwd=repo)
     assert r.code == 2 and "Traceback" not in r.err and "reports: cannot be written" in r.err, r.err
+
+
+def test_outside_paths_without_confinement_are_read_but_links_out_never(repo, tmp_path_factory):
+    """An audit may name a config kept elsewhere; a link inside the repository that leads out of
+    it is refused whatever the command."""
+    from trimtab.discover import discover
+
+    outside = tmp_path_factory.mktemp("kept-elsewhere") / "old-run.yaml"
+    outside.write_text(GOOD)
+    (repo / "link.yaml").symlink_to(outside)
+    files, missing = discover([str(outside), str(repo / "link.yaml")], repo, ["**/*.yaml"], [])
+    assert [p for p, _s in files] == [str(outside)]
+    assert [getattr(m, "reason", "") for m in missing] == [f"is outside the repository {repo.resolve().as_posix()} "
+                                                           f"(a link to {outside.resolve().as_posix()}); not read"]
+    files, missing = discover([str(outside)], repo, ["**/*.yaml"], [], confine=True)
+    assert files == [] and "outside the repository" in missing[0].reason
