@@ -187,12 +187,22 @@ def parse_bytes(doc: Document, data: bytes, limits: Limits) -> Document:
 
 def _compose(doc: Document, text: str, limits: Limits) -> Document:
     be = backend()
+    source = text
+    if doc.fmt == "json":
+        # valid JSON (checked above) holds tabs only as whitespace between tokens, never inside a
+        # string; YAML refuses a tab before a top-level value. A space for each tab keeps every
+        # column where it was.
+        source = text.replace("\t", " ")
     try:
         with warnings.catch_warnings():  # a parser's own warnings (a reused anchor) are not output
             warnings.simplefilter("ignore")
-            raw_roots = [r for r in be.compose_all(text) if r is not None]
+            raw_roots = [r for r in be.compose_all(source) if r is not None]
     except be.errors as exc:
         _parse_problem(doc, exc, limits)
+        if doc.fmt == "json" and doc.problems and doc.problems[-1].kind == "parse":
+            p = doc.problems[-1]
+            p.message = p.message.replace("cannot be parsed as YAML: ", "is valid JSON, but the YAML reader "
+                                          "cannot follow it (a key longer than 1024 characters?): ", 1)
         return doc
     except RecursionError:
         line, col = _deep_mark(text, limits.max_depth)

@@ -651,3 +651,21 @@ def test_outside_paths_without_confinement_are_read_but_links_out_never(repo, tm
                                                            f"(a link to {outside.resolve().as_posix()}); not read"]
     files, missing = discover([str(outside)], repo, ["**/*.yaml"], [], confine=True)
     assert files == [] and "outside the repository" in missing[0].reason
+
+
+def test_tab_indented_json_reads_with_its_columns(repo):
+    path = repo / "run.json"
+    path.write_text('\t{\n\t"run": {"estimator":\t"grpo"}\n\t}\n')
+    doc = loader.load(str(path), "run.json")
+    assert doc.readable, doc.problems
+    run = doc.roots[0].get("run")
+    est = run.get("estimator")
+    assert (est.line, est.col) == (2, 23) and est.text == "grpo"  # each tab counts as one column
+
+
+def test_valid_json_the_yaml_reader_cannot_follow_says_so(repo):
+    path = repo / "long.json"
+    path.write_text('{"' + "k" * 1500 + '": 1}')
+    r = check(path, cwd=repo)
+    [f] = r.of("YML-1")
+    assert f["message"].startswith("is valid JSON, but the YAML reader cannot follow it"), f
