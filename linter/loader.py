@@ -261,7 +261,12 @@ def _decode(doc: Document, data: bytes) -> str | None:
             break
     if encoding == "utf-8" and b"\x00" in data:
         line = data.count(b"\n", 0, data.index(b"\x00")) + 1
-        _fail(doc, "binary", "holds binary content (a NUL byte), not text", line, 1)
+        head = data[:256]
+        if len(head) >= 4 and (not any(head[1::2]) or not any(head[0::2])):
+            _fail(doc, "binary", "holds NUL bytes between its characters: it looks like UTF-16 without a "
+                                 "byte-order mark; save it as UTF-8", 1, 1)
+        else:
+            _fail(doc, "binary", "holds binary content (a NUL byte), not text", line, 1)
         return None
     try:
         text = data.decode(encoding)

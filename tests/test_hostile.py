@@ -113,8 +113,8 @@ def _mine(doc):
 
 
 def _variants(data: bytes):
-    """The file as written, with CRLF line ends, with a UTF-8 byte-order mark, and as UTF-16
-    with a byte-order mark (for fixtures that are UTF-8 text)."""
+    """The file as written, with CRLF and with CR line ends, with a UTF-8 byte-order mark, and as
+    UTF-16 with a byte-order mark (for fixtures that are UTF-8 text)."""
     yield "as written", data
     try:
         data.decode("utf-8")
@@ -123,6 +123,7 @@ def _variants(data: bytes):
     data = data.removeprefix(codecs.BOM_UTF8)
     crlf = data.replace(b"\r\n", b"\n").replace(b"\n", b"\r\n")
     yield "CRLF", crlf
+    yield "CR", crlf.replace(b"\r\n", b"\r")
     yield "UTF-8 BOM", codecs.BOM_UTF8 + data
     yield "UTF-8 BOM + CRLF", codecs.BOM_UTF8 + crlf
     yield "UTF-16 BOM", data.decode("utf-8").encode("utf-16")  # Python writes the BOM
@@ -147,7 +148,7 @@ def test_fixture_locations_equal_pyyaml_marks():
             compared += len(ref)
     # a fixture the reference reads but trimtab refuses (over a limit, say) has its own finding
     assert len(unread) <= len(files) // 10, unread
-    MEASURED.append(f"location oracle: {compared} nodes of {len(files)} fixtures x 5 encodings/line ends "
+    MEASURED.append(f"location oracle: {compared} nodes of {len(files)} fixtures x 6 encodings/line ends "
                     f"equal PyYAML's marks" + (f"; not compared: {', '.join(unread)}" if unread else ""))
 
 
@@ -669,3 +670,11 @@ def test_valid_json_the_yaml_reader_cannot_follow_says_so(repo):
     r = check(path, cwd=repo)
     [f] = r.of("YML-1")
     assert f["message"].startswith("is valid JSON, but the YAML reader cannot follow it"), f
+
+
+def test_utf16_without_a_bom_is_named(repo):
+    path = repo / "wide.yaml"
+    path.write_bytes(GOOD.encode("utf-16-le"))
+    r = check(path, cwd=repo)
+    [f] = r.of("YML-4")
+    assert "UTF-16 without a byte-order mark" in f["message"] and r.code == 1
