@@ -47,6 +47,7 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--accepted", metavar="FILE", help="accepted-findings file: its findings do not count")
     c.add_argument("--write-accepted", metavar="FILE", help="record today's findings as accepted, then exit 0")
     c.add_argument("--no-progress", action="store_true", help="no progress bar on a terminal")
+    _adoption_options(c)
 
     e = sub.add_parser("explain", help="show what trimtab read from a run config")
     e.add_argument("config", metavar="CONFIG")
@@ -54,7 +55,25 @@ def build_parser() -> argparse.ArgumentParser:
 
     r = sub.add_parser("rules", help="list the rules, or show one rule's rationale")
     r.add_argument("rule_id", nargs="?", metavar="ID")
+    _adoption_commands(sub)
     return p
+
+
+def _adoption_options(c) -> None:
+    """check --fix / --diff / --staged (adoption in an existing repository)."""
+    c.add_argument("--fix", action="store_true",
+                   help="apply the safe fixes rules declare (each proved by re-reading the file), then check again")
+    c.add_argument("--diff", action="store_true", help="with --fix: print the fixes as a unified diff, write nothing")
+    c.add_argument("--staged", action="store_true",
+                   help="check the staged (index) version of the staged config files, as a git hook does")
+
+
+def _adoption_commands(sub) -> None:
+    m = sub.add_parser("map", help="draft a [tool.trimtab.keys] block for the keys trimtab could not place")
+    m.add_argument("config", metavar="CONFIG")
+    m.add_argument("--output", metavar="FILE", help="write the draft block here (default: after the report)")
+    h = sub.add_parser("install-hook", help="write a plain .git/hooks/pre-commit that checks staged configs")
+    h.add_argument("--force", action="store_true", help="replace an existing pre-commit hook")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -67,7 +86,15 @@ def main(argv: list[str] | None = None) -> int:
 
     try:
         if args.command == "check":
+            if args.staged:
+                from .hook import with_staged
+
+                return with_staged(args, cmd_check)
             return cmd_check(args)
+        if args.command == "map":
+            return cmd_map(args)
+        if args.command == "install-hook":
+            return cmd_install_hook(args)
         if args.command == "explain":
             return cmd_explain(args)
         if args.command == "rules":
@@ -123,6 +150,11 @@ def cmd_check(args) -> int:
     options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
     checker = Checker(settings, registry, options)
     files, missing = discover(args.paths, settings.root, settings.include, settings.exclude)
+    if getattr(args, "staged_files", None) is not None:
+        files, missing = args.staged_files, []
+    files = _not_accepted_files(files, args, settings)
+    if args.diff and not args.fix:
+        raise SettingsError("--diff shows what --fix would change: use --fix --diff")
     if args.since:
         try:
             changed = set(changed_since(args.since, settings.root))
@@ -158,6 +190,12 @@ def cmd_check(args) -> int:
         except filtering.AcceptedFileError as exc:
             raise SettingsError(str(exc)) from None
         findings = filtering.apply_accepted(findings, rows, str(accepted_path), result.checked)
+    if args.fix:
+        code = _fix(args, settings, findings, files)
+        if code is not None:
+            return code
+        args.fix = False
+        return cmd_check(args)  # report what is left after the fixes
     gate = Level.parse(args.gate or settings.gate)
     incomplete = result.crashed or bool(registry.errors)
     failing = any(f.level >= gate for f in findings)
@@ -226,3 +264,59 @@ def cmd_explain(args) -> int:
     settings = _settings(args)
     registry = _registry()
     return explain(args.config, settings, registry, _overrides(args.overrides), sys.stdout)
+
+
+# --- adoption: fixes, key-map drafts, the plain git hook ------------------------------------------
+def _not_accepted_files(files, args, settings):
+    """The accepted-findings file is trimtab's own output, not a config: never check it."""
+    own = [p for p in (args.accepted, args.write_accepted) if p]
+    if settings.accepted:
+        own.append(str(settings.root / settings.accepted))
+    if not own:
+        return files
+    skip = {Path(p).resolve() for p in own}
+    return [(p, s) for p, s in files if Path(p).resolve() not in skip]
+
+
+def _fix(args, settings, findings, files) -> int | None:
+    """Apply (or, with --diff, show) the safe fixes. Returns the exit status when done, or None
+    to check again and report what is left."""
+    from . import fix
+
+    on_disk = {shown: Path(p) for p, shown in files}
+
+    def locate(shown: str):
+        if shown in on_disk:
+            return on_disk[shown]
+        candidate = settings.root / shown
+        return candidate if candidate.is_file() else None
+
+    plans = fix.plan(findings, locate)
+    for ff in plans:
+        for f, why in ff.refused:
+            print(f"trimtab: not fixed: {f.location.label()} {f.rule_id}: {why}", file=sys.stderr)
+    changed = [ff for ff in plans if ff.changed]
+    count = sum(len(ff.applied) for ff in changed)
+    if args.diff:
+        for ff in changed:
+            sys.stdout.write(ff.diff())
+        print(f"trimtab: {count} safe fix(es) in {len(changed)} file(s) would be applied; nothing written",
+              file=sys.stderr)
+        return EXIT_FINDINGS if changed else EXIT_OK
+    for ff in changed:
+        ff.write()
+    print(f"trimtab: applied {count} safe fix(es) in {len(changed)} file(s)", file=sys.stderr)
+    return None
+
+
+def cmd_map(args) -> int:
+    from .keymap_draft import draft_command
+
+    settings = _settings(args)
+    return draft_command(args.config, settings, args.output, sys.stdout, sys.stderr)
+
+
+def cmd_install_hook(args) -> int:
+    from .hook import install
+
+    return install(Path.cwd(), args.force, sys.stderr)
