@@ -1,0 +1,137 @@
+"""The accepted-findings file: record today's findings, fail only on new ones, shrink as configs
+are fixed. Uses the foundation's rules YML-2 (duplicate key), YML-3 (YAML 1.1/1.2 disagreement)
+and VOC-2 (wrong type)."""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from conftest import check_json
+
+LEGACY = """\
+# Lowfield Labs: wren-7b on tidepool arithmetic (an old config)
+run:
+  estimator: grpo
+  seed: abc
+rollout:
+  group_size: 8
+  temperature: 0.9
+  temperature: 1.0
+optim:
+  lr: 3e-6
+"""
+
+# The same values, lines moved, sections reordered, indentation and styles changed, comments added.
+MOVED = """\
+
+
+optim:      {lr: 3e-6}     # the old learning rate
+
+rollout:
+    # sampling
+    temperature: 0.9
+    group_size: 8
+    temperature: 1.0
+run:
+    seed:      abc
+    estimator: grpo
+"""
+
+
+def repo(tmp_path: Path, text: str = LEGACY) -> Path:
+    (tmp_path / ".git").mkdir(exist_ok=True)
+    (tmp_path / "configs").mkdir(exist_ok=True)
+    (tmp_path / "configs" / "wren-7b.yaml").write_text(text, encoding="utf-8")
+    return tmp_path
+
+
+def found(r) -> list[tuple[str, int, int]]:
+    return sorted((f["rule"], f["location"]["line"], f["location"]["col"]) for f in r.findings)
+
+
+def test_round_trip(tmp_path):
+    root = repo(tmp_path)
+    before = check_json(cwd=root)
+    assert found(before) == [("VOC-2", 4, 9), ("YML-2", 8, 3), ("YML-3", 10, 7)]
+    assert before.code == 1
+
+    # write: one entry per finding, with rule, file and a short description
+    w = check_json(args=["--write-accepted", "accepted.json"], cwd=root)
+    assert w.code == 0 and "recorded 3 accepted finding(s)" in w.err
+    data = json.loads((root / "accepted.json").read_text(encoding="utf-8"))
+    rows = data["findings"]
+    assert [r["rule"] for r in rows] == ["VOC-2", "YML-2", "YML-3"]
+    assert {r["file"] for r in rows} == {"configs/wren-7b.yaml"}
+    assert rows[2]["what"].startswith("optim.lr = 3e-6: YAML 1.1 reads the string")
+    assert {r["fingerprint"] for r in rows} == {f["fingerprint"] for f in before.findings}
+
+    # sorted and stable: writing again gives the same bytes (diffs well in review)
+    first = (root / "accepted.json").read_bytes()
+    check_json(args=["--write-accepted", "accepted.json"], cwd=root)
+    assert (root / "accepted.json").read_bytes() == first
+
+    # re-run clean; the accepted-findings file itself is not checked as a config
+    clean = check_json(args=["--accepted", "accepted.json"], cwd=root)
+    assert clean.findings == [] and clean.code == 0
+    assert clean.json["summary"]["files"] == 1
+
+    # move lines and reformat: still clean
+    (root / "configs" / "wren-7b.yaml").write_text(MOVED, encoding="utf-8")
+    moved = check_json(args=["--accepted", "accepted.json"], cwd=root)
+    assert moved.findings == [] and moved.code == 0
+
+    # change a value: exactly that finding returns; its old entry is now stale
+    (root / "configs" / "wren-7b.yaml").write_text(MOVED.replace("lr: 3e-6", "lr: 5e-6"), encoding="utf-8")
+    changed = check_json(args=["--accepted", "accepted.json"], cwd=root)
+    live = [f for f in changed.findings if f["rule"] != "ACC-3"]
+    assert [(f["rule"], f["location"]["line"], f["location"]["col"]) for f in live] == [("YML-3", 3, 18)]
+    assert "optim.lr = 5e-6" in live[0]["message"]
+    assert changed.code == 1
+    stale = changed.of("ACC-3")
+    assert len(stale) == 1 and "YML-3" in stale[0]["message"] and stale[0]["level"] == "note"
+
+    # fix one (the duplicate key): its entry is reported stale, as a note that does not fail the gate
+    (root / "configs" / "wren-7b.yaml").write_text(MOVED.replace("    temperature: 1.0\n", ""), encoding="utf-8")
+    fixed = check_json(args=["--accepted", "accepted.json"], cwd=root)
+    assert [f["rule"] for f in fixed.findings] == ["ACC-3"]
+    assert "accepted finding YML-2 in configs/wren-7b.yaml no longer occurs" in fixed.findings[0]["message"]
+    assert fixed.findings[0]["location"]["path"] == "accepted.json"
+    assert fixed.code == 0
+
+    # regenerating the file drops the stale entry: the file shrinks
+    check_json(args=["--accepted", "accepted.json", "--write-accepted", "accepted.json"], cwd=root)
+    assert [r["rule"] for r in json.loads((root / "accepted.json").read_text())["findings"]] == ["VOC-2", "YML-3"]
+
+
+def test_settings_entry_and_partial_runs(tmp_path):
+    root = repo(tmp_path)
+    (root / "configs" / "other.yaml").write_text(LEGACY.replace("seed: abc", "seed: 7"), encoding="utf-8")
+    check_json(args=["--write-accepted", "known.json"], cwd=root)
+    (root / "pyproject.toml").write_text('[tool.trimtab]\naccepted = "known.json"\n', encoding="utf-8")
+    r = check_json(cwd=root)
+    assert r.findings == [] and r.code == 0
+
+    # a check of one file never calls the other file's entries stale
+    (root / "configs" / "wren-7b.yaml").write_text(LEGACY.replace("seed: abc", "seed: 3"), encoding="utf-8")
+    one = check_json(root / "configs" / "other.yaml", cwd=root)
+    assert one.findings == []
+    both = check_json(cwd=root)
+    assert [f["rule"] for f in both.findings] == ["ACC-3"]
+    assert "VOC-2 in configs/wren-7b.yaml" in both.findings[0]["message"]
+
+
+def test_a_new_finding_in_an_accepted_file_still_fails(tmp_path):
+    root = repo(tmp_path)
+    check_json(args=["--write-accepted", "accepted.json"], cwd=root)
+    (root / "configs" / "wren-7b.yaml").write_text(LEGACY + "kl:\n  coef: 1e-3\n", encoding="utf-8")
+    r = check_json(args=["--accepted", "accepted.json"], cwd=root)
+    assert found(r) == [("YML-3", 12, 9)] and r.code == 1
+
+
+def test_bad_accepted_file_is_a_clear_error(tmp_path):
+    root = repo(tmp_path)
+    (root / "accepted.json").write_text("{not json", encoding="utf-8")
+    r = check_json(args=["--accepted", "accepted.json"], cwd=root)
+    assert r.code == 2 and "is not an accepted-findings file" in r.err and "Traceback" not in r.err
+    r = check_json(args=["--accepted", "missing.json"], cwd=root)
+    assert r.code == 2 and "cannot be read" in r.err
