@@ -149,9 +149,10 @@ def cmd_check(args) -> int:
     registry = _registry()
     options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
     checker = Checker(settings, registry, options)
-    files, missing = discover(args.paths, settings.root, settings.include, settings.exclude)
     if getattr(args, "staged_files", None) is not None:
         files, missing = args.staged_files, []
+    else:
+        files, missing = discover(args.paths, settings.root, settings.include, settings.exclude)
     files = _not_accepted_files(files, args, settings)
     if args.diff and not args.fix:
         raise SettingsError("--diff shows what --fix would change: use --fix --diff")
