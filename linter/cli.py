@@ -179,7 +179,8 @@ def cmd_check(args) -> int:
                                    Location(m), subject=m).finish())
     accepted_path = args.accepted or settings.accepted
     if args.write_accepted:
-        count = filtering.write_accepted(Path(args.write_accepted), findings)
+        keep = _accepted_elsewhere(Path(args.write_accepted), result.checked, settings.root)
+        count = filtering.write_accepted(Path(args.write_accepted), findings, keep)
         print(f"trimtab: recorded {count} accepted finding(s) in {args.write_accepted}", file=sys.stderr)
         return EXIT_OK
     if accepted_path:
@@ -190,7 +191,8 @@ def cmd_check(args) -> int:
             rows = filtering.read_accepted(path)
         except filtering.AcceptedFileError as exc:
             raise SettingsError(str(exc)) from None
-        findings = filtering.apply_accepted(findings, rows, str(accepted_path), result.checked)
+        gone = {str(r.get("file")) for r in rows if not (settings.root / str(r.get("file"))).exists()}
+        findings = filtering.apply_accepted(findings, rows, str(accepted_path), result.checked | gone)
     if args.fix:
         code = _fix(args, settings, findings, files)
         if code is not None:
@@ -277,6 +279,20 @@ def _not_accepted_files(files, args, settings):
         return files
     skip = {Path(p).resolve() for p in own}
     return [(p, s) for p, s in files if Path(p).resolve() not in skip]
+
+
+def _accepted_elsewhere(path: Path, checked: set[str], root: Path) -> list[dict]:
+    """Entries of an existing accepted-findings file for files this run did not check and that
+    still exist: a partial run (named paths, --since) keeps them rather than dropping them."""
+    from . import filtering
+
+    if not path.is_file():
+        return []
+    try:
+        rows = filtering.read_accepted(path)
+    except filtering.AcceptedFileError:
+        return []
+    return [r for r in rows if r.get("file") not in checked and (root / str(r.get("file"))).is_file()]
 
 
 def _fix(args, settings, findings, files) -> int | None:

@@ -52,9 +52,11 @@ class FileFix:
 
     def diff(self) -> str:
         """A unified diff of the fix (difflib), paths as shown to the user."""
+        rel = not self.path.startswith("/")
         lines = difflib.unified_diff(self.text_before.splitlines(keepends=True),
                                      self.text_after.splitlines(keepends=True),
-                                     fromfile=f"a/{self.path}", tofile=f"b/{self.path}")
+                                     fromfile=f"a/{self.path}" if rel else self.path,
+                                     tofile=f"b/{self.path}" if rel else self.path)
         out = []
         for line in lines:
             out.append(line if line.endswith("\n") else line + "\n\\ No newline at end of file\n")

@@ -135,3 +135,43 @@ def test_bad_accepted_file_is_a_clear_error(tmp_path):
     assert r.code == 2 and "is not an accepted-findings file" in r.err and "Traceback" not in r.err
     r = check_json(args=["--accepted", "missing.json"], cwd=root)
     assert r.code == 2 and "cannot be read" in r.err
+
+
+def test_partial_write_keeps_other_files_entries_and_deleted_files_go_stale(tmp_path):
+    root = repo(tmp_path)
+    (root / "configs" / "other.yaml").write_text(LEGACY, encoding="utf-8")
+    check_json(args=["--write-accepted", "accepted.json"], cwd=root)
+    rows = json.loads((root / "accepted.json").read_text())["findings"]
+    assert len(rows) == 6
+    # re-recording one file keeps the other file's entries
+    check_json(root / "configs" / "other.yaml", args=["--write-accepted", "accepted.json"], cwd=root)
+    assert json.loads((root / "accepted.json").read_text())["findings"] == rows
+    # a deleted config's entries are stale, and a full re-recording drops them
+    (root / "configs" / "other.yaml").unlink()
+    r = check_json(args=["--accepted", "accepted.json"], cwd=root)
+    assert [f["rule"] for f in r.findings] == ["ACC-3"] * 3
+    assert all("configs/other.yaml" in f["message"] for f in r.findings)
+    check_json(args=["--write-accepted", "accepted.json"], cwd=root)
+    assert {r["file"] for r in json.loads((root / "accepted.json").read_text())["findings"]} == {
+        "configs/wren-7b.yaml"}
+
+
+def test_findings_sharing_a_fingerprint_are_counted(tmp_path):
+    # YML-2's fingerprint is the key's name: the same key written twice in two sections gives two
+    # findings with one fingerprint. The entry accepts exactly as many as were recorded.
+    twice = LEGACY + "eval:\n  temperature: 0.0\n  temperature: 0.1\n"
+    root = repo(tmp_path, twice)
+    check_json(args=["--write-accepted", "accepted.json"], cwd=root)
+    rows = json.loads((root / "accepted.json").read_text())["findings"]
+    assert [r.get("count", 1) for r in rows if r["rule"] == "YML-2"] == [2]
+    assert check_json(args=["--accepted", "accepted.json"], cwd=root).findings == []
+    # a third one is new
+    thrice = twice + "judge:\n  temperature: 0.0\n  temperature: 0.2\n"
+    (root / "configs" / "wren-7b.yaml").write_text(thrice, encoding="utf-8")
+    r = check_json(args=["--accepted", "accepted.json"], cwd=root)
+    assert found(r) == [("YML-2", 16, 3)] and r.code == 1
+    # one fewer: the entry is reported as partly stale
+    (root / "configs" / "wren-7b.yaml").write_text(LEGACY, encoding="utf-8")
+    r = check_json(args=["--accepted", "accepted.json"], cwd=root)
+    assert [f["rule"] for f in r.findings] == ["ACC-3"]
+    assert "occurs 1 time(s), not 2" in r.findings[0]["message"]
