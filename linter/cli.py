@@ -180,8 +180,14 @@ def cmd_check(args) -> int:
     accepted_path = args.accepted or settings.accepted
     if args.write_accepted:
         keep = _accepted_elsewhere(Path(args.write_accepted), result.checked, settings.root)
-        count = filtering.write_accepted(Path(args.write_accepted), findings, keep)
+        # a crashed rule is never accepted: it would hide whatever the rule misses
+        record = [f for f in findings if not f.rule_id.startswith("TOOL-")]
+        count = filtering.write_accepted(Path(args.write_accepted), record, keep)
         print(f"trimtab: recorded {count} accepted finding(s) in {args.write_accepted}", file=sys.stderr)
+        if result.crashed or registry.errors:
+            print("trimtab: the check was incomplete (a rule crashed or a plugin failed to load); "
+                  "its findings are not recorded", file=sys.stderr)
+            return EXIT_INCOMPLETE
         return EXIT_OK
     if accepted_path:
         path = Path(accepted_path)
