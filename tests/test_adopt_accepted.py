@@ -175,3 +175,24 @@ def test_findings_sharing_a_fingerprint_are_counted(tmp_path):
     r = check_json(args=["--accepted", "accepted.json"], cwd=root)
     assert [f["rule"] for f in r.findings] == ["ACC-3"]
     assert "occurs 1 time(s), not 2" in r.findings[0]["message"]
+
+
+def test_a_crashed_rule_is_never_recorded(tmp_path, monkeypatch):
+    from trimtab import cli, hookimpl, rule
+    from trimtab.engine import Registry
+
+    class Crash:
+        @hookimpl
+        def trimtab_rules(self):
+            @rule("ZZA-1", "always-crashes", "error", "test rule", "test rule")
+            def crash(ctx):
+                raise RuntimeError("boom")
+
+            return [crash]
+
+    monkeypatch.setattr(cli, "_registry", lambda: Registry(plugins=[Crash()]))
+    root = repo(tmp_path)
+    r = check_json(args=["--write-accepted", "accepted.json"], cwd=root)
+    assert r.code == 2 and "incomplete" in r.err
+    rules = [row["rule"] for row in json.loads((root / "accepted.json").read_text())["findings"]]
+    assert rules == ["VOC-2", "YML-2", "YML-3"]
