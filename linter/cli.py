@@ -315,9 +315,13 @@ def _fix(args, settings, findings, files) -> int | None:
         return candidate if candidate.is_file() else None
 
     plans = fix.plan(findings, locate)
+    told = set()
     for ff in plans:
         for f, why in ff.refused:
-            print(f"trimtab: not fixed: {f.location.label()} {f.rule_id}: {why}", file=sys.stderr)
+            line = f"trimtab: not fixed: {f.location.label()} {f.rule_id}: {why}"
+            if line not in told:
+                told.add(line)
+                print(line, file=sys.stderr)
     changed = [ff for ff in plans if ff.changed]
     count = sum(len(ff.applied) for ff in changed)
     if args.diff:

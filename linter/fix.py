@@ -130,6 +130,36 @@ def _plan_file(ff: FileFix, findings: list[Finding]) -> None:
         last_end = end
     if not chosen:
         return
+    try:
+        new_text = _prove(doc, text, chosen, fmt)
+    except Refused as exc:
+        if len(chosen) == 1:
+            ff.refused.extend((f, str(exc)) for f in chosen[0][1])
+            return
+        # prove each edit alone, then the ones that pass together
+        passing = []
+        for item in chosen:
+            try:
+                _prove(doc, text, [item], fmt)
+                passing.append(item)
+            except Refused as one:
+                ff.refused.extend((f, str(one)) for f in item[1])
+        try:
+            new_text = _prove(doc, text, passing, fmt) if passing else None
+        except Refused as together:
+            ff.refused.extend((f, f"{together} (with the other fixes of this file)") for _e, fs, _n in passing
+                              for f in fs)
+            new_text = None
+        if new_text is None:
+            return
+        chosen = passing
+    ff.text_before, ff.text_after = text, new_text
+    ff.after = prefix + (doc.bom + new_text).encode(doc.encoding)
+    ff.applied = [f for _e, fs, _n in chosen for f in fs]
+
+
+def _prove(doc, text: str, chosen: list, fmt: str) -> str:
+    """The text with these edits applied, once every reader confirms it; else Refused."""
     new_text = text
     for e, _fs, _node in reversed(chosen):
         new_text = new_text[:e.start] + e.new + new_text[e.end:]
@@ -137,14 +167,8 @@ def _plan_file(ff: FileFix, findings: list[Finding]) -> None:
     for e, _fs, loc in chosen:
         value = loc.value12 if e.value is KEEP else e.value
         intended[(_root_index(doc, loc),) + tuple(loc.path)] = _norm(value)
-    try:
-        verify(text, new_text, intended, fmt)
-    except Refused as exc:
-        ff.refused.extend((f, str(exc)) for _e, fs, _n in chosen for f in fs)
-        return
-    ff.text_before, ff.text_after = text, new_text
-    ff.after = prefix + (doc.bom + new_text).encode(doc.encoding)
-    ff.applied = [f for _e, fs, _n in chosen for f in fs]
+    verify(text, new_text, intended, fmt)
+    return new_text
 
 
 def _value_scalars(doc) -> dict[int, object]:

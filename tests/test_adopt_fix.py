@@ -267,3 +267,13 @@ def test_a_rule_can_declare_a_value_correcting_fix(tmp_path):
     f.fix = bad
     [ff] = fix.plan([f], lambda shown: tmp_path / shown)
     assert not ff.applied and "not the integer 500" in ff.refused[0][1]
+
+
+def test_one_unprovable_fix_does_not_block_the_others(tmp_path):
+    target = setup_repo(tmp_path, b"run:\n  estimator: grpo\nrollout:\n  group_size: 8\n  temperature: 0.9\n"
+                                  b"optim:\n  lr: &lr 3e-6   # shared below\ncritic:\n  lr: *lr\nkl:\n  coef: 1e-3\n")
+    r = run_cli("check", "--fix", "configs/wren-7b.yaml", cwd=tmp_path)
+    assert "applied 1 safe fix(es) in 1 file(s)" in r.err
+    assert "not fixed: configs/wren-7b.yaml:7:7 YML-3" in r.err and "used elsewhere" in r.err
+    text = target.read_text()
+    assert "coef: 1.0e-3" in text and "lr: &lr 3e-6   # shared below" in text
