@@ -131,7 +131,7 @@ def write_accepted(path: Path, findings: list[Finding], keep: list[dict] = ()) -
             "what": _short(f.message),
         }
     for row in keep:
-        entries.setdefault(row["fingerprint"], row)
+        entries.setdefault(row["fingerprint"], {k: v for k, v in row.items() if not k.startswith("_")})
     rows = sorted(entries.values(), key=lambda e: (str(e.get("file")), str(e.get("rule")), e["fingerprint"]))
     doc = {"trimtab_accepted": ACCEPTED_VERSION, "findings": rows}
     path.write_text(json.dumps(doc, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
@@ -148,7 +148,8 @@ class AcceptedFileError(Exception):
 
 def read_accepted(path: Path) -> list[dict]:
     try:
-        data = json.loads(path.read_text(encoding="utf-8"))
+        text = path.read_text(encoding="utf-8")
+        data = json.loads(text)
     except OSError as exc:
         raise AcceptedFileError(f"{path}: cannot be read: {exc.strerror}") from None
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
@@ -156,7 +157,17 @@ def read_accepted(path: Path) -> list[dict]:
     if not isinstance(data, dict) or not isinstance(data.get("findings"), list):
         raise AcceptedFileError(f"{path}: is not an accepted-findings file (expected a 'findings' list)")
     rows = [r for r in data["findings"] if isinstance(r, dict) and isinstance(r.get("fingerprint"), str)]
+    # where each entry is written, so that a stale one can be pointed at (never written back)
+    where = {}
+    for n, line in enumerate(text.splitlines(), 1):
+        for m in _FINGERPRINT.finditer(line):
+            where.setdefault(m.group(1), (n, m.start() + 1))
+    for r in rows:
+        r["_line"], r["_col"] = where.get(r["fingerprint"], (0, 0))
     return rows
+
+
+_FINGERPRINT = re.compile(r'"fingerprint"\s*:\s*"([^"]*)"')
 
 
 def apply_accepted(findings: list[Finding], rows: list[dict], accepted_path: str,
@@ -185,8 +196,8 @@ def apply_accepted(findings: list[Finding], rows: list[dict], accepted_path: str
         how = "no longer occurs" if not n else f"occurs {n} time(s), not {_count(row)}"
         kept.append(Finding(ACC_STALE, Level.NOTE,
                             f"accepted finding {row.get('rule', '?')} in {row.get('file', '?')} {how} "
-                            f"({row.get('what', '')}); remove its entry", Location(accepted_path),
-                            subject=fp).finish())
+                            f"({row.get('what', '')}); remove its entry",
+                            Location(accepted_path, row.get("_line", 0), row.get("_col", 0)), subject=fp).finish())
     return kept
 
 

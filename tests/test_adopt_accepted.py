@@ -4,9 +4,12 @@ and VOC-2 (wrong type)."""
 from __future__ import annotations
 
 import json
+import shutil
 from pathlib import Path
 
-from conftest import check_json
+import pytest
+
+from conftest import FIXTURES, check_json
 
 LEGACY = """\
 # Lowfield Labs: wren-7b on tidepool arithmetic (an old config)
@@ -47,6 +50,11 @@ def repo(tmp_path: Path, text: str = LEGACY) -> Path:
 
 def found(r) -> list[tuple[str, int, int]]:
     return sorted((f["rule"], f["location"]["line"], f["location"]["col"]) for f in r.findings)
+
+
+def stale_fp(root: Path, rule_id: str) -> str:
+    rows = json.loads((root / "accepted.json").read_text(encoding="utf-8"))["findings"]
+    return next(r["fingerprint"] for r in rows if r["rule"] == rule_id)
 
 
 def test_round_trip(tmp_path):
@@ -95,7 +103,10 @@ def test_round_trip(tmp_path):
     fixed = check_json(args=["--accepted", "accepted.json"], cwd=root)
     assert [f["rule"] for f in fixed.findings] == ["ACC-3"]
     assert "accepted finding YML-2 in configs/wren-7b.yaml no longer occurs" in fixed.findings[0]["message"]
-    assert fixed.findings[0]["location"]["path"] == "accepted.json"
+    loc = fixed.findings[0]["location"]
+    entry = (root / "accepted.json").read_text().splitlines()[loc["line"] - 1]
+    assert (loc["path"], loc["line"], loc["col"]) == ("accepted.json", 11, 7)  # the stale entry's own line
+    assert entry.strip().startswith('"fingerprint"') and stale_fp(root, "YML-2") in entry
     assert fixed.code == 0
 
     # regenerating the file drops the stale entry: the file shrinks
@@ -196,3 +207,20 @@ def test_a_crashed_rule_is_never_recorded(tmp_path, monkeypatch):
     assert r.code == 2 and "incomplete" in r.err
     rules = [row["rule"] for row in json.loads((root / "accepted.json").read_text())["findings"]]
     assert rules == ["VOC-2", "YML-2", "YML-3"]
+
+
+@pytest.mark.parametrize("name", ["good", "bad"])
+def test_stale_entry_fixtures(tmp_path, name):
+    """fixtures/rules/ACC-3: the good config still has its accepted finding (nothing reported); in
+    the bad one it was fixed, and the stale entry is reported at its line in the accepted file."""
+    folder = FIXTURES / "rules" / "ACC-3"
+    (tmp_path / ".git").mkdir()
+    for suffix in (".yaml", ".accepted.json"):
+        shutil.copy(folder / f"{name}{suffix}", tmp_path / f"{name}{suffix}")
+    r = check_json(tmp_path / f"{name}.yaml", args=["--accepted", f"{name}.accepted.json"], cwd=tmp_path)
+    if name == "good":
+        assert r.findings == [] and r.code == 0
+    else:
+        assert found(r) == [("ACC-3", 5, 7)] and r.code == 0
+        assert r.findings[0]["location"]["path"] == "bad.accepted.json"
+        assert r.findings[0]["level"] == "note"
