@@ -131,6 +131,7 @@ RANGES = {
     "checkpoint.every": (1, 100_000_000), "reference.refresh_every": (1, 100_000_000),
 }
 
+MIN_NAME = 0.4  # the least name overlap (Dice) that counts as name evidence
 LIVE_MARGIN = 1.0  # a live line leads every other candidate by at least this score
 W_NAME, W_SECTION, W_RANGE, W_RANGE_OUT, W_ENUM = 3.0, 1.5, 1.0, -2.0, 3.0
 
@@ -205,6 +206,12 @@ class Candidate:
     name: float = 0.0
     enum: bool = False
     strong: bool = False  # enough evidence for a live line (the enumeration, or a name with a section or two words)
+    unit: tuple = ()  # (("per", "prompt"), ("scope", "gpu")) when the key's name says so
+
+    def toml_value(self) -> str:
+        if not self.unit:
+            return _q(self.key)
+        return "{ key = " + _q(self.key) + "".join(f", {k} = {_q(v)}" for k, v in self.unit) + " }"
 
     @property
     def line(self) -> int:
@@ -228,14 +235,14 @@ class Draft:
         for concept in sorted(self.live):
             c = self.live[concept]
             lines.extend("# " + n for n in _unit_note(concept))
-            lines.append(f"{_q(concept)} = {_q(c.key)}  # {'; '.join(c.reasons)}")
+            lines.append(f"{_q(concept)} = {c.toml_value()}  # {'; '.join(c.reasons)}")
         for concept in sorted(self.ambiguous):
             cands = self.ambiguous[concept]
             lines.append(f"# {concept}: {'ambiguous, uncomment the right line' if len(cands) > 1 else 'confirm'} "
                          f"({CONCEPTS[concept].meaning})")
             lines.extend("# " + n for n in _unit_note(concept))
             for c in cands:
-                lines.append(f"# {_q(concept)} = {_q(c.key)}  # {'; '.join(c.reasons)}")
+                lines.append(f"# {_q(concept)} = {c.toml_value()}  # {'; '.join(c.reasons)}")
         return "\n".join(lines) + "\n"
 
     def report(self, out: TextIO, draft_to: str | None) -> None:
@@ -325,6 +332,8 @@ def score(concept: str, path: tuple[str, ...], node: Node, version: str) -> Cand
             return None  # a count of tokens is a length, and a length is a count of tokens
     reasons: list[str] = []
     name, which = _name_score(concept, leaf_words, parents) if leaf_words else (0.0, None)
+    if name < MIN_NAME:
+        name, which = 0.0, None  # one shared word of many is no evidence
     if which is not None:
         shared = ", ".join(sorted(leaf_words & which.words))
         reasons.append(f"name: '{leaf}' ~ '{which.label}' ({shared})")
@@ -357,7 +366,23 @@ def score(concept: str, path: tuple[str, ...], node: Node, version: str) -> Cand
         return None
     words = len((leaf_words & which.words) - WEAK) if which is not None else 0
     strong = enum or (name >= 0.5 and (section or words >= 2))
-    return Candidate(concept, ".".join(path), node, total, reasons, name, enum, strong)
+    unit = _unit_hint(c, leaf_words)
+    if unit:
+        # the key's name says it counts in another unit: offered with that unit, for confirmation
+        reasons.append("the name says " + ", ".join(f"{k} = {v}" for k, v in unit) + " (confirm)")
+        strong = False
+    return Candidate(concept, ".".join(path), node, total, reasons, name, enum, strong, unit)
+
+
+def _unit_hint(c, words: frozenset) -> tuple:
+    """(("per", ...), ("scope", ...)) where the key's own words name a unit other than the
+    concept's: "per GPU" for a global count, prompts for a count of completions."""
+    out = []
+    if c.per == "completion" and "prompt" in words and "completion" not in words:
+        out.append(("per", "prompt"))
+    if c.scope == "global" and "gpu" in words and "per" in words:
+        out.append(("scope", "gpu"))
+    return tuple(out)
 
 
 def _keys(root: Node):
@@ -396,14 +421,15 @@ def draft(runs, path: str) -> Draft:
             if key in taken or any(key.startswith(t + ".") for t in taken):
                 continue
             all_keys.setdefault(key, node)
-            for concept in CONCEPTS:
-                if concept in d.placed:
-                    continue
-                c = score(concept, p, node, m.version)
-                if c is not None:
-                    prev = candidates.get((concept, key))
-                    if prev is None or c.score > prev.score:
-                        candidates[(concept, key)] = c
+            found = [c for c in (score(concept, p, node, m.version) for concept in CONCEPTS
+                                 if concept not in d.placed) if c is not None]
+            if any(c.name or c.enum for c in found):
+                # the name or the value points somewhere: section and range alone add only noise
+                found = [c for c in found if c.name or c.enum]
+            for c in found:
+                prev = candidates.get((c.concept, key))
+                if prev is None or c.score > prev.score:
+                    candidates[(c.concept, key)] = c
     by_concept: dict[str, list[Candidate]] = {}
     by_key: dict[str, list[Candidate]] = {}
     for c in candidates.values():

@@ -158,3 +158,16 @@ def test_map_of_an_unreadable_file_is_a_clear_error(tmp_path):
     (tmp_path / "bad.yaml").write_text("a: [1, 2\n", encoding="utf-8")
     r = run_cli("map", "bad.yaml", cwd=tmp_path)
     assert r.code == 2 and "nothing to map" in r.err and "Traceback" not in r.err
+
+
+def test_a_unit_the_key_name_states_is_offered_never_live(tmp_path):
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "run.yaml").write_text("recipe:\n  objective: grpo\nlearner:\n  answers_per_gpu_step: 4\n",
+                                       encoding="utf-8")
+    r = run_cli("map", "run.yaml", cwd=tmp_path)
+    live, commented = parse_draft(r.out)
+    assert "batch.rollouts" not in live
+    assert '# "batch.rollouts" = { key = "learner.answers_per_gpu_step", scope = "gpu" }' in r.out
+    assert "the name says scope = gpu (confirm)" in r.out
+    # confirmed, the key map converts the per-GPU count into the concept's global unit
+    tomllib.loads(r.out[r.out.index("[tool.trimtab.keys]"):].replace("# \"batch.rollouts\"", "\"batch.rollouts\"", 1))
