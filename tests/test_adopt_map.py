@@ -169,5 +169,5 @@ def test_a_unit_the_key_name_states_is_offered_never_live(tmp_path):
     assert "batch.rollouts" not in live
     assert '# "batch.rollouts" = { key = "learner.answers_per_gpu_step", scope = "gpu" }' in r.out
     assert "the name says scope = gpu (confirm)" in r.out
-    # confirmed, the key map converts the per-GPU count into the concept's global unit
+    # once uncommented, the line is a valid key-map entry with its unit
     tomllib.loads(r.out[r.out.index("[tool.trimtab.keys]"):].replace("# \"batch.rollouts\"", "\"batch.rollouts\"", 1))
