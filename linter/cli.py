@@ -56,6 +56,7 @@ def build_parser() -> argparse.ArgumentParser:
     r = sub.add_parser("rules", help="list the rules, or show one rule's rationale")
     r.add_argument("rule_id", nargs="?", metavar="ID")
     _adoption_commands(sub)
+    _add_audit(sub)
     return p
 
 
@@ -74,6 +75,19 @@ def _adoption_commands(sub) -> None:
     m.add_argument("--output", metavar="FILE", help="write the draft block here (default: after the report)")
     h = sub.add_parser("install-hook", help="write a plain .git/hooks/pre-commit that checks staged configs")
     h.add_argument("--force", action="store_true", help="replace an existing pre-commit hook")
+
+
+def _add_audit(sub) -> None:
+    a = sub.add_parser("audit", help="write a self-contained HTML page: sources with findings in place, "
+                                     "batch arithmetic and token budget drawn, resolved concepts")
+    a.add_argument("configs", nargs="+", metavar="CONFIG", help="run config files or folders")
+    a.add_argument("--html", required=True, metavar="FILE", help="write the page here ('-': standard output)")
+    a.add_argument("--gate", choices=("error", "warning", "note"),
+                   help="lowest level the page's verdict and the exit status count (default: settings)")
+    a.add_argument("--only", type=_ids, default=set(), metavar="IDS", help="only these rule ids or areas")
+    a.add_argument("--skip", type=_ids, default=set(), metavar="IDS", help="not these rule ids or areas")
+    a.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                   help="override a value of the run (repeatable)")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -99,6 +113,8 @@ def main(argv: list[str] | None = None) -> int:
             return cmd_explain(args)
         if args.command == "rules":
             return cmd_rules(args)
+        if args.command == "audit":
+            return cmd_audit(args)
     except SettingsError as exc:
         print(f"trimtab: error: {exc}", file=sys.stderr)
         return EXIT_INCOMPLETE
@@ -265,6 +281,25 @@ def cmd_rules(args) -> int:
     for r in rules.values():
         print(f"{r.id:<8} {str(r.level):<8} {r.name:<34} {r.summary}")
     return EXIT_OK
+
+
+def cmd_audit(args) -> int:
+    from .audit import audit, write
+    from .check import CheckOptions
+    from .findings import Level
+
+    settings = _settings(args)
+    registry = _registry()
+    options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
+    page, code = audit(args.configs, settings, registry, options, Level.parse(args.gate or settings.gate))
+    try:
+        write(page, args.html)
+    except OSError as exc:
+        print(f"trimtab: error: cannot write {args.html}: {exc.strerror or exc}", file=sys.stderr)
+        return EXIT_INCOMPLETE
+    if args.html != "-":
+        print(f"trimtab: audit page written to {args.html}", file=sys.stderr)
+    return code
 
 
 def cmd_explain(args) -> int:

@@ -2,13 +2,16 @@
 with its inputs, and the concepts that were not found."""
 from __future__ import annotations
 
+import re
 from typing import TextIO
 
-from . import loader
+from . import arithmetic, loader
 from .check import CheckOptions, Checker
 from .model import RunModel
 from .resolve import resolve
 from .vocabulary import CONCEPTS
+
+_USERINFO = re.compile(r"(?<=://)[^/@\s]+@")  # a URL's user information (may hold a password)
 
 
 def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel], list[str]]:
@@ -38,7 +41,8 @@ def _show(value) -> str:
         return f"<{value.kind}>"
     if isinstance(value, float):
         return repr(value)
-    return str(value)
+    # a URL's user information can hold a password: never show it
+    return _USERINFO.sub("****@", str(value))
 
 
 def _wrap(text: str, width: int = 96) -> str:
@@ -78,6 +82,7 @@ def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
                 stated = m.values.get(name)
                 extra = f"  (stated: {_show(stated.value)})" if stated is not None else ""
                 out.write(f"  {name:<{width}}  {_show(v.value):<16}  = {v.note}  from {', '.join(v.inputs)}{extra}\n")
+        out.write(arithmetic.render(m))
         if m.ambiguous:
             out.write("\nAmbiguous (set them in [tool.trimtab.keys]):\n")
             for name, locs in sorted(m.ambiguous.items()):

@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .model import Component, RunModel, Value
-from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, normalise_key
+from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, normalise_key
 
 
 @dataclass(frozen=True)
@@ -53,8 +53,12 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         _store(model, concept, node, "keymap", spec.key, spec)
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
+    sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
     for path, node in leaves:
         if id(node) in taken:
+            continue
+        # keys inside one reward component are its fields, not concepts of the run
+        if _inside_sources(path, sources_key):
             continue
         leaf = normalise_key(path[-1])
         parents = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
@@ -100,6 +104,20 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     markers = sum(1 for c in RL_MARKERS if c in model.values)
     model.is_rl = opts.force_rl or markers >= RL_MIN_MARKERS or "run.estimator" in model.values and markers >= 2
     return model
+
+
+def _inside_sources(path: tuple, sources_key: tuple | None) -> bool:
+    """A key inside one reward component (a field of reward.sources, not a concept of the run)."""
+    for i in range(len(path) - 1):
+        if sources_key is not None and path[:i + 1] == sources_key:
+            return True
+        parents = [normalise_key(p) for p in path[:i] if not p.isdigit()]
+        for alias in ALIASES.get(normalise_key(path[i]), ()):
+            if alias.concept != "reward.sources" or alias.not_under and any(p in alias.not_under for p in parents):
+                continue
+            if not alias.under or parents and parents[-1] in alias.under:
+                return True
+    return False
 
 
 def _leaves(root: Node):
@@ -198,6 +216,12 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Compo
         if isinstance(item, Scalar):
             comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component")
         elif isinstance(item, Mapping):
+            _component_sandbox(model, comp, item)
+            for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
+                if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
+                                                   for a in ALIASES.get(normalise_key(word), ())):
+                    comp.fields["trust_remote_code"] = Value("trust_remote_code", sub.value(model.version),
+                                                             doc.loc(sub), sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
@@ -210,79 +234,143 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Compo
     return out
 
 
+def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
+    """A sandbox section inside one component: its fields become ``sandbox.*`` fields of the
+    component (they describe where that component's code runs)."""
+    for word, _k, sub, _via in item.entries():
+        if normalise_key(word) not in SANDBOX:
+            continue
+        if isinstance(sub, Scalar):
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", sub.value(model.version), model.doc.loc(sub), sub,
+                                                "component", word)
+            return
+        if not isinstance(sub, Mapping):
+            return
+        for name, _kn, v, _via2 in sub.entries():
+            if not isinstance(v, Scalar):
+                continue
+            for alias in ALIASES.get(normalise_key(name), ()):
+                if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
+                    comp.fields[alias.concept] = Value(alias.concept, v.value(model.version), model.doc.loc(v), v,
+                                                       "component", f"{word}.{name}")
+                    break
+        return
+
+
 # --- units ------------------------------------------------------------------------------
 def _convert_units(model: RunModel, opts: ResolveOptions) -> None:
-    """Convert key-map values counted per prompt or per GPU into the concept's own unit."""
+    """Convert key-map values counted per prompt or per GPU into the concept's own unit.
+
+    A value that cannot be converted (the group size or the data-parallel ranks are unknown)
+    is kept with value None and a note, so that no rule reasons about it in the wrong unit. A
+    conversion that leaves a fraction keeps the fraction as a float (the arithmetic rules report
+    it); the value as written stays in ``raw``."""
     for concept, spec in opts.keys.items():
         v = model.values.get(concept)
         c = CONCEPTS.get(concept)
-        if v is None or c is None or not c.per or v.number is None:
-            continue
-        factor_num, factor_den, notes = 1, 1, []
+        if v is None or v.via != "keymap" or c is None or not c.per or v.number is None:
+            continue  # only values read through the key map are counted in the key map's unit
+        factor_num, factor_den, notes, missing = 1, 1, [], []
         if spec.per and spec.per != c.per:
             g = model.values.get("rollout.group_size")
-            if g is None or g.number is None:
-                continue
-            if c.per == "completion":
-                factor_num *= g.number
-                notes.append(f"x group size {g.number}")
+            gs = g.number if g is not None else None
+            if not isinstance(gs, int) or isinstance(gs, bool) or gs <= 0:
+                missing.append("the group size")
+            elif c.per == "completion":
+                factor_num *= gs
+                notes.append(f"x group size {gs}")
             else:
-                factor_den *= g.number
-                notes.append(f"/ group size {g.number}")
+                factor_den *= gs
+                notes.append(f"/ group size {gs}")
         if spec.scope and spec.scope != c.scope:
             dp = _data_parallel(model)
             if dp is None:
-                continue
-            if c.scope == "global":
+                missing.append("the data-parallel ranks")
+            elif c.scope == "global":
                 factor_num *= dp
                 notes.append(f"x {dp} data-parallel ranks")
             else:
                 factor_den *= dp
                 notes.append(f"/ {dp} data-parallel ranks")
+        written = f"{v.raw} as written (per {spec.per or c.per}, {spec.scope or c.scope})"
+        if missing:
+            v.value = None
+            v.note = f"{written}: not converted, {' and '.join(missing)} unknown"
+            continue
+        if not notes:
+            continue
         total = v.number * factor_num
-        if total % factor_den:
-            v.value = total / factor_den
+        if isinstance(total, float) and total.is_integer():
+            total = int(total)
+        if isinstance(total, int) and total % factor_den == 0:
+            v.value = total // factor_den
         else:
-            v.value = total // factor_den if isinstance(total, int) else total / factor_den
-        v.note = f"{v.raw} as written, {' '.join(notes)}" if notes else v.note
+            v.value = total / factor_den
+        v.note = f"{written} {' '.join(notes)}"
 
 
 def _data_parallel(model: RunModel):
-    v = model.values.get("train.data_parallel")
-    if v is not None and v.number:
-        return int(v.number)
+    """Data-parallel ranks for unit conversion: None when unknown or in dispute (a stated size
+    that disagrees with world / (tp x pp x cp)), so nothing is converted with a wrong count."""
     world = _world(model)
-    if world is None:
-        return None
-    par = 1
-    for name in ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel"):
-        p = model.values.get(name)
-        if p is not None and p.number:
-            par *= int(p.number)
-    if par <= 0 or world % par:
-        return None
-    return world // par
+    computed = None
+    if world is not None:
+        par = 1
+        for name in PARALLEL:
+            p = model.values.get(name)
+            if p is not None:
+                if not isinstance(p.number, int) or p.number <= 0:
+                    return None
+                par *= p.number
+        computed = world // par if world % par == 0 else None
+    v = model.values.get("train.data_parallel")
+    if v is not None:
+        stated = v.number if isinstance(v.number, int) and v.number > 0 else None
+        if stated is None or computed is not None and computed != stated:
+            return None
+        return stated
+    return computed
 
 
 def _world(model: RunModel):
     v = model.values.get("cluster.world_size")
-    if v is not None and isinstance(v.number, int):
-        return v.number
     n, g = model.values.get("cluster.nodes"), model.values.get("cluster.gpus_per_node")
-    if n is not None and g is not None and isinstance(n.number, int) and isinstance(g.number, int):
-        return n.number * g.number
-    return None
+    product = None
+    if n is not None and g is not None and isinstance(n.number, int) and isinstance(g.number, int) \
+            and n.number > 0 and g.number > 0:
+        product = n.number * g.number
+    if v is not None:
+        stated = v.number if isinstance(v.number, int) and v.number > 0 else None
+        if stated is None or product is not None and product != stated:
+            return None
+        return stated
+    return product
 
 
 # --- derived arithmetic -----------------------------------------------------------------------
-def _int(model: RunModel, concept: str, derived=True):
-    v = model.values.get(concept) or (model.derived.get(concept) if derived else None)
+def _whole(v: Value | None):
+    """A positive whole number, or None (zero, negative, fractional or non-numeric values are
+    reported by the rules, never computed with)."""
     if v is None:
         return None
     n = v.number
     if isinstance(n, float) and n.is_integer():
         n = int(n)
-    return n if isinstance(n, int) else None
+    return n if isinstance(n, int) and n > 0 else None
+
+
+def settled(model: RunModel, concept: str):
+    """The positive whole value of a concept that later arithmetic may build on: the stated
+    value, else the derived one; None when neither exists or when a stated value and the value
+    derived from its factors disagree (a rule reports the disagreement; nothing is built on it)."""
+    stated, derived = _whole(model.values.get(concept)), _whole(model.derived.get(concept))
+    if concept in model.values:
+        if stated is None:
+            return None
+        if concept in model.derived and derived is not None and derived != stated:
+            return None
+        return stated
+    return derived
 
 
 def _put(model: RunModel, concept: str, value, inputs: tuple, note: str) -> None:
@@ -295,33 +383,44 @@ def _put(model: RunModel, concept: str, value, inputs: tuple, note: str) -> None
     model.derived[concept] = Value(concept, value, loc, None, "derived", "", inputs=inputs, note=note)
 
 
+PARALLEL = ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel")
+
+
 def derive(model: RunModel) -> None:
     """Compute what the stated values imply; only exact divisions become derived values
-    (the arithmetic rules report the ones that do not divide)."""
-    n, g = _int(model, "cluster.nodes"), _int(model, "cluster.gpus_per_node")
+    (the arithmetic rules report the ones that do not divide). A derived value is recorded even
+    where the same concept is stated (the rules compare the two); later steps build only on
+    values that are settled (see ``settled``)."""
+    n, g = settled(model, "cluster.nodes"), settled(model, "cluster.gpus_per_node")
     if n is not None and g is not None:
         _put(model, "cluster.world_size", n * g, ("cluster.nodes", "cluster.gpus_per_node"), f"{n} x {g}")
-    world = _int(model, "cluster.world_size")
-    if world is not None and "train.data_parallel" not in model.values:
-        names = [c for c in ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel")
-                 if _int(model, c)]
-        par = 1
-        for c in names:
-            par *= _int(model, c)
-        if par > 0 and world % par == 0:
-            text = f"{world} / {par}" if names else f"{world} GPUs, no model parallelism"
-            _put(model, "train.data_parallel", world // par, ("cluster.world_size",) + tuple(names), text)
-    p, gs = _int(model, "batch.prompts"), _int(model, "rollout.group_size")
+    world = settled(model, "cluster.world_size")
+    if world is not None:
+        names = [c for c in PARALLEL if settled(model, c)]
+        if all(settled(model, c) is not None for c in PARALLEL if c in model.values):
+            par = 1
+            for c in names:
+                par *= settled(model, c)
+            if world % par == 0:
+                text = f"{world} / {par}" if names else f"{world} GPUs, no model parallelism"
+                _put(model, "train.data_parallel", world // par, ("cluster.world_size",) + tuple(names), text)
+    p, gs = settled(model, "batch.prompts"), settled(model, "rollout.group_size")
     if p is not None and gs is not None:
         _put(model, "batch.rollouts", p * gs, ("batch.prompts", "rollout.group_size"), f"{p} x {gs}")
-    rollouts, mini = _int(model, "batch.rollouts"), _int(model, "batch.mini")
-    epochs = _int(model, "optim.epochs")
-    if rollouts is not None and mini and rollouts % mini == 0:
-        e = epochs if epochs else 1
+    rollouts, mini = settled(model, "batch.rollouts"), settled(model, "batch.mini")
+    if p is None and "batch.prompts" not in model.values and rollouts is not None and gs is not None \
+            and rollouts % gs == 0:
+        _put(model, "batch.prompts", rollouts // gs, ("batch.rollouts", "rollout.group_size"),
+             f"{rollouts} / {gs}")
+    epochs = settled(model, "optim.epochs")
+    if rollouts is not None and mini is not None and rollouts % mini == 0 and (
+            epochs is not None or "optim.epochs" not in model.values):
+        e = epochs or 1
         _put(model, "optim.updates_per_step", rollouts // mini * e,
              ("batch.rollouts", "batch.mini") + (("optim.epochs",) if epochs else ()),
-             f"{rollouts} / {mini}" + (f" x {epochs} epochs" if epochs else ""))
-    micro, dp = _int(model, "batch.micro_per_gpu"), _int(model, "train.data_parallel")
-    if mini is not None and micro and dp and mini % (micro * dp) == 0:
+             f"{rollouts} / {mini}" + (f" x {epochs} epoch{'s' if epochs != 1 else ''}" if epochs
+                                           else " (1 epoch: none stated)"))
+    micro, dp = settled(model, "batch.micro_per_gpu"), settled(model, "train.data_parallel")
+    if mini is not None and micro is not None and dp is not None and mini % (micro * dp) == 0:
         _put(model, "batch.grad_accum", mini // (micro * dp),
              ("batch.mini", "batch.micro_per_gpu", "train.data_parallel"), f"{mini} / ({micro} x {dp})")

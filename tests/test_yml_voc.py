@@ -102,6 +102,6 @@ def test_explain_lists_found_derived_and_missing(run):
     demo = FIXTURES / "demo"
     r = run("explain", "configs/legacy/heron-1b-2025.yaml", cwd=demo)
     assert r.code == 0
-    assert "batch.mini" in r.out and "24 as written, x group size 8" in r.out
+    assert "batch.mini" in r.out and "24 as written (per prompt, global) x group size 8" in r.out
     assert "batch.rollouts" in r.out and "64 x 8" in r.out
     assert "Not found:" in r.out and "sandbox.kind" in r.out
