@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import codecs
 import difflib
-import shutil
 from pathlib import Path
 
 import pytest

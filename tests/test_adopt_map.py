@@ -12,7 +12,6 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-import pytest
 
 from conftest import FIXTURES, run_cli
 
