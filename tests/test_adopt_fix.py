@@ -276,3 +276,52 @@ def test_one_unprovable_fix_does_not_block_the_others(tmp_path):
     assert "not fixed: configs/wren-7b.yaml:7:7 YML-3" in r.err and "used elsewhere" in r.err
     text = target.read_text()
     assert "coef: 1.0e-3" in text and "lr: &lr 3e-6   # shared below" in text
+
+
+# --- property: any exponent spelling is respelled exactly, or not touched --------------------------
+from hypothesis import given, settings as hsettings, strategies as st  # noqa: E402
+
+
+@st.composite
+def exponent_numbers(draw):
+    whole = draw(st.integers(0, 999))
+    frac = draw(st.one_of(st.just(""), st.just("."), st.integers(0, 999).map(lambda n: f".{n}")))
+    lead = str(whole) if not (frac.startswith(".") and len(frac) > 1 and draw(st.booleans())) else ""
+    sign = draw(st.sampled_from(["", "-", "+"]))
+    e = draw(st.sampled_from(["e", "E"]))
+    esign = draw(st.sampled_from(["", "-", "+"]))
+    exp = draw(st.integers(0, 30))
+    return f"{sign}{lead}{frac}{e}{esign}{exp}"
+
+
+@hsettings(max_examples=40, deadline=None)
+@given(number=exponent_numbers(), pad=st.sampled_from(["", " ", "   "]),
+       comment=st.sampled_from(["", "  # lr", " #: keep"]))
+def test_property_exponent_respelling_keeps_value_and_bytes(number, pad, comment):
+    """Reference: PyYAML (YAML 1.1) and Python's float() (the YAML 1.2 reading of a float)."""
+    import tempfile
+
+    from trimtab import fix
+    from trimtab.check import Checker
+    from trimtab.engine import Registry
+    from trimtab.settings import Settings
+
+    text = (f"run:\n  estimator: grpo\nrollout:\n  group_size: 8\n  temperature: 0.9\n"
+            f"optim:\n  lr:{pad} {number}{comment}\n")
+    with tempfile.TemporaryDirectory() as tmp:
+        p = Path(tmp) / "run.yaml"
+        p.write_text(text, encoding="utf-8")
+        res = Checker(Settings(root=Path(tmp)), Registry()).check_file(str(p), "run.yaml")
+        fixes = [f for f in res.findings if f.fix is not None]
+        plans = fix.plan(fixes, lambda shown: Path(tmp) / shown)
+    if not fixes:
+        # no fix offered: the spelling already reads alike under both versions
+        assert yaml.safe_load(text)["optim"]["lr"] == float(number)
+        return
+    [ff] = plans
+    assert ff.applied and not ff.refused, ff.refused
+    after = ff.after.decode("utf-8")
+    new = fixes[0].fix.new
+    assert after == text.replace(f" {number}{comment}\n", f" {new}{comment}\n")
+    reading = yaml.safe_load(after)["optim"]["lr"]
+    assert isinstance(reading, float) and reading == float(number)
