@@ -325,3 +325,13 @@ def test_property_exponent_respelling_keeps_value_and_bytes(number, pad, comment
     assert after == text.replace(f" {number}{comment}\n", f" {new}{comment}\n")
     reading = yaml.safe_load(after)["optim"]["lr"]
     assert isinstance(reading, float) and reading == float(number)
+
+
+def test_an_edit_keeps_its_meaning_across_worker_processes():
+    """--jobs N returns findings from worker processes by pickling: KEEP must stay the one object."""
+    import pickle
+
+    from trimtab.findings import KEEP
+
+    e = pickle.loads(pickle.dumps(Edit("run.yaml", 1, 5, "3e-6", "3.0e-6")))
+    assert e.value is KEEP
