@@ -85,13 +85,16 @@ def with_staged(args, check) -> int:
         shutil.rmtree(tmp, ignore_errors=True)
 
 
-def hook_script(python: str) -> str:
+def hook_script(python: str, folder: str = "") -> str:
+    """The hook. ``folder``: where the settings live, relative to the top of the working tree
+    (git runs hooks from the top; a settings file in a sub-folder is found from there)."""
     python = shlex.quote(python)
+    cd = f'cd "$(git rev-parse --show-toplevel)"/{shlex.quote(folder)} || exit 1\n' if folder else ""
     return f"""#!/bin/sh
 # trimtab pre-commit hook ({MARK}).
 # Checks the staged version of the staged run configs; a finding at or above the gate level
 # stops the commit. `git commit --no-verify` skips it once; delete this file to remove it.
-if [ -x {python} ]; then
+{cd}if [ -x {python} ]; then
   exec {python} -m trimtab check --staged
 fi
 if command -v trimtab >/dev/null 2>&1; then
@@ -119,7 +122,16 @@ def install(cwd: Path, force: bool, err: TextIO) -> int:
     hooks.mkdir(parents=True, exist_ok=True)
     if target.is_symlink():
         target.unlink()
-    target.write_text(hook_script(sys.executable), encoding="utf-8")
+    from .settings import find
+
+    source, root = find(cwd)
+    folder = ""
+    if source is not None:
+        try:
+            folder = root.resolve().relative_to(top.resolve()).as_posix()
+        except ValueError:
+            folder = ""
+    target.write_text(hook_script(sys.executable, "" if folder == "." else folder), encoding="utf-8")
     mode = target.stat().st_mode
     target.chmod(mode | stat.S_IXUSR | stat.S_IXGRP | stat.S_IXOTH)
     print(f"trimtab: wrote {target}: commits now check the staged version of staged run configs", file=err)

@@ -119,3 +119,26 @@ def test_staged_outside_git_is_a_clear_error(tmp_path):
     assert r.code == 2 and "--staged needs a git repository" in r.err
     r = run_cli("install-hook", cwd=tmp_path)
     assert r.code == 2 and "install-hook needs a git repository" in r.err
+
+
+def test_settings_in_a_sub_folder_are_found_by_the_hook(tmp_path, monkeypatch):
+    repo = tmp_path / "mono"
+    sub = repo / "post-training"
+    (sub / "configs").mkdir(parents=True)
+    env = git_env(tmp_path)
+    for k in [k for k in os.environ if k.startswith("GIT_")]:
+        monkeypatch.delenv(k)
+    for k, v in env.items():
+        if k.startswith("GIT_"):
+            monkeypatch.setenv(k, v)
+    git(repo, env, "init", "-q")
+    (sub / "trimtab.toml").write_text('include = ["configs/*.yaml"]\n', encoding="utf-8")
+    (repo / "elsewhere.yaml").write_text(BAD, encoding="utf-8")  # outside the settings' folder
+    assert run_cli("install-hook", cwd=sub).code == 0
+    hook = (repo / ".git" / "hooks" / "pre-commit").read_text()
+    assert "cd \"$(git rev-parse --show-toplevel)\"/post-training" in hook
+    (sub / "configs" / "run.yaml").write_text(BAD, encoding="utf-8")
+    git(repo, env, "add", ".")
+    r = git(repo, env, "commit", "-m", "bad", check=False)
+    assert r.returncode != 0 and "configs/run.yaml:6:3: warning YML-2" in r.stdout + r.stderr
+    assert "elsewhere.yaml" not in r.stdout + r.stderr
