@@ -172,6 +172,8 @@ def cmd_check(args) -> int:
     files = _not_accepted_files(files, args, settings)
     if args.diff and not args.fix:
         raise SettingsError("--diff shows what --fix would change: use --fix --diff")
+    if args.fix and args.write_accepted:
+        raise SettingsError("--fix and --write-accepted: run --fix first, then record what is left")
     if args.since:
         try:
             changed = set(changed_since(args.since, settings.root))

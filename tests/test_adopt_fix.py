@@ -152,6 +152,8 @@ def test_diff_needs_fix(tmp_path):
     setup_repo(tmp_path, ODD.read_bytes())
     r = run_cli("check", "--diff", cwd=tmp_path)
     assert r.code == 2 and "use --fix --diff" in r.err
+    r = run_cli("check", "--fix", "--write-accepted", "a.json", cwd=tmp_path)
+    assert r.code == 2 and "run --fix first" in r.err and not (tmp_path / "a.json").exists()
 
 
 # --- the fixer refuses what it cannot prove -------------------------------------------------------
