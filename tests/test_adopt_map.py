@@ -170,3 +170,12 @@ def test_a_unit_the_key_name_states_is_offered_never_live(tmp_path):
     assert "the name says scope = gpu (confirm)" in r.out
     # once uncommented, the line is a valid key-map entry with its unit
     tomllib.loads(r.out[r.out.index("[tool.trimtab.keys]"):].replace("# \"batch.rollouts\"", "\"batch.rollouts\"", 1))
+
+
+def test_an_alias_that_matches_twice_is_offered_both_ways(tmp_path):
+    """VOC-1's bad fixture: `temperature` under two sections; the draft offers both, live neither."""
+    _root, config, draft, report = draft_for(tmp_path, FIXTURES / "rules" / "VOC-1" / "bad.yaml")
+    live, commented = parse_draft(draft)
+    assert "rollout.temperature" not in live
+    assert {k for c, k in commented if c == "rollout.temperature"} == {"actor.temperature", "policy.temperature"}
+    assert "rollout.temperature (sampling temperature): ambiguous: 2 candidates" in report
