@@ -11,7 +11,7 @@ from pathlib import Path
 from . import filtering, loader
 from .compose import Composer
 from .engine import Context, Registry, Rule, run_rule
-from .findings import Finding, Level
+from .findings import Finding, Level, Location
 from .model import Value
 from .resolve import ResolveOptions, resolve
 from .settings import Settings, SettingsError
@@ -34,6 +34,7 @@ class FileResult:
     skipped: bool = False  # read, but not an RL run config
     entries: list[SetEntry] = field(default_factory=list)
     crashed: bool = False
+    accepted_at: set = field(default_factory=set)  # (path, line) of findings accepted in a base's text
 
 
 @dataclass
@@ -103,38 +104,48 @@ class Checker:
 
         res = FileResult(shown)
         doc = loader.load(path, shown, self.settings.limits)
+        # A file other files build on (a base declared in the settings' layers, the overrides file) is
+        # checked as a file here and as part of every run built on it, not as a run of its own.
+        as_run = doc.readable and shown not in self.composer.base_files
+        # Compose first: composition problems are recorded on the document for the file rules.
+        composed = [self.composer.compose(doc, root, path) for root in doc.roots] if as_run else []
         for r, opts, level in self.rules("file"):
             self._run(r, Context(r, None, doc, opts, level, settings=self.settings), shown, res)
-        if doc.readable:
+        if as_run:
             force = matches(shown, self.settings.run_configs) if self.settings.run_configs else False
             opts_r = self.resolve_opts
             if force:
                 opts_r = ResolveOptions(opts_r.keys, opts_r.version, True)
             set_rules = self.rules("set")
-            for index, root in enumerate(doc.roots):
-                composed = self.composer.compose(doc, root, path)
-                res.findings.extend(composed.findings)
-                model = resolve(doc, composed.root, opts_r, index)
+            for index, comp in enumerate(composed):
+                model = resolve(doc, comp.root, opts_r, index)
                 model.settings = self.settings
-                model.files = composed.files
+                model.files = comp.files
                 if not model.is_rl:
                     continue
                 res.runs += 1
+                start = len(res.findings)
                 for r, opts, level in self.rules("run"):
                     if r.rl_only and model.stage != "rl":
                         continue
                     if r.needs and not all(model.get(c) is not None for c in r.needs):
                         continue
                     self._run(r, Context(r, model, doc, opts, level, settings=self.settings), shown, res)
+                if len(comp.files) > 1:
+                    _name_run(res.findings[start:], shown)
                 if set_rules:
                     wanted = {c for r, _o, _l in set_rules for c in r.needs}
                     values = {c: _light(model.get(c)) for c in wanted if model.get(c) is not None}
                     res.entries.append(SetEntry(shown, index, values))
+        if doc.readable:
             res.skipped = res.runs == 0
         res.findings = filtering.apply_acceptances(res.findings, doc.text, shown, self.active_ids)
         for extra_path, extra_text in self.composer.texts(doc):
-            res.findings = filtering.apply_acceptances(res.findings, extra_text, extra_path, self.active_ids,
+            before = res.findings
+            res.findings = filtering.apply_acceptances(before, extra_text, extra_path, self.active_ids,
                                                        report_unused=False)
+            kept = {id(f) for f in res.findings}
+            res.accepted_at |= {(f.location.path, f.location.line) for f in before if id(f) not in kept}
         return res
 
     def _run(self, r: Rule, ctx: Context, path: str, res: FileResult) -> None:
@@ -150,6 +161,32 @@ class Checker:
             out.extend(found)
             crashed = crashed or c
         return out, crashed
+
+
+def _name_run(findings: list[Finding], shown: str) -> None:
+    """A finding of a composed run located in another file (a base) names the run it was found in."""
+    for f in findings:
+        if f.location.path != shown and not any(r.path == shown and not r.line for r in f.related):
+            f.related.append(Location(shown, 0, 0, message=f"in the run composed from {shown}"))
+
+
+def _merge_duplicates(findings: list[Finding]) -> list[Finding]:
+    """One finding per rule, place and message: a base line found through two runs is reported once,
+    with the related locations of both."""
+    seen: dict[tuple, Finding] = {}
+    out = []
+    for f in findings:
+        loc = f.location
+        key = (f.rule_id, loc.path, loc.line, loc.col, loc.key_path, f.message, f.fingerprint)
+        first = seen.get(key)
+        if first is None:
+            seen[key] = f
+            out.append(f)
+            continue
+        for r in f.related:
+            if r not in first.related:
+                first.related.append(r)
+    return out
 
 
 def _light(v: Value | None) -> Value | None:
@@ -202,12 +239,20 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
     findings: list[Finding] = []
     entries: list[SetEntry] = []
     crashed = False
+    accepted_at: set = set()
     for res in results:
+        accepted_at |= res.accepted_at
+    for res in results:
+        if accepted_at:  # an acceptance in a base used by a run built on it is not unused
+            res.findings = [f for f in res.findings if not (
+                f.rule_id == filtering.ACC_UNUSED and ({(f.location.path, f.location.line),
+                                                        (f.location.path, f.location.line + 1)} & accepted_at))]
         findings.extend(res.findings)
         entries.extend(res.entries)
         crashed = crashed or res.crashed
     set_findings, set_crashed = checker.check_set(entries)
     findings.extend(set_findings)
+    findings = _merge_duplicates(findings)
     findings.sort(key=Finding.sort_key)
     return RunResult(findings, len(results), sum(r.runs for r in results),
                      sum(1 for r in results if r.skipped), crashed or set_crashed,

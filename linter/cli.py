@@ -180,6 +180,7 @@ def cmd_check(args) -> int:
         except ValueError as exc:
             raise SettingsError(str(exc)) from None
         files = [(p, s) for p, s in files if s in changed]
+    files = _with_dependants(args, files, changed if args.since else None, settings)
     jobs = args.jobs if args.jobs is not None else settings.jobs
     if jobs < 1:
         raise SettingsError(f"--jobs {jobs}: expected a number of at least 1")
@@ -250,6 +251,18 @@ def cmd_check(args) -> int:
     print(f"trimtab: {result.files} file(s) checked{skipped}; {counts['error']} error(s), "
           f"{counts['warning']} warning(s), {counts['note']} note(s)", file=sys.stderr)
     return code
+
+
+def _with_dependants(args, files, changed, settings):
+    """A base among the files to check (given, or changed since a ref) brings the files built on it."""
+    if not (args.paths or changed is not None):
+        return files  # the whole repository is checked anyway
+    from .compose import with_dependants
+    from .discover import relpath
+
+    seeds = set(changed or ()) | {s for _p, s in files}
+    seeds |= {relpath(Path(p), settings.root.resolve()) for p in args.paths if Path(p).is_file()}
+    return with_dependants(files, seeds, settings)
 
 
 def _catalogue(registry):

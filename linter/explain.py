@@ -22,7 +22,6 @@ def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel],
     checker = Checker(settings, registry, CheckOptions(overrides=list(overrides)))
     shown = relpath(Path(path), settings.root.resolve())
     doc = loader.load(path, shown, settings.limits)
-    problems = [f"{shown}:{p.line}:{p.col}: {p.message}" for p in doc.problems]
     out = []
     if doc.readable:
         for i, root in enumerate(doc.roots):
@@ -31,6 +30,9 @@ def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel],
             m.settings = settings
             m.files = composed.files
             out.append(m)
+    # read problems, then composition problems (located in the file that holds the line)
+    problems = [f"{getattr(p, 'path', shown) or '<command line>'}:{p.line}:{p.col}: {p.message}"
+                for p in doc.problems]
     return out, problems
 
 
@@ -62,6 +64,8 @@ def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
             out.write(f"--- document {m.index + 1}\n")
         kind = "an RL run config" if m.is_rl else "not an RL run config (RL rules skip it)"
         out.write(f"{m.path}: {kind}; stage {m.stage}; values read as YAML {m.version}\n\n")
+        if len(m.files) > 1:
+            out.write(f"composed from (first to last): {', '.join(m.files)}\n\n")
         out.write("Concepts found:\n")
         width = max([len(c) for c in m.values] + [10])
         for name in sorted(m.values):

@@ -42,6 +42,8 @@ _FIELD_WORDS = {
 
 def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> RunModel:
     model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version)
+    # A composed run's root carries, per dotted key path, the places a value passed through.
+    model.chains = getattr(root, "chains", None) or {}
     leaves = list(_leaves(root))
     taken: set[int] = set()
     mapped = set()
@@ -87,11 +89,15 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         if found:
             best = max(s for s, _p, _n in found)
             top = [(p, n) for s, p, n in found if s == best]
-            distinct = {id(n): (p, n) for p, n in top}
+            distinct = {}
+            for p, n in top:
+                # one node at two paths: a reference and its target; the referring path tells the story
+                if id(n) not in distinct or ".".join(p) in model.chains:
+                    distinct[id(n)] = (p, n)
             if len(distinct) > 1:
                 model.ambiguous[concept] = [doc.loc(n, ".".join(p)) for p, n in distinct.values()]
                 continue
-            path, node = top[0]
+            path, node = next(iter(distinct.values()))
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
             _store(model, concept, node, "alias", ".".join(path))
@@ -163,19 +169,27 @@ def scalar_value(node: Node, version: str):
     return node
 
 
+def _chain(model: RunModel, key: str) -> list[Location]:
+    return list(model.chains.get(key, ())) if model.chains else []
+
+
 def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None):
     doc = model.doc
     loc = doc.loc(node)
+    if model.chains and key and loc.key_path != key:
+        # reached through a reference: written at the target's line, known by the key that refers to it
+        loc = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, key)
+    chain = _chain(model, key)
     if concept == "reward.sources":
-        model.values[concept] = Value(concept, node, loc, node, via, key)
-        model.components = _components(model, node, spec)
+        model.values[concept] = Value(concept, node, loc, node, via, key, chain)
+        model.components = _components(model, node, spec, key)
         return
     if isinstance(node, (Mapping, Sequence)):
         if CONCEPTS[concept].type == "any":
-            model.values[concept] = Value(concept, True, loc, node, via, key, raw=node)
+            model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
         return
     value = node.value(model.version)
-    v = Value(concept, value, loc, node, via, key, raw=value)
+    v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
     model.values[concept] = v
@@ -197,7 +211,7 @@ def _fits(value, expected: str) -> bool:
     return True
 
 
-def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Component]:
+def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:
     doc = model.doc
     names = dict(spec.fields) if spec and spec.fields else {}
     out = []
@@ -209,12 +223,14 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Compo
         return out
     for i, (name_node, item) in enumerate(items):
         comp = Component(i, doc.loc(item))
+        at = f"{key}.{name_node.text if isinstance(name_node, Scalar) else i}"
         if name_node is not None:
             comp.fields["name"] = Value("name", name_node.text if isinstance(name_node, Scalar) else "?",
                                         doc.loc(name_node), name_node, "component")
             comp.location = doc.loc(name_node)
         if isinstance(item, Scalar):
-            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component")
+            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component",
+                                       chain=_chain(model, at))
         elif isinstance(item, Mapping):
             _component_sandbox(model, comp, item)
             for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
@@ -228,7 +244,8 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Compo
                     sub = item.get(w)
                     if sub is not None:
                         val = sub.value(model.version) if isinstance(sub, Scalar) else sub
-                        comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w)
+                        comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
+                                                        _chain(model, f"{at}.{w}"))
                         break
         out.append(comp)
     return out
