@@ -162,6 +162,8 @@ def cmd_check(args) -> int:
     from .settings import SettingsError
 
     settings = _settings(args)
+    if getattr(args, "staged_root", None) is not None:
+        settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
     registry = _registry()
     options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
     checker = Checker(settings, registry, options)
@@ -304,6 +306,8 @@ def cmd_audit(args) -> int:
     from .findings import Level
 
     settings = _settings(args)
+    if getattr(args, "staged_root", None) is not None:
+        settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
     registry = _registry()
     options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
     page, code = audit(args.configs, settings, registry, options, Level.parse(args.gate or settings.gate))

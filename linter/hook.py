@@ -2,10 +2,11 @@
 
 ``check --staged`` checks what is about to be committed, not what is in the working tree: the
 staged config files (``git diff --cached --name-only --diff-filter=ACMR``) are exported from the
-index with ``git checkout-index --prefix`` into a temporary folder that mirrors their paths, with
-every other indexed file the include globs select (so a base file a config builds on is read as
-staged too), and checked there under their own names. Settings and the accepted-findings file are
-read from the working tree.
+index with ``git checkout-index --prefix`` into a temporary folder that mirrors the repository,
+together with every indexed YAML, JSON, Python and TOML file under the settings folder (the bases a
+config builds on, the reward code the rules look into), and checked there under their own names,
+with the mirror as the repository root. The settings are read from the working tree; so is the
+accepted-findings file when it is not in the index.
 """
 from __future__ import annotations
 
@@ -20,6 +21,7 @@ from pathlib import Path
 from typing import TextIO
 
 MARK = "written by `trimtab install-hook`"
+EXPORTED = (".yaml", ".yml", ".json", ".py", ".toml")  # read from the index in --staged mode
 
 
 class GitError(Exception):
@@ -69,13 +71,28 @@ def with_staged(args, check) -> int:
         s = shown(rel)
         return s is not None and matches(s, settings.include) and not matches(s, settings.exclude)
 
+    try:
+        rel_root = root.relative_to(top)
+    except ValueError:
+        raise SettingsError(f"--staged: the settings folder {root} is outside the git working tree {top}") from None
     check_these = [rel for rel in staged if wanted(rel)]
-    export = sorted(set(check_these) | {rel for rel in indexed if rel and wanted(rel)})
+    # Everything the check may read, as staged: the configs, the bases they build on, the reward
+    # code the rules look into, the settings' own files (all under the settings folder).
+    export = sorted(set(check_these) | {rel for rel in indexed if rel and rel.lower().endswith(EXPORTED)
+                                        and shown(rel) is not None})
     tmp = Path(tempfile.mkdtemp(prefix="trimtab-staged-"))
     try:
         if export:
             _git(["checkout-index", "--prefix", f"{tmp}{os.sep}", "-z", "--stdin"], top,
                  "\0".join(export).encode("utf-8", "surrogateescape") + b"\0")
+        mirror = tmp / rel_root
+        mirror.mkdir(parents=True, exist_ok=True)
+        if settings.accepted:  # an accepted-findings file that is not in the index: the working tree's
+            src, dst = root / settings.accepted, mirror / settings.accepted
+            if src.is_file() and not dst.exists():
+                dst.parent.mkdir(parents=True, exist_ok=True)
+                shutil.copyfile(src, dst)
+        args.staged_root = mirror
         args.staged_files = [(str(tmp / rel), shown(rel)) for rel in check_these]
         args.no_progress = True
         return check(args)

@@ -142,3 +142,21 @@ def test_settings_in_a_sub_folder_are_found_by_the_hook(tmp_path, monkeypatch):
     r = git(repo, env, "commit", "-m", "bad", check=False)
     assert r.returncode != 0 and "configs/run.yaml:6:3: warning YML-2" in r.stdout + r.stderr
     assert "elsewhere.yaml" not in r.stdout + r.stderr
+
+
+def test_staged_bases_are_read_from_the_index_and_shown_by_their_own_names(repo):
+    repo, env = repo
+    (repo / "pyproject.toml").write_text('[tool.trimtab]\nbases_key = "inherit"\ninclude = ["configs/*.yaml"]\n',
+                                         encoding="utf-8")
+    (repo / "bases").mkdir()
+    base = repo / "bases" / "optim.yaml"
+    base.write_text("optim:\n  lr: 3e-6\n", encoding="utf-8")  # staged: read as a string by YAML 1.1
+    cfg = repo / "configs" / "wren-7b.yaml"
+    cfg.write_text("inherit: ../bases/optim.yaml\n" + GOOD, encoding="utf-8")
+    git(repo, env, "add", ".")
+    base.write_text("optim:\n  lr: 3.0e-6\n", encoding="utf-8")  # the working tree is clean
+    assert trimtab(repo, env, "check").returncode == 0
+    r = trimtab(repo, env, "check", "--staged")
+    assert r.returncode == 1
+    assert "bases/optim.yaml:2:7: warning YML-3 optim.lr = 3e-6" in r.stdout
+    assert "trimtab-staged" not in r.stdout + r.stderr
