@@ -337,3 +337,21 @@ def test_an_edit_keeps_its_meaning_across_worker_processes():
 
     e = pickle.loads(pickle.dumps(Edit("run.yaml", 1, 5, "3e-6", "3.0e-6")))
     assert e.value is KEEP
+
+
+def test_a_value_written_in_a_base_is_fixed_in_the_base(tmp_path):
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "pyproject.toml").write_text('[tool.trimtab]\nbases_key = "inherit"\ninclude = ["configs/*.yaml"]\n',
+                                             encoding="utf-8")
+    (tmp_path / "bases").mkdir()
+    (tmp_path / "configs").mkdir()
+    base = tmp_path / "bases" / "optim.yaml"
+    base.write_text("# shared by every wren-7b run\noptim:\n  lr: 3e-6   # base lr\n", encoding="utf-8")
+    run = "inherit: ../bases/optim.yaml\nrun:\n  estimator: grpo\nrollout:\n  group_size: 8\n  temperature: 0.9\n"
+    for name in ("a.yaml", "b.yaml"):
+        (tmp_path / "configs" / name).write_text(run, encoding="utf-8")
+    r = run_cli("check", "--fix", cwd=tmp_path)
+    assert "applied 1 safe fix(es) in 1 file(s)" in r.err
+    assert base.read_text() == "# shared by every wren-7b run\noptim:\n  lr: 3.0e-6   # base lr\n"
+    assert all((tmp_path / "configs" / n).read_text() == run for n in ("a.yaml", "b.yaml"))
+    assert r.code == 0
