@@ -355,3 +355,15 @@ def test_a_value_written_in_a_base_is_fixed_in_the_base(tmp_path):
     assert base.read_text() == "# shared by every wren-7b run\noptim:\n  lr: 3.0e-6   # base lr\n"
     assert all((tmp_path / "configs" / n).read_text() == run for n in ("a.yaml", "b.yaml"))
     assert r.code == 0
+
+
+def test_no_quoting_fix_where_the_boolean_may_be_meant(tmp_path):
+    """reference.source takes a path or false ("no reference"): `off` read as false by a YAML 1.1
+    loader may be what the author meant, so quoting it would change the run. Only concepts that
+    take text alone get the quoting fix."""
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "run.yaml").write_text("run:\n  estimator: grpo\n  run_name: off\nrollout:\n  group_size: 8\n"
+                                       "  temperature: 0.9\nref_model: off\n", encoding="utf-8")
+    r = check_json(tmp_path / "run.yaml", args=["--only", "YML-3"], cwd=tmp_path)
+    fixable = {f["location"]["line"]: f["fixable"] for f in r.findings}
+    assert fixable == {3: True, 7: False}
