@@ -277,7 +277,7 @@ def test_hundred_thousand_lines_check_in_linear_time(repo, checker_factory):
     small, large = cpu(25_000, 2), cpu(100_000, 1)
     ratio = large / small
     MEASURED.append(f"100,000-line file: {large:.2f} s CPU; 25,000 lines {small:.2f} s (ratio {ratio:.1f}, linear = 4)")
-    assert ratio < 7, f"4x the lines took {ratio:.1f}x the time: not linear"
+    assert ratio < 8, f"4x the lines took {ratio:.1f}x the time: not linear (quadratic would be 16x)"
 
 
 def test_long_single_line(repo):
