@@ -1,4 +1,4 @@
-"""docs/adopt.md works as printed: every ``$ command`` in its console blocks is run, in order, in a
+"""The README's adoption walk-through works as printed: every ``$ command`` in its console blocks is run, in order, in a
 fresh git copy of fixtures/adopt/repo, with the exit status its comment gives; the finding lines and
 diff lines it shows appear in the real output. Where the text asks the reader to edit a file, a
 ``<!-- doc-test: NAME -->`` marker names the edit, and EDITS below makes exactly that edit."""
@@ -15,7 +15,7 @@ import pytest
 
 from conftest import FIXTURES, REPO, run_cli
 
-DOC = REPO / "docs" / "adopt.md"
+DOC = REPO / "README.md"  # its section "Adopting trimtab in an existing repository"
 BIN = Path(sys.executable).parent
 EXIT = re.compile(r"#\s*exit status (\d)\s*$")
 MARK = re.compile(r"<!-- doc-test: ([\w-]+) -->")
@@ -51,6 +51,13 @@ EDITS = {
                                             "  group_size: 8\n", "  group_size: 8\n  group_size: 16\n"),
     "stage-good": lambda root: _replace_once(root / "configs" / "wren-7b-tidepool.yaml", "  group_size: 8\n", ""),
 }
+
+
+def adoption_section(readme: str) -> str:
+    """The README's adoption walk-through, from its heading to the next section of its level."""
+    start = readme.index("\n## Adopting trimtab in an existing repository")
+    end = readme.find("\n## ", start + 1)
+    return readme[start:end if end != -1 else None]
 
 
 def steps(text: str):
@@ -118,7 +125,7 @@ def test_every_command_of_the_adoption_guide_works_as_printed(tmp_path, monkeypa
     for args in (["init", "-q"], ["add", "."], ["commit", "-q", "-m", "Old configs"]):
         subprocess.run(["git", *args], cwd=root, env=env, check=True, capture_output=True)
 
-    plan = steps(DOC.read_text(encoding="utf-8"))
+    plan = steps(adoption_section(DOC.read_text(encoding="utf-8")))
     assert sum(1 for s in plan if s[0] == "run") >= 14
     assert {s[1] for s in plan if s[0] == "edit"} == set(EDITS)
     for step in plan:
