@@ -84,8 +84,9 @@ class Checker:
                 raise SettingsError(f"{settings.source}: setting {settings.name('keymap')}: expected the name of a "
                                     f"published key map ({', '.join(sorted(registry.key_maps)) or 'none installed'}), "
                                     f"found {settings.keymap!r}")
-            from .settings import parse_keys
+            from .settings import check_published, parse_keys
 
+            check_published(settings.keymap, published)
             keys = {**parse_keys(published), **keys}
         self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version)
         self.composer = Composer(settings, self.options.overrides)

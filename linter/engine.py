@@ -89,8 +89,8 @@ class Context:
         """The rule's related locations, then the origin chain (layers replaced, references, overrides)
         of every value written at the finding's primary location or at one of the rule's related ones."""
         out = list(related)
-        if self.model is None or not self.model.chains:
-            return out
+        if self.model is None or not (self.model.chains or any(v.chain for v in self.model.values.values())):
+            return out  # no value of this run came through a layer, reference, merge or alias
         index = getattr(self, "_by_place", None)
         if index is None:
             index = self._by_place = {}

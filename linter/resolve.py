@@ -45,6 +45,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     # A composed run's root carries, per dotted key path, the places a value passed through.
     model.chains = getattr(root, "chains", None) or {}
     leaves = list(_leaves(root))
+    chains = {p: c for p, _n, c in reversed(leaves)}  # the first way each key path was reached
     taken: set[int] = set()
     mapped = set()
     for concept, spec in opts.keys.items():
@@ -52,11 +53,11 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         if node is None:
             continue  # this file does not use the mapped layout: aliases and native names apply
         mapped.add(concept)
-        _store(model, concept, node, "keymap", spec.key, spec)
+        _store(model, concept, node, "keymap", spec.key, spec, chains.get(tuple(spec.key.split("."))))
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
     sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
-    for path, node in leaves:
+    for path, node, _chain in leaves:
         if id(node) in taken:
             continue
         # keys inside one reward component are its fields, not concepts of the run
@@ -81,7 +82,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                 if not (alias.concept == "sandbox.kind" and isinstance(node, Mapping)):
                     continue
             candidates.setdefault(alias.concept, []).append((strength, path, node))
-    native = {".".join(p): (p, n) for p, n in leaves}
+    native = {".".join(p): (p, n) for p, n, _c in leaves}
     for concept in CONCEPTS:
         if concept in mapped or concept in model.values:
             continue
@@ -100,16 +101,21 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             path, node = next(iter(distinct.values()))
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
-            _store(model, concept, node, "alias", ".".join(path))
+            _store(model, concept, node, "alias", ".".join(path), chain=chains.get(path))
             continue
         hit = native.get(concept)
         if hit is not None:
-            _store(model, concept, hit[1], "native", concept)
+            _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]))
     _convert_units(model, opts)
     derive(model)
     markers = sum(1 for c in RL_MARKERS if c in model.values)
     model.is_rl = opts.force_rl or markers >= RL_MIN_MARKERS or "run.estimator" in model.values and markers >= 2
     return model
+
+
+# How many times, in all, a section reached again through an alias may be walked again: aliased
+# sections resolve at every place they are used, while a nested-alias document stays linear.
+REVISIT_BUDGET = 500
 
 
 def _inside_sources(path: tuple, sources_key: tuple | None) -> bool:
@@ -127,20 +133,32 @@ def _inside_sources(path: tuple, sources_key: tuple | None) -> bool:
 
 
 def _leaves(root: Node):
-    """(key path, node) for every mapping entry, sections included, each node once."""
+    """(key path, node, chain) for every mapping entry, sections included. ``chain`` holds the
+    related locations of the hops that brought the entry to this path: a ``<<`` merge key, or the
+    key whose value is an alias of a node written elsewhere. Each section is walked once per
+    path it is reached by, within REVISIT_BUDGET; cycles are never followed."""
     seen: set[int] = set()
-    stack = [((), root)]
+    budget = REVISIT_BUDGET
+    stack = [((), root, (), frozenset())]
     while stack:
-        path, node = stack.pop()
+        path, node, chain, above = stack.pop()
         if id(node) in seen:
-            continue
+            if budget <= 0 or id(node) in above:
+                continue
+            budget -= 1
         seen.add(id(node))
         if isinstance(node, Mapping):
-            for name, _k, v, _via in node.entries():
+            inner = above | {id(node)}
+            for name, k, v, via in node.entries():
                 p = path + (name,)
-                yield p, v
+                hops = chain
+                if via is not None:
+                    hops = hops + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
+                elif v.anchor and v.path != p and isinstance(k, Scalar) and k.path == path:
+                    hops = hops + (k.location(f"{'.'.join(p)} is an alias of {'.'.join(v.path) or 'the top level'}"),)
+                yield p, v, list(hops)
                 if isinstance(v, Mapping):
-                    stack.append((p, v))
+                    stack.append((p, v, hops, inner))
 
 
 def _at(root: Node, key: str) -> Node | None:
@@ -169,11 +187,21 @@ def scalar_value(node: Node, version: str):
     return node
 
 
+def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None,
+           chain: list | None = None):
+    _store_value(model, concept, node, via, key, spec)
+    v = model.values.get(concept)
+    if chain and v is not None and v.node is node:
+        # a value written elsewhere (at an anchor) and reached through merges or aliases points
+        # at the anchor's line; each hop (the '<<' or the key holding the alias) is a related location
+        v.chain.extend(h for h in chain if h not in v.chain)
+
+
 def _chain(model: RunModel, key: str) -> list[Location]:
     return list(model.chains.get(key, ())) if model.chains else []
 
 
-def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None):
+def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None):
     doc = model.doc
     loc = doc.loc(node)
     if model.chains and key and loc.key_path != key:
