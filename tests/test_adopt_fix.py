@@ -350,7 +350,7 @@ def test_a_value_written_in_a_base_is_fixed_in_the_base(tmp_path):
     run = "inherit: ../bases/optim.yaml\nrun:\n  estimator: grpo\nrollout:\n  group_size: 8\n  temperature: 0.9\n"
     for name in ("a.yaml", "b.yaml"):
         (tmp_path / "configs" / name).write_text(run, encoding="utf-8")
-    r = run_cli("check", "--fix", cwd=tmp_path)
+    r = run_cli("check", "--fix", "--skip", "KL,CLP,ALG,OPT", cwd=tmp_path)  # (areas about unstated values)
     assert "applied 1 safe fix(es) in 1 file(s)" in r.err
     assert base.read_text() == "# shared by every wren-7b run\noptim:\n  lr: 3.0e-6   # base lr\n"
     assert all((tmp_path / "configs" / n).read_text() == run for n in ("a.yaml", "b.yaml"))

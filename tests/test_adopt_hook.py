@@ -13,7 +13,8 @@ from conftest import run_cli
 
 pytestmark = pytest.mark.skipif(shutil.which("git") is None, reason="git is not installed")
 
-GOOD = "run:\n  estimator: grpo\nrollout:\n  group_size: 8\n  temperature: 0.9\n"
+# (seed, KL, clip range and gradient clip stated on the first two lines, so the later lines keep their numbers)
+GOOD = "run: {estimator: grpo, seed: 1}\noptim: {kl_coef: 0.04, clip_ratio: 0.2, max_grad_norm: 1.0}\nrollout:\n  group_size: 8\n  temperature: 0.9\n"
 BAD = GOOD + "  temperature: 1.0\n"  # YML-2: a key written twice (warning: the default gate fails it)
 
 
