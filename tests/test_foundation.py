@@ -333,3 +333,13 @@ def test_readme_plugin_example_works(tmp_path, monkeypatch):
     r = check_json("run.yaml", cwd=tmp_path)
     assert [(f["rule"], f["location"]["line"], f["message"]) for f in r.findings] == [
         ("BRW-1", 7, "60 prompts per step is not a multiple of 8")]
+
+
+def test_readme_lists_every_rule_with_its_level():
+    """The README's rule tables are the catalogue: every registered rule, with its default level."""
+    from trimtab.engine import TOOL_RULES, Registry
+
+    readme = (REPO / "README.md").read_text()
+    rows = dict(re.findall(r"^\| ([A-Z]+-\d+) \| (error|warning|note) \|", readme, re.M))
+    rules = Registry().ordered() + list(TOOL_RULES.values())
+    assert {r.id: str(r.level) for r in rules} == rows
