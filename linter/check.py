@@ -6,7 +6,6 @@ few values the cross-file rules need, never documents.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from pathlib import Path
 
 from . import filtering, loader
 from .compose import Composer

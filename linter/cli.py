@@ -198,7 +198,7 @@ def _own_output(path) -> bool:
 def cmd_check(args) -> int:
     from . import filtering
     from .check import CheckOptions, Checker, run, summary_counts
-    from .discover import changed_since, discover, matches
+    from .discover import changed_since, discover
     from .findings import Finding, Level, Location
     from .settings import SettingsError
 
