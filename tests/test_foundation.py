@@ -342,3 +342,16 @@ def test_readme_lists_every_rule_with_its_level():
     rows = dict(re.findall(r"^\| ([A-Z]+-\d+) \| (error|warning|note) \|", readme, re.M))
     rules = Registry().ordered() + list(TOOL_RULES.values())
     assert {r.id: str(r.level) for r in rules} == rows
+
+
+def test_readme_demo_output_is_real():
+    """Finding lines the README shows for the demo appear, as printed, in the demo's output."""
+    readme = (REPO / "README.md").read_text()
+    adoption = readme.index("\n## Adopting trimtab")
+    shown = readme[:adoption] + readme[readme.find("\n## ", adoption + 1):]
+    lines = [l for block in re.findall(r"```\n(.*?)```", shown, re.S) for l in block.splitlines()
+             if re.match(r"\s*configs/\S+:\d+:\d+: ", l) or l.startswith("    suggestion: ")]
+    assert len(lines) >= 5
+    out = run_cli("check", cwd=DEMO).out.splitlines()
+    missing = [l for l in lines if l not in out]
+    assert not missing, missing
