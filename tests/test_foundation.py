@@ -349,8 +349,12 @@ def test_readme_demo_output_is_real():
     readme = (REPO / "README.md").read_text()
     adoption = readme.index("\n## Adopting trimtab")
     shown = readme[:adoption] + readme[readme.find("\n## ", adoption + 1):]
-    lines = [l for block in re.findall(r"```\n(.*?)```", shown, re.S) for l in block.splitlines()
-             if re.match(r"\s*configs/\S+:\d+:\d+: ", l) or l.startswith("    suggestion: ")]
+    lines, fence = [], None
+    for l in shown.splitlines():
+        if l.startswith("```"):
+            fence = None if fence is not None else l[3:].strip()
+        elif fence == "" and (re.match(r"\s*configs/\S+:\d+:\d+: ", l) or l.startswith("    suggestion: ")):
+            lines.append(l)
     assert len(lines) >= 5
     out = run_cli("check", cwd=DEMO).out.splitlines()
     missing = [l for l in lines if l not in out]
