@@ -3,7 +3,6 @@ from __future__ import annotations
 
 import os
 import re
-import subprocess
 from functools import lru_cache
 from pathlib import Path
 
@@ -92,6 +91,8 @@ def _walk(top: Path, root: Path, include, exclude, found: dict) -> None:
 def changed_since(ref: str, root: Path) -> list[str]:
     """Files changed between ``ref`` and the working tree (plus untracked ones), relative to root.
     Raises ValueError with git's own message when the ref cannot be used."""
+    import subprocess  # only --since needs it (start-up)
+
     def git(*args):
         return subprocess.run(["git", *args], cwd=root, capture_output=True, text=True)
 
