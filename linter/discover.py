@@ -78,12 +78,27 @@ def discover(paths: list[str], root: Path, include: list[str], exclude: list[str
 
 
 def _walk(top: Path, root: Path, include, exclude, found: dict) -> None:
+    # perf: resolving every file's path (a system call per path component, twice per file) cost
+    # more than checking it. The folders os.walk enters are real folders (it does not follow
+    # links), so a file's resolved path is its folder's, resolved once, plus its name; only a
+    # file that is itself a symbolic link is resolved as before.
+    top_res = top.resolve()
+    top_is_root = top_res == root
+    prefix = root.as_posix().rstrip("/") + "/"
     for dirpath, dirnames, filenames in os.walk(top):
         dirnames[:] = sorted(d for d in dirnames if d not in SKIP_DIRS and not d.endswith(".egg-info"))
+        rel_dir = os.path.relpath(dirpath, top)
+        rel_dir = "" if rel_dir == "." else Path(rel_dir).as_posix() + "/"
+        dir_res = (top_res / rel_dir).as_posix().rstrip("/") + "/"
         for name in sorted(filenames):
             full = Path(dirpath) / name
-            shown = relpath(full, root)
-            rel_top = relpath(full, top.resolve()) if top.resolve() != root else shown
+            if os.path.islink(full):
+                shown = relpath(full, root)
+                rel_top = relpath(full, top_res) if not top_is_root else shown
+            else:
+                resolved = dir_res + name
+                shown = resolved[len(prefix):] if resolved.startswith(prefix) else full.as_posix()
+                rel_top = rel_dir + name if not top_is_root else shown
             if (matches(shown, include) or matches(rel_top, include)) and not matches(shown, exclude):
                 found.setdefault(str(full), shown)
 
