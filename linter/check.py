@@ -177,41 +177,61 @@ class RunResult:
     checked: set[str]
 
 
+class _Totals:
+    """What run() keeps of each file's result (perf: the FileResults themselves are dropped as they
+    arrive, so memory does not grow with the number of files, only with the findings)."""
+
+    def __init__(self, progress=None):
+        self.findings: list[Finding] = []
+        self.entries: list[SetEntry] = []
+        self.files = self.runs = self.skipped = 0
+        self.crashed = False
+        self.checked: set[str] = set()
+        self.progress = progress
+
+    def append(self, res: FileResult) -> None:
+        self.findings.extend(res.findings)
+        self.entries.extend(res.entries)
+        self.files += 1
+        self.runs += res.runs
+        self.skipped += res.skipped
+        self.crashed = self.crashed or res.crashed
+        self.checked.add(res.path)
+        if self.progress:
+            self.progress(res)
+
+
 def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=None) -> RunResult:
     global _WORKER
-    results: list[FileResult] = []
+    results = _Totals(progress)
     if jobs > 1 and len(files) > 1:
         import multiprocessing
         from concurrent.futures import ProcessPoolExecutor
 
+        import gc
+
         _WORKER = checker
         ctx = multiprocessing.get_context("fork")
         chunk = max(1, min(64, len(files) // (jobs * 8) or 1))
-        with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
-            for res in pool.map(_work, files, chunksize=chunk):
-                results.append(res)
-                if progress:
-                    progress(res)
+        # perf: what the workers inherit is never collected there: without this, every worker's
+        # collector rescans (and copy-on-write duplicates) the parent's objects
+        gc.freeze()
+        try:
+            with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
+                for res in pool.map(_work, files, chunksize=chunk):
+                    results.append(res)
+        finally:
+            gc.unfreeze()
         _WORKER = None
     else:
         for path, shown in files:
-            res = checker.check_file(path, shown)
-            results.append(res)
-            if progress:
-                progress(res)
-    findings: list[Finding] = []
-    entries: list[SetEntry] = []
-    crashed = False
-    for res in results:
-        findings.extend(res.findings)
-        entries.extend(res.entries)
-        crashed = crashed or res.crashed
-    set_findings, set_crashed = checker.check_set(entries)
+            results.append(checker.check_file(path, shown))
+    findings = results.findings
+    set_findings, set_crashed = checker.check_set(results.entries)
     findings.extend(set_findings)
     findings.sort(key=Finding.sort_key)
-    return RunResult(findings, len(results), sum(r.runs for r in results),
-                     sum(1 for r in results if r.skipped), crashed or set_crashed,
-                     {r.path for r in results})
+    return RunResult(findings, results.files, results.runs, results.skipped, results.crashed or set_crashed,
+                     results.checked)
 
 
 def summary_counts(findings: list[Finding]) -> dict[str, int]:
