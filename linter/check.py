@@ -5,6 +5,7 @@ few values the cross-file rules need, never documents.
 """
 from __future__ import annotations
 
+from collections.abc import Set as AbcSet
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -177,6 +178,33 @@ class RunResult:
     checked: set[str]
 
 
+class _Checked(AbcSet):
+    """The shown paths of the checked files: a set, built only when it is first asked (perf: a
+    set of thousands of paths costs several times their list; most runs never ask)."""
+
+    def __init__(self):
+        self.paths: list[str] = []
+        self._set: set[str] | None = None
+
+    def add(self, path: str) -> None:
+        self.paths.append(path)
+        self._set = None
+
+    def _as_set(self) -> set[str]:
+        if self._set is None:
+            self._set = set(self.paths)
+        return self._set
+
+    def __contains__(self, path) -> bool:
+        return path in self._as_set()
+
+    def __iter__(self):
+        return iter(self._as_set())
+
+    def __len__(self) -> int:
+        return len(self._as_set())
+
+
 class _Totals:
     """What run() keeps of each file's result (perf: the FileResults themselves are dropped as they
     arrive, so memory does not grow with the number of files, only with the findings)."""
@@ -186,7 +214,7 @@ class _Totals:
         self.entries: list[SetEntry] = []
         self.files = self.runs = self.skipped = 0
         self.crashed = False
-        self.checked: set[str] = set()
+        self.checked = _Checked()
         self.progress = progress
 
     def append(self, res: FileResult) -> None:
