@@ -5,7 +5,6 @@ group; the built-in rules register the same way.
 """
 from __future__ import annotations
 
-import traceback
 from dataclasses import dataclass, field
 from typing import Any, Callable, Iterable, Iterator
 
@@ -220,6 +219,8 @@ def _id_key(rule_id: str):
 
 
 def crash_finding(rule: Rule, path: str | None, exc: BaseException) -> Finding:
+    import traceback  # only when a rule crashed (start-up, see docs/perf.md)
+
     tb = traceback.extract_tb(exc.__traceback__)
     where = f" at {tb[-1].filename.rsplit('/', 1)[-1]}:{tb[-1].lineno}" if tb else ""
     return Finding("TOOL-1", Level.ERROR,
