@@ -74,9 +74,10 @@ def _untagged_loader(yaml):
     its regular expressions, plus ``descend_resolver``/``ascend_resolver``): over half the time of a
     compose. trimtab never uses a resolved tag: scalars are typed by trimtab itself from their text
     (scalars.py) and the builder reads ``node.tag`` only for a tag written in the file, which the
-    composer takes from the parser event without calling the resolver. So the resolver here answers
-    PyYAML's defaults (str / seq / map) at once. Everything else (parser, marks, anchors, aliases,
-    errors) is libyaml's and PyYAML's own."""
+    composer takes from the parser event without calling the resolver, with one exception: a
+    plain scalar tagged ``!`` alone is resolved as if untagged. Such a scalar gets the marker
+    _UNRESOLVED here, and the builder resolves it with PyYAML's own resolver (_tag). Everything
+    else (parser, marks, anchors, aliases, errors) is libyaml's and PyYAML's own."""
     from yaml.nodes import MappingNode, ScalarNode
 
     str_tag, seq_tag, map_tag = (yaml.resolver.BaseResolver.DEFAULT_SCALAR_TAG,
@@ -85,7 +86,9 @@ def _untagged_loader(yaml):
 
     class UntaggedLoader(yaml.CSafeLoader):
         def resolve(self, kind, value, implicit):
-            return str_tag if kind is ScalarNode else map_tag if kind is MappingNode else seq_tag
+            if kind is ScalarNode:
+                return _UNRESOLVED if implicit[0] else str_tag
+            return map_tag if kind is MappingNode else seq_tag
 
         def descend_resolver(self, current_node, current_index):
             pass
@@ -240,7 +243,14 @@ def _parse_problem(doc: Document, exc: Exception) -> None:
     doc.problems.append(Problem("parse", f"cannot be parsed as YAML: {message}", line, col, related))
 
 
-def _tag(raw_tag) -> str:
+_UNRESOLVED = "tag:trimtab,2026:unresolved"  # see _untagged_loader
+
+
+def _tag(raw_tag, raw=None) -> str:
+    if raw_tag == _UNRESOLVED and raw is not None:
+        import yaml
+
+        return yaml.resolver.Resolver().resolve(type(raw), raw.value, (True, False))
     return getattr(raw_tag, "value", raw_tag) or ""
 
 
@@ -299,7 +309,7 @@ class _Builder:
             if start < self._len and text[start] in "!&":
                 m = _TAG_PREFIX.match(text, start)
                 if m:
-                    tag = _tag(raw.tag)
+                    tag = _tag(raw.tag, raw)
             node: Node = Scalar(raw.value, raw.style or None, tag)
             self._place(node, raw, path)
             self.memo[id(raw)] = node

@@ -211,7 +211,7 @@ def native_config(rng: random.Random, i: int, defect: str) -> str:
     ]
     if defect == "duplicate-key":
         lines.insert(24, "  temperature: 0.6")
-    lines += _padding(rng, rng.randint(150, 400), len(lines))
+    lines += _padding(rng, rng.randint(165, 395), len(lines))
     if defect == "parse":
         lines.insert(rng.randint(20, len(lines) - 5), "  broken: [unclosed, list")
     return "\n".join(lines) + "\n"
@@ -272,7 +272,7 @@ def alias_config(rng: random.Random, i: int, defect: str) -> str:
     ]
     if defect == "duplicate-key":
         lines.insert(19, "  temperature: 0.5")
-    lines += _padding(rng, rng.randint(150, 400), len(lines))
+    lines += _padding(rng, rng.randint(165, 395), len(lines))
     if defect == "parse":
         lines.insert(rng.randint(20, len(lines) - 5), "\tbad_indent: 1")
     return "\n".join(lines) + "\n"
