@@ -394,11 +394,14 @@ class Table:
         print(f"{'figure':<44} {'measured':>12} {'reference':>12} {'ratio':>8}  {'target':<10} result")
         sys.stdout.flush()
 
-    def add(self, name, measured, reference, ratio, target, met, unit="s"):
+    def add(self, name, measured, reference, ratio, target, met, unit="s", counted=True):
         fmt = _fmt_mb if unit == "MB" else _fmt_s
-        row = (f"{name:<44} {fmt(measured):>12} {fmt(reference):>12} {ratio:>7.2f}x  {target:<10} "
-               f"{'met' if met else 'NOT MET'}")
-        self.rows.append((name, met))
+        if counted:
+            verdict = "met" if met else "NOT MET"
+            self.rows.append((name, met))
+        else:  # a figure the issue asks for without a target: a guide value, not counted
+            verdict = ("within" if met else "above") + " (guide, not a target)"
+        row = f"{name:<44} {fmt(measured):>12} {fmt(reference):>12} {ratio:>7.2f}x  {target:<10} {verdict}"
         print(row)
         sys.stdout.flush()
 
@@ -512,19 +515,21 @@ def main(argv=None) -> int:
             alias_bomb(bomb)
             a, b = paired(tt + ["check", str(bomb)], [py, "-c", REF_ONE, str(bomb)], patho, args.repeat)
             m, r = median(a, clock), median(b, clock)
-            table.add("pathological: alias bomb, time", m, r, m / r, "<= 3x", m / r <= 3)
+            table.add("pathological: alias bomb, time", m, r, m / r, "<= 3x", m / r <= 3, counted=False)
             mr, rr = median(a, "rss"), median(b, "rss")
-            table.add("pathological: alias bomb, peak RSS", mr, rr, mr / rr, "<= 150 MB", mr <= 150 * MB, unit="MB")
+            table.add("pathological: alias bomb, peak RSS", mr, rr, mr / rr, "<= 150 MB", mr <= 150 * MB,
+                      unit="MB", counted=False)
             quarter = patho / "long-quarter.yaml"
             full = patho / "long-full.yaml"
             long_file(quarter, args.big_lines // 4)
             long_file(full, args.big_lines)
             a, b = paired(tt + ["check", str(full)], [py, "-c", REF_ONE, str(full)], patho, args.repeat)
             m, r = median(a, clock), median(b, clock)
-            table.add(f"pathological: {args.big_lines} lines, time", m, r, m / r, "<= 4x", m / r <= 4)
+            table.add(f"pathological: {args.big_lines} lines, time", m, r, m / r, "<= 4x", m / r <= 4,
+                      counted=False)
             mr, rr = median(a, "rss"), median(b, "rss")
             table.add(f"pathological: {args.big_lines} lines, peak RSS", mr, rr, mr / rr, "<= 150 MB",
-                      mr <= 150 * MB, unit="MB")
+                      mr <= 150 * MB, unit="MB", counted=False)
             q, _ = paired(tt + ["check", str(quarter)], [py, "-c", REF_ONE, str(quarter)], patho, args.repeat,
                           warm=False)
             mq = median(q, clock)
