@@ -55,6 +55,27 @@ except yaml.YAMLError:
     pass
 """
 
+# Machine check for the parallel figure: what two CPU-bound processes gain over one here and now
+# (other work on the machine takes its share of the cores; then no program reaches 2x).
+BURN = """\
+import sys, os
+n = int(sys.argv[1])
+def burn(k):
+    s = 0
+    for i in range(k):
+        s += i
+pids = []
+for _ in range(int(sys.argv[2]) - 1):
+    pid = os.fork()
+    if pid == 0:
+        burn(n)
+        os._exit(0)
+    pids.append(pid)
+burn(n)
+for pid in pids:
+    os.waitpid(pid, 0)
+"""
+
 # Throughput reference: find the same files and compose each with the libyaml loader, in one process.
 REF_MANY = """\
 import os, sys, yaml
@@ -356,20 +377,40 @@ class Sample:
     code: int
 
 
+# A fresh, small helper process starts each measured process and reports its usage. Linux counts
+# in a child's peak RSS the image it was forked from (before exec), so the child must not be forked
+# from this script, whose memory grows as it works; the helper (no site, nothing imported) is far
+# smaller than any measured process. os.wait4 gives that one child's own usage.
+HELPER = """\
+import os, sys, time
+report = sys.argv[1]
+t0 = time.perf_counter()
+pid = os.fork()
+if pid == 0:
+    try:
+        os.execvp(sys.argv[2], sys.argv[2:])
+    finally:
+        os._exit(127)
+_pid, status, usage = os.wait4(pid, 0)
+wall = time.perf_counter() - t0
+with open(report, "w") as fh:
+    fh.write(f"{wall} {usage.ru_utime + usage.ru_stime} {usage.ru_maxrss} {os.waitstatus_to_exitcode(status)}")
+"""
+_REPORT = Path(tempfile.gettempdir()) / f"trimtab-bench-{os.getpid()}.usage"
+
+
 def measure(cmd: list[str], cwd: Path, out: Path | None = None) -> Sample:
-    """Run one process; its wall time, CPU time and peak RSS (os.wait4: that child's own usage)."""
+    """Run one process; its wall time, CPU time and peak RSS (ru_maxrss, kilobytes on Linux)."""
     stdout = open(out, "wb") if out else subprocess.DEVNULL
     try:
-        t0 = time.perf_counter()
-        proc = subprocess.Popen(cmd, cwd=cwd, stdout=stdout, stderr=subprocess.DEVNULL, env=CHILD_ENV)
-        _pid, status, usage = os.wait4(proc.pid, 0)
-        wall = time.perf_counter() - t0
-        proc.returncode = os.waitstatus_to_exitcode(status)
+        subprocess.run([sys.executable, "-S", "-c", HELPER, str(_REPORT), *cmd], cwd=cwd, stdout=stdout,
+                       stderr=subprocess.DEVNULL, env=CHILD_ENV, check=False)
     finally:
         if out:
             stdout.close()
-    # ru_maxrss is in kilobytes on Linux
-    return Sample(wall, usage.ru_utime + usage.ru_stime, usage.ru_maxrss * 1024, proc.returncode)
+    wall, cpu, rss, code = _REPORT.read_text().split()
+    _REPORT.unlink()
+    return Sample(float(wall), float(cpu), int(rss) * 1024, int(code))
 
 
 def median(samples: list[Sample], field: str) -> float:
@@ -487,6 +528,11 @@ def main(argv=None) -> int:
                     one_s.append(measure(j1, small))
                     two_s.append(measure(j2, small))
                 m, r = median(two_s, "wall"), median(one_s, "wall")
+                burn1 = [measure([py, "-c", BURN, "3000000", "1"], small) for _ in range(3)]
+                burn2 = [measure([py, "-c", BURN, "3000000", "2"], small) for _ in range(3)]
+                b1, b2 = median(burn1, "wall"), median(burn2, "wall")
+                print(f"{'  machine: 2 CPU-bound processes vs 1 (x2 work)':<44} {_fmt_s(b2):>12} {_fmt_s(b1):>12} "
+                      f"{2 * b1 / b2:>7.2f}x  {'(2.0x)':<10} the speed-up this machine allows now")
                 same = findings_of(report) == findings_of(report2)
                 table.add(f"parallel: {n} files, --jobs 2 (speed-up)", m, r, r / m, ">= 1.7x", r / m >= 1.7)
                 print(f"{'  findings of --jobs 2 and --jobs 1':<44} {len(findings_of(report2)):>12} "
