@@ -128,7 +128,8 @@ def _datasets(rng: random.Random, n: int, indent: str = "  ") -> list[str]:
 
 def _rewards(rng: random.Random, indent: str, keys=("kind", "ref", "weight")) -> list[str]:
     out = []
-    kinds = rng.sample(("rule", "rule", "model", "judge", "code"), rng.randint(1, 4))
+    # a verifiable (rule) component first, as a good config has one beside any learned reward
+    kinds = ["rule"] + rng.sample(("rule", "model", "judge", "code"), rng.randint(0, 3))
     for j, kind in enumerate(kinds):
         out.append(f"{indent}- {keys[0]}: {kind}")
         if kind in ("rule", "code"):
@@ -140,6 +141,24 @@ def _rewards(rng: random.Random, indent: str, keys=("kind", "ref", "weight")) ->
         if rng.random() < 0.4:
             out.append(f"{indent}  timeout_s: {rng.choice((10, 30, 60))}")
     return out
+
+
+def _sandbox(rng: random.Random, section: str) -> list[str]:
+    """Where code rewards run: a locked-down sandbox, as a good config states."""
+    return [f"{section}:", f"  kind: {rng.choice(('container', 'vm'))}", "  network: false",
+            f"  timeout_s: {rng.choice((10, 20, 30))}", "  memory_mb: 2048", "  processes: 16",
+            "  filesystem: read-only", "  user: nobody", "  privileged: false"]
+
+
+def _reward_modules(root: Path) -> None:
+    """The reward functions the configs refer to (plain scoring code, nothing it runs)."""
+    pkg = root / "rewards"
+    pkg.mkdir(parents=True, exist_ok=True)
+    (pkg / "__init__.py").write_text("")
+    body = "".join(f"\n\ndef score_{j}(completion: str, answer: str) -> float:\n"
+                   f"    return 1.0 if answer.strip() in completion else 0.0\n" for j in range(5))
+    for task in TASKS:
+        (pkg / f"{task.replace('-', '_')}.py").write_text(f'"""Scores for {task}."""{body}')
 
 
 def _padding(rng: random.Random, target: int, have: int) -> list[str]:
@@ -227,6 +246,7 @@ def native_config(rng: random.Random, i: int, defect: str) -> str:
         "  sources:",
         *_rewards(rng, "    "),
         "  format_pattern: '^<think>.*?</think>\\s*<answer>.*?</answer>$'",
+        *_sandbox(rng, "sandbox"),
         "template:",
         '  text: "{question}\\nThink inside <think></think>, then answer inside <answer></answer>."',
     ]
@@ -287,6 +307,7 @@ def alias_config(rng: random.Random, i: int, defect: str) -> str:
         "scoring:",
         "  reward_functions:",
         *_rewards(rng, "    ", keys=("type", "function", "scale")),
+        *_sandbox(rng, "code_execution"),
         "persist:",
         "  save_steps: 100",
         f"  output_dir: /runs/{model}-{i}",
@@ -316,6 +337,7 @@ def make_corpus(root: Path, count: int, seed: int = 1) -> list[Path]:
     configs; about one file in eight carries a defect."""
     rng = random.Random(seed)
     (root / ".git").mkdir(parents=True, exist_ok=True)  # a repository root: settings search stops
+    _reward_modules(root)
     paths = []
     for i in range(count):
         folder = root / "configs" / TEAMS[i % len(TEAMS)] / f"batch{i // 200:03d}"
