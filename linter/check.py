@@ -97,7 +97,13 @@ class Checker:
         return rule_id not in skip and area not in skip
 
     def rules(self, scope: str):
-        return [(r, o, l) for r, o, l in self.active if r.scope == scope]
+        # perf: computed once per scope, not once per file (the rule list is fixed after __init__;
+        # a changed self.active is noticed by its length)
+        cache = self.__dict__.setdefault("_by_scope", {})
+        hit = cache.get(scope)
+        if hit is None or hit[0] != len(self.active):
+            hit = cache[scope] = (len(self.active), [(r, o, l) for r, o, l in self.active if r.scope == scope])
+        return hit[1]
 
     def check_file(self, path: str, shown: str) -> FileResult:
         from .discover import matches
@@ -121,8 +127,9 @@ class Checker:
                 if not model.is_rl:
                     continue
                 res.runs += 1
+                is_rl_stage = model.stage == "rl"  # perf: once per run, not once per rule
                 for r, opts, level in self.rules("run"):
-                    if r.rl_only and model.stage != "rl":
+                    if r.rl_only and not is_rl_stage:
                         continue
                     if r.needs and not all(model.get(c) is not None for c in r.needs):
                         continue
