@@ -12,7 +12,7 @@ from pathlib import Path
 from . import filtering, loader
 from .compose import Composer
 from .engine import Context, Registry, Rule, run_rule
-from .findings import Finding, Level
+from .findings import Finding, Level, Location
 from .model import Value
 from .resolve import ResolveOptions, resolve
 from .settings import Settings, SettingsError
@@ -35,6 +35,7 @@ class FileResult:
     skipped: bool = False  # read, but not an RL run config
     entries: list[SetEntry] = field(default_factory=list)
     crashed: bool = False
+    accepted_at: set = field(default_factory=set)  # (path, line) of findings accepted in a base's text
 
 
 @dataclass
@@ -83,8 +84,9 @@ class Checker:
                 raise SettingsError(f"{settings.source}: setting {settings.name('keymap')}: expected the name of a "
                                     f"published key map ({', '.join(sorted(registry.key_maps)) or 'none installed'}), "
                                     f"found {settings.keymap!r}")
-            from .settings import parse_keys
+            from .settings import check_published, parse_keys
 
+            check_published(settings.keymap, published)
             keys = {**parse_keys(published), **keys}
         self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version)
         self.composer = Composer(settings, self.options.overrides)
@@ -110,39 +112,49 @@ class Checker:
 
         res = FileResult(shown)
         doc = loader.load(path, shown, self.settings.limits)
+        # A file other files build on (a base declared in the settings' layers, the overrides file) is
+        # checked as a file here and as part of every run built on it, not as a run of its own.
+        as_run = doc.readable and shown not in self.composer.base_files
+        # Compose first: composition problems are recorded on the document for the file rules.
+        composed = [self.composer.compose(doc, root, path) for root in doc.roots] if as_run else []
         for r, opts, level in self.rules("file"):
             self._run(r, Context(r, None, doc, opts, level, settings=self.settings), shown, res)
-        if doc.readable:
+        if as_run:
             force = matches(shown, self.settings.run_configs) if self.settings.run_configs else False
             opts_r = self.resolve_opts
             if force:
                 opts_r = ResolveOptions(opts_r.keys, opts_r.version, True)
             set_rules = self.rules("set")
-            for index, root in enumerate(doc.roots):
-                composed = self.composer.compose(doc, root, path)
-                res.findings.extend(composed.findings)
-                model = resolve(doc, composed.root, opts_r, index)
+            for index, comp in enumerate(composed):
+                model = resolve(doc, comp.root, opts_r, index)
                 model.settings = self.settings
-                model.files = composed.files
+                model.files = comp.files
                 if not model.is_rl:
                     continue
                 res.runs += 1
                 is_rl_stage = model.stage == "rl"  # perf: once per run, not once per rule
+                start = len(res.findings)
                 for r, opts, level in self.rules("run"):
                     if r.rl_only and not is_rl_stage:
                         continue
                     if r.needs and not all(model.get(c) is not None for c in r.needs):
                         continue
                     self._run(r, Context(r, model, doc, opts, level, settings=self.settings), shown, res)
+                if len(comp.files) > 1:
+                    _name_run(res.findings[start:], shown)
                 if set_rules:
                     wanted = {c for r, _o, _l in set_rules for c in r.needs}
                     values = {c: _light(model.get(c)) for c in wanted if model.get(c) is not None}
                     res.entries.append(SetEntry(shown, index, values))
+        if doc.readable:
             res.skipped = res.runs == 0
         res.findings = filtering.apply_acceptances(res.findings, doc.text, shown, self.active_ids)
         for extra_path, extra_text in self.composer.texts(doc):
-            res.findings = filtering.apply_acceptances(res.findings, extra_text, extra_path, self.active_ids,
+            before = res.findings
+            res.findings = filtering.apply_acceptances(before, extra_text, extra_path, self.active_ids,
                                                        report_unused=False)
+            kept = {id(f) for f in res.findings}
+            res.accepted_at |= {(f.location.path, f.location.line) for f in before if id(f) not in kept}
         return res
 
     def _run(self, r: Rule, ctx: Context, path: str, res: FileResult) -> None:
@@ -158,6 +170,32 @@ class Checker:
             out.extend(found)
             crashed = crashed or c
         return out, crashed
+
+
+def _name_run(findings: list[Finding], shown: str) -> None:
+    """A finding of a composed run located in another file (a base) names the run it was found in."""
+    for f in findings:
+        if f.location.path != shown and not any(r.path == shown and not r.line for r in f.related):
+            f.related.append(Location(shown, 0, 0, message=f"in the run composed from {shown}"))
+
+
+def _merge_duplicates(findings: list[Finding]) -> list[Finding]:
+    """One finding per rule, place and message: a base line found through two runs is reported once,
+    with the related locations of both."""
+    seen: dict[tuple, Finding] = {}
+    out = []
+    for f in findings:
+        loc = f.location
+        key = (f.rule_id, loc.path, loc.line, loc.col, loc.key_path, f.message, f.fingerprint)
+        first = seen.get(key)
+        if first is None:
+            seen[key] = f
+            out.append(f)
+            continue
+        for r in f.related:
+            if r not in first.related:
+                first.related.append(r)
+    return out
 
 
 def _light(v: Value | None) -> Value | None:
@@ -211,6 +249,10 @@ class _Checked(AbcSet):
     def __len__(self) -> int:
         return len(self._as_set())
 
+    @classmethod
+    def _from_iterable(cls, it):  # the result of |, &, -: a plain set
+        return set(it)
+
 
 class _Totals:
     """What run() keeps of each file's result (perf: the FileResults themselves are dropped as they
@@ -222,6 +264,7 @@ class _Totals:
         self.files = self.runs = self.skipped = 0
         self.crashed = False
         self.checked = _Checked()
+        self.accepted_at: set = set()
         self.progress = progress
 
     def append(self, res: FileResult) -> None:
@@ -232,6 +275,7 @@ class _Totals:
         self.skipped += res.skipped
         self.crashed = self.crashed or res.crashed
         self.checked.add(res.path)
+        self.accepted_at |= res.accepted_at
         if self.progress:
             self.progress(res)
 
@@ -262,8 +306,14 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
         for path, shown in files:
             results.append(checker.check_file(path, shown))
     findings = results.findings
+    if results.accepted_at:  # an acceptance in a base used by a run built on it is not unused
+        accepted_at = results.accepted_at
+        findings = [f for f in findings if not (
+            f.rule_id == filtering.ACC_UNUSED and ({(f.location.path, f.location.line),
+                                                    (f.location.path, f.location.line + 1)} & accepted_at))]
     set_findings, set_crashed = checker.check_set(results.entries)
     findings.extend(set_findings)
+    findings = _merge_duplicates(findings)
     findings.sort(key=Finding.sort_key)
     return RunResult(findings, results.files, results.runs, results.skipped, results.crashed or set_crashed,
                      results.checked)

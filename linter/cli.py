@@ -47,6 +47,7 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--accepted", metavar="FILE", help="accepted-findings file: its findings do not count")
     c.add_argument("--write-accepted", metavar="FILE", help="record today's findings as accepted, then exit 0")
     c.add_argument("--no-progress", action="store_true", help="no progress bar on a terminal")
+    _adoption_options(c)
 
     e = sub.add_parser("explain", help="show what trimtab read from a run config")
     e.add_argument("config", metavar="CONFIG")
@@ -54,7 +55,39 @@ def build_parser() -> argparse.ArgumentParser:
 
     r = sub.add_parser("rules", help="list the rules, or show one rule's rationale")
     r.add_argument("rule_id", nargs="?", metavar="ID")
+    _adoption_commands(sub)
+    _add_audit(sub)
     return p
+
+
+def _adoption_options(c) -> None:
+    """check --fix / --diff / --staged (adoption in an existing repository)."""
+    c.add_argument("--fix", action="store_true",
+                   help="apply the safe fixes rules declare (each proved by re-reading the file), then check again")
+    c.add_argument("--diff", action="store_true", help="with --fix: print the fixes as a unified diff, write nothing")
+    c.add_argument("--staged", action="store_true",
+                   help="check the staged (index) version of the staged config files, as a git hook does")
+
+
+def _adoption_commands(sub) -> None:
+    m = sub.add_parser("map", help="draft a [tool.trimtab.keys] block for the keys trimtab could not place")
+    m.add_argument("config", metavar="CONFIG")
+    m.add_argument("--output", metavar="FILE", help="write the draft block here (default: after the report)")
+    h = sub.add_parser("install-hook", help="write a plain .git/hooks/pre-commit that checks staged configs")
+    h.add_argument("--force", action="store_true", help="replace an existing pre-commit hook")
+
+
+def _add_audit(sub) -> None:
+    a = sub.add_parser("audit", help="write a self-contained HTML page: sources with findings in place, "
+                                     "batch arithmetic and token budget drawn, resolved concepts")
+    a.add_argument("configs", nargs="+", metavar="CONFIG", help="run config files or folders")
+    a.add_argument("--html", required=True, metavar="FILE", help="write the page here ('-': standard output)")
+    a.add_argument("--gate", choices=("error", "warning", "note"),
+                   help="lowest level the page's verdict and the exit status count (default: settings)")
+    a.add_argument("--only", type=_ids, default=set(), metavar="IDS", help="only these rule ids or areas")
+    a.add_argument("--skip", type=_ids, default=set(), metavar="IDS", help="not these rule ids or areas")
+    a.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                   help="override a value of the run (repeatable)")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -67,11 +100,21 @@ def main(argv: list[str] | None = None) -> int:
 
     try:
         if args.command == "check":
+            if args.staged:
+                from .hook import with_staged
+
+                return with_staged(args, cmd_check)
             return cmd_check(args)
+        if args.command == "map":
+            return cmd_map(args)
+        if args.command == "install-hook":
+            return cmd_install_hook(args)
         if args.command == "explain":
             return cmd_explain(args)
         if args.command == "rules":
             return cmd_rules(args)
+        if args.command == "audit":
+            return cmd_audit(args)
     except SettingsError as exc:
         print(f"trimtab: error: {exc}", file=sys.stderr)
         return EXIT_INCOMPLETE
@@ -79,6 +122,10 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_OK
     except KeyboardInterrupt:
         print("trimtab: interrupted", file=sys.stderr)
+        return EXIT_INCOMPLETE
+    except OSError as exc:  # a report or accepted-findings file that cannot be written: say so plainly
+        where = exc.filename if exc.filename is not None else "a file"
+        print(f"trimtab: error: {where}: cannot be written or read: {exc.strerror or exc}", file=sys.stderr)
         return EXIT_INCOMPLETE
     parser.error(f"unknown command {args.command}")
     return EXIT_INCOMPLETE
@@ -111,6 +158,43 @@ def _overrides(items: list[str]) -> list[tuple[str, str]]:
     return out
 
 
+def _refuse_overwrite(files, target, option: str) -> None:
+    """trimtab never writes to a file it checks: an output path that is one of them is refused,
+    unless the file is trimtab's own earlier output (a report or an accepted-findings file that
+    an include glob happens to match)."""
+    from .settings import SettingsError
+
+    if not target or not os.path.exists(target):
+        return
+    for path, shown in files:
+        try:
+            same = os.path.samefile(path, target)
+        except OSError:
+            continue
+        if same and not _own_output(target):
+            raise SettingsError(f"{option} {target}: expected a report file, found {shown}, one of the "
+                                "files being checked; it is not overwritten")
+
+
+def _own_output(path) -> bool:
+    """Is this file a report or accepted-findings file that trimtab wrote?"""
+    import json
+
+    try:
+        with open(path, "rb") as fh:
+            data = json.loads(fh.read(64 * 1024 * 1024).decode("utf-8"))
+    except (OSError, ValueError, RecursionError):
+        return False
+    if not isinstance(data, dict):
+        return False
+    if data.get("tool") == "trimtab" or "trimtab_accepted" in data:
+        return True
+    runs = data.get("runs")
+    driver = runs[0].get("tool", {}).get("driver", {}) if isinstance(runs, list) and runs and isinstance(
+        runs[0], dict) else {}
+    return isinstance(driver, dict) and driver.get("name") == "trimtab"
+
+
 def cmd_check(args) -> int:
     from . import filtering
     from .check import CheckOptions, Checker, run, summary_counts
@@ -119,16 +203,33 @@ def cmd_check(args) -> int:
     from .settings import SettingsError
 
     settings = _settings(args)
+    if getattr(args, "staged_root", None) is not None:
+        settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
     registry = _registry()
     options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
     checker = Checker(settings, registry, options)
-    files, missing = discover(args.paths, settings.root, settings.include, settings.exclude)
+    if getattr(args, "staged_files", None) is not None:
+        files, missing = args.staged_files, []
+    else:
+        used: set[str] = set()
+        files, missing = discover(args.paths, settings.root, settings.include, settings.exclude, used,
+                                  confine=True)
+        for idle in settings.check_include(used, bool(args.paths)):
+            print(f"trimtab: note: setting {idle} matches no file", file=sys.stderr)
+    _refuse_overwrite(files, args.output, "--output")
+    _refuse_overwrite(files, args.write_accepted, "--write-accepted")
+    files = _not_accepted_files(files, args, settings)
+    if args.diff and not args.fix:
+        raise SettingsError("--diff shows what --fix would change: use --fix --diff")
+    if args.fix and args.write_accepted:
+        raise SettingsError("--fix and --write-accepted: run --fix first, then record what is left")
     if args.since:
         try:
             changed = set(changed_since(args.since, settings.root))
         except ValueError as exc:
             raise SettingsError(str(exc)) from None
         files = [(p, s) for p, s in files if s in changed]
+    files = _with_dependants(args, files, changed if args.since else None, settings)
     jobs = args.jobs if args.jobs is not None else settings.jobs
     if jobs < 1:
         raise SettingsError(f"--jobs {jobs}: expected a number of at least 1")
@@ -142,12 +243,19 @@ def cmd_check(args) -> int:
         progress.close()
     findings = result.findings
     for m in missing:
-        findings.insert(0, Finding("YML-6", Level.ERROR, "cannot be read: no such file or folder",
+        findings.insert(0, Finding("YML-6", Level.ERROR, getattr(m, "reason", "cannot be read: no such file or folder"),
                                    Location(m), subject=m).finish())
     accepted_path = args.accepted or settings.accepted
     if args.write_accepted:
-        count = filtering.write_accepted(Path(args.write_accepted), findings)
+        keep = _accepted_elsewhere(Path(args.write_accepted), result.checked, settings.root)
+        # a crashed rule is never accepted: it would hide whatever the rule misses
+        record = [f for f in findings if not f.rule_id.startswith("TOOL-")]
+        count = filtering.write_accepted(Path(args.write_accepted), record, keep)
         print(f"trimtab: recorded {count} accepted finding(s) in {args.write_accepted}", file=sys.stderr)
+        if result.crashed or registry.errors:
+            print("trimtab: the check was incomplete (a rule crashed or a plugin failed to load); "
+                  "its findings are not recorded", file=sys.stderr)
+            return EXIT_INCOMPLETE
         return EXIT_OK
     if accepted_path:
         path = Path(accepted_path)
@@ -157,7 +265,14 @@ def cmd_check(args) -> int:
             rows = filtering.read_accepted(path)
         except filtering.AcceptedFileError as exc:
             raise SettingsError(str(exc)) from None
-        findings = filtering.apply_accepted(findings, rows, str(accepted_path), result.checked)
+        gone = {str(r.get("file")) for r in rows if not (settings.root / str(r.get("file"))).exists()}
+        findings = filtering.apply_accepted(findings, rows, str(accepted_path), result.checked | gone)
+    if args.fix:
+        code = _fix(args, settings, findings, files)
+        if code is not None:
+            return code
+        args.fix = False
+        return cmd_check(args)  # report what is left after the fixes
     gate = Level.parse(args.gate or settings.gate)
     incomplete = result.crashed or bool(registry.errors)
     failing = any(f.level >= gate for f in findings)
@@ -185,6 +300,18 @@ def cmd_check(args) -> int:
     print(f"trimtab: {result.files} file(s) checked{skipped}; {counts['error']} error(s), "
           f"{counts['warning']} warning(s), {counts['note']} note(s)", file=sys.stderr)
     return code
+
+
+def _with_dependants(args, files, changed, settings):
+    """A base among the files to check (given, or changed since a ref) brings the files built on it."""
+    if not (args.paths or changed is not None):
+        return files  # the whole repository is checked anyway
+    from .compose import with_dependants
+    from .discover import relpath
+
+    seeds = set(changed or ()) | {s for _p, s in files}
+    seeds |= {relpath(Path(p), settings.root.resolve()) for p in args.paths if Path(p).is_file()}
+    return with_dependants(files, seeds, settings)
 
 
 def _catalogue(registry):
@@ -220,9 +347,104 @@ def cmd_rules(args) -> int:
     return EXIT_OK
 
 
+def cmd_audit(args) -> int:
+    from .audit import audit, write
+    from .check import CheckOptions
+    from .findings import Level
+
+    settings = _settings(args)
+    if getattr(args, "staged_root", None) is not None:
+        settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
+    registry = _registry()
+    options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
+    page, code = audit(args.configs, settings, registry, options, Level.parse(args.gate or settings.gate))
+    try:
+        write(page, args.html)
+    except OSError as exc:
+        print(f"trimtab: error: cannot write {args.html}: {exc.strerror or exc}", file=sys.stderr)
+        return EXIT_INCOMPLETE
+    if args.html != "-":
+        print(f"trimtab: audit page written to {args.html}", file=sys.stderr)
+    return code
+
+
 def cmd_explain(args) -> int:
     from .explain import explain
 
     settings = _settings(args)
     registry = _registry()
     return explain(args.config, settings, registry, _overrides(args.overrides), sys.stdout)
+
+
+# --- adoption: fixes, key-map drafts, the plain git hook ------------------------------------------
+def _not_accepted_files(files, args, settings):
+    """The accepted-findings file is trimtab's own output, not a config: never check it."""
+    own = [p for p in (args.accepted, args.write_accepted) if p]
+    if settings.accepted:
+        own.append(str(settings.root / settings.accepted))
+    if not own:
+        return files
+    skip = {Path(p).resolve() for p in own}
+    return [(p, s) for p, s in files if Path(p).resolve() not in skip]
+
+
+def _accepted_elsewhere(path: Path, checked: set[str], root: Path) -> list[dict]:
+    """Entries of an existing accepted-findings file for files this run did not check and that
+    still exist: a partial run (named paths, --since) keeps them rather than dropping them."""
+    from . import filtering
+
+    if not path.is_file():
+        return []
+    try:
+        rows = filtering.read_accepted(path)
+    except filtering.AcceptedFileError:
+        return []
+    return [r for r in rows if r.get("file") not in checked and (root / str(r.get("file"))).is_file()]
+
+
+def _fix(args, settings, findings, files) -> int | None:
+    """Apply (or, with --diff, show) the safe fixes. Returns the exit status when done, or None
+    to check again and report what is left."""
+    from . import fix
+
+    on_disk = {shown: Path(p) for p, shown in files}
+
+    def locate(shown: str):
+        if shown in on_disk:
+            return on_disk[shown]
+        candidate = settings.root / shown
+        return candidate if candidate.is_file() else None
+
+    plans = fix.plan(findings, locate)
+    told = set()
+    for ff in plans:
+        for f, why in ff.refused:
+            line = f"trimtab: not fixed: {f.location.label()} {f.rule_id}: {why}"
+            if line not in told:
+                told.add(line)
+                print(line, file=sys.stderr)
+    changed = [ff for ff in plans if ff.changed]
+    count = sum(len(ff.applied) for ff in changed)
+    if args.diff:
+        for ff in changed:
+            sys.stdout.write(ff.diff())
+        print(f"trimtab: {count} safe fix(es) in {len(changed)} file(s) would be applied; nothing written",
+              file=sys.stderr)
+        return EXIT_FINDINGS if changed else EXIT_OK
+    for ff in changed:
+        ff.write()
+    print(f"trimtab: applied {count} safe fix(es) in {len(changed)} file(s)", file=sys.stderr)
+    return None
+
+
+def cmd_map(args) -> int:
+    from .keymap_draft import draft_command
+
+    settings = _settings(args)
+    return draft_command(args.config, settings, args.output, sys.stdout, sys.stderr)
+
+
+def cmd_install_hook(args) -> int:
+    from .hook import install
+
+    return install(Path.cwd(), args.force, sys.stderr)

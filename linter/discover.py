@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import os
 import re
+import subprocess
 from functools import lru_cache
 from pathlib import Path
 
@@ -49,26 +50,75 @@ def matches(rel: str, patterns) -> bool:
 
 
 def relpath(path: Path, root: Path) -> str:
+    """The path as the user wrote or sees it: relative to the root, links not followed (a link
+    is shown by its own name), else resolved, else as given."""
+    try:
+        return Path(os.path.abspath(path)).relative_to(root).as_posix()
+    except ValueError:
+        pass
     try:
         return path.resolve().relative_to(root).as_posix()
-    except ValueError:
+    except (ValueError, OSError, RuntimeError):
         return path.as_posix()
 
 
-def discover(paths: list[str], root: Path, include: list[str], exclude: list[str]) -> tuple[list[tuple[str, str]], list[str]]:
+class Refused(str):
+    """A path given or found that is not checked, with the reason (reported as a finding)."""
+
+    reason: str = "cannot be read: no such file or folder"
+
+    def __new__(cls, path: str, reason: str):
+        obj = super().__new__(cls, path)
+        obj.reason = reason
+        return obj
+
+
+def inside(path: Path, root: Path) -> bool:
+    """Does ``path``, with every symbolic link followed, lie inside ``root``?"""
+    try:
+        path.resolve().relative_to(root)
+        return True
+    except (ValueError, OSError, RuntimeError):
+        return False
+
+
+def _outside(path: Path, root: Path) -> Refused:
+    try:
+        target = path.resolve()
+    except (OSError, RuntimeError):
+        target = path
+    how = f" (a link to {target.as_posix()})" if path.is_symlink() else ""
+    return Refused(path.as_posix(), f"is outside the repository {root.as_posix()}{how}; not read")
+
+
+def discover(paths: list[str], root: Path, include: list[str], exclude: list[str],
+             used: set | None = None, confine: bool = False) -> tuple[list[tuple[str, str]], list[str]]:
     """((path on disk, path shown), missing) for the paths given, or for the include globs
-    under ``root`` when none are given. A file named explicitly is checked whatever its name."""
+    under ``root`` when none are given. A file named explicitly is checked whatever its name.
+
+    ``missing`` lists paths that are not checked: absent ones, and (as ``Refused`` with a reason)
+    symbolic links whose target is outside the repository root (a link committed to lead a gate
+    to a file elsewhere); their target is never read. With ``confine`` (the check gate), any path
+    given that lies outside the root is refused the same way; without it (a one-off audit of a
+    config kept elsewhere) a path named explicitly is read. ``used`` collects the include globs
+    that matched a file."""
     root = root.resolve()
     found: dict[str, str] = {}
     missing: list[str] = []
     if not paths:
-        _walk(root, root, include, exclude, found)
+        _walk(root, root, include, exclude, found, missing, used)
         return sorted(found.items(), key=lambda kv: kv[1]), missing
     for p in paths:
         path = Path(p)
         if path.is_dir():
-            _walk(path, root, include, exclude, found)
+            if (confine or path.is_symlink()) and not inside(path, root):
+                missing.append(_outside(path, root))
+                continue
+            _walk(path, root, include, exclude, found, missing, used)
         elif path.exists() or path.is_symlink():
+            if path.exists() and (confine or path.is_symlink()) and not inside(path, root):
+                missing.append(_outside(path, root))
+                continue
             shown = relpath(path, root) if path.exists() else path.as_posix()
             if not matches(shown, exclude):
                 found.setdefault(str(path), shown)
@@ -77,38 +127,34 @@ def discover(paths: list[str], root: Path, include: list[str], exclude: list[str
     return sorted(found.items(), key=lambda kv: kv[1]), missing
 
 
-def _walk(top: Path, root: Path, include, exclude, found: dict) -> None:
-    # perf: resolving every file's path (a system call per path component, twice per file) cost
-    # more than checking it. The folders os.walk enters are real folders (it does not follow
-    # links), so a file's resolved path is its folder's, resolved once, plus its name; only a
-    # file that is itself a symbolic link is resolved as before.
-    top_res = top.resolve()
-    top_is_root = top_res == root
-    prefix = root.as_posix().rstrip("/") + "/"
+def _walk(top: Path, root: Path, include, exclude, found: dict, missing: list | None = None,
+          used: set | None = None) -> None:
+    top_res = top.resolve()  # perf: once per walk, not twice per file (a system call per path part)
     for dirpath, dirnames, filenames in os.walk(top):
         dirnames[:] = sorted(d for d in dirnames if d not in SKIP_DIRS and not d.endswith(".egg-info"))
-        rel_dir = os.path.relpath(dirpath, top)
-        rel_dir = "" if rel_dir == "." else Path(rel_dir).as_posix() + "/"
-        dir_res = (top_res / rel_dir).as_posix().rstrip("/") + "/"
         for name in sorted(filenames):
             full = Path(dirpath) / name
-            if os.path.islink(full):
-                shown = relpath(full, root)
-                rel_top = relpath(full, top_res) if not top_is_root else shown
-            else:
-                resolved = dir_res + name
-                shown = resolved[len(prefix):] if resolved.startswith(prefix) else full.as_posix()
-                rel_top = rel_dir + name if not top_is_root else shown
-            if (matches(shown, include) or matches(rel_top, include)) and not matches(shown, exclude):
-                disk = str(full)
-                found.setdefault(disk, disk if disk == shown else shown)  # perf: one string when equal
+            shown = relpath(full, root)
+            rel_top = relpath(full, top_res) if top_res != root else shown
+            logical = Path(os.path.relpath(full, top)).as_posix()
+            hit = [p for p in include if matches(shown, [p]) or matches(rel_top, [p]) or matches(logical, [p])]
+            if not hit or matches(shown, exclude):
+                continue
+            if used is not None:
+                used.update(hit)
+            # os.walk does not follow links into folders, so only a file that is itself a link
+            # can lead out of the repository (and only it costs a resolve)
+            if os.path.islink(full) and full.exists() and not inside(full, root):
+                if missing is not None:
+                    missing.append(_outside(full, root))
+                continue
+            disk = str(full)
+            found.setdefault(disk, disk if disk == shown else shown)  # perf: one string when equal
 
 
 def changed_since(ref: str, root: Path) -> list[str]:
     """Files changed between ``ref`` and the working tree (plus untracked ones), relative to root.
     Raises ValueError with git's own message when the ref cannot be used."""
-    import subprocess  # only --since needs it (start-up)
-
     def git(*args):
         return subprocess.run(["git", *args], cwd=root, capture_output=True, text=True)
 

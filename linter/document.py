@@ -145,6 +145,11 @@ class Document:
         return node.location(message)
 
     def raw(self, node: Node) -> str:
+        if node.file != self.path:  # a node of a composed run written in another file
+            from .compose import source_text
+
+            text = source_text(node.file)
+            return text[node.start:node.end] if text is not None else getattr(node, "text", "")
         return self.text[node.start:node.end]
 
 

@@ -76,12 +76,45 @@ class Context:
     def finding(self, message: str, location: Location, *, related: Iterable[Location] = (),
                 level: str | Level | None = None, key_path: str = "", suggestion: str = "",
                 subject: Any = None, fix=None, help: str = "") -> Finding:
-        lvl = Level.parse(level) if level is not None else self.level
-        if level is not None and self.level != self.rule.level:
-            # the user changed this rule's level in settings: that applies to all its findings
-            lvl = self.level
-        return Finding(self.rule.id, lvl, message, location, list(related), key_path or location.key_path,
-                       suggestion, help or self.rule.help, fix, subject, cwe=self.rule.cwe)
+        if self.level != self.rule.level:
+            lvl = self.level  # the user set this rule's level in settings: it applies to all its findings
+        else:
+            lvl = Level.parse(level) if level is not None else self.level
+        return Finding(self.rule.id, lvl, message, location, self._with_chain(location, related),
+                       key_path or location.key_path, suggestion, help or self.rule.help, fix, subject,
+                       cwe=self.rule.cwe)
+
+    def _with_chain(self, location: Location, related: Iterable[Location]) -> list[Location]:
+        """The rule's related locations, then the origin chain (layers replaced, references, overrides)
+        of every value written at the finding's primary location or at one of the rule's related ones."""
+        out = list(related)
+        if self.model is None or not (self.model.chains or any(v.chain for v in self.model.values.values())):
+            return out  # no value of this run came through a layer, reference, merge or alias
+        index = getattr(self, "_by_place", None)
+        if index is None:
+            index = self._by_place = {}
+            values = list(self.model.values.values())
+            for comp in self.model.components:
+                values.extend(comp.fields.values())
+            for v in values:
+                index.setdefault(_place_key(v.location), []).append(v)
+        seen = {_place_key(location)} | {_place_key(r) for r in out}
+        for loc in [location] + list(out):
+            found = index.get(_place_key(loc), ())
+            if loc.key_path and any(v.location.key_path == loc.key_path for v in found):
+                found = [v for v in found if v.location.key_path == loc.key_path]
+            for v in found:
+                for hop in v.chain:
+                    k = _place_key(hop)
+                    if k not in seen:
+                        seen.add(k)
+                        out.append(hop)
+        return out
+
+
+def _place_key(loc: Location) -> tuple:
+    # values given on the command line share no line: their key path tells them apart
+    return (loc.path, loc.line, loc.col, loc.key_path if loc.path is None else "")
 
 
 class Registry:

@@ -2,13 +2,16 @@
 with its inputs, and the concepts that were not found."""
 from __future__ import annotations
 
+import re
 from typing import TextIO
 
-from . import loader
+from . import arithmetic, loader
 from .check import CheckOptions, Checker
 from .model import RunModel
 from .resolve import resolve
 from .vocabulary import CONCEPTS
+
+_USERINFO = re.compile(r"(?<=://)[^/@\s]+@")  # a URL's user information (may hold a password)
 
 
 def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel], list[str]]:
@@ -19,7 +22,6 @@ def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel],
     checker = Checker(settings, registry, CheckOptions(overrides=list(overrides)))
     shown = relpath(Path(path), settings.root.resolve())
     doc = loader.load(path, shown, settings.limits)
-    problems = [f"{shown}:{p.line}:{p.col}: {p.message}" for p in doc.problems]
     out = []
     if doc.readable:
         for i, root in enumerate(doc.roots):
@@ -28,6 +30,9 @@ def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel],
             m.settings = settings
             m.files = composed.files
             out.append(m)
+    # read problems, then composition problems (located in the file that holds the line)
+    problems = [f"{getattr(p, 'path', shown) or '<command line>'}:{p.line}:{p.col}: {p.message}"
+                for p in doc.problems]
     return out, problems
 
 
@@ -38,7 +43,8 @@ def _show(value) -> str:
         return f"<{value.kind}>"
     if isinstance(value, float):
         return repr(value)
-    return str(value)
+    # a URL's user information can hold a password: never show it
+    return _USERINFO.sub("****@", str(value))
 
 
 def _wrap(text: str, width: int = 96) -> str:
@@ -58,6 +64,8 @@ def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
             out.write(f"--- document {m.index + 1}\n")
         kind = "an RL run config" if m.is_rl else "not an RL run config (RL rules skip it)"
         out.write(f"{m.path}: {kind}; stage {m.stage}; values read as YAML {m.version}\n\n")
+        if len(m.files) > 1:
+            out.write(f"composed from (first to last): {', '.join(m.files)}\n\n")
         out.write("Concepts found:\n")
         width = max([len(c) for c in m.values] + [10])
         for name in sorted(m.values):
@@ -78,6 +86,7 @@ def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
                 stated = m.values.get(name)
                 extra = f"  (stated: {_show(stated.value)})" if stated is not None else ""
                 out.write(f"  {name:<{width}}  {_show(v.value):<16}  = {v.note}  from {', '.join(v.inputs)}{extra}\n")
+        out.write(arithmetic.render(m))
         if m.ambiguous:
             out.write("\nAmbiguous (set them in [tool.trimtab.keys]):\n")
             for name, locs in sorted(m.ambiguous.items()):

@@ -113,16 +113,25 @@ def select(findings: list[Finding], only: set[str], skip: set[str]) -> list[Find
 ACCEPTED_VERSION = 1
 
 
-def write_accepted(path: Path, findings: list[Finding]) -> int:
-    entries = {}
+def write_accepted(path: Path, findings: list[Finding], keep: list[dict] = ()) -> int:
+    """Write the accepted-findings file: one entry per fingerprint (with a count when one
+    fingerprint stands for several findings), sorted by file, rule and fingerprint so that the
+    file is stable and diffs well. ``keep``: entries of files this run did not check."""
+    entries: dict[str, dict] = {}
     for f in findings:
+        row = entries.get(f.fingerprint)
+        if row is not None:
+            row["count"] = row.get("count", 1) + 1
+            continue
         entries[f.fingerprint] = {
             "fingerprint": f.fingerprint,
             "rule": f.rule_id,
             "file": f.location.path or "<command line>",
             "what": _short(f.message),
         }
-    rows = sorted(entries.values(), key=lambda e: (e["file"], e["rule"], e["fingerprint"]))
+    for row in keep:
+        entries.setdefault(row["fingerprint"], {k: v for k, v in row.items() if not k.startswith("_")})
+    rows = sorted(entries.values(), key=lambda e: (str(e.get("file")), str(e.get("rule")), e["fingerprint"]))
     doc = {"trimtab_accepted": ACCEPTED_VERSION, "findings": rows}
     import json  # here, not at the top: start-up (perf)
 
@@ -142,7 +151,8 @@ def read_accepted(path: Path) -> list[dict]:
     import json
 
     try:
-        data = json.loads(path.read_text(encoding="utf-8"))
+        text = path.read_text(encoding="utf-8")
+        data = json.loads(text)
     except OSError as exc:
         raise AcceptedFileError(f"{path}: cannot be read: {exc.strerror}") from None
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
@@ -150,27 +160,50 @@ def read_accepted(path: Path) -> list[dict]:
     if not isinstance(data, dict) or not isinstance(data.get("findings"), list):
         raise AcceptedFileError(f"{path}: is not an accepted-findings file (expected a 'findings' list)")
     rows = [r for r in data["findings"] if isinstance(r, dict) and isinstance(r.get("fingerprint"), str)]
+    # where each entry is written, so that a stale one can be pointed at (never written back)
+    where = {}
+    for n, line in enumerate(text.splitlines(), 1):
+        for m in _FINGERPRINT.finditer(line):
+            where.setdefault(m.group(1), (n, m.start() + 1))
+    for r in rows:
+        r["_line"], r["_col"] = where.get(r["fingerprint"], (0, 0))
     return rows
+
+
+_FINGERPRINT = re.compile(r'"fingerprint"\s*:\s*"([^"]*)"')
 
 
 def apply_accepted(findings: list[Finding], rows: list[dict], accepted_path: str,
                    checked_files: set[str] | None = None) -> list[Finding]:
     """Drop findings recorded in the accepted-findings file; report entries that match nothing
-    (only for files that were checked in this run, so a partial run reports no false stale)."""
+    (only for files that were checked in this run, so a partial run reports no false stale).
+
+    An entry accepts as many findings with its fingerprint as its ``count`` (default 1), so a
+    second finding that happens to share a fingerprint with an accepted one (the same duplicate
+    key in another place of the file) still counts as new."""
+    budget = {r["fingerprint"]: _count(r) for r in rows}
     wanted = {r["fingerprint"]: r for r in rows}
-    kept, used = [], set()
+    kept, used = [], {}
     for f in findings:
-        if f.fingerprint in wanted:
-            used.add(f.fingerprint)
+        if budget.get(f.fingerprint, 0) > 0:
+            budget[f.fingerprint] -= 1
+            used[f.fingerprint] = used.get(f.fingerprint, 0) + 1
         else:
             kept.append(f)
     for fp, row in sorted(wanted.items(), key=lambda kv: (str(kv[1].get("file")), kv[0])):
-        if fp in used:
+        if used.get(fp, 0) >= _count(row):
             continue
         if checked_files is not None and row.get("file") not in checked_files:
             continue
+        n = used.get(fp, 0)
+        how = "no longer occurs" if not n else f"occurs {n} time(s), not {_count(row)}"
         kept.append(Finding(ACC_STALE, Level.NOTE,
-                            f"accepted finding {row.get('rule', '?')} in {row.get('file', '?')} no longer occurs "
-                            f"({row.get('what', '')}); remove its entry", Location(accepted_path),
-                            subject=fp).finish())
+                            f"accepted finding {row.get('rule', '?')} in {row.get('file', '?')} {how} "
+                            f"({row.get('what', '')}); remove its entry",
+                            Location(accepted_path, row.get("_line", 0), row.get("_col", 0)), subject=fp).finish())
     return kept
+
+
+def _count(row: dict) -> int:
+    n = row.get("count", 1)
+    return n if isinstance(n, int) and not isinstance(n, bool) and n > 0 else 1

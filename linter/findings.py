@@ -53,15 +53,37 @@ class Location:
         return f"{self.path}:{self.line}:{self.col}"
 
 
+class _Keep:
+    """``Edit.value`` default: the fix keeps the value (see ``Edit``)."""
+
+    __slots__ = ()
+
+    def __repr__(self) -> str:
+        return "KEEP"
+
+    def __reduce__(self):  # one object across worker processes
+        return "KEEP"
+
+
+KEEP = _Keep()
+
+
 @dataclass(frozen=True)
 class Edit:
-    """Replace the text of one scalar (by its byte-exact character span) with new text."""
+    """A safe fix: replace the text of one scalar (by its character span) with new text.
+
+    ``value`` is what the new text must read as, under YAML 1.1 and YAML 1.2 alike. The default
+    KEEP means the fix keeps the meaning: the new text reads as the old text reads under YAML 1.2
+    (a respelling, or quoting). A rule that corrects a value it can prove (a stated product that
+    disagrees with its factors) sets ``value`` to the corrected value. ``trimtab.fix`` refuses an
+    edit whose result does not read so, or that changes anything else in the file."""
 
     path: str
     start: int  # character offset of the scalar's first character in the decoded text
     end: int
     old: str
     new: str
+    value: Any = KEEP
 
 
 @dataclass

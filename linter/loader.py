@@ -7,8 +7,11 @@ objects, so aliases cost their text and nothing the user wrote is constructed or
 from __future__ import annotations
 
 import codecs
+import gc
 import os
 import re
+import stat
+import warnings
 from dataclasses import dataclass
 
 from .document import Document, Mapping, Node, Problem, Scalar, Sequence, key_text
@@ -30,6 +33,7 @@ _BOMS = (
     (codecs.BOM_UTF16_BE, "utf-16-be"),
 )
 _TAG_PREFIX = re.compile(r"(?:&\S+[ \t]+)?(!\S*)")
+_ANCHOR = re.compile(r"(?:![^\s,\[\]{}]*[ \t]+)?&([^\s,\[\]{}]+)")
 
 
 class _Backend:
@@ -67,16 +71,18 @@ class _Backend:
         return "ruamel", compose_all, (RuamelError,)
 
 
+_backend: _Backend | None = None
+
+
 def _untagged_loader(yaml):
     """libyaml's composer without PyYAML's tag resolution (perf, see docs/perf.md).
 
     PyYAML's C composer calls back into the pure-Python resolver for every node (``resolve``, with
     its regular expressions, plus ``descend_resolver``/``ascend_resolver``): over half the time of a
     compose. trimtab never uses a resolved tag: scalars are typed by trimtab itself from their text
-    (scalars.py) and the builder reads ``node.tag`` only for a tag written in the file, which the
-    composer takes from the parser event without calling the resolver, with one exception: a
-    plain scalar tagged ``!`` alone is resolved as if untagged. Such a scalar gets the marker
-    _UNRESOLVED here, and the builder resolves it with PyYAML's own resolver (_tag). Everything
+    (scalars.py), and the builder reads ``node.tag`` only for a tag written in the file (other than
+    the non-specific ``!``), which the composer takes from the parser event without calling the
+    resolver. So the resolver here answers PyYAML's defaults (str / seq / map) at once. Everything
     else (parser, marks, anchors, aliases, errors) is libyaml's and PyYAML's own."""
     from yaml.nodes import MappingNode, ScalarNode
 
@@ -86,9 +92,7 @@ def _untagged_loader(yaml):
 
     class UntaggedLoader(yaml.CSafeLoader):
         def resolve(self, kind, value, implicit):
-            if kind is ScalarNode:
-                return _UNRESOLVED if implicit[0] else str_tag
-            return map_tag if kind is MappingNode else seq_tag
+            return str_tag if kind is ScalarNode else map_tag if kind is MappingNode else seq_tag
 
         def descend_resolver(self, current_node, current_index):
             pass
@@ -97,9 +101,6 @@ def _untagged_loader(yaml):
             pass
 
     return UntaggedLoader
-
-
-_backend: _Backend | None = None
 
 
 def backend() -> _Backend:
@@ -111,71 +112,168 @@ def backend() -> _Backend:
 
 def load(path: str, shown: str | None = None, limits: Limits = Limits(), fmt: str | None = None,
          data: bytes | None = None) -> Document:
-    """Read one file into a Document. Never raises for anything the file contains."""
+    """Read one file into a Document. Never raises for anything the file contains or for
+    anything that goes wrong while reading it: each failure is a located Problem."""
     shown = shown or path
     if fmt is None:
         fmt = "json" if path.lower().endswith(".json") else "yaml"
     doc = Document(path=shown, fmt=fmt)
     if data is None:
-        try:
-            if os.path.isdir(path):
-                return _fail(doc, "io", "is a directory, not a file")
-            with open(path, "rb") as fh:
-                data = fh.read(limits.max_bytes + 1)
-        except OSError as exc:
-            reason = exc.strerror or type(exc).__name__
-            if isinstance(exc, FileNotFoundError) and os.path.islink(path):
-                reason = "broken symbolic link"
-            return _fail(doc, "io", f"cannot be read: {reason}")
+        data, why = read(path, limits)
+        if why:
+            return _fail(doc, "io", why)
     if len(data) > limits.max_bytes:
         return _fail(doc, "size", f"is larger than the size limit of {limits.max_bytes} bytes "
                                   "(setting limits.max_bytes)")
     return parse_bytes(doc, data, limits)
 
 
-def parse_bytes(doc: Document, data: bytes, limits: Limits) -> Document:
-    # perf: no cyclic garbage collection while the trees are built. Every node is alive until the
-    # file is done, so each collection would only rescan them; on a 100,000-line file that made
-    # the time grow faster than the length (measured: 3.4x slower). Cycles (a recursive alias)
-    # are collected as usual once the collector runs again.
-    import gc
+_O_FLAGS = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_BINARY", 0)
 
-    paused = gc.isenabled()
-    if paused:
-        gc.disable()
+
+def _read_fd(fd: int, limit: int) -> bytes:
+    """Up to ``limit`` bytes from an open file (a seam the tests use to simulate a writer)."""
+    chunks, left = [], limit
+    while left > 0:
+        chunk = os.read(fd, min(left, 1 << 20))
+        if not chunk:
+            break
+        chunks.append(chunk)
+        left -= len(chunk)
+    return b"".join(chunks)
+
+
+def read(path: str, limits: Limits = Limits()) -> tuple[bytes | None, str]:
+    """(bytes, "") or (None, why the file cannot be read). Reads at most max_bytes + 1 bytes.
+
+    Opens without blocking (a pipe or device named as a config never hangs the check), refuses
+    anything but a regular file, and notices a file that changes while it is read (the bytes
+    would be a mix of two versions)."""
     try:
-        return _parse_bytes(doc, data, limits)
+        fd = os.open(path, _O_FLAGS)
+    except FileNotFoundError:
+        if os.path.islink(path):
+            target = os.readlink(path)
+            return None, f"cannot be read: broken symbolic link (its target {target} does not exist)"
+        return None, "cannot be read: no such file"
+    except PermissionError:
+        return None, "cannot be read: permission denied"
+    except IsADirectoryError:
+        return None, "is a directory, not a file"
+    except OSError as exc:
+        return None, f"cannot be read: {exc.strerror or type(exc).__name__}"
+    try:
+        before = os.fstat(fd)
+        if stat.S_ISDIR(before.st_mode):
+            return None, "is a directory, not a file"
+        if not stat.S_ISREG(before.st_mode):
+            return None, "is not a regular file (a pipe, socket or device), so it was not read"
+        if hasattr(os, "set_blocking"):
+            os.set_blocking(fd, True)
+        data = _read_fd(fd, limits.max_bytes + 1)
+        after = os.fstat(fd)
+        try:
+            now = os.stat(path)
+        except OSError:
+            now = None
+    except OSError as exc:
+        return None, f"cannot be read: {exc.strerror or type(exc).__name__}"
     finally:
-        if paused:
-            gc.enable()
+        os.close(fd)
+    changed = (before.st_size, before.st_mtime_ns) != (after.st_size, after.st_mtime_ns)
+    if len(data) <= limits.max_bytes and after.st_size and len(data) != after.st_size:
+        # (a size of 0 is what some pseudo file systems report for any file: not a change)
+        changed = True
+    if now is None or (now.st_ino, now.st_dev, now.st_size, now.st_mtime_ns) != (
+            after.st_ino, after.st_dev, after.st_size, after.st_mtime_ns):
+        changed = True
+    if changed:
+        return None, ("changed while it was being read (another program is writing it); "
+                      "check it again once it is saved")
+    return data, ""
 
 
-def _parse_bytes(doc: Document, data: bytes, limits: Limits) -> Document:
+def parse_bytes(doc: Document, data: bytes, limits: Limits) -> Document:
     text = _decode(doc, data)
     if text is None:
         return doc
     if text.startswith("\ufeff"):
         doc.bom, text = "\ufeff", text[1:]
     doc.text = text
-    if doc.fmt == "json" and not _json_ok(doc, text):
+    if doc.fmt == "json" and not _json_ok(doc, text, limits):
         return doc
-    be = backend()
+    # Building the node graph creates many small objects and no garbage: pausing the cyclic
+    # collector meanwhile cuts the time on a large file by about a third (measured here on a
+    # 100,000-line file: 2.9-3.3 s CPU with the collector on, 1.6-2.2 s paused).
+    paused = gc.isenabled()
+    gc.disable()
     try:
-        raw_roots = [r for r in be.compose_all(text) if r is not None]
+        return _compose(doc, text, limits)
+    finally:
+        if paused:
+            gc.enable()
+
+
+def _compose(doc: Document, text: str, limits: Limits) -> Document:
+    be = backend()
+    source = text
+    if doc.fmt == "json":
+        # valid JSON (checked above) holds tabs only as whitespace between tokens, never inside a
+        # string; YAML refuses a tab before a top-level value. A space for each tab keeps every
+        # column where it was.
+        source = text.replace("\t", " ")
+    try:
+        with warnings.catch_warnings():  # a parser's own warnings (a reused anchor) are not output
+            warnings.simplefilter("ignore")
+            raw_roots = [r for r in be.compose_all(source) if r is not None]
     except be.errors as exc:
-        _parse_problem(doc, exc)
+        _parse_problem(doc, exc, limits)
+        if doc.fmt == "json" and doc.problems and doc.problems[-1].kind == "parse":
+            p = doc.problems[-1]
+            p.message = p.message.replace("cannot be parsed as YAML: ", "is valid JSON, but the YAML reader "
+                                          "cannot follow it (a key longer than 1024 characters?): ", 1)
         return doc
     except RecursionError:
-        return _fail(doc, "depth", f"nests deeper than the parser can follow (limit {limits.max_depth})")
-    builder = _Builder(doc, limits)
-    for i, raw in enumerate(raw_roots):
-        raw_roots[i] = None  # perf: released while built (see _Builder)
+        line, col = _deep_mark(text, limits.max_depth)
+        return _fail(doc, "depth", f"nests deeper than {limits.max_depth} levels (setting limits.max_depth)",
+                     line, col)
+    except Exception as exc:  # a reader defect must not become a traceback: say so, located at the file
+        return _fail(doc, "parse", f"cannot be read: the YAML reader failed ({type(exc).__name__}: {exc})")
+    builder = _Builder(doc, limits, be.name)
+    for raw in raw_roots:
         root = builder.build(raw)
         if root is None:
             break
         doc.roots.append(root)
+    builder.finish()
     doc.aliases = builder.aliases
     return doc
+
+
+def _deep_mark(text: str, max_depth: int, upto: int | None = None) -> tuple[int, int]:
+    """Where nesting first passes ``max_depth``, found with an event parser (which, unlike a
+    composer, does not recurse): libyaml's, else (when libyaml stops before it yields the event,
+    at its own limit of 1000 levels) PyYAML's pure-Python one on the text up to where libyaml
+    stopped (``upto``). (0, 0) when it cannot be found."""
+    import yaml
+
+    readers = [yaml.SafeLoader]
+    if getattr(yaml, "__with_libyaml__", False):
+        readers.insert(0, yaml.CSafeLoader)
+    for reader in readers:
+        depth = 0
+        try:
+            part = text if reader is not yaml.SafeLoader or upto is None else text[:upto]
+            for event in yaml.parse(part, Loader=reader):
+                if isinstance(event, yaml.CollectionStartEvent):
+                    depth += 1
+                    if depth > max_depth:
+                        return event.start_mark.line + 1, event.start_mark.column + 1
+                elif isinstance(event, yaml.CollectionEndEvent):
+                    depth -= 1
+        except Exception:
+            continue
+    return 0, 0
 
 
 def _fail(doc: Document, kind: str, message: str, line: int = 0, col: int = 0) -> Document:
@@ -192,7 +290,12 @@ def _decode(doc: Document, data: bytes) -> str | None:
             break
     if encoding == "utf-8" and b"\x00" in data:
         line = data.count(b"\n", 0, data.index(b"\x00")) + 1
-        _fail(doc, "binary", "holds binary content (a NUL byte), not text", line, 1)
+        head = data[:256]
+        if len(head) >= 4 and (not any(head[1::2]) or not any(head[0::2])):
+            _fail(doc, "binary", "holds NUL bytes between its characters: it looks like UTF-16 without a "
+                                 "byte-order mark; save it as UTF-8", 1, 1)
+        else:
+            _fail(doc, "binary", "holds binary content (a NUL byte), not text", line, 1)
         return None
     try:
         text = data.decode(encoding)
@@ -210,7 +313,30 @@ def _decode(doc: Document, data: bytes) -> str | None:
     return text
 
 
-def _json_ok(doc: Document, text: str) -> bool:
+def _json_deep_mark(text: str, max_depth: int) -> tuple[int, int]:
+    """Where JSON brackets (outside strings) first nest past ``max_depth``."""
+    depth, in_str, escaped = 0, False, False
+    for i, ch in enumerate(text):
+        if in_str:
+            if escaped:
+                escaped = False
+            elif ch == "\\":
+                escaped = True
+            elif ch == '"':
+                in_str = False
+        elif ch == '"':
+            in_str = True
+        elif ch in "[{":
+            depth += 1
+            if depth > max_depth:
+                line = text.count("\n", 0, i) + 1
+                return line, i - (text.rfind("\n", 0, i) + 1) + 1
+        elif ch in "]}":
+            depth -= 1
+    return 0, 0
+
+
+def _json_ok(doc: Document, text: str, limits: Limits = Limits()) -> bool:
     import json
 
     try:
@@ -219,18 +345,42 @@ def _json_ok(doc: Document, text: str) -> bool:
         _fail(doc, "json", f"is not valid JSON: {exc.msg}", exc.lineno, exc.colno)
         return False
     except RecursionError:
-        _fail(doc, "depth", "nests deeper than the JSON reader can follow")
+        line, col = _json_deep_mark(text, limits.max_depth)
+        _fail(doc, "depth", f"nests deeper than {limits.max_depth} levels (setting limits.max_depth)", line, col)
+        return False
+    except ValueError as exc:  # e.g. an integer longer than the interpreter converts
+        _fail(doc, "json", f"is not readable as JSON: {exc}")
         return False
     return True
 
 
-def _parse_problem(doc: Document, exc: Exception) -> None:
+_NESTING = "exceeded maximum nesting depth"
+
+
+def _parse_problem(doc: Document, exc: Exception, limits: Limits = Limits()) -> None:
     mark = getattr(exc, "problem_mark", None) or getattr(exc, "context_mark", None)
-    problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+    problem = getattr(exc, "problem", None) or (str(exc).splitlines() or [type(exc).__name__])[0]
     context = getattr(exc, "context", None)
     message = f"{context}: {problem}" if context else str(problem)
     line = mark.line + 1 if mark is not None else 0
     col = mark.column + 1 if mark is not None else 0
+    position = getattr(exc, "position", None)  # a reader error (a control character) has only this
+    if mark is None and isinstance(position, int) and 0 <= position <= len(doc.text):
+        before = doc.text[:position]
+        line = before.count("\n") + 1
+        col = position - (before.rfind("\n") + 1) + 1
+        reason = getattr(exc, "reason", "") or "is not allowed"
+        char = getattr(exc, "character", None)
+        shown = f"#x{ord(char):04x}" if isinstance(char, str) else f"#x{char:04x}" if isinstance(char, int) else "a character"
+        message = f"character {shown} {reason}" if "character" not in str(reason) else f"{shown}: {reason}"
+    if _NESTING in str(problem):
+        upto = mark.index + 1 if mark is not None else None
+        line, col = _deep_mark(doc.text, limits.max_depth, upto) if limits.max_depth < 1000 else (0, 0)
+        if not line:
+            line, col = (mark.line + 1, mark.column + 1) if mark is not None else (0, 0)
+        doc.problems.append(Problem("depth", f"nests deeper than {limits.max_depth} levels (setting "
+                                    "limits.max_depth)", line, col))
+        return
     related = []
     cmark = getattr(exc, "context_mark", None)
     if cmark is not None and mark is not None and cmark is not mark and (cmark.line, cmark.column) != (
@@ -243,34 +393,47 @@ def _parse_problem(doc: Document, exc: Exception) -> None:
     doc.problems.append(Problem("parse", f"cannot be parsed as YAML: {message}", line, col, related))
 
 
-_UNRESOLVED = "tag:trimtab,2026:unresolved"  # see _untagged_loader
-
-
-def _tag(raw_tag, raw=None) -> str:
-    if raw_tag == _UNRESOLVED and raw is not None:
-        import yaml
-
-        return yaml.resolver.Resolver().resolve(type(raw), raw.value, (True, False))
+def _tag(raw_tag) -> str:
     return getattr(raw_tag, "value", raw_tag) or ""
 
 
 class _Builder:
     """Turns a parser node graph into located trimtab nodes, each parser node once."""
 
-    def __init__(self, doc: Document, limits: Limits):
+    def __init__(self, doc: Document, limits: Limits, engine: str = ""):
         self.doc = doc
         self.limits = limits
+        self.engine = engine
         self.memo: dict[int, Node] = {}
         self.aliases = 0
         self.failed = False
-        # perf: looked up once per file, not once per node
-        self._text, self._len, self._file = doc.text, len(doc.text), doc.path
-        self._anchored: bool | None = None  # do the parser's nodes carry .anchor (ruamel) or not (PyYAML)
+        # empty plain scalars inside flow mappings: (node, "key" | "value")
+        self.empties: list[tuple[Scalar, str]] = []
 
-    # perf: the parser's graph is dropped while it is built (``values[i] = None`` below), so a
-    # large file never holds both trees at their full size. Safe: every parser node was alive at
-    # once (the whole graph is composed first), so the ids in ``memo`` stay unique; and a node
-    # reached again through an alias is found in ``memo`` before its children would be read.
+    def finish(self) -> None:
+        """libyaml places an empty key or value of a flow mapping (``{a: }``, ``{? }``) at the next
+        token; the YAML reference reader (PyYAML's pure composer) places it right after the ``:`` or
+        ``?`` that introduced it, which is where a person looks. Move such nodes there."""
+        if not self.empties or self.engine != "libyaml" or self.failed:
+            return
+        import yaml
+
+        after: dict[tuple[int, type], object] = {}
+        prev = None
+        try:
+            for tok in yaml.scan(self.doc.text, Loader=yaml.CSafeLoader):
+                if prev is not None and isinstance(prev, (yaml.KeyToken, yaml.ValueToken)):
+                    after.setdefault((tok.start_mark.index, type(prev)), prev.end_mark)
+                prev = tok
+        except yaml.YAMLError:
+            return
+        for node, role in self.empties:
+            want = yaml.KeyToken if role == "key" else yaml.ValueToken
+            mark = after.get((node.start, want))
+            if mark is not None:
+                node.line, node.col = mark.line + 1, mark.column + 1
+                node.end_line, node.end_col = node.line, node.col
+                node.start = node.end = mark.index
 
     def build(self, raw) -> Node | None:
         node = self._node(raw, (), 0)
@@ -282,12 +445,17 @@ class _Builder:
         node.end_line, node.end_col = em.line + 1, em.column + 1
         node.start, node.end = sm.index, em.index
         node.path = path
-        if self._anchored is None:  # perf: a getattr with a default costs an exception per node
-            self._anchored = hasattr(raw, "anchor")
-        node.anchor = raw.anchor if self._anchored else None
-        node.file = self._file
+        node.anchor = getattr(raw, "anchor", None)
+        text = self.doc.text
+        if node.anchor is None and sm.index < len(text) and text[sm.index] in "!&":
+            # PyYAML's nodes do not keep their anchor; a node's start mark is at its properties
+            # (perf: the pattern is tried only where properties can start, '!' or '&')
+            m = _ANCHOR.match(text, sm.index)
+            if m:
+                node.anchor = m.group(1)
+        node.file = self.doc.path
 
-    def _node(self, raw, path: tuple, depth: int) -> Node | None:
+    def _node(self, raw, path: tuple, depth: int, role: str = "") -> Node | None:
         if self.failed:
             return None
         seen = self.memo.get(id(raw))
@@ -304,49 +472,44 @@ class _Builder:
         kind = type(raw).__name__
         if kind == "ScalarNode":
             tag = None
-            text = self._text
+            text = self.doc.text
             start = raw.start_mark.index
-            if start < self._len and text[start] in "!&":
+            if start < len(text) and text[start] in "!&":
                 m = _TAG_PREFIX.match(text, start)
                 if m:
-                    tag = _tag(raw.tag, raw)
+                    # the non-specific tag '!' means "a string" (YAML 1.2.2, section 6.9.1);
+                    # some readers resolve it like a plain scalar
+                    tag = "!" if m.group(1) == "!" else _tag(raw.tag)
             node: Node = Scalar(raw.value, raw.style or None, tag)
             self._place(node, raw, path)
             self.memo[id(raw)] = node
+            if role and not raw.value and node.plain and node.start == node.end and not node.anchor:
+                self.empties.append((node, role))
             return node
         if kind == "SequenceNode":
             node = Sequence()
             self._place(node, raw, path)
             self.memo[id(raw)] = node
-            items, build = node.items, self._node  # perf: bound once per collection
-            values = raw.value
-            release = type(values) is list
-            for i, item in enumerate(values):
-                child = build(item, path + (str(i),), depth + 1)
+            for i, item in enumerate(raw.value):
+                child = self._node(item, path + (str(i),), depth + 1)
                 if child is None:
                     return node
-                items.append(child)
-                if release:
-                    values[i] = None
+                node.items.append(child)
             return node
         node = Mapping()
         self._place(node, raw, path)
         self.memo[id(raw)] = node
         first: dict[str, Node] = {}
-        pairs, build = node.pairs, self._node  # perf: bound once per collection
-        values = raw.value
-        release = type(values) is list
-        for i, (raw_k, raw_v) in enumerate(values):
-            if release:
-                values[i] = None
-            k = build(raw_k, path, depth + 1)
+        flow = bool(getattr(raw, "flow_style", False))
+        for raw_k, raw_v in raw.value:
+            k = self._node(raw_k, path, depth + 1, "key" if flow else "")
             if k is None:
                 return node
             name = key_text(k)
-            v = build(raw_v, path + (name,), depth + 1)
+            v = self._node(raw_v, path + (name,), depth + 1, "value" if flow else "")
             if v is None:
                 return node
-            pairs.append((k, v))
+            node.pairs.append((k, v))
             if name == "<<" and isinstance(k, Scalar) and k.plain:
                 self._merge(node, k, v)
                 continue

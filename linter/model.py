@@ -61,6 +61,7 @@ class RunModel:
     version: str = "1.1"  # the YAML version the user's loader reads concept values under
     settings: Any = None
     files: list[str] = field(default_factory=list)  # every file this run was composed from
+    chains: dict[str, list[Location]] = field(default_factory=dict)  # key path -> origin chain (compose)
 
     @property
     def path(self) -> str:

@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .model import Component, RunModel, Value
-from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, normalise_key
+from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, normalise_key
 
 
 @dataclass(frozen=True)
@@ -42,7 +42,10 @@ _FIELD_WORDS = {
 
 def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> RunModel:
     model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version)
+    # A composed run's root carries, per dotted key path, the places a value passed through.
+    model.chains = getattr(root, "chains", None) or {}
     leaves = list(_leaves(root))
+    chains = {p: c for p, _n, c in reversed(leaves)}  # the first way each key path was reached
     taken: set[int] = set()
     mapped = set()
     for concept, spec in opts.keys.items():
@@ -50,15 +53,19 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         if node is None:
             continue  # this file does not use the mapped layout: aliases and native names apply
         mapped.add(concept)
-        _store(model, concept, node, "keymap", spec.key, spec)
+        _store(model, concept, node, "keymap", spec.key, spec, chains.get(tuple(spec.key.split("."))))
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
+    sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
     # perf: most keys are no alias; their parent sections are normalised only for those that are,
     # once per section, and each key word once per file
     words: dict[str, str] = {}
     sections: dict[tuple, list[str]] = {}
-    for path, node in leaves:
+    for path, node, _chain in leaves:
         if id(node) in taken:
+            continue
+        # keys inside one reward component are its fields, not concepts of the run
+        if _inside_sources(path, sources_key):
             continue
         leaf = words.get(path[-1])
         if leaf is None:
@@ -86,7 +93,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                 if not (alias.concept == "sandbox.kind" and isinstance(node, Mapping)):
                     continue
             candidates.setdefault(alias.concept, []).append((strength, path, node))
-    native = {".".join(p): (p, n) for p, n in leaves}
+    native = {".".join(p): (p, n) for p, n, _c in leaves}
     for concept in CONCEPTS:
         if concept in mapped or concept in model.values:
             continue
@@ -94,18 +101,22 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         if found:
             best = max(s for s, _p, _n in found)
             top = [(p, n) for s, p, n in found if s == best]
-            distinct = {id(n): (p, n) for p, n in top}
+            distinct = {}
+            for p, n in top:
+                # one node at two paths: a reference and its target; the referring path tells the story
+                if id(n) not in distinct or ".".join(p) in model.chains:
+                    distinct[id(n)] = (p, n)
             if len(distinct) > 1:
                 model.ambiguous[concept] = [doc.loc(n, ".".join(p)) for p, n in distinct.values()]
                 continue
-            path, node = top[0]
+            path, node = next(iter(distinct.values()))
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
-            _store(model, concept, node, "alias", ".".join(path))
+            _store(model, concept, node, "alias", ".".join(path), chain=chains.get(path))
             continue
         hit = native.get(concept)
         if hit is not None:
-            _store(model, concept, hit[1], "native", concept)
+            _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]))
     _convert_units(model, opts)
     derive(model)
     markers = sum(1 for c in RL_MARKERS if c in model.values)
@@ -113,38 +124,71 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     return model
 
 
+# How many times, in all, a section reached again through an alias may be walked again: aliased
+# sections resolve at every place they are used, while a nested-alias document stays linear.
+REVISIT_BUDGET = 500
+
+
+def _inside_sources(path: tuple, sources_key: tuple | None) -> bool:
+    """A key inside one reward component (a field of reward.sources, not a concept of the run)."""
+    for i in range(len(path) - 1):
+        if sources_key is not None and path[:i + 1] == sources_key:
+            return True
+        parents = [normalise_key(p) for p in path[:i] if not p.isdigit()]
+        for alias in ALIASES.get(normalise_key(path[i]), ()):
+            if alias.concept != "reward.sources" or alias.not_under and any(p in alias.not_under for p in parents):
+                continue
+            if not alias.under or parents and parents[-1] in alias.under:
+                return True
+    return False
+
+
 def _leaves(root: Node):
-    """(key path, node) for every mapping entry, sections included, each node once."""
+    """(key path, node, chain) for every mapping entry, sections included. ``chain`` holds the
+    related locations of the hops that brought the entry to this path: a ``<<`` merge key, or the
+    key whose value is an alias of a node written elsewhere. Each section is walked once per
+    path it is reached by, within REVISIT_BUDGET; cycles are never followed."""
     seen: set[int] = set()
-    stack = [((), root)]
+    budget = REVISIT_BUDGET
+    stack = [((), root, (), frozenset())]
     while stack:
-        path, node = stack.pop()
+        path, node, chain, above = stack.pop()
         if id(node) in seen:
-            continue
+            if budget <= 0 or id(node) in above:
+                continue
+            budget -= 1
         seen.add(id(node))
         if isinstance(node, Mapping):
-            for name, _k, v, _via in node.entries():
+            inner = above | {id(node)}
+            for name, k, v, via in node.entries():
                 p = path + (name,)
-                yield p, v
+                hops = chain
+                if via is not None:
+                    hops = hops + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
+                elif v.anchor and v.path != p and isinstance(k, Scalar) and k.path == path:
+                    hops = hops + (k.location(f"{'.'.join(p)} is an alias of {'.'.join(v.path) or 'the top level'}"),)
+                yield p, v, list(hops)
                 if isinstance(v, Mapping):
-                    stack.append((p, v))
+                    stack.append((p, v, hops, inner))
 
 
 def _at(root: Node, key: str) -> Node | None:
+    """The node at a dotted key path (list items by index); a flat key written with dots in its
+    name (``"batch.mini": 96``) is found too."""
+    if isinstance(root, Mapping):
+        flat = root.get(key)
+        if flat is not None:
+            return flat
     node = root
     for part in key.split("."):
         if isinstance(node, Mapping):
-            nxt = node.get(part)
-            if nxt is None and "." not in part:
-                nxt = None
-            node = nxt
+            node = node.get(part)
         elif isinstance(node, Sequence) and part.isdigit() and int(part) < len(node.items):
             node = node.items[int(part)]
         else:
             return None
         if node is None:
-            # a flat dotted key written as one key
-            return root.get(key) if isinstance(root, Mapping) else None
+            return None
     return node
 
 
@@ -154,19 +198,37 @@ def scalar_value(node: Node, version: str):
     return node
 
 
-def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None):
+def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None,
+           chain: list | None = None):
+    _store_value(model, concept, node, via, key, spec)
+    v = model.values.get(concept)
+    if chain and v is not None and v.node is node:
+        # a value written elsewhere (at an anchor) and reached through merges or aliases points
+        # at the anchor's line; each hop (the '<<' or the key holding the alias) is a related location
+        v.chain.extend(h for h in chain if h not in v.chain)
+
+
+def _chain(model: RunModel, key: str) -> list[Location]:
+    return list(model.chains.get(key, ())) if model.chains else []
+
+
+def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None):
     doc = model.doc
     loc = doc.loc(node)
+    if model.chains and key and loc.key_path != key:
+        # reached through a reference: written at the target's line, known by the key that refers to it
+        loc = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, key)
+    chain = _chain(model, key)
     if concept == "reward.sources":
-        model.values[concept] = Value(concept, node, loc, node, via, key)
-        model.components = _components(model, node, spec)
+        model.values[concept] = Value(concept, node, loc, node, via, key, chain)
+        model.components = _components(model, node, spec, key)
         return
     if isinstance(node, (Mapping, Sequence)):
         if CONCEPTS[concept].type == "any":
-            model.values[concept] = Value(concept, True, loc, node, via, key, raw=node)
+            model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
         return
     value = node.value(model.version)
-    v = Value(concept, value, loc, node, via, key, raw=value)
+    v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
     model.values[concept] = v
@@ -188,7 +250,7 @@ def _fits(value, expected: str) -> bool:
     return True
 
 
-def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Component]:
+def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:
     doc = model.doc
     names = dict(spec.fields) if spec and spec.fields else {}
     out = []
@@ -200,98 +262,171 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None) -> list[Compo
         return out
     for i, (name_node, item) in enumerate(items):
         comp = Component(i, doc.loc(item))
+        at = f"{key}.{name_node.text if isinstance(name_node, Scalar) else i}"
         if name_node is not None:
             comp.fields["name"] = Value("name", name_node.text if isinstance(name_node, Scalar) else "?",
                                         doc.loc(name_node), name_node, "component")
             comp.location = doc.loc(name_node)
         if isinstance(item, Scalar):
-            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component")
+            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component",
+                                       chain=_chain(model, at))
         elif isinstance(item, Mapping):
+            _component_sandbox(model, comp, item)
+            for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
+                if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
+                                                   for a in ALIASES.get(normalise_key(word), ())):
+                    comp.fields["trust_remote_code"] = Value("trust_remote_code", sub.value(model.version),
+                                                             doc.loc(sub), sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
                     sub = item.get(w)
                     if sub is not None:
                         val = sub.value(model.version) if isinstance(sub, Scalar) else sub
-                        comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w)
+                        comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
+                                                        _chain(model, f"{at}.{w}"))
                         break
         out.append(comp)
     return out
 
 
+def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
+    """A sandbox section inside one component: its fields become ``sandbox.*`` fields of the
+    component (they describe where that component's code runs)."""
+    for word, _k, sub, _via in item.entries():
+        if normalise_key(word) not in SANDBOX:
+            continue
+        if isinstance(sub, Scalar):
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", sub.value(model.version), model.doc.loc(sub), sub,
+                                                "component", word)
+            return
+        if not isinstance(sub, Mapping):
+            return
+        for name, _kn, v, _via2 in sub.entries():
+            if not isinstance(v, Scalar):
+                continue
+            for alias in ALIASES.get(normalise_key(name), ()):
+                if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
+                    comp.fields[alias.concept] = Value(alias.concept, v.value(model.version), model.doc.loc(v), v,
+                                                       "component", f"{word}.{name}")
+                    break
+        return
+
+
 # --- units ------------------------------------------------------------------------------
 def _convert_units(model: RunModel, opts: ResolveOptions) -> None:
-    """Convert key-map values counted per prompt or per GPU into the concept's own unit."""
+    """Convert key-map values counted per prompt or per GPU into the concept's own unit.
+
+    A value that cannot be converted (the group size or the data-parallel ranks are unknown)
+    is kept with value None and a note, so that no rule reasons about it in the wrong unit. A
+    conversion that leaves a fraction keeps the fraction as a float (the arithmetic rules report
+    it); the value as written stays in ``raw``."""
     for concept, spec in opts.keys.items():
         v = model.values.get(concept)
         c = CONCEPTS.get(concept)
-        if v is None or c is None or not c.per or v.number is None:
-            continue
-        factor_num, factor_den, notes = 1, 1, []
+        if v is None or v.via != "keymap" or c is None or not c.per or v.number is None:
+            continue  # only values read through the key map are counted in the key map's unit
+        factor_num, factor_den, notes, missing = 1, 1, [], []
         if spec.per and spec.per != c.per:
             g = model.values.get("rollout.group_size")
-            if g is None or g.number is None:
-                continue
-            if c.per == "completion":
-                factor_num *= g.number
-                notes.append(f"x group size {g.number}")
+            gs = g.number if g is not None else None
+            if not isinstance(gs, int) or isinstance(gs, bool) or gs <= 0:
+                missing.append("the group size")
+            elif c.per == "completion":
+                factor_num *= gs
+                notes.append(f"x group size {gs}")
             else:
-                factor_den *= g.number
-                notes.append(f"/ group size {g.number}")
+                factor_den *= gs
+                notes.append(f"/ group size {gs}")
         if spec.scope and spec.scope != c.scope:
             dp = _data_parallel(model)
             if dp is None:
-                continue
-            if c.scope == "global":
+                missing.append("the data-parallel ranks")
+            elif c.scope == "global":
                 factor_num *= dp
                 notes.append(f"x {dp} data-parallel ranks")
             else:
                 factor_den *= dp
                 notes.append(f"/ {dp} data-parallel ranks")
+        written = f"{v.raw} as written (per {spec.per or c.per}, {spec.scope or c.scope})"
+        if missing:
+            v.value = None
+            v.note = f"{written}: not converted, {' and '.join(missing)} unknown"
+            continue
+        if not notes:
+            continue
         total = v.number * factor_num
-        if total % factor_den:
-            v.value = total / factor_den
+        if isinstance(total, float) and total.is_integer():
+            total = int(total)
+        if isinstance(total, int) and total % factor_den == 0:
+            v.value = total // factor_den
         else:
-            v.value = total // factor_den if isinstance(total, int) else total / factor_den
-        v.note = f"{v.raw} as written, {' '.join(notes)}" if notes else v.note
+            v.value = total / factor_den
+        v.note = f"{written} {' '.join(notes)}"
 
 
 def _data_parallel(model: RunModel):
-    v = model.values.get("train.data_parallel")
-    if v is not None and v.number:
-        return int(v.number)
+    """Data-parallel ranks for unit conversion: None when unknown or in dispute (a stated size
+    that disagrees with world / (tp x pp x cp)), so nothing is converted with a wrong count."""
     world = _world(model)
-    if world is None:
-        return None
-    par = 1
-    for name in ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel"):
-        p = model.values.get(name)
-        if p is not None and p.number:
-            par *= int(p.number)
-    if par <= 0 or world % par:
-        return None
-    return world // par
+    computed = None
+    if world is not None:
+        par = 1
+        for name in PARALLEL:
+            p = model.values.get(name)
+            if p is not None:
+                if not isinstance(p.number, int) or p.number <= 0:
+                    return None
+                par *= p.number
+        computed = world // par if world % par == 0 else None
+    v = model.values.get("train.data_parallel")
+    if v is not None:
+        stated = v.number if isinstance(v.number, int) and v.number > 0 else None
+        if stated is None or computed is not None and computed != stated:
+            return None
+        return stated
+    return computed
 
 
 def _world(model: RunModel):
     v = model.values.get("cluster.world_size")
-    if v is not None and isinstance(v.number, int):
-        return v.number
     n, g = model.values.get("cluster.nodes"), model.values.get("cluster.gpus_per_node")
-    if n is not None and g is not None and isinstance(n.number, int) and isinstance(g.number, int):
-        return n.number * g.number
-    return None
+    product = None
+    if n is not None and g is not None and isinstance(n.number, int) and isinstance(g.number, int) \
+            and n.number > 0 and g.number > 0:
+        product = n.number * g.number
+    if v is not None:
+        stated = v.number if isinstance(v.number, int) and v.number > 0 else None
+        if stated is None or product is not None and product != stated:
+            return None
+        return stated
+    return product
 
 
 # --- derived arithmetic -----------------------------------------------------------------------
-def _int(model: RunModel, concept: str, derived=True):
-    v = model.values.get(concept) or (model.derived.get(concept) if derived else None)
+def _whole(v: Value | None):
+    """A positive whole number, or None (zero, negative, fractional or non-numeric values are
+    reported by the rules, never computed with)."""
     if v is None:
         return None
     n = v.number
     if isinstance(n, float) and n.is_integer():
         n = int(n)
-    return n if isinstance(n, int) else None
+    return n if isinstance(n, int) and n > 0 else None
+
+
+def settled(model: RunModel, concept: str):
+    """The positive whole value of a concept that later arithmetic may build on: the stated
+    value, else the derived one; None when neither exists or when a stated value and the value
+    derived from its factors disagree (a rule reports the disagreement; nothing is built on it)."""
+    stated, derived = _whole(model.values.get(concept)), _whole(model.derived.get(concept))
+    if concept in model.values:
+        if stated is None:
+            return None
+        if concept in model.derived and derived is not None and derived != stated:
+            return None
+        return stated
+    return derived
 
 
 def _put(model: RunModel, concept: str, value, inputs: tuple, note: str) -> None:
@@ -304,33 +439,44 @@ def _put(model: RunModel, concept: str, value, inputs: tuple, note: str) -> None
     model.derived[concept] = Value(concept, value, loc, None, "derived", "", inputs=inputs, note=note)
 
 
+PARALLEL = ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel")
+
+
 def derive(model: RunModel) -> None:
     """Compute what the stated values imply; only exact divisions become derived values
-    (the arithmetic rules report the ones that do not divide)."""
-    n, g = _int(model, "cluster.nodes"), _int(model, "cluster.gpus_per_node")
+    (the arithmetic rules report the ones that do not divide). A derived value is recorded even
+    where the same concept is stated (the rules compare the two); later steps build only on
+    values that are settled (see ``settled``)."""
+    n, g = settled(model, "cluster.nodes"), settled(model, "cluster.gpus_per_node")
     if n is not None and g is not None:
         _put(model, "cluster.world_size", n * g, ("cluster.nodes", "cluster.gpus_per_node"), f"{n} x {g}")
-    world = _int(model, "cluster.world_size")
-    if world is not None and "train.data_parallel" not in model.values:
-        names = [c for c in ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel")
-                 if _int(model, c)]
-        par = 1
-        for c in names:
-            par *= _int(model, c)
-        if par > 0 and world % par == 0:
-            text = f"{world} / {par}" if names else f"{world} GPUs, no model parallelism"
-            _put(model, "train.data_parallel", world // par, ("cluster.world_size",) + tuple(names), text)
-    p, gs = _int(model, "batch.prompts"), _int(model, "rollout.group_size")
+    world = settled(model, "cluster.world_size")
+    if world is not None:
+        names = [c for c in PARALLEL if settled(model, c)]
+        if all(settled(model, c) is not None for c in PARALLEL if c in model.values):
+            par = 1
+            for c in names:
+                par *= settled(model, c)
+            if world % par == 0:
+                text = f"{world} / {par}" if names else f"{world} GPUs, no model parallelism"
+                _put(model, "train.data_parallel", world // par, ("cluster.world_size",) + tuple(names), text)
+    p, gs = settled(model, "batch.prompts"), settled(model, "rollout.group_size")
     if p is not None and gs is not None:
         _put(model, "batch.rollouts", p * gs, ("batch.prompts", "rollout.group_size"), f"{p} x {gs}")
-    rollouts, mini = _int(model, "batch.rollouts"), _int(model, "batch.mini")
-    epochs = _int(model, "optim.epochs")
-    if rollouts is not None and mini and rollouts % mini == 0:
-        e = epochs if epochs else 1
+    rollouts, mini = settled(model, "batch.rollouts"), settled(model, "batch.mini")
+    if p is None and "batch.prompts" not in model.values and rollouts is not None and gs is not None \
+            and rollouts % gs == 0:
+        _put(model, "batch.prompts", rollouts // gs, ("batch.rollouts", "rollout.group_size"),
+             f"{rollouts} / {gs}")
+    epochs = settled(model, "optim.epochs")
+    if rollouts is not None and mini is not None and rollouts % mini == 0 and (
+            epochs is not None or "optim.epochs" not in model.values):
+        e = epochs or 1
         _put(model, "optim.updates_per_step", rollouts // mini * e,
              ("batch.rollouts", "batch.mini") + (("optim.epochs",) if epochs else ()),
-             f"{rollouts} / {mini}" + (f" x {epochs} epochs" if epochs else ""))
-    micro, dp = _int(model, "batch.micro_per_gpu"), _int(model, "train.data_parallel")
-    if mini is not None and micro and dp and mini % (micro * dp) == 0:
+             f"{rollouts} / {mini}" + (f" x {epochs} epoch{'s' if epochs != 1 else ''}" if epochs
+                                           else " (1 epoch: none stated)"))
+    micro, dp = settled(model, "batch.micro_per_gpu"), settled(model, "train.data_parallel")
+    if mini is not None and micro is not None and dp is not None and mini % (micro * dp) == 0:
         _put(model, "batch.grad_accum", mini // (micro * dp),
              ("batch.mini", "batch.micro_per_gpu", "train.data_parallel"), f"{mini} / ({micro} x {dp})")

@@ -144,7 +144,15 @@ _EXPLICIT = {
 
 def typed(text: str, plain: bool, tag: str | None, version: str):
     """Type a scalar. Quoted and block scalars are strings unless explicitly tagged;
-    an explicit standard tag types the text as that tag."""
+    an explicit standard tag types the text as that tag. An integer too long for the
+    interpreter to convert (over 4300 digits) stays text rather than stopping the check."""
+    try:
+        return _typed(text, plain, tag, version)
+    except ValueError:
+        return text
+
+
+def _typed(text: str, plain: bool, tag: str | None, version: str):
     reader = type12 if version == "1.2" else type11
     if tag and tag != "?" and tag != "!" and tag in _EXPLICIT:
         kind = _EXPLICIT[tag]

@@ -2,7 +2,6 @@
 from the working directory, validated against the schema shipped in the package."""
 from __future__ import annotations
 
-import os
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -50,6 +49,20 @@ class Settings:
     bases_key: str = ""
     overrides: str = ""
     schemas: list[dict] = field(default_factory=list)
+    include_set: bool = False  # include was written in the settings file (not the default)
+
+    def check_include(self, used: set, paths_given: bool) -> list[str]:
+        """The include globs written in the settings, when trimtab finds the files itself: if
+        none matches a file, the settings are wrong (a typo, or the wrong root) and a gate that
+        checks nothing would pass everything, so that is an error naming the setting. Globs
+        that match nothing beside others that match are returned, for a note."""
+        if paths_given or not self.include_set or not self.include:
+            return []
+        idle = [f"{self.name('include')}[{i}] {p!r}" for i, p in enumerate(self.include) if p not in used]
+        if len(idle) == len(self.include):
+            raise SettingsError(f"{self.source}: setting {self.name('include')}: expected globs that match at "
+                                f"least one file under {self.root}, found {', '.join(idle)}, which match none")
+        return idle
 
     def name(self, key: str) -> str:
         """How a setting is spelled in the user's file, for messages."""
@@ -142,13 +155,15 @@ def validate(table: dict, path: Path, prefix: str) -> None:
 
 
 def _expected(err) -> str:
+    import json
+
     v, val = err.validator, err.validator_value
     if v == "type":
         names = {"array": "an array", "object": "a table", "string": "a string", "integer": "an integer",
                  "boolean": "true or false", "number": "a number"}
         return " or ".join(names.get(t, t) for t in ([val] if isinstance(val, str) else val))
     if v == "enum":
-        return "one of " + ", ".join(map(str, val))
+        return "one of " + ", ".join(json.dumps(x) if isinstance(x, str) else str(x) for x in val)
     if v == "minimum":
         return f"a number of at least {val}"
     if v == "maximum":
@@ -166,6 +181,8 @@ def _show(value) -> str:
     import json
 
     text = json.dumps(value) if not isinstance(value, str) else repr(value)
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        text += " (a number, not a string)" if isinstance(value, float) else ""
     return text if len(text) <= 60 else text[:57] + "..."
 
 
@@ -187,10 +204,28 @@ def build(table: dict, root: Path, path: Path | None = None, prefix: str = "") -
                  "import_depth", "accepted", "jobs", "rules", "layers", "bases_key", "overrides", "schemas"):
         if name in table:
             setattr(s, name, table[name])
+    s.include_set = "include" in table
     if "limits" in table:
         s.limits = Limits(**{**Limits().__dict__, **table["limits"]})
     s.keys = parse_keys(table.get("keys", {}))
     return s
+
+
+def check_published(name: str, table) -> None:
+    """A key map a plugin publishes is validated like the user's own [keys] table."""
+    where = f"key map {name!r} (from a plugin, chosen by setting keymap)"
+    if not isinstance(table, dict):
+        raise SettingsError(f"{where}: expected a table of concept -> key path, found {_kind(table)}")
+    import json
+
+    import jsonschema
+
+    schema = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))["properties"]["keys"]
+    for err in jsonschema.Draft7Validator(schema).iter_errors(table):
+        path = ".".join(str(p) for p in err.absolute_path)
+        raise SettingsError(f"{where}: entry {path or '(top level)'}: expected {_expected(err)}, "
+                            f"found {_show(err.instance)}")
+    _check_concepts({"keys": table}, Path(where), "")
 
 
 def parse_keys(table: dict) -> dict[str, KeySpec]:
@@ -203,11 +238,3 @@ def parse_keys(table: dict) -> dict[str, KeySpec]:
                                    tuple(sorted(spec.get("fields", {}).items())))
     return out
 
-
-def relative(path: str | os.PathLike, root: Path) -> str:
-    """A path as shown to the user: relative to the repository root when inside it."""
-    p = Path(path)
-    try:
-        return p.resolve().relative_to(root.resolve()).as_posix() if p.is_absolute() or True else str(p)
-    except ValueError:
-        return p.as_posix()

@@ -2,9 +2,9 @@
 third-party plugin does, so they use nothing but the public API."""
 from trimtab import hookimpl
 
-from . import vocab, yml
+from . import bat, compose, exe, length, reward, secrets, smp, vocab, yml
 
-MODULES = (yml, vocab)
+MODULES = (yml, vocab, bat, smp, length, reward, exe, secrets, compose)
 
 
 @hookimpl

@@ -150,7 +150,7 @@ def _expects_text(concept: str) -> bool:
     from trimtab.vocabulary import CONCEPTS
 
     c = CONCEPTS.get(concept)
-    return c is not None and c.type in ("str", "any")
+    return c is not None and c.type == "str"  # "any" concepts (reference.source) give false a meaning
 
 
 RULES = [parse_error, duplicate_key, version_disagreement, encoding, limits, unreadable, bad_merge]

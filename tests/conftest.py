@@ -82,3 +82,14 @@ def run():
 @pytest.fixture
 def check():
     return check_json
+
+
+# Figures a test measures (counts, timings) for the terminal summary: ``MEASURED.append(text)``.
+MEASURED: list[str] = []
+
+
+def pytest_terminal_summary(terminalreporter):
+    if MEASURED:
+        terminalreporter.section("trimtab measurements")
+        for line in MEASURED:
+            terminalreporter.write_line(line)

@@ -298,3 +298,38 @@ def test_every_finding_location_is_a_pyyaml_node_mark():
                 assert (loc["line"], loc["col"]) in marks, (f["rule"], path, loc)
                 checked += 1
     assert checked > 0
+
+
+def test_install_adds_no_generic_top_level_modules(tmp_path):
+    # design 7: the source folders linter/ and rules/ install as trimtab / trimtab_rules only
+    code = ("import importlib.util as u, sys; "
+            "print(u.find_spec('linter') is None, u.find_spec('rules') is None, "
+            "u.find_spec('trimtab') is not None, u.find_spec('trimtab_rules') is not None)")
+    out = subprocess.run([sys.executable, "-c", code], cwd=tmp_path, capture_output=True, text=True)
+    assert out.stdout.split() == ["True", "True", "True", "True"], out.stdout + out.stderr
+
+
+def test_builtin_rules_register_through_the_entry_point_group():
+    from importlib.metadata import entry_points
+
+    eps = {ep.name: ep.value for ep in entry_points(group="trimtab")}
+    assert eps.get("builtin") == "trimtab_rules"
+
+
+def test_readme_plugin_example_works(tmp_path, monkeypatch):
+    """The plugin example in the README, run as written."""
+    import types
+
+    from trimtab import cli
+    from trimtab.engine import Registry
+
+    readme = (REPO / "README.md").read_text()
+    code = re.search(r"```python\n# burrow_rules/__init__.py\n(.*?)```", readme, re.S).group(1)
+    module = types.ModuleType("burrow_rules")
+    exec(compile(code, "README.md", "exec"), module.__dict__)
+    monkeypatch.setattr(cli, "_registry", lambda: Registry(plugins=[module]))
+    (tmp_path / ".git").mkdir()
+    write(tmp_path, "run.yaml", RUN_CONFIG.replace("prompts: 64", "prompts: 60"))
+    r = check_json("run.yaml", cwd=tmp_path)
+    assert [(f["rule"], f["location"]["line"], f["message"]) for f in r.findings] == [
+        ("BRW-1", 7, "60 prompts per step is not a multiple of 8")]

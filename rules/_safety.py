@@ -1,0 +1,153 @@
+"""Shared by the REW, EXE and SEC rules: reward component kinds, the code-executing rewards of a
+run, the cautions every safety finding carries, and masking of values that must not be shown."""
+from __future__ import annotations
+
+import hashlib
+import re
+from dataclasses import dataclass
+
+from trimtab import Location
+
+CAUTIONS = (
+    "Usual cautions: treat model-written code and remote code as untrusted; run it isolated from the "
+    "training host (a container or VM with its own kernel boundary, not a plain subprocess); keep "
+    "credentials, tokens and the network out of the sandbox; set limits on wall-clock time, memory and "
+    "the number of processes; mount the host file system read-only or not at all; never run it as root "
+    "or privileged. These are general cautions, not a security review: your own organisation's security "
+    "policy and local rules take precedence over them."
+)
+
+_KIND_WORDS = {
+    "rule": ("rule", "rules", "rule_based", "rule-based", "function", "fn", "regex", "verifier", "match",
+             "exact_match", "programmatic", "python"),
+    "code": ("code", "code_execution", "code-execution", "execution", "exec", "sandbox", "unit_test",
+             "unit_tests", "tests", "test", "program"),
+    "model": ("model", "reward_model", "rm", "learned", "classifier", "orm", "prm"),
+    "judge": ("judge", "llm_judge", "llm-judge", "llm", "grader"),
+    "remote": ("remote", "http", "https", "api", "service", "endpoint", "server"),
+}
+_KIND = {w: k for k, words in _KIND_WORDS.items() for w in words}
+
+
+def kind_of(comp) -> str:
+    """rule, code, model, judge, remote, or '' when it cannot be told."""
+    from trimtab.codescan import looks_like_code
+
+    k = comp.get("kind")
+    if isinstance(k, str) and k.strip().lower() in _KIND:
+        return _KIND[k.strip().lower()]
+    if isinstance(k, str) and k.strip():
+        return k.strip().lower()
+    if isinstance(comp.get("endpoint"), str):
+        return "remote"
+    ref = comp.get("ref")
+    if looks_like_code(ref):
+        return "rule"
+    if isinstance(ref, str) and ref.strip():
+        return "model"
+    return ""
+
+
+def declared_kind(comp) -> bool:
+    return comp.fields.get("kind") is not None
+
+
+def label(comp) -> str:
+    name = comp.get("name")
+    ref = comp.get("ref")
+    if isinstance(name, str) and name:
+        return f"reward {name!r}"
+    if isinstance(ref, str) and ref:
+        return f"reward {ref!r}"
+    return f"reward component {comp.index + 1}"
+
+
+def scanner(ctx):
+    from trimtab.codescan import scanner as make
+
+    return make(ctx.settings if ctx.settings is not None else ctx.model.settings)
+
+
+@dataclass
+class CodeReward:
+    comp: object
+    declared: bool  # kind: code
+    calls: list  # codescan Hits of category exec (may be empty when declared)
+
+    @property
+    def config(self) -> Location:
+        return self.comp.loc("ref") if self.comp.fields.get("ref") is not None else self.comp.location
+
+    def related(self, limit: int = 5) -> list[Location]:
+        out = []
+        for h in self.calls[:limit]:
+            via = f" (imported from {' -> '.join(h.via)})" if h.via else ""
+            out.append(Location(h.path, h.line, h.col, message=f"{h.what}(...) {h.why}{via}"))
+        if not self.calls and self.declared:
+            k = self.comp.fields.get("kind")
+            if k is not None:
+                out.append(k.location.with_message("declared as a code-executing reward"))
+        return out
+
+    def why(self) -> str:
+        if self.calls:
+            h = self.calls[0]
+            more = f" and {len(self.calls) - 1} more call(s)" if len(self.calls) > 1 else ""
+            return f"its code calls {h.what} at {h.path}:{h.line}{more}"
+        return "it is declared kind: code"
+
+
+def code_rewards(ctx) -> list[CodeReward]:
+    """Components that execute generated code: declared so, or found so by static analysis.
+    Computed once per run (every EXE rule asks)."""
+    from trimtab.codescan import parse_reference
+
+    memo = vars(ctx.model).get("_code_rewards")
+    if memo is not None:
+        return memo
+    out = []
+    for comp in ctx.model.components:
+        kind = kind_of(comp)
+        calls = []
+        ref = parse_reference(comp.get("ref"))
+        if ref is not None and kind in ("rule", "code"):
+            sc = scanner(ctx)
+            located = sc.locate(ref)
+            calls = [h for h in sc.scan(located).hits if h.category == "exec"]
+        if kind == "code" or calls:
+            out.append(CodeReward(comp, kind == "code", calls))
+    vars(ctx.model)["_code_rewards"] = out
+    return out
+
+
+# --- values that must never be shown --------------------------------------------------------------
+def mask(value: str) -> str:
+    """A masked form that reveals no character of the value, only its length."""
+    return f"{'*' * 8} ({len(value)} characters)"
+
+
+def digest(value: str) -> str:
+    """A stable subject for a fingerprint that does not contain the value."""
+    return "sha256:" + hashlib.sha256(value.encode("utf-8", "surrogatepass")).hexdigest()[:24]
+
+
+def safe_url(url: str) -> str:
+    """The URL without user information, query or fragment (they can carry credentials)."""
+    from urllib.parse import urlsplit
+
+    try:
+        parts = urlsplit(url.strip())
+    except ValueError:
+        return "<an endpoint that is not a valid URL>"
+    host = parts.hostname or ""
+    if ":" in host:
+        host = f"[{host}]"
+    try:
+        port = f":{parts.port}" if parts.port else ""
+    except ValueError:
+        port = ""
+    userinfo = "****@" if "@" in parts.netloc else ""
+    query = "?****" if parts.query else ""
+    if not parts.scheme:
+        return re.sub(r"[^/]*@", "****@", url.split("?")[0])[:200]
+    return f"{parts.scheme}://{userinfo}{host}{port}{parts.path}{query}"[:200]

@@ -1,0 +1,89 @@
+"""LEN: token budgets. The prompt and the response share one context window: the rollout engine's,
+which must itself fit the model's."""
+from __future__ import annotations
+
+from trimtab import rule
+from trimtab.arithmetic import related
+
+LENGTHS = ("length.prompt_max", "length.response_max", "rollout.context_max", "model.context_max")
+
+
+def _len(model, concept):
+    v = model.values.get(concept)
+    if v is None:
+        return None
+    n = v.number
+    if isinstance(n, float) and n.is_integer():
+        n = int(n)
+    return n if isinstance(n, int) and n > 0 else None
+
+
+@rule("LEN-1", "length-not-positive", "error", "A token budget or context window is not a positive whole number.",
+      "Prompt and response budgets and context windows count tokens: zero or a negative number makes the "
+      "engine refuse the request or generate nothing, and a fraction is not a token count. (Text and other "
+      "non-numbers are reported by VOC-2.)")
+def length_not_positive(ctx):
+    for c in LENGTHS:
+        v = ctx.model.values.get(c)
+        if v is None or v.number is None:
+            continue
+        n = v.number
+        if n <= 0:
+            yield ctx.finding(f"{c} = {n:g}: a token count must be a positive whole number", v.location,
+                              subject=(c, n))
+
+
+@rule("LEN-2", "budget-exceeds-context", "error",
+      "The prompt budget plus the response budget do not fit the context window.",
+      "A rollout engine holds the prompt and the generated response in one context window (the rollout "
+      "engine's, else the model's): prompt max + response max must not exceed it, or long prompts are "
+      "cut, generation stops early, or the engine refuses the request (common practice). With no prompt "
+      "budget stated, a response budget that fills the whole window leaves no room for any prompt.")
+def budget_exceeds_context(ctx):
+    m = ctx.model
+    ctx_c = "rollout.context_max" if _len(m, "rollout.context_max") else "model.context_max"
+    window = _len(m, ctx_c)
+    prompt, response = _len(m, "length.prompt_max"), _len(m, "length.response_max")
+    if not window:
+        return
+    which = "the rollout engine's context" if ctx_c == "rollout.context_max" else "the model's context"
+    if prompt and response:
+        if prompt + response <= window:
+            return
+        if prompt >= window:
+            yield ctx.finding(f"the prompt budget of {prompt} tokens fills {which} of {window}: no room for any "
+                              "response", m.values["length.prompt_max"].location,
+                              related=related(m, ctx_c, "length.response_max"),
+                              suggestion=f"use a prompt budget of at most {window - response}"
+                              if window > response else "", subject=(prompt, response, window))
+            return
+        yield ctx.finding(f"prompt {prompt} + response {response} = {prompt + response} tokens exceed {which} "
+                          f"of {window} by {prompt + response - window}", m.values["length.response_max"].location,
+                          related=related(m, "length.prompt_max", ctx_c),
+                          suggestion=f"use a response budget of at most {window - prompt}, or a context of "
+                                     f"{prompt + response}", subject=(prompt, response, window))
+    elif response and response >= window:
+        yield ctx.finding(f"the response budget of {response} tokens fills {which} of {window}: no room for the "
+                          "prompt", m.values["length.response_max"].location, related=related(m, ctx_c),
+                          suggestion=f"use a response budget under {window}, and state the prompt budget",
+                          subject=(response, window))
+
+
+@rule("LEN-3", "engine-context-exceeds-model", "error",
+      "The rollout engine's context window is larger than the model's.",
+      "A model is trained for a fixed number of positions; an engine configured for more either refuses to "
+      "start or generates past the positions the model knows, where quality collapses (common practice). "
+      "If positional scaling extends the model's window, state the extended window as model.context_max, "
+      "or accept the finding with its reason.",
+      needs=("rollout.context_max", "model.context_max"))
+def engine_context(ctx):
+    m = ctx.model
+    engine, model_ctx = _len(m, "rollout.context_max"), _len(m, "model.context_max")
+    if engine and model_ctx and engine > model_ctx:
+        yield ctx.finding(f"the rollout engine's context of {engine} tokens exceeds the model's {model_ctx} "
+                          f"by {engine - model_ctx}", m.values["rollout.context_max"].location,
+                          related=related(m, "model.context_max"),
+                          suggestion=f"use an engine context of at most {model_ctx}", subject=(engine, model_ctx))
+
+
+RULES = [length_not_positive, budget_exceeds_context, engine_context]

@@ -1,0 +1,374 @@
+"""REW: reward sources. What each reward component is, whether its code exists, where a learned
+reward comes from, how a remote reward is reached, the weights, and the answer-format pattern."""
+from __future__ import annotations
+
+import os
+import re
+from pathlib import Path
+
+from trimtab import Location, Scalar, rule
+
+from ._safety import CAUTIONS, kind_of, label, safe_url, scanner
+
+SOURCES = ("reward.sources",)
+
+
+def _shown_list(items, limit=6) -> str:
+    items = list(items)
+    text = ", ".join(items[:limit])
+    return text + (f", ... ({len(items) - limit} more)" if len(items) > limit else "")
+
+
+# --- REW-1 -----------------------------------------------------------------------------------------
+@rule("REW-1", "reward-reference-unverifiable", "error",
+      "A reward's Python reference cannot be verified in the repository.",
+      "A reward written as `package.module:function` or `path/to/file.py:function` is resolved statically "
+      "inside the search roots (setting search_roots, default the repository root): the module file must "
+      "exist there and define the function. The module is read as a syntax tree only, never imported or "
+      "run. A missing module or function fails the run at start-up at best, and at worst a different "
+      "module of the same name on the training host is used (common practice: keep reward code in the "
+      "repository the config lives in). A reference or import that leaves the repository ('..', an "
+      "absolute path, a symbolic link pointing out) is refused and its target is not read.",
+      needs=SOURCES)
+def reference_unverifiable(ctx):
+    from trimtab.codescan import parse_reference
+
+    sc = scanner(ctx)
+    roots = [r or "." for r in sc.root_names]
+    refused_roots = "".join(f"; search root {t!r} refused: it {why}" for t, why in sc.bad_roots)
+    for comp in ctx.model.components:
+        if kind_of(comp) not in ("rule", "code"):
+            continue
+        ref = parse_reference(comp.get("ref"))
+        if ref is None:
+            continue
+        where = comp.loc("ref")
+        loc = sc.locate(ref)
+        if loc.status == "no-module":
+            target = ref.file or ref.module.replace(".", "/") + ".py"
+            yield ctx.finding(
+                f"{label(comp)}: module {ref.file or ref.module!r} is not found in the search roots "
+                f"({', '.join(roots)}); tried {_shown_list(loc.tried)}{refused_roots}", where,
+                subject=ref.text, suggestion=f"add {target} to the repository, or set search_roots in the settings")
+        elif loc.status == "no-function":
+            names = sorted(sc.module(loc.real).names)
+            yield ctx.finding(
+                f"{label(comp)}: {loc.path} defines no function {ref.function!r}", where,
+                related=[Location(loc.path, 1, 1, message="module found here (read as a syntax tree, not imported)")],
+                subject=ref.text, suggestion=("top-level names there: " + _shown_list(names, 10)) if names else "")
+        elif loc.status == "escapes":
+            yield ctx.finding(
+                f"{label(comp)}: reference {ref.text!r} is refused ({loc.reason}); its target was not read, so "
+                "the reward cannot be verified", where, subject=ref.text)
+        elif loc.status in ("syntax", "unreadable"):
+            related = [Location(loc.path, loc.line, loc.col, message="here")] if loc.line else []
+            yield ctx.finding(f"{label(comp)}: {loc.path} {loc.reason}", where, related=related,
+                              subject=ref.text)
+        elif loc.status == "bad-root":
+            yield ctx.finding(f"{label(comp)}: cannot be looked up: {loc.reason}{refused_roots}", where,
+                              subject=ref.text)
+        else:
+            scan = sc.scan(loc)
+            for r in scan.refusals:
+                yield ctx.finding(
+                    f"{label(comp)}: {r.path} imports {r.text!r}, which is refused: {r.reason}; it was not "
+                    "read, so the scan of this reward's code is incomplete", where, level="warning",
+                    related=[Location(r.path, r.line, r.col, message=f"import of {r.text!r}")],
+                    subject=f"{ref.text}|{r.text}")
+            for path, why in scan.unreadable:
+                if path != loc.path:
+                    yield ctx.finding(f"{label(comp)}: imported module {path} {why}; the scan of this "
+                                      "reward's code is incomplete", where, level="warning",
+                                      subject=f"{ref.text}|{path}")
+
+
+# --- REW-2 -----------------------------------------------------------------------------------------
+_COMMIT = re.compile(r"^[0-9a-f]{40}$|^[0-9a-f]{64}$")
+_HUB_ID = re.compile(r"^[A-Za-z0-9][\w.-]*/[\w.-]+$|^[A-Za-z0-9][\w.-]*$")
+
+
+def _is_local(ref: str) -> bool:
+    r = ref.strip()
+    if r.startswith(("/", "./", "../", "~", "file:")) or re.match(r"^[A-Za-z]:[\\/]", r):
+        return True
+    return r.count("/") >= 2 or r.endswith("/") or "\\" in r
+
+
+@rule("REW-2", "reward-model-unpinned", "warning",
+      "A learned reward model or judge is loaded from a floating revision, or from a missing local path.",
+      "A reward model or judge named by a hub-style id is fetched at launch; without a pinned immutable "
+      "revision (a full commit hash) the weights behind a branch name such as `main` or a tag can change "
+      "between runs, so two runs of the same config can optimise different rewards (common practice: pin "
+      "every downloaded artefact). A local path that does not exist is an error: the run cannot start, "
+      "or a fallback loads something else. Paths outside the repository are only checked when the option "
+      "check_outside_paths is true (they often exist only on the training cluster).",
+      needs=SOURCES, options={"check_outside_paths": False})
+def model_unpinned(ctx):
+    root = Path(getattr(ctx.settings, "root", None) or Path.cwd())
+    for comp in ctx.model.components:
+        if kind_of(comp) not in ("model", "judge"):
+            continue
+        ref = comp.get("ref")
+        if not isinstance(ref, str) or not ref.strip() or comp.get("endpoint"):
+            continue
+        ref = ref.strip()
+        if _is_local(ref) or (root / ref).exists():
+            path = Path(os.path.expanduser(ref.removeprefix("file:")))
+            outside = path.is_absolute() or ".." in Path(ref).parts or ref.startswith("~")
+            if outside and not ctx.options["check_outside_paths"]:
+                continue
+            target = path if path.is_absolute() else root / path
+            if not target.exists():
+                yield ctx.finding(f"{label(comp)}: local path {ref!r} does not exist"
+                                  + ("" if outside else " in the repository"), comp.loc("ref"), level="error",
+                                  subject=ref)
+            continue
+        if not _HUB_ID.match(ref):
+            continue
+        rev = comp.get("revision")
+        if rev is None:
+            yield ctx.finding(f"{label(comp)}: {ref!r} is loaded with no pinned revision; whatever the default "
+                              "branch holds at launch is used", comp.loc("ref"), subject=ref,
+                              suggestion="add revision: <the full 40-character commit hash>")
+        elif not (isinstance(rev, str) and _COMMIT.match(rev.strip().lower())):
+            yield ctx.finding(f"{label(comp)}: revision {str(rev)!r} of {ref!r} is not a full commit hash: "
+                              "a branch or tag name can move", comp.loc("revision"), subject=f"{ref}@{rev}",
+                              related=[comp.loc("ref").with_message("the model it pins")],
+                              suggestion="pin the full 40-character commit hash")
+
+
+# --- REW-3, REW-4, REW-5 ---------------------------------------------------------------------------
+def _remote(ctx):
+    for comp in ctx.model.components:
+        ep = comp.get("endpoint")
+        if kind_of(comp) == "remote" or isinstance(ep, str):
+            yield comp, ep if isinstance(ep, str) else None
+
+
+def _loopback(host: str) -> bool:
+    import ipaddress
+
+    if host in ("localhost", "localhost.localdomain") or host.endswith(".localhost"):
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
+
+
+@rule("REW-3", "remote-reward-plain-http", "warning",
+      "A remote reward is reached over plain http:// to a host other than loopback.",
+      "Prompts, completions and any authorisation header cross the network in clear text and can be read "
+      "or altered on the way, so the reward itself can be forged (CWE-319). Use https://; plain http is "
+      "accepted for loopback (localhost, 127.0.0.0/8, ::1).",
+      needs=SOURCES, cwe=319, help=CAUTIONS)
+def remote_plain_http(ctx):
+    from urllib.parse import urlsplit
+
+    for comp, ep in _remote(ctx):
+        if not ep:
+            continue
+        try:
+            parts = urlsplit(ep.strip())
+            host = (parts.hostname or "").lower()
+        except ValueError:
+            continue
+        if parts.scheme.lower() == "http" and host and not _loopback(host):
+            yield ctx.finding(f"{label(comp)}: endpoint {safe_url(ep)} uses plain http to {host}",
+                              comp.loc("endpoint"), subject=safe_url(ep),
+                              suggestion="use https:// (or a loopback address for a local service)")
+
+
+@rule("REW-4", "remote-reward-no-timeout", "warning",
+      "A remote reward has no request timeout.",
+      "A reward service that stops answering holds every rollout worker that waits on it: the run stalls "
+      "with the GPUs allocated (CWE-400). State a timeout per request (and decide what reward a "
+      "timed-out sample gets).",
+      needs=SOURCES, cwe=400, help=CAUTIONS)
+def remote_no_timeout(ctx):
+    for comp, ep in _remote(ctx):
+        t = comp.fields.get("timeout_s")
+        n = t.number if t is not None else None
+        if t is None or t.value is None:
+            yield ctx.finding(f"{label(comp)}: remote reward{' at ' + safe_url(ep) if ep else ''} has no "
+                              "timeout", comp.loc("endpoint"), subject=comp.get("name") or safe_url(ep or ""),
+                              suggestion="add timeout_s: 30 (or what the service needs)")
+        elif n is None or n <= 0:
+            yield ctx.finding(f"{label(comp)}: timeout {t.value!r} is not a positive number of seconds",
+                              t.location, subject=str(t.value))
+
+
+@rule("REW-5", "remote-reward-offline", "note",
+      "A remote reward makes the run not reproducible offline.",
+      "The reward depends on a service outside the run: its model, code and availability can change, "
+      "so the run cannot be repeated offline or audited later from the config alone (common practice: "
+      "record the service's version with the run).",
+      needs=SOURCES, help=CAUTIONS)
+def remote_offline(ctx):
+    for comp, ep in _remote(ctx):
+        yield ctx.finding(f"{label(comp)} is computed by a remote service{' at ' + safe_url(ep) if ep else ''}: "
+                          "the run is not reproducible offline", comp.loc("endpoint"),
+                          subject=comp.get("name") or safe_url(ep or ""))
+
+
+# --- REW-6 -----------------------------------------------------------------------------------------
+@rule("REW-6", "no-verifiable-reward", "warning",
+      "The only reward is a learned model or judge; there is no rule-based or test-based component.",
+      "A policy optimised against a learned reward alone learns to exploit that model's errors (reward "
+      "hacking / over-optimisation: Gao, Schulman and Hilton 2022, arXiv:2210.10760). Rule-based or "
+      "test-based rewards for reasoning tasks (answer checks, unit tests) are common practice and keep a "
+      "verifiable signal in the mix.",
+      needs=SOURCES)
+def no_verifiable(ctx):
+    comps = ctx.model.components
+    kinds = [kind_of(c) for c in comps]
+    if not comps or any(k in ("rule", "code") for k in kinds) or "" in kinds:
+        return
+    learned = [c for c, k in zip(comps, kinds) if k in ("model", "judge")]
+    if not learned:
+        return
+    first = learned[0]
+    yield ctx.finding(
+        f"every reward component is learned or remote ({', '.join(label(c) for c in comps)}): no rule-based "
+        "or test-based reward checks the answers", first.location,
+        related=[c.location.with_message("also learned or remote") for c in comps if c is not first],
+        subject=",".join(sorted(str(c.get("ref")) for c in comps)),
+        suggestion="add a rule-based reward (answer check, format check, unit tests) beside it")
+
+
+# --- REW-7 -----------------------------------------------------------------------------------------
+@rule("REW-7", "reward-weight", "error",
+      "A reward weight is not a number, all weights are zero, or a weight is zero or negative.",
+      "The total reward is the weighted sum of its components. A weight that is text is refused or "
+      "silently read as something else; when every weight is zero the reward is constantly zero and the "
+      "policy learns nothing (error). A zero weight switches a component off while it is still computed, "
+      "and a negative weight turns a reward into a penalty: often a sign slip (warning).",
+      needs=SOURCES)
+def weights(ctx):
+    stated = [(c, c.fields["weight"]) for c in ctx.model.components if c.fields.get("weight") is not None]
+    numeric = []
+    for comp, w in stated:
+        val = w.value
+        if isinstance(val, bool) or not isinstance(val, (int, float)):
+            shown = w.node.text if isinstance(w.node, Scalar) else f"<{getattr(w.node, 'kind', type(val).__name__)}>"
+            why = ""
+            node = w.node
+            if getattr(node, "plain", False) and isinstance(node.value12, (int, float)) and \
+                    not isinstance(node.value12, bool):
+                why = f" (YAML {ctx.model.version} reads {node.text} as text)"
+            yield ctx.finding(f"{label(comp)}: weight {shown!r} is not a number{why}", w.location,
+                              subject=str(shown))
+        else:
+            numeric.append((comp, w))
+    if numeric and len(numeric) == len(ctx.model.components) and all(w.value == 0 for _c, w in numeric):
+        first = numeric[0][1]
+        yield ctx.finding(f"all {len(numeric)} reward weight(s) are 0: the total reward is always 0",
+                          first.location, related=[w.location.with_message("also 0") for _c, w in numeric[1:]],
+                          subject="all-zero")
+        return
+    for comp, w in numeric:
+        if w.value == 0:
+            yield ctx.finding(f"{label(comp)}: weight 0 switches this reward off", w.location, level="warning",
+                              subject="0")
+        elif w.value < 0:
+            yield ctx.finding(f"{label(comp)}: weight {w.value} is negative: this reward is a penalty",
+                              w.location, level="warning", subject=str(w.value))
+
+
+# --- REW-8 -----------------------------------------------------------------------------------------
+def _norm_ref(text: str) -> str:
+    t = text.strip().replace("\\", "/").removeprefix("./")
+    if ".py" in t:
+        path, _, fn = t.partition(".py")
+        t = path.replace("/", ".") + ":" + fn.lstrip(":")
+    return t
+
+
+@rule("REW-8", "duplicate-reward-reference", "warning", "The same reward reference is listed twice.",
+      "Listing one reward twice doubles its weight in a way the weights do not show, and usually means "
+      "one entry was meant to be a different function (common practice).",
+      needs=SOURCES)
+def duplicate(ctx):
+    seen = {}
+    for comp in ctx.model.components:
+        ref = comp.get("ref")
+        if not isinstance(ref, str) or not ref.strip():
+            continue
+        key = _norm_ref(ref)
+        if key in seen:
+            first = seen[key]
+            yield ctx.finding(f"{label(comp)} is listed twice (first as component {first.index + 1})",
+                              comp.loc("ref"), related=[first.loc("ref").with_message("first listed here")],
+                              subject=key)
+        else:
+            seen[key] = comp
+
+
+# --- REW-9, REW-10 ---------------------------------------------------------------------------------
+@rule("REW-9", "format-pattern-invalid", "error",
+      "The answer-format regular expression does not compile.",
+      "A format reward whose pattern does not compile (Python `re`) fails at the first reward call or, "
+      "where errors are caught, gives every sample the same score.",
+      needs=("reward.format_pattern",))
+def pattern_invalid(ctx):
+    v = ctx.model.get("reward.format_pattern")
+    if not isinstance(v.value, str):
+        return
+    try:
+        re.compile(v.value)
+    except re.error as exc:
+        where = f" at position {exc.pos}" if exc.pos is not None else ""
+        yield ctx.finding(f"reward.format_pattern does not compile: {exc.msg}{where}", v.location,
+                          subject=v.value)
+
+
+_TAG = re.compile(r"<([A-Za-z][\w-]*)>")
+_CONTENT = {"answer": "42", "final": "42", "result": "42", "solution": "42"}
+_REASONING = "First 6 times 7 is 42, so the result is 42."
+
+
+def sample_answers(template: str) -> list[str]:
+    """Well-formed answers built from the template's own tag pairs, in the order they appear."""
+    tags = []
+    for m in _TAG.finditer(template):
+        name = m.group(1)
+        if f"</{name}>" in template and name not in tags:
+            tags.append(name)
+    if not tags:
+        return []
+    out = []
+    for sep in ("\n", " ", ""):
+        for inner in ("\n{}\n", "{}"):
+            out.append(sep.join(f"<{t}>" + inner.format(_CONTENT.get(t.lower(), _REASONING)) + f"</{t}>"
+                                for t in tags))
+    return out
+
+
+@rule("REW-10", "format-pattern-rejects-template", "error",
+      "The answer-format pattern rejects a well-formed answer built from the prompt template's own tags.",
+      "When the template asks for, say, a think block then an answer block, a format reward whose pattern "
+      "does not match such an answer scores every correct completion as malformed: the format reward "
+      "then pushes the policy away from the format the prompt asks for. The check builds answers from "
+      "the template's tag pairs (several spacings, each tried with and without re.DOTALL and "
+      "re.MULTILINE, searched anywhere) and reports only when none of them matches.",
+      needs=("reward.format_pattern", "template.text"))
+def pattern_rejects(ctx):
+    v = ctx.model.get("reward.format_pattern")
+    t = ctx.model.get("template.text")
+    if not isinstance(v.value, str) or not isinstance(t.value, str):
+        return
+    try:
+        pats = [re.compile(v.value, f) for f in (0, re.DOTALL, re.DOTALL | re.MULTILINE)]
+    except re.error:
+        return  # REW-9
+    samples = sample_answers(t.value)
+    if not samples or any(p.search(s) for p in pats for s in samples):
+        return
+    yield ctx.finding(f"reward.format_pattern matches no well-formed answer built from the template's tags; "
+                      f"for example it rejects {samples[0]!r}", v.location,
+                      related=[t.location.with_message("the template whose tags the sample uses")],
+                      subject=v.value)
+
+
+RULES = [reference_unverifiable, model_unpinned, remote_plain_http, remote_no_timeout, remote_offline,
+         no_verifiable, weights, duplicate, pattern_invalid, pattern_rejects]

@@ -1,0 +1,74 @@
+"""The hook through the pre-commit framework, end to end: this checkout is installed as a hook
+repository (by its .pre-commit-hooks.yaml) in a throwaway git repository; a commit of a config
+with a defect is refused with the located finding, a clean one passes."""
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+
+import pytest
+
+from conftest import REPO
+
+BAD = """\
+run:
+  estimator: grpo
+rollout:
+  group_size: 8
+  temperature: 0.9
+batch:
+  prompts: 64
+kl:
+  coef: 0.04
+  coef: 0.4
+"""
+GOOD = BAD.replace("  coef: 0.4\n", "")
+
+
+def _env(tmp_path):
+    env = {k: v for k, v in os.environ.items() if not k.startswith(("GIT_", "PRE_COMMIT"))}
+    env.update(GIT_AUTHOR_NAME="Test", GIT_AUTHOR_EMAIL="test@example.invalid",
+               GIT_COMMITTER_NAME="Test", GIT_COMMITTER_EMAIL="test@example.invalid",
+               PRE_COMMIT_HOME=str(tmp_path / "pre-commit-home"), HOME=str(tmp_path / "home"))
+    (tmp_path / "home").mkdir()
+    return env
+
+
+def _head() -> str:
+    out = subprocess.run(["git", "rev-parse", "HEAD"], cwd=REPO, capture_output=True, text=True)
+    if out.returncode:
+        pytest.skip("this checkout is not a git repository with a commit; pre-commit needs one")
+    return out.stdout.strip()
+
+
+def test_commit_refused_with_located_finding_then_clean_commit_passes(tmp_path):
+    if shutil.which("git") is None:
+        pytest.skip("git not installed")
+    rev = _head()
+    env = _env(tmp_path)
+    work = tmp_path / "team-repo"
+    work.mkdir()
+
+    def sh(*args, check=True):
+        r = subprocess.run(list(args), cwd=work, env=env, capture_output=True, text=True, timeout=900)
+        if check and r.returncode:
+            raise AssertionError(f"{args} failed: {r.stdout}\n{r.stderr}")
+        return r
+
+    sh("git", "init", "-q")
+    (work / ".pre-commit-config.yaml").write_text(
+        f"repos:\n  - repo: {REPO.as_posix()}\n    rev: {rev}\n    hooks:\n      - id: trimtab\n")
+    sh("git", "add", ".pre-commit-config.yaml")
+    sh(sys.executable, "-m", "pre_commit", "install")
+    (work / "run.yaml").write_text(BAD)
+    sh("git", "add", "run.yaml")
+    refused = sh("git", "commit", "-qm", "bad config", check=False)
+    output = refused.stdout + refused.stderr
+    assert refused.returncode != 0, output
+    assert "run.yaml:10:3: warning YML-2 key 'coef' is written twice" in output, output
+    (work / "run.yaml").write_text(GOOD)
+    sh("git", "add", "run.yaml")
+    passed = sh("git", "commit", "-qm", "clean config", check=False)
+    assert passed.returncode == 0, passed.stdout + passed.stderr

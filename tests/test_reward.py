@@ -1,0 +1,232 @@
+"""REW rules: reward sources. Each rule fires on its bad fixture at the named line and column and is
+silent on its good fixture."""
+from __future__ import annotations
+
+import os
+import re
+import shutil
+
+import pytest
+
+from conftest import FIXTURES, check_json
+
+R = FIXTURES / "rules"
+
+
+def at(result, rule_id):
+    return sorted((f["location"]["line"], f["location"]["col"]) for f in result.of(rule_id))
+
+
+# --- REW-1: the three layouts and a key map ---------------------------------------------------------
+@pytest.mark.parametrize("name, expected", [
+    ("list.yaml", [(13, 15), (16, 15)]),  # list of mappings: missing function, missing module
+    ("mapping.yaml", [(13, 9)]),  # mapping of name -> component, file reference
+    ("strings.yaml", [(11, 7)]),  # list of import-path strings
+])
+def test_rew1_layouts_bad(name, expected):
+    res = check_json(R / "REW-1" / "bad" / name, cwd=R / "REW-1" / "bad")
+    assert at(res, "REW-1") == expected
+    assert all(f["level"] == "error" for f in res.of("REW-1"))
+
+
+@pytest.mark.parametrize("name", ["list.yaml", "mapping.yaml", "strings.yaml"])
+def test_rew1_layouts_good(name):
+    res = check_json(R / "REW-1" / "good" / name, cwd=R / "REW-1" / "good")
+    assert res.of("REW-1") == []
+    assert res.code == 0, res.findings
+
+
+def test_rew1_messages_name_module_and_search_roots():
+    res = check_json(R / "REW-1" / "bad" / "list.yaml", cwd=R / "REW-1" / "bad")
+    missing_fn, missing_mod = sorted(res.of("REW-1"), key=lambda f: f["location"]["line"])
+    assert "rewards/tidepool.py defines no function 'answer_in_box'" in missing_fn["message"]
+    assert missing_fn["related"][0]["path"] == "rewards/tidepool.py"
+    assert "'rewards.shoreline' is not found in the search roots (.)" in missing_mod["message"]
+    assert "rewards/shoreline.py, rewards/shoreline/__init__.py" in missing_mod["message"]
+
+
+def test_rew1_key_map_fields():
+    # settings keys."reward.sources" = {key = "scoring.parts", fields = {ref = "callable_path", ...}}
+    res = check_json(R / "REW-1" / "keymap" / "run.yaml", cwd=R / "REW-1" / "keymap")
+    assert at(res, "REW-1") == [(14, 22)]
+    assert "answer_in_box" in res.of("REW-1")[0]["message"]
+
+
+def test_rew1_search_roots_setting(tmp_path):
+    (tmp_path / "src" / "rewards").mkdir(parents=True)
+    (tmp_path / "src" / "rewards" / "tidepool.py").write_text("def score(c, t):\n    return 1.0\n")
+    (tmp_path / "run.yaml").write_text((R / "REW-1" / "good" / "strings.yaml").read_text()
+                                       .replace("exact_match", "score").replace("format_ok", "score_missing"))
+    res = check_json(tmp_path / "run.yaml", cwd=tmp_path)
+    assert len(res.of("REW-1")) == 2  # nothing found at the repository root
+    (tmp_path / "trimtab.toml").write_text('search_roots = ["src"]\n')
+    res = check_json(tmp_path / "run.yaml", cwd=tmp_path)
+    assert at(res, "REW-1") == [(11, 7)]
+    assert "defines no function 'score_missing'" in res.of("REW-1")[0]["message"]
+
+
+def test_rew1_syntax_error_in_module_is_a_finding(tmp_path):
+    (tmp_path / "rewards").mkdir()
+    (tmp_path / "rewards" / "tidepool.py").write_text("def exact_match(:\n")
+    (tmp_path / "trimtab.toml").write_text("")
+    (tmp_path / "run.yaml").write_text((R / "REW-1" / "good" / "strings.yaml").read_text())
+    res = check_json(tmp_path / "run.yaml", cwd=tmp_path)
+    assert res.code == 1 and "Traceback" not in res.err
+    msgs = [f["message"] for f in res.of("REW-1")]
+    assert msgs and all("does not parse as Python" in m for m in msgs)
+    assert res.of("REW-1")[0]["related"][0]["line"] == 1
+
+
+# --- REW-2 -------------------------------------------------------------------------------------------
+def test_rew2_bad():
+    res = check_json(R / "REW-2" / "bad.yaml")
+    found = {(f["location"]["line"], f["location"]["col"]): f["level"] for f in res.of("REW-2")}
+    assert found == {(16, 15): "warning",  # revision: main (a branch name)
+                     (20, 10): "warning",  # hub id without revision
+                     (24, 10): "error"}  # local path that does not exist
+
+
+def test_rew2_good():
+    assert check_json(R / "REW-2" / "good.yaml").of("REW-2") == []
+
+
+# --- REW-3, REW-4, REW-5 ------------------------------------------------------------------------------
+@pytest.mark.parametrize("rule_id, level", [("REW-3", "warning"), ("REW-4", "warning"), ("REW-5", "note")])
+def test_remote_rules(rule_id, level):
+    bad = check_json(R / rule_id / "bad.yaml")
+    assert at(bad, rule_id) == [(15, 15)]
+    assert bad.of(rule_id)[0]["level"] == level
+    assert "security policy and local rules" in bad.of(rule_id)[0]["help"]
+    assert check_json(R / rule_id / "good.yaml").of(rule_id) == []
+
+
+def test_rew3_loopback_http_is_accepted():
+    res = check_json(R / "REW-3" / "good.yaml")
+    assert res.of("REW-3") == []
+    assert len(res.of("REW-5")) == 2  # both remote graders are still not reproducible offline
+
+
+def test_rew3_cwe_ids():
+    res = check_json(R / "REW-3" / "bad.yaml")
+    assert res.of("REW-3")[0]["cwe"] == 319
+    assert res.of("REW-4")[0]["cwe"] == 400
+
+
+# --- REW-6 .. REW-8 -------------------------------------------------------------------------------------
+def test_rew6():
+    assert at(check_json(R / "REW-6" / "bad.yaml"), "REW-6") == [(9, 5)]
+    assert check_json(R / "REW-6" / "good.yaml").of("REW-6") == []
+
+
+def test_rew7_bad():
+    res = check_json(R / "REW-7" / "bad.yaml")
+    found = {(f["location"]["line"], f["location"]["col"]): f["level"] for f in res.of("REW-7")}
+    assert found == {(12, 13): "error", (16, 13): "warning", (20, 13): "warning"}
+    assert "weight 'high' is not a number" in res.of("REW-7")[0]["message"]
+
+
+def test_rew7_all_zero():
+    res = check_json(R / "REW-7" / "bad_all_zero.yaml")
+    assert at(res, "REW-7") == [(12, 13)]
+    assert res.of("REW-7")[0]["level"] == "error"
+    assert res.of("REW-7")[0]["related"][0]["line"] == 16
+
+
+def test_rew7_good():
+    assert check_json(R / "REW-7" / "good.yaml").of("REW-7") == []
+
+
+def test_rew7_yaml11_float_reads_as_text(tmp_path):
+    # YAML 1.1 floats need a point and a signed exponent (YAML 1.1 type repository, float): 1e-1 is text
+    text = (R / "REW-7" / "good.yaml").read_text().replace("weight: 0.2", "weight: 1e-1")
+    (tmp_path / "run.yaml").write_text(text)
+    res = check_json(tmp_path / "run.yaml")
+    assert at(res, "REW-7") == [(16, 13)]
+    assert "YAML 1.1 reads 1e-1 as text" in res.of("REW-7")[0]["message"]
+
+
+def test_rew8():
+    res = check_json(R / "REW-8" / "bad.yaml")
+    assert at(res, "REW-8") == [(15, 10)]
+    assert res.of("REW-8")[0]["related"][0]["line"] == 11
+    assert check_json(R / "REW-8" / "good.yaml").of("REW-8") == []
+
+
+def test_rew8_module_and_file_forms_are_the_same_reference():
+    from trimtab_rules.reward import _norm_ref
+
+    assert _norm_ref("rewards.tidepool:exact_match") == _norm_ref("./rewards/tidepool.py:exact_match")
+    assert _norm_ref("rewards.tidepool:exact_match") != _norm_ref("rewards.tidepool:format_ok")
+
+
+# --- REW-9, REW-10 ----------------------------------------------------------------------------------------
+def test_rew9():
+    res = check_json(R / "REW-9" / "bad.yaml")
+    assert at(res, "REW-9") == [(17, 17)]
+    # the message is Python re's own reason (compare: re.compile raises re.error "missing ), ...")
+    with pytest.raises(re.error) as exc:
+        re.compile(r"^<think>.*?</think>\s*<answer>(.*?</answer>$")
+    assert exc.value.msg in res.of("REW-9")[0]["message"]
+    assert check_json(R / "REW-9" / "good.yaml").of("REW-9") == []
+
+
+def test_rew10():
+    res = check_json(R / "REW-10" / "bad.yaml")
+    assert at(res, "REW-10") == [(17, 17)]
+    msg = res.of("REW-10")[0]["message"]
+    assert "<think>" in msg and "<answer>" in msg  # shows the sample it built
+    assert res.of("REW-10")[0]["related"][0]["line"] == 13
+    assert check_json(R / "REW-10" / "good.yaml").of("REW-10") == []
+
+
+def test_rew10_samples_use_the_template_tags_in_order():
+    from trimtab_rules.reward import sample_answers
+
+    samples = sample_answers("Think in <think></think>, then answer in <answer></answer>.")
+    assert samples and all(s.index("<think>") < s.index("</think>") < s.index("<answer>") for s in samples)
+    assert sample_answers("no tags here, only {problem}") == []
+
+
+# --- robustness: any shape of reward.sources gives findings, never a crash ------------------------------
+from hypothesis import HealthCheck, given, settings as hsettings, strategies as st  # noqa: E402
+
+_SCALARS = st.one_of(st.none(), st.booleans(), st.integers(-3, 3), st.floats(-2, 2, allow_nan=False),
+                     st.sampled_from(["rule", "code", "model", "judge", "remote", "main", "rewards.x:f",
+                                      "a/b.py:f", "../up.py:f", "/abs.py:f", "lowfield/wren-rm",
+                                      "http://10.0.0.1/s", "https://h/s", "./models/none", "", "a.b.c"]))
+_FIELDS = st.sampled_from(["kind", "ref", "fn", "model", "weight", "revision", "endpoint", "timeout_s", "name"])
+_COMPONENT = st.one_of(_SCALARS, st.dictionaries(_FIELDS, st.one_of(_SCALARS, st.lists(_SCALARS, max_size=2)),
+                                                 max_size=6))
+_SOURCES = st.one_of(st.lists(_COMPONENT, max_size=4),
+                     st.dictionaries(st.sampled_from(["a", "b", "c"]), _COMPONENT, max_size=3))
+
+
+@hsettings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(sources=_SOURCES)
+def test_any_reward_sources_shape_never_crashes(tmp_path, sources):
+    import yaml
+
+    doc = {"run": {"estimator": "grpo"}, "rollout": {"group_size": 8}, "kl_coef": 0.001, "rewards": sources,
+           "sandbox": {"kind": "process"}}
+    (tmp_path / "run.yaml").write_text(yaml.safe_dump(doc))
+    (tmp_path / "trimtab.toml").write_text("")
+    res = check_json(tmp_path / "run.yaml", cwd=tmp_path)
+    assert res.code in (0, 1), res.err
+    assert "TOOL-1" not in res.ids(), [f["message"] for f in res.of("TOOL-1")]
+
+
+def test_module_cache_follows_file_changes(tmp_path):
+    repo = tmp_path / "repo"
+    shutil.copytree(R / "REW-1" / "good", repo)
+    assert check_json(repo / "strings.yaml", cwd=repo).of("REW-1") == []
+    mod = repo / "rewards" / "tidepool.py"
+    mod.write_text(mod.read_text().replace("def format_ok", "def format_okay"))
+    os.utime(mod, ns=(1, 1))  # a different modification time even on a coarse clock
+    assert at(check_json(repo / "strings.yaml", cwd=repo), "REW-1") == [(11, 7)]
+
+
+def test_parallel_jobs_give_the_same_findings():
+    base = R / "REW-1" / "bad"
+    one = check_json(base, cwd=base)
+    two = check_json(base, args=("--jobs", "2"), cwd=base)
+    assert one.findings == two.findings and one.of("REW-1")
