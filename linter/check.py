@@ -5,6 +5,7 @@ few values the cross-file rules need, never documents.
 """
 from __future__ import annotations
 
+from collections.abc import Set as AbcSet
 from dataclasses import dataclass, field
 
 from . import filtering, loader
@@ -98,7 +99,13 @@ class Checker:
         return rule_id not in skip and area not in skip
 
     def rules(self, scope: str):
-        return [(r, o, l) for r, o, l in self.active if r.scope == scope]
+        # perf: computed once per scope, not once per file (the rule list is fixed after __init__;
+        # a changed self.active is noticed by its length)
+        cache = self.__dict__.setdefault("_by_scope", {})
+        hit = cache.get(scope)
+        if hit is None or hit[0] != len(self.active):
+            hit = cache[scope] = (len(self.active), [(r, o, l) for r, o, l in self.active if r.scope == scope])
+        return hit[1]
 
     def check_file(self, path: str, shown: str) -> FileResult:
         from .discover import matches
@@ -125,9 +132,10 @@ class Checker:
                 if not model.is_rl:
                     continue
                 res.runs += 1
+                is_rl_stage = model.stage == "rl"  # perf: once per run, not once per rule
                 start = len(res.findings)
                 for r, opts, level in self.rules("run"):
-                    if r.rl_only and model.stage != "rl":
+                    if r.rl_only and not is_rl_stage:
                         continue
                     if r.needs and not all(model.get(c) is not None for c in r.needs):
                         continue
@@ -157,17 +165,17 @@ class Checker:
         res.findings.extend(found)
         res.crashed = res.crashed or crashed
 
-    def accept_set(self, found: list[Finding], results: list[FileResult], files: list[tuple[str, str]]):
-        """Apply the files' acceptance comments to the set-scope findings."""
+    def accept_set(self, found: list[Finding], checked, set_accepts: list[str], files: list[tuple[str, str]]):
+        """Apply the files' acceptance comments to the set-scope findings. ``checked``: the paths
+        checked; ``set_accepts``: those holding acceptances of set rules."""
         real = {shown: path for path, shown in files}
         set_ids = {r.id for r, _o, _l in self.rules("set")}
         by_path: dict[str, list[Finding]] = {}
         for f in found:
             by_path.setdefault(f.location.path, []).append(f)
-        checked = {r.path for r in results}
         # files with acceptances of set rules, and files that were not checked themselves (the bases a
         # composed run inherits its values from)
-        commented = [r.path for r in results if r.set_accepts] + sorted(p for p in by_path if p and p not in checked)
+        commented = list(set_accepts) + sorted(p for p in by_path if p and p not in checked)
         out = [f for p, fs in by_path.items() if p not in commented for f in fs]
         for path in commented:
             doc = loader.load(real.get(path, str(self.settings.root / path)), path, self.settings.limits)
@@ -238,50 +246,104 @@ class RunResult:
     checked: set[str]
 
 
+class _Checked(AbcSet):
+    """The shown paths of the checked files: a set, built only when it is first asked (perf: a
+    set of thousands of paths costs several times their list; most runs never ask)."""
+
+    def __init__(self):
+        self.paths: list[str] = []
+        self._set: set[str] | None = None
+
+    def add(self, path: str) -> None:
+        self.paths.append(path)
+        self._set = None
+
+    def _as_set(self) -> set[str]:
+        if self._set is None:
+            self._set = set(self.paths)
+        return self._set
+
+    def __contains__(self, path) -> bool:
+        return path in self._as_set()
+
+    def __iter__(self):
+        return iter(self._as_set())
+
+    def __len__(self) -> int:
+        return len(self._as_set())
+
+    @classmethod
+    def _from_iterable(cls, it):  # the result of |, &, -: a plain set
+        return set(it)
+
+
+class _Totals:
+    """What run() keeps of each file's result (perf: the FileResults themselves are dropped as they
+    arrive, so memory does not grow with the number of files, only with the findings)."""
+
+    def __init__(self, progress=None):
+        self.findings: list[Finding] = []
+        self.entries: list[SetEntry] = []
+        self.files = self.runs = self.skipped = 0
+        self.crashed = False
+        self.checked = _Checked()
+        self.accepted_at: set = set()
+        self.set_accepts: list[str] = []  # files with acceptance comments of set rules
+        self.progress = progress
+
+    def append(self, res: FileResult) -> None:
+        self.findings.extend(res.findings)
+        self.entries.extend(res.entries)
+        self.files += 1
+        self.runs += res.runs
+        self.skipped += res.skipped
+        self.crashed = self.crashed or res.crashed
+        self.checked.add(res.path)
+        self.accepted_at |= res.accepted_at
+        if res.set_accepts:
+            self.set_accepts.append(res.path)
+        if self.progress:
+            self.progress(res)
+
+
 def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=None) -> RunResult:
     global _WORKER
-    results: list[FileResult] = []
+    results = _Totals(progress)
     if jobs > 1 and len(files) > 1:
         import multiprocessing
         from concurrent.futures import ProcessPoolExecutor
 
+        import gc
+
         _WORKER = checker
         ctx = multiprocessing.get_context("fork")
         chunk = max(1, min(64, len(files) // (jobs * 8) or 1))
-        with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
-            for res in pool.map(_work, files, chunksize=chunk):
-                results.append(res)
-                if progress:
-                    progress(res)
+        # perf: what the workers inherit is never collected there: without this, every worker's
+        # collector rescans (and copy-on-write duplicates) the parent's objects
+        gc.freeze()
+        try:
+            with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
+                for res in pool.map(_work, files, chunksize=chunk):
+                    results.append(res)
+        finally:
+            gc.unfreeze()
         _WORKER = None
     else:
         for path, shown in files:
-            res = checker.check_file(path, shown)
-            results.append(res)
-            if progress:
-                progress(res)
-    findings: list[Finding] = []
-    entries: list[SetEntry] = []
-    crashed = False
-    accepted_at: set = set()
-    for res in results:
-        accepted_at |= res.accepted_at
-    for res in results:
-        if accepted_at:  # an acceptance in a base used by a run built on it is not unused
-            res.findings = [f for f in res.findings if not (
-                f.rule_id == filtering.ACC_UNUSED and ({(f.location.path, f.location.line),
-                                                        (f.location.path, f.location.line + 1)} & accepted_at))]
-        findings.extend(res.findings)
-        entries.extend(res.entries)
-        crashed = crashed or res.crashed
-    set_findings, set_crashed = checker.check_set(entries)
-    set_findings = checker.accept_set(set_findings, results, files)
+            results.append(checker.check_file(path, shown))
+    findings = results.findings
+    if results.accepted_at:  # an acceptance in a base used by a run built on it is not unused
+        accepted_at = results.accepted_at
+        findings = [f for f in findings if not (
+            f.rule_id == filtering.ACC_UNUSED and ({(f.location.path, f.location.line),
+                                                    (f.location.path, f.location.line + 1)} & accepted_at))]
+    set_findings, set_crashed = checker.check_set(results.entries)
+    set_findings = checker.accept_set(set_findings, results.checked, results.set_accepts, files)
     findings.extend(set_findings)
     findings = _merge_duplicates(findings)
     findings.sort(key=Finding.sort_key)
-    return RunResult(findings, len(results), sum(r.runs for r in results),
-                     sum(1 for r in results if r.skipped), crashed or set_crashed,
-                     {r.path for r in results})
+    return RunResult(findings, results.files, results.runs, results.skipped, results.crashed or set_crashed,
+                     results.checked)
 
 
 def summary_counts(findings: list[Finding]) -> dict[str, int]:

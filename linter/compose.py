@@ -298,10 +298,9 @@ class Composer:
         for _role, d, _r in layers:
             if d.path not in files:
                 files.append(d.path)
-        used = self._used.setdefault(doc.path, {})
         for _role, d, _r in layers:
-            if d is not doc:
-                used[d.path] = d.text
+            if d is not doc:  # perf: an entry only for a run built from other files (memory per file)
+                self._used.setdefault(doc.path, {})[d.path] = d.text
         interpolate = any("${" in d.text for _role, d, _r in layers) or any(
             "${" in g.text for g in self.given)
         plain = len(layers) == 1 and not self.given and not interpolate and not (

@@ -129,12 +129,13 @@ def discover(paths: list[str], root: Path, include: list[str], exclude: list[str
 
 def _walk(top: Path, root: Path, include, exclude, found: dict, missing: list | None = None,
           used: set | None = None) -> None:
+    top_res = top.resolve()  # perf: once per walk, not twice per file (a system call per path part)
     for dirpath, dirnames, filenames in os.walk(top):
         dirnames[:] = sorted(d for d in dirnames if d not in SKIP_DIRS and not d.endswith(".egg-info"))
         for name in sorted(filenames):
             full = Path(dirpath) / name
             shown = relpath(full, root)
-            rel_top = relpath(full, top.resolve()) if top.resolve() != root else shown
+            rel_top = relpath(full, top_res) if top_res != root else shown
             logical = Path(os.path.relpath(full, top)).as_posix()
             hit = [p for p in include if matches(shown, [p]) or matches(rel_top, [p]) or matches(logical, [p])]
             if not hit or matches(shown, exclude):
@@ -147,7 +148,8 @@ def _walk(top: Path, root: Path, include, exclude, found: dict, missing: list | 
                 if missing is not None:
                     missing.append(_outside(full, root))
                 continue
-            found.setdefault(str(full), shown)
+            disk = str(full)
+            found.setdefault(disk, disk if disk == shown else shown)  # perf: one string when equal
 
 
 def changed_since(ref: str, root: Path) -> list[str]:

@@ -9,7 +9,6 @@ and is reported; one that suppresses nothing is reported too.
 """
 from __future__ import annotations
 
-import json
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -134,6 +133,8 @@ def write_accepted(path: Path, findings: list[Finding], keep: list[dict] = ()) -
         entries.setdefault(row["fingerprint"], {k: v for k, v in row.items() if not k.startswith("_")})
     rows = sorted(entries.values(), key=lambda e: (str(e.get("file")), str(e.get("rule")), e["fingerprint"]))
     doc = {"trimtab_accepted": ACCEPTED_VERSION, "findings": rows}
+    import json  # here, not at the top: start-up (perf)
+
     path.write_text(json.dumps(doc, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
     return len(rows)
 
@@ -147,6 +148,8 @@ class AcceptedFileError(Exception):
 
 
 def read_accepted(path: Path) -> list[dict]:
+    import json
+
     try:
         text = path.read_text(encoding="utf-8")
         data = json.loads(text)

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import enum
-import hashlib
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -116,6 +115,8 @@ class Finding:
 def fingerprint(rule_id: str, path: str | None, key_path: str, subject: Any) -> str:
     """Rule + file + key path + normalised value: survives moved lines and reformatting,
     changes when the offending value changes."""
+    import hashlib  # here, not at the top: start-up (perf); nothing is imported twice
+
     text = "\x1f".join([rule_id, path or "", key_path, _normalise(subject)])
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:32]
 

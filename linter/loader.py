@@ -49,7 +49,7 @@ class _Backend:
             import yaml
 
             if getattr(yaml, "__with_libyaml__", False) and forced != "pyyaml-pure":
-                loader = yaml.CSafeLoader
+                loader = _untagged_loader(yaml)  # perf: see _untagged_loader
                 name = "libyaml"
             elif forced == "pyyaml-pure":
                 loader = yaml.SafeLoader
@@ -72,6 +72,35 @@ class _Backend:
 
 
 _backend: _Backend | None = None
+
+
+def _untagged_loader(yaml):
+    """libyaml's composer without PyYAML's tag resolution (perf, see docs/perf.md).
+
+    PyYAML's C composer calls back into the pure-Python resolver for every node (``resolve``, with
+    its regular expressions, plus ``descend_resolver``/``ascend_resolver``): over half the time of a
+    compose. trimtab never uses a resolved tag: scalars are typed by trimtab itself from their text
+    (scalars.py), and the builder reads ``node.tag`` only for a tag written in the file (other than
+    the non-specific ``!``), which the composer takes from the parser event without calling the
+    resolver. So the resolver here answers PyYAML's defaults (str / seq / map) at once. Everything
+    else (parser, marks, anchors, aliases, errors) is libyaml's and PyYAML's own."""
+    from yaml.nodes import MappingNode, ScalarNode
+
+    str_tag, seq_tag, map_tag = (yaml.resolver.BaseResolver.DEFAULT_SCALAR_TAG,
+                                 yaml.resolver.BaseResolver.DEFAULT_SEQUENCE_TAG,
+                                 yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG)
+
+    class UntaggedLoader(yaml.CSafeLoader):
+        def resolve(self, kind, value, implicit):
+            return str_tag if kind is ScalarNode else map_tag if kind is MappingNode else seq_tag
+
+        def descend_resolver(self, current_node, current_index):
+            pass
+
+        def ascend_resolver(self):
+            pass
+
+    return UntaggedLoader
 
 
 def backend() -> _Backend:
@@ -417,9 +446,11 @@ class _Builder:
         node.start, node.end = sm.index, em.index
         node.path = path
         node.anchor = getattr(raw, "anchor", None)
-        if node.anchor is None:
+        text = self.doc.text
+        if node.anchor is None and sm.index < len(text) and text[sm.index] in "!&":
             # PyYAML's nodes do not keep their anchor; a node's start mark is at its properties
-            m = _ANCHOR.match(self.doc.text, sm.index)
+            # (perf: the pattern is tried only where properties can start, '!' or '&')
+            m = _ANCHOR.match(text, sm.index)
             if m:
                 node.anchor = m.group(1)
         node.file = self.doc.path

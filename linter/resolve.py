@@ -57,15 +57,26 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
     sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
+    # perf: most keys are no alias; their parent sections are normalised only for those that are,
+    # once per section, and each key word once per file
+    words: dict[str, str] = {}
+    sections: dict[tuple, list[str]] = {}
     for path, node, _chain in leaves:
         if id(node) in taken:
             continue
         # keys inside one reward component are its fields, not concepts of the run
         if _inside_sources(path, sources_key):
             continue
-        leaf = normalise_key(path[-1])
-        parents = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
-        for alias in ALIASES.get(leaf, ()):
+        leaf = words.get(path[-1])
+        if leaf is None:
+            leaf = words[path[-1]] = normalise_key(path[-1])
+        aliases = ALIASES.get(leaf)
+        if not aliases:
+            continue
+        parents = sections.get(path[:-1])
+        if parents is None:
+            parents = sections[path[:-1]] = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
+        for alias in aliases:
             if alias.concept in mapped:
                 continue
             if alias.not_under and any(p in alias.not_under for p in parents):

@@ -7,7 +7,6 @@ base-60 numbers, ``0``-prefixed octal).
 """
 from __future__ import annotations
 
-import datetime
 import math
 import re
 
@@ -107,12 +106,16 @@ def type11(text: str):
         return float(clean)
     m = _N11_DATE.fullmatch(text)
     if m:
+        import datetime  # rare: only dates and timestamps need it (start-up)
+
         try:
             return datetime.date(int(m[1]), int(m[2]), int(m[3]))
         except ValueError:
             return text
     m = _N11_TIMESTAMP.fullmatch(text)
     if m:
+        import datetime
+
         try:
             frac = (m[7] or "0")[:6].ljust(6, "0")
             tz = None

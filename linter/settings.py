@@ -2,7 +2,6 @@
 from the working directory, validated against the schema shipped in the package."""
 from __future__ import annotations
 
-import json
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -10,10 +9,15 @@ from pathlib import Path
 from .loader import Limits
 from .resolve import KeySpec
 
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover
-    import tomli as tomllib
+
+
+def _tomllib():
+    """The TOML reader, imported only when a settings file is read (start-up, see docs/perf.md)."""
+    if sys.version_info >= (3, 11):
+        import tomllib
+    else:  # pragma: no cover
+        import tomli as tomllib
+    return tomllib
 
 DEFAULT_INCLUDE = ["**/*.yaml", "**/*.yml", "**/*.json"]
 SCHEMA_PATH = Path(__file__).with_name("settings.schema.json")
@@ -95,6 +99,7 @@ def load(path: Path | None = None, start: Path | None = None) -> Settings:
         root = path.resolve().parent
     if path is None:
         return Settings(root=root)
+    tomllib = _tomllib()
     try:
         with open(path, "rb") as fh:
             data = tomllib.load(fh)
@@ -120,11 +125,19 @@ def _kind(value) -> str:
             float: "a number"}.get(type(value), type(value).__name__)
 
 
+_VALIDATOR = None
+
+
 def validate(table: dict, path: Path, prefix: str) -> None:
+    import json
+
     import jsonschema
 
-    schema = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))
-    validator = jsonschema.Draft7Validator(schema)
+    global _VALIDATOR
+    if _VALIDATOR is None:  # built once per process
+        schema = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))
+        _VALIDATOR = jsonschema.Draft7Validator(schema)
+    validator = _VALIDATOR
     errors = sorted(validator.iter_errors(table), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))
     if not errors:
         _check_concepts(table, path, prefix)
@@ -142,6 +155,8 @@ def validate(table: dict, path: Path, prefix: str) -> None:
 
 
 def _expected(err) -> str:
+    import json
+
     v, val = err.validator, err.validator_value
     if v == "type":
         names = {"array": "an array", "object": "a table", "string": "a string", "integer": "an integer",
@@ -163,6 +178,8 @@ def _expected(err) -> str:
 
 
 def _show(value) -> str:
+    import json
+
     text = json.dumps(value) if not isinstance(value, str) else repr(value)
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         text += " (a number, not a string)" if isinstance(value, float) else ""
@@ -199,6 +216,8 @@ def check_published(name: str, table) -> None:
     where = f"key map {name!r} (from a plugin, chosen by setting keymap)"
     if not isinstance(table, dict):
         raise SettingsError(f"{where}: expected a table of concept -> key path, found {_kind(table)}")
+    import json
+
     import jsonschema
 
     schema = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))["properties"]["keys"]
