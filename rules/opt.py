@@ -135,16 +135,27 @@ def shared_dir(ctx):
             v = entry.values[concept]
             here = {id(e) for e, _c in members}
             others = [(e, c) for e, c in group if id(e) not in here]
-            related = [e.values[c].location.with_message(f"the same directory ({c}{_doc(e)})") for e, c in others]
+            # Bounded: a directory shared by many runs lists the first few of them, so the report
+            # stays linear in the number of runs.
+            related = [e.values[c].location.with_message(f"the same directory ({c}{_doc(e)})")
+                       for e, c in others[:MAX_LISTED]]
             related += [Location(e.path, 0, 0, message=f"in the run composed from {_label(e)}")
-                        for e, _c in members if e.path != v.location.path]
+                        for e, _c in members[:MAX_LISTED] if e.path != v.location.path]
             if len(members) == 1:
-                text = f"{concept} = {v.value}: also written to by {', '.join(_label(e) for e, _c in others)}"
+                text = f"{concept} = {v.value}: also written to by {_listing([_label(e) for e, _c in others])}"
             else:
                 runs = [_label(e) for e, _c in members] + [_label(e) for e, _c in others]
-                text = f"{concept} = {v.value} is written to by {len(runs)} runs ({', '.join(runs)})"
+                text = f"{concept} = {v.value} is written to by {len(runs)} runs ({_listing(runs)})"
             yield ctx.finding(text + "; the runs overwrite each other's checkpoints and outputs", v.location,
                               related=related, subject=d)
+
+
+MAX_LISTED = 10
+
+
+def _listing(labels: list[str]) -> str:
+    shown = ", ".join(labels[:MAX_LISTED])
+    return shown + (f" and {len(labels) - MAX_LISTED} more" if len(labels) > MAX_LISTED else "")
 
 
 def _doc(entry) -> str:

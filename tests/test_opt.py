@@ -169,3 +169,20 @@ def test_an_acceptance_in_the_base_accepts_the_inherited_clash(tmp_path):
         "  dir: checkpoints/wren-sweep  # trimtab: accept OPT-4 -- sweep points resume each other\n"))
     r = check_json(d / "experiments", cwd=d)
     assert r.of("OPT-4") == [] and r.findings == []
+
+
+def test_shared_dir_of_many_runs_lists_a_bounded_number_of_them(tmp_path):
+    """Fifteen runs writing one directory: fifteen findings, each naming ten others and a count of
+    the rest, so the report grows linearly with the number of runs."""
+    (tmp_path / ".git").mkdir()
+    for i in range(15):
+        (tmp_path / f"run{i:02d}.yaml").write_text(
+            f"run: {{estimator: grpo, name: r{i}, seed: 1}}\nrollout: {{group_size: 8, temperature: 1.0}}\n"
+            "batch: {prompts: 64}\ncheckpoint:\n  dir: /ckpt/shared\n")
+    r = check_json(tmp_path, args=("--only", "OPT-4"), cwd=tmp_path)
+    found = r.of("OPT-4")
+    assert len(found) == 15
+    assert all(len(f["related"]) == 10 for f in found)
+    assert all(f["message"].endswith("and 4 more; the runs overwrite each other's checkpoints and outputs")
+               for f in found)
+    assert all(f["location"]["line"] == 5 for f in found)
