@@ -48,7 +48,6 @@ class Settings:
     layers: list[dict] = field(default_factory=list)
     bases_key: str = ""
     overrides: str = ""
-    schemas: list[dict] = field(default_factory=list)
     include_set: bool = False  # include was written in the settings file (not the default)
 
     def check_include(self, used: set, paths_given: bool) -> list[str]:
@@ -201,7 +200,7 @@ def _check_concepts(table: dict, path: Path, prefix: str) -> None:
 def build(table: dict, root: Path, path: Path | None = None, prefix: str = "") -> Settings:
     s = Settings(root=root, source=path, table=prefix)
     for name in ("include", "exclude", "gate", "yaml_version", "run_configs", "keymap", "search_roots",
-                 "import_depth", "accepted", "jobs", "rules", "layers", "bases_key", "overrides", "schemas"):
+                 "import_depth", "accepted", "jobs", "rules", "layers", "bases_key", "overrides"):
         if name in table:
             setattr(s, name, table[name])
     s.include_set = "include" in table

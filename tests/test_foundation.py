@@ -359,3 +359,17 @@ def test_readme_demo_output_is_real():
     out = run_cli("check", cwd=DEMO).out.splitlines()
     missing = [l for l in lines if l not in out]
     assert not missing, missing
+
+
+def test_readme_settings_example_is_valid(tmp_path):
+    """The settings block the README shows is accepted by the shipped schema, as written."""
+    readme = (REPO / "README.md").read_text()
+    section = readme[readme.index("\n## Settings and key maps"):]
+    block = re.search(r"```toml\n(.*?)```", section, re.S).group(1)
+    (tmp_path / ".git").mkdir()
+    write(tmp_path, "pyproject.toml", block)
+    write(tmp_path, "run.yaml", RUN_CONFIG)
+    from trimtab import settings
+
+    s = settings.load(start=tmp_path)
+    assert s.gate == "warning" and s.bases_key == "inherit" and s.limits.max_depth == 200
