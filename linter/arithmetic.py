@@ -141,7 +141,7 @@ def rows(model: RunModel) -> list[tuple[str, str, str]]:
     """(quantity, value, how it was derived or where its inputs came from) for the run's
     arithmetic; a quantity that does not divide shows the remainder."""
     out = []
-    s = lambda c: settled(model, c)  # noqa: E731
+    s = lambda c: settled(model, c)
     out.append(_row(model, "GPUs (world size)", "cluster.world_size", "cluster.world_size, or cluster.nodes and "
                                                                        "cluster.gpus_per_node"))
     par = 1

@@ -226,12 +226,12 @@ def verify(before: str, after: str, intended: dict[tuple, tuple], fmt: str = "ya
             old = _flatten(read(before))
         except Refused:
             raise
-        except Exception as exc:  # noqa: BLE001 - any reader failure means "cannot prove"
+        except Exception as exc:  # any reader failure means "cannot prove"
             raise Refused(f"{name} cannot read the original file ({type(exc).__name__}), so the fix "
                           "cannot be proved") from None
         try:
             new = _flatten(read(after))
-        except Exception as exc:  # noqa: BLE001
+        except Exception as exc:
             raise Refused(f"{name} cannot read the fixed file ({type(exc).__name__})") from None
         if list(old) != list(new):
             raise Refused(f"{name} reads a different set of keys after the fix")

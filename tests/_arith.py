@@ -1,7 +1,7 @@
 """Helpers shared by the run-arithmetic tests (BAT, SMP, LEN)."""
 from __future__ import annotations
 
-from conftest import FIXTURES, check_json
+from support import FIXTURES, check_json
 
 AREAS = ("BAT", "SMP", "LEN")
 

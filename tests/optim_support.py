@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from conftest import FIXTURES, REPO, check_json
+from support import FIXTURES, REPO, check_json
 
 MINE = ("KL", "CLP", "ALG", "OPT")
 # Areas a good fixture must also keep quiet: a published value written so that YAML 1.1 and 1.2

@@ -9,8 +9,8 @@ from pathlib import Path
 
 import pytest
 
-from conftest import FIXTURES
-from conftest import check_json as _check_json
+from support import FIXTURES
+from support import check_json as _check_json
 
 # The optimisation areas (KL, CLP, ALG, OPT) report what these minimal configs leave unstated;
 # these tests are about other rules, so they leave those areas out.

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import FIXTURES, REPO, run_cli
+from support import FIXTURES, REPO, run_cli
 
 DOC = REPO / "README.md"  # its section "Adopting trimtab in an existing repository"
 BIN = Path(sys.executable).parent

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import FIXTURES, check_json, run_cli
+from support import FIXTURES, check_json, run_cli
 from trimtab import Edit, hookimpl, rule
 
 ODD = FIXTURES / "adopt" / "fix" / "lowfield-odd.yaml"
@@ -281,7 +281,7 @@ def test_one_unprovable_fix_does_not_block_the_others(tmp_path):
 
 
 # --- property: any exponent spelling is respelled exactly, or not touched --------------------------
-from hypothesis import given, settings as hsettings, strategies as st  # noqa: E402
+from hypothesis import given, settings as hsettings, strategies as st
 
 
 @st.composite

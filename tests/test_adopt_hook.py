@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import run_cli
+from support import run_cli
 
 pytestmark = pytest.mark.skipif(shutil.which("git") is None, reason="git is not installed")
 

@@ -13,7 +13,7 @@ else:  # pragma: no cover
     import tomli as tomllib
 
 
-from conftest import FIXTURES, run_cli
+from support import FIXTURES, run_cli
 
 KESTREL = FIXTURES / "adopt" / "map" / "kestrel-layout.yaml"
 

@@ -5,7 +5,7 @@ import pytest
 import yaml
 from hypothesis import given, settings, strategies as st
 
-from conftest import check_json, run_cli
+from support import check_json, run_cli
 from optim_support import check, fx, noisy, places
 
 BAD = [

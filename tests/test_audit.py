@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import FIXTURES, REPO, check_json, run_cli
+from support import FIXTURES, REPO, check_json, run_cli
 
 AUDIT = FIXTURES / "audit"
 CLEAN, BROKEN, PROBE = AUDIT / "clean.yaml", AUDIT / "mini-remainder.yaml", AUDIT / "probe.yaml"

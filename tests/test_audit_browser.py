@@ -24,7 +24,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import FIXTURES, REPO, run_cli
+from support import FIXTURES, REPO, run_cli
 
 CHROMIUM = Path("/usr/bin/chromium")
 AUDIT = FIXTURES / "audit"

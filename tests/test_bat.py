@@ -94,7 +94,7 @@ def test_bat7_group_split_across_ranks_and_mini_batches_are_warnings():
 
 
 def test_bat7_options_turn_the_warnings_off(tmp_path):
-    from conftest import FIXTURES, check_json
+    from support import FIXTURES, check_json
 
     (tmp_path / "trimtab.toml").write_text('[rules."BAT-7"]\ncheck_ranks = false\ncheck_mini = false\n')
     for name in ("bad-ranks.yaml", "bad-mini.yaml"):
@@ -112,7 +112,7 @@ def test_bat8_key_map_conversion_leaves_a_fraction():
 
 def test_bat8_unconvertible_value_is_a_note_and_no_arithmetic_runs_on_it():
     from _arith import arith
-    from conftest import FIXTURES, check_json
+    from support import FIXTURES, check_json
 
     expect_one("BAT-8/convert/bad-unconverted.yaml", "BAT-8", "note", 8, 23, "group size unknown")
     res = check_json(FIXTURES / "rules" / "BAT-8/convert/bad-unconverted.yaml")

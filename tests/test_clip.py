@@ -4,7 +4,7 @@ from __future__ import annotations
 import pytest
 import yaml
 
-from conftest import check_json, run_cli
+from support import check_json, run_cli
 from optim_support import check, fx, noisy, places
 
 BAD = [

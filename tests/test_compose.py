@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 from hypothesis import given, settings as hsettings, strategies as st
 
-from conftest import FIXTURES, check_json, run_cli, shared_path
+from support import FIXTURES, check_json, run_cli, shared_path
 from trimtab import hookimpl, rule
 from trimtab.check import CheckOptions, Checker, run
 from trimtab.discover import discover

@@ -6,7 +6,7 @@ import shutil
 
 import pytest
 
-from conftest import FIXTURES, check_json
+from support import FIXTURES, check_json
 
 R = FIXTURES / "rules"
 CAUTION_WORDS = ("isolated", "credentials", "network", "wall-clock time, memory", "processes",

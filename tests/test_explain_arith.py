@@ -2,7 +2,7 @@
 from (file:line) or how they were derived."""
 from __future__ import annotations
 
-from conftest import FIXTURES, run_cli
+from support import FIXTURES, run_cli
 
 
 def _table(out: str) -> dict[str, tuple[str, str]]:

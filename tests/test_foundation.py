@@ -12,7 +12,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import FIXTURES, REPO, check_json, run_cli, shared_path
+from support import FIXTURES, REPO, check_json, run_cli, shared_path
 from trimtab import hookimpl, rule
 
 DEMO = FIXTURES / "demo"

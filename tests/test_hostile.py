@@ -13,7 +13,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import FIXTURES, MEASURED, run_cli
+from support import FIXTURES, MEASURED, run_cli
 from trimtab import loader
 from trimtab.check import Checker
 from trimtab.document import Mapping, Scalar, Sequence
@@ -495,7 +495,7 @@ def test_aliased_section_resolves_where_it_is_used(repo):
 
 
 # --- fuzzing ------------------------------------------------------------------------------------------
-from hypothesis import HealthCheck, given, settings as hsettings, strategies as st  # noqa: E402
+from hypothesis import HealthCheck, given, settings as hsettings, strategies as st
 
 _SEEDS = sorted(p for p in FIXTURES.glob("**/*.y*ml") if p.is_file())
 

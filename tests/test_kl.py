@@ -4,7 +4,7 @@ from __future__ import annotations
 import pytest
 import yaml
 
-from conftest import run_cli
+from support import run_cli
 from optim_support import check, fx, noisy, places
 
 BAD = [
@@ -61,7 +61,7 @@ def test_kl_off_note_is_suppressed_by_an_acceptance(tmp_path):
 
 
 def check_text(path, text):
-    from conftest import check_json
+    from support import check_json
 
     path.write_text(text)
     return check_json(path)
@@ -75,7 +75,7 @@ def test_kl_off_is_not_reported_for_a_run_without_a_clipped_objective(tmp_path):
 def test_kl_range_is_an_option(tmp_path):
     (tmp_path / "trimtab.toml").write_text('[rules."KL-5"]\nmax = 3.0\n')
     (tmp_path / "bad.yaml").write_text(fx("KL-5", "bad.yaml").read_text())
-    from conftest import check_json
+    from support import check_json
 
     r = check_json(tmp_path / "bad.yaml", cwd=tmp_path)
     assert places(r, "KL-5") == [("bad.yaml", 24, 9, "warning"), ("bad.yaml", 37, 9, "error")]
@@ -127,7 +127,7 @@ def test_unstated_reference_is_reported_only_when_asked(tmp_path):
     d.mkdir()
     (d / "trimtab.toml").write_text('[rules."KL-2"]\nreport_unstated = true\n')
     (d / "u.yaml").write_text(text)
-    from conftest import check_json
+    from support import check_json
 
     r = check_json(d / "u.yaml", cwd=d)
     assert places(r, "KL-2") == [("u.yaml", 12, 9, "error")]

@@ -6,7 +6,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import check_json, run_cli
+from support import check_json, run_cli
 from optim_support import check, fx, noisy, places
 
 BAD = [

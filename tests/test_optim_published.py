@@ -7,7 +7,7 @@ import re
 
 import pytest
 
-from conftest import FIXTURES, check_json
+from support import FIXTURES, check_json
 from optim_support import noisy, places
 
 PUBLISHED = FIXTURES / "rules" / "published"

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from hypothesis import given, settings, strategies as st
 
-from conftest import check_json
+from support import check_json
 
 CONCEPTS = ["run.estimator", "kl.coef", "kl.enabled", "kl.estimator", "kl.placement", "kl.target", "kl.horizon",
             "reference.source", "clip.low", "clip.high", "clip.dual", "optim.lr", "optim.grad_clip",

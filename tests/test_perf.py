@@ -12,13 +12,13 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import FIXTURES, REPO
+from support import FIXTURES, REPO
 from trimtab import engine, loader, reports
 from trimtab.document import Document, Mapping, Scalar, Sequence, walk
 from trimtab.findings import Edit, Finding, Level, Location
 
 sys.path.insert(0, str(REPO / "tests" / "perf"))
-import bench  # noqa: E402  (the benchmark's corpus generator)
+import bench  # (the benchmark's corpus generator)
 
 TRICKY = [
     "a: &x 1\nb: *x\nc: !!str 5\nd: ! 7\ne: !local {k: v}\n",

@@ -10,7 +10,7 @@ import sys
 
 import pytest
 
-from conftest import REPO
+from support import REPO
 
 BAD = """\
 run: {estimator: grpo, seed: 1, ref_model: ./weights/base}

@@ -6,7 +6,7 @@ from __future__ import annotations
 import pytest
 
 from _arith import arith
-from conftest import FIXTURES, check_json
+from support import FIXTURES, check_json
 
 RECIPES = FIXTURES / "recipes"
 

@@ -8,7 +8,7 @@ import shutil
 
 import pytest
 
-from conftest import FIXTURES, check_json
+from support import FIXTURES, check_json
 
 R = FIXTURES / "rules"
 
@@ -188,7 +188,7 @@ def test_rew10_samples_use_the_template_tags_in_order():
 
 
 # --- robustness: any shape of reward.sources gives findings, never a crash ------------------------------
-from hypothesis import HealthCheck, given, settings as hsettings, strategies as st  # noqa: E402
+from hypothesis import HealthCheck, given, settings as hsettings, strategies as st
 
 _SCALARS = st.one_of(st.none(), st.booleans(), st.integers(-3, 3), st.floats(-2, 2, allow_nan=False),
                      st.sampled_from(["rule", "code", "model", "judge", "remote", "main", "rewards.x:f",

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import pytest
 
-from conftest import FIXTURES, check_json
+from support import FIXTURES, check_json
 
 R = FIXTURES / "rules"
 

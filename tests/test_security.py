@@ -19,7 +19,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import FIXTURES, check_json, run_cli, shared_path
+from support import FIXTURES, check_json, run_cli, shared_path
 
 FORMATS = ("text", "json", "sarif")
 

@@ -22,7 +22,7 @@ def test_smp1_small_group_is_a_warning_with_the_threshold():
 
 
 def test_smp1_threshold_is_an_option(tmp_path):
-    from conftest import FIXTURES, check_json
+    from support import FIXTURES, check_json
 
     (tmp_path / "trimtab.toml").write_text('[rules."SMP-1"]\nmin_group = 2\n')
     (tmp_path / "c.yaml").write_text((FIXTURES / "rules/SMP-1/bad-small.yaml").read_text())
@@ -43,7 +43,7 @@ def test_smp2_greedy_decoding():
 
 
 def test_smp3_out_of_range_values_each_at_their_line():
-    from conftest import FIXTURES, check_json
+    from support import FIXTURES, check_json
 
     found = check_json(FIXTURES / "rules/SMP-3/bad.yaml").of("SMP-3")
     got = [(f["level"], f["location"]["line"], f["location"]["col"], f["message"]) for f in found]
@@ -54,7 +54,7 @@ def test_smp3_out_of_range_values_each_at_their_line():
 
 
 def test_smp3_top_k_minus_one_needs_the_option(tmp_path):
-    from conftest import FIXTURES, check_json
+    from support import FIXTURES, check_json
 
     (tmp_path / "trimtab.toml").write_text('[rules."SMP-3"]\nallow_top_k_minus_one = false\n')
     (tmp_path / "c.yaml").write_text((FIXTURES / "rules/SMP-3/good.yaml").read_text())

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import pytest
 
-from conftest import check_json
+from support import check_json
 
 RUN = """\
 # Lowfield Labs: wren-7b on tidepool arithmetic (invented scenario).
@@ -74,7 +74,7 @@ def test_key_map_units_give_the_same_findings(tmp_path, run, variant):
 
 
 def test_conversion_is_shown_in_explain(tmp_path):
-    from conftest import run_cli
+    from support import run_cli
 
     path = _write(tmp_path / "m", dict(prompts=64, mini=3, micro=6), {"batch.mini": ("prompt", "gpu")})
     out = run_cli("explain", path, cwd=path.parent).out

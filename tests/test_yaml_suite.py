@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import MEASURED, run_cli, shared_path
+from support import MEASURED, run_cli, shared_path
 from trimtab import loader
 from trimtab.check import Checker
 from trimtab.document import Mapping, Scalar, Sequence

@@ -2,7 +2,7 @@
 and column and is silent on its good fixture."""
 import pytest
 
-from conftest import FIXTURES, check_json
+from support import FIXTURES, check_json
 
 RULES = FIXTURES / "rules"
 
