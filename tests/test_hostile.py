@@ -16,7 +16,7 @@ import yaml
 from support import FIXTURES, MEASURED, run_cli
 from trimtab import loader
 from trimtab.check import Checker
-from trimtab.document import Mapping, Scalar, Sequence
+from trimtab.document import Scalar, Sequence, walk
 from trimtab.engine import Registry
 from trimtab.settings import Settings, SettingsError
 
@@ -92,24 +92,8 @@ def _reference(data: bytes):
 
 
 def _mine(doc):
-    out, seen = [], set()
-
-    def visit(n):
-        if id(n) in seen:
-            return
-        seen.add(id(n))
-        out.append((n.line, n.col))
-        if isinstance(n, Mapping):
-            for k, v in n.pairs:
-                visit(k)
-                visit(v)
-        elif isinstance(n, Sequence):
-            for v in n.items:
-                visit(v)
-
-    for r in doc.roots:
-        visit(r)
-    return out
+    """trimtab's (line, col) of every node once, in document order (the engine's own walk)."""
+    return [(n.line, n.col) for r in doc.roots for n in walk(r)]
 
 
 def _variants(data: bytes):

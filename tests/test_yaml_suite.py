@@ -19,7 +19,7 @@ import yaml
 from support import MEASURED, run_cli, shared_path
 from trimtab import loader
 from trimtab.check import Checker
-from trimtab.document import Mapping, Scalar, Sequence
+from trimtab.document import Mapping, Scalar, Sequence, walk
 from trimtab.engine import Registry
 from trimtab.settings import Settings
 
@@ -156,24 +156,8 @@ def reference_marks(data: bytes) -> list[tuple[str, int, int]]:
 
 
 def trimtab_marks(doc) -> list[tuple[str, int, int]]:
-    out, seen = [], set()
-
-    def visit(n):
-        if id(n) in seen:
-            return
-        seen.add(id(n))
-        out.append(("M" if isinstance(n, Mapping) else "S", n.line, n.col))
-        if isinstance(n, Mapping):
-            for k, v in n.pairs:
-                visit(k)
-                visit(v)
-        elif isinstance(n, Sequence):
-            for v in n.items:
-                visit(v)
-
-    for root in doc.roots:
-        visit(root)
-    return out
+    """("M"apping or "S"other, line, col) of every node once, in document order (the engine's walk)."""
+    return [("M" if isinstance(n, Mapping) else "S", n.line, n.col) for r in doc.roots for n in walk(r)]
 
 
 def _kinds(marks):
