@@ -5,10 +5,12 @@ few values the cross-file rules need, never documents.
 """
 from __future__ import annotations
 
+from collections.abc import Iterable, Iterator
 from collections.abc import Set as AbcSet
 from dataclasses import dataclass, field
+from itertools import groupby
 
-from . import filtering, loader
+from . import filtering, loader, spill
 from .compose import Composer
 from .engine import Context, Registry, Rule, run_rule
 from .findings import Finding, Level, Location
@@ -185,7 +187,7 @@ class Checker:
                                                    report_unused=False))
         return out
 
-    def check_set(self, entries: list[SetEntry]) -> tuple[list[Finding], bool]:
+    def check_set(self, entries: Iterable[SetEntry]) -> tuple[list[Finding], bool]:
         out, crashed = [], False
         for r, opts, level in self.rules("set"):
             ctx = Context(r, None, None, opts, level, runs=entries, settings=self.settings)
@@ -202,7 +204,7 @@ def _name_run(findings: list[Finding], shown: str) -> None:
             f.related.append(Location(shown, 0, 0, message=f"in the run composed from {shown}"))
 
 
-def _merge_duplicates(findings: list[Finding]) -> list[Finding]:
+def _merge_duplicates(findings: Iterable[Finding]) -> list[Finding]:
     """One finding per rule, place and message: a base line found through two runs is reported once,
     with the related locations of both."""
     seen: dict[tuple, Finding] = {}
@@ -238,7 +240,7 @@ def _work(item: tuple[str, str]) -> FileResult:
 
 @dataclass
 class RunResult:
-    findings: list[Finding]
+    findings: Iterable[Finding]  # re-iterable, in report order (read back from a Spill on each pass)
     files: int
     runs: int
     skipped: int
@@ -278,12 +280,13 @@ class _Checked(AbcSet):
 
 
 class _Totals:
-    """What run() keeps of each file's result (perf: the FileResults themselves are dropped as they
-    arrive, so memory does not grow with the number of files, only with the findings)."""
+    """What run() keeps of each file's result (perf: the FileResults are dropped as they arrive,
+    and their findings and set-rule values go to Spills, so memory does not grow with the number
+    of files or findings)."""
 
     def __init__(self, progress=None):
-        self.findings: list[Finding] = []
-        self.entries: list[SetEntry] = []
+        self.findings = spill.Spill(key=Finding.sort_key)  # Finding, in report order
+        self.entries = spill.Spill()  # SetEntry, in arrival order
         self.files = self.runs = self.skipped = 0
         self.crashed = False
         self.checked = _Checked()
@@ -307,6 +310,8 @@ class _Totals:
 
 
 def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=None) -> RunResult:
+    """Check the files. The result's findings are in report order, read again from a Spill on
+    each pass over them."""
     global _WORKER
     results = _Totals(progress)
     if jobs > 1 and len(files) > 1:
@@ -331,19 +336,24 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
     else:
         for path, shown in files:
             results.append(checker.check_file(path, shown))
-    findings = results.findings
-    if results.accepted_at:  # an acceptance in a base used by a run built on it is not unused
-        accepted_at = results.accepted_at
-        findings = [f for f in findings if not (
-            f.rule_id == filtering.ACC_UNUSED and ({(f.location.path, f.location.line),
-                                                    (f.location.path, f.location.line + 1)} & accepted_at))]
     set_findings, set_crashed = checker.check_set(results.entries)
-    set_findings = checker.accept_set(set_findings, results.checked, results.set_accepts, files)
-    findings.extend(set_findings)
-    findings = _merge_duplicates(findings)
-    findings.sort(key=Finding.sort_key)
-    return RunResult(findings, results.files, results.runs, results.skipped, results.crashed or set_crashed,
+    results.entries.close()
+    # set findings arrive after every file's, as before: ties in the sorted stream keep that order
+    results.findings.extend(checker.accept_set(set_findings, results.checked, results.set_accepts, files))
+    stream = spill.Stream(lambda: _reported(results.findings, results.accepted_at))
+    return RunResult(stream, results.files, results.runs, results.skipped, results.crashed or set_crashed,
                      results.checked)
+
+
+def _reported(findings: spill.Spill, accepted_at: set) -> Iterator[Finding]:
+    """The spilled findings in report order: sorted (stably), an unused-acceptance finding dropped
+    where a run built on that base used the acceptance, and duplicates merged. Duplicates share a
+    sort key, so merging within each run of equal keys is merging over the whole stream."""
+    for _key, group in groupby(findings, key=Finding.sort_key):
+        if accepted_at:
+            group = [f for f in group if not (f.rule_id == filtering.ACC_UNUSED and (
+                {(f.location.path, f.location.line), (f.location.path, f.location.line + 1)} & accepted_at))]
+        yield from _merge_duplicates(group)
 
 
 def summary_counts(findings: list[Finding]) -> dict[str, int]:

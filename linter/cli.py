@@ -201,6 +201,8 @@ def cmd_check(args) -> int:
     from .discover import changed_since, discover
     from .findings import Finding, Level, Location
     from .settings import SettingsError
+    from .spill import Stream
+    from itertools import chain
 
     settings = _settings(args)
     if getattr(args, "staged_root", None) is not None:
@@ -241,10 +243,12 @@ def cmd_check(args) -> int:
     result = run(checker, files, jobs, progress)
     if progress:
         progress.close()
-    findings = result.findings
-    for m in missing:
-        findings.insert(0, Finding("YML-6", Level.ERROR, getattr(m, "reason", "cannot be read: no such file or folder"),
-                                   Location(m), subject=m).finish())
+    # Findings are a Stream: each pass reads them again from the run's spill (perf: an audit of
+    # thousands of files never holds them all), so each step below wraps the one before.
+    unreadable = [Finding("YML-6", Level.ERROR, getattr(m, "reason", "cannot be read: no such file or folder"),
+                          Location(m), subject=m).finish() for m in reversed(missing)]
+    checked_findings = result.findings
+    findings = Stream(lambda: chain(unreadable, checked_findings))
     accepted_path = args.accepted or settings.accepted
     if args.write_accepted:
         keep = _accepted_elsewhere(Path(args.write_accepted), result.checked, settings.root)
@@ -266,7 +270,8 @@ def cmd_check(args) -> int:
         except filtering.AcceptedFileError as exc:
             raise SettingsError(str(exc)) from None
         gone = {str(r.get("file")) for r in rows if not (settings.root / str(r.get("file"))).exists()}
-        findings = filtering.apply_accepted(findings, rows, str(accepted_path), result.checked | gone)
+        before, known = findings, result.checked | gone
+        findings = Stream(lambda: filtering.apply_accepted(before, rows, str(accepted_path), known))
     if args.fix:
         code = _fix(args, settings, findings, files)
         if code is not None:
@@ -275,9 +280,9 @@ def cmd_check(args) -> int:
         return cmd_check(args)  # report what is left after the fixes
     gate = Level.parse(args.gate or settings.gate)
     incomplete = result.crashed or bool(registry.errors)
-    failing = any(f.level >= gate for f in findings)
-    code = EXIT_INCOMPLETE if incomplete else (EXIT_FINDINGS if failing else EXIT_OK)
     counts = summary_counts(findings)
+    failing = any(n and Level.parse(level) >= gate for level, n in counts.items())
+    code = EXIT_INCOMPLETE if incomplete else (EXIT_FINDINGS if failing else EXIT_OK)
     summary = {"files": result.files, "runs": result.runs, "skipped": result.skipped, "by_level": counts}
     out = open(args.output, "w", encoding="utf-8") if args.output else sys.stdout
     try:

@@ -64,13 +64,15 @@ class Context:
     """What a rule sees: the run (or, for set rules, all runs), its document, its options."""
 
     def __init__(self, rule: Rule, model: RunModel | None, doc: Document | None, options: dict,
-                 level: Level, runs: list[RunModel] | None = None, settings: Any = None):
+                 level: Level, runs: Iterable | None = None, settings: Any = None):
         self.rule = rule
         self.model = model
         self.doc = doc
         self.options = options
         self.level = level
-        self.runs = runs or []
+        # set rules: every run's SetEntry (path, index, the values of the rule's needs), read back
+        # from disk on each pass over it; a set rule keeps only what it must (see trimtab.spill)
+        self.runs = runs if runs is not None else []
         self.settings = settings
 
     def finding(self, message: str, location: Location, *, related: Iterable[Location] = (),

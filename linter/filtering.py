@@ -10,6 +10,8 @@ and is reported; one that suppresses nothing is reported too.
 from __future__ import annotations
 
 import re
+from collections.abc import Iterable, Iterator
+from collections.abc import Set as AbcSet
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -173,23 +175,24 @@ def read_accepted(path: Path) -> list[dict]:
 _FINGERPRINT = re.compile(r'"fingerprint"\s*:\s*"([^"]*)"')
 
 
-def apply_accepted(findings: list[Finding], rows: list[dict], accepted_path: str,
-                   checked_files: set[str] | None = None) -> list[Finding]:
-    """Drop findings recorded in the accepted-findings file; report entries that match nothing
-    (only for files that were checked in this run, so a partial run reports no false stale).
+def apply_accepted(findings: Iterable[Finding], rows: list[dict], accepted_path: str,
+                   checked_files: AbcSet[str] | None = None) -> Iterator[Finding]:
+    """Drop findings recorded in the accepted-findings file; after them, report entries that
+    match nothing (only for files that were checked in this run, so a partial run reports no
+    false stale). A generator: findings pass through one at a time.
 
     An entry accepts as many findings with its fingerprint as its ``count`` (default 1), so a
     second finding that happens to share a fingerprint with an accepted one (the same duplicate
     key in another place of the file) still counts as new."""
     budget = {r["fingerprint"]: _count(r) for r in rows}
     wanted = {r["fingerprint"]: r for r in rows}
-    kept, used = [], {}
+    used: dict[str, int] = {}
     for f in findings:
         if budget.get(f.fingerprint, 0) > 0:
             budget[f.fingerprint] -= 1
             used[f.fingerprint] = used.get(f.fingerprint, 0) + 1
         else:
-            kept.append(f)
+            yield f
     for fp, row in sorted(wanted.items(), key=lambda kv: (str(kv[1].get("file")), kv[0])):
         if used.get(fp, 0) >= _count(row):
             continue
@@ -197,11 +200,10 @@ def apply_accepted(findings: list[Finding], rows: list[dict], accepted_path: str
             continue
         n = used.get(fp, 0)
         how = "no longer occurs" if not n else f"occurs {n} time(s), not {_count(row)}"
-        kept.append(Finding(ACC_STALE, Level.NOTE,
-                            f"accepted finding {row.get('rule', '?')} in {row.get('file', '?')} {how} "
-                            f"({row.get('what', '')}); remove its entry",
-                            Location(accepted_path, row.get("_line", 0), row.get("_col", 0)), subject=fp).finish())
-    return kept
+        yield Finding(ACC_STALE, Level.NOTE,
+                      f"accepted finding {row.get('rule', '?')} in {row.get('file', '?')} {how} "
+                      f"({row.get('what', '')}); remove its entry",
+                      Location(accepted_path, row.get("_line", 0), row.get("_col", 0)), subject=fp).finish()
 
 
 def _count(row: dict) -> int:

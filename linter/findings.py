@@ -107,6 +107,14 @@ class Finding:
             self.fingerprint = fingerprint(self.rule_id, self.location.path, self.key_path, self.subject)
         return self
 
+    def __getstate__(self) -> dict:
+        # Pickled (a worker's results, findings spilled to disk): the subject as the fingerprint
+        # reads it, which is all that is used of it and always picklable.
+        state = dict(self.__dict__)
+        if state["subject"] is not None:
+            state["subject"] = _normalise(state["subject"])
+        return state
+
     def sort_key(self) -> tuple:
         loc = self.location
         return (loc.path or "", loc.line, loc.col, self.rule_id, self.message)

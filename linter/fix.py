@@ -22,7 +22,7 @@ import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
+from typing import Callable, Iterable
 
 from .findings import KEEP, Edit, Finding
 
@@ -67,7 +67,7 @@ class FileFix:
             self.disk.write_bytes(self.after)
 
 
-def plan(findings: list[Finding], locate: Callable[[str], Path | None]) -> list[FileFix]:
+def plan(findings: Iterable[Finding], locate: Callable[[str], Path | None]) -> list[FileFix]:
     """The fixes of these findings, grouped by file, proved or refused. Nothing is written."""
     by_file: dict[str, list[Finding]] = {}
     for f in findings:

@@ -71,23 +71,32 @@ def as_dict(findings: list[Finding], summary: dict, exit_code: int) -> dict:
     }
 
 
-_SLOT = "\x00findings\x00"
+_SLOT = "\x00items\x00"
 
 
-def json_report(findings: list[Finding], summary: dict, exit_code: int, out: TextIO) -> None:
-    """The same bytes as ``json.dump(as_dict(...), indent=2)``, written one finding at a time
-    (perf: an audit of thousands of files never holds every finding twice, once as a dict)."""
-    head, _, tail = json.dumps({**as_dict([], summary, exit_code), "findings": _SLOT}, indent=2,
-                               ensure_ascii=False).partition(json.dumps(_SLOT))
+def dump_streamed(doc: dict, slot: tuple, items: Iterable[dict], out: TextIO) -> None:
+    """Write ``doc`` as ``json.dump(doc, out, indent=2, ensure_ascii=False)`` would, with the list
+    at ``slot`` (keys and list indexes, e.g. ``("runs", 0, "results")``) taken from ``items`` one
+    at a time (perf: thousands of findings are never held at once, as objects or as dicts)."""
+    holder = doc
+    for key in slot[:-1]:
+        holder = holder[key]
+    holder[slot[-1]] = _SLOT
+    head, _, tail = json.dumps(doc, indent=2, ensure_ascii=False).partition(json.dumps(_SLOT))
     out.write(head)
-    if not findings:
-        out.write("[]")
-    else:
-        out.write("[")
-        sep = "\n    "
-        for i, f in enumerate(findings):
-            item = json.dumps(finding_dict(f), indent=2, ensure_ascii=False).replace("\n", sep)
-            out.write(("," if i else "") + sep + item)
-        out.write("\n  ]")
+    line = head[head.rfind("\n") + 1:]  # the line that holds the list's key: its indent
+    indent = line[:len(line) - len(line.lstrip(" "))]
+    sep = "\n" + indent + "  "
+    first = True
+    for item in items:
+        text = json.dumps(item, indent=2, ensure_ascii=False).replace("\n", sep)
+        out.write(("[" if first else ",") + sep + text)
+        first = False
+    out.write("[]" if first else "\n" + indent + "]")
     out.write(tail)
+
+
+def json_report(findings: Iterable[Finding], summary: dict, exit_code: int, out: TextIO) -> None:
+    """The JSON report, written one finding at a time (see ``dump_streamed``)."""
+    dump_streamed(as_dict([], summary, exit_code), ("findings",), map(finding_dict, findings), out)
     out.write("\n")

@@ -1,7 +1,6 @@
 """Report: findings -> SARIF 2.1.0 (OASIS Static Analysis Results Interchange Format)."""
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Iterable, TextIO
 from urllib.parse import quote
@@ -71,43 +70,42 @@ def _descriptor(rule: Rule) -> dict:
     return d
 
 
-def build(findings: list[Finding], rules: Iterable[Rule], root: Path, successful: bool = True) -> dict:
-    rules = list(rules)
-    index = {r.id: i for i, r in enumerate(rules)}
+def _result(f: Finding, index: dict[str, int]) -> dict:
+    res: dict = {
+        "ruleId": f.rule_id,
+        "level": _level(f.level),
+        "message": {"text": f.message},
+        "locations": [_location(f.location)],
+        "partialFingerprints": {FINGERPRINT_KEY: f.fingerprint},
+    }
+    if f.rule_id in index:
+        res["ruleIndex"] = index[f.rule_id]
+    if f.related:
+        res["relatedLocations"] = [_location(r, i) for i, r in enumerate(f.related)]
+    if f.cwe:
+        res["taxa"] = [{"id": str(f.cwe), "toolComponent": {"name": "CWE"}}]
+    props = {}
+    if f.key_path:
+        props["keyPath"] = f.key_path
+    if f.suggestion:
+        props["suggestion"] = f.suggestion
+    if props:
+        res["properties"] = props
+    if f.fix is not None and f.location.path:
+        res["fixes"] = [{
+            "description": {"text": f"replace {f.fix.old!r} with {f.fix.new!r}"},
+            "artifactChanges": [{
+                "artifactLocation": {"uri": quote(f.location.path), "uriBaseId": "SRCROOT"},
+                "replacements": [{"deletedRegion": {"charOffset": f.fix.start,
+                                                     "charLength": f.fix.end - f.fix.start},
+                                  "insertedContent": {"text": f.fix.new}}],
+            }],
+        }]
+    return res
+
+
+def _log(rules: list[Rule], root: Path, successful: bool, results: list) -> dict:
     cwes = sorted({r.cwe for r in rules if r.cwe})
-    results = []
-    for f in findings:
-        res: dict = {
-            "ruleId": f.rule_id,
-            "level": _level(f.level),
-            "message": {"text": f.message},
-            "locations": [_location(f.location)],
-            "partialFingerprints": {FINGERPRINT_KEY: f.fingerprint},
-        }
-        if f.rule_id in index:
-            res["ruleIndex"] = index[f.rule_id]
-        if f.related:
-            res["relatedLocations"] = [_location(r, i) for i, r in enumerate(f.related)]
-        if f.cwe:
-            res["taxa"] = [{"id": str(f.cwe), "toolComponent": {"name": "CWE"}}]
-        props = {}
-        if f.key_path:
-            props["keyPath"] = f.key_path
-        if f.suggestion:
-            props["suggestion"] = f.suggestion
-        if props:
-            res["properties"] = props
-        if f.fix is not None and f.location.path:
-            res["fixes"] = [{
-                "description": {"text": f"replace {f.fix.old!r} with {f.fix.new!r}"},
-                "artifactChanges": [{
-                    "artifactLocation": {"uri": quote(f.location.path), "uriBaseId": "SRCROOT"},
-                    "replacements": [{"deletedRegion": {"charOffset": f.fix.start,
-                                                         "charLength": f.fix.end - f.fix.start},
-                                      "insertedContent": {"text": f.fix.new}}],
-                }],
-            }]
-        results.append(res)
     run: dict = {
         "tool": {"driver": {
             "name": "trimtab",
@@ -132,6 +130,18 @@ def build(findings: list[Finding], rules: Iterable[Rule], root: Path, successful
     return {"$schema": SCHEMA_URI, "version": "2.1.0", "runs": [run]}
 
 
-def write(findings: list[Finding], rules, root: Path, out: TextIO, successful: bool = True) -> None:
-    json.dump(build(findings, rules, root, successful), out, indent=2, ensure_ascii=False)
+def build(findings: Iterable[Finding], rules: Iterable[Rule], root: Path, successful: bool = True) -> dict:
+    rules = list(rules)
+    index = {r.id: i for i, r in enumerate(rules)}
+    return _log(rules, root, successful, [_result(f, index) for f in findings])
+
+
+def write(findings: Iterable[Finding], rules, root: Path, out: TextIO, successful: bool = True) -> None:
+    """The log ``build`` makes, written one result at a time (the same bytes as dumping it whole)."""
+    from .reports import dump_streamed
+
+    rules = list(rules)
+    index = {r.id: i for i, r in enumerate(rules)}
+    dump_streamed(_log(rules, root, successful, []), ("runs", 0, "results"),
+                  (_result(f, index) for f in findings), out)
     out.write("\n")

@@ -2,8 +2,11 @@
 from __future__ import annotations
 
 import posixpath
+from itertools import groupby
+from operator import itemgetter
 
 from trimtab import Location, rule
+from trimtab.spill import Spill
 
 from ._common import anchor, num, shown, unresolved
 
@@ -106,12 +109,14 @@ def _label(entry) -> str:
       "paths (containing $, { or %) are skipped, because they differ per run.",
       needs=_DIRS, scope="set")
 def shared_dir(ctx):
-    owners: dict[str, list[tuple[object, str]]] = {}
-    seen = set()
+    # Claims (directory, run, concept) are grouped through a sorted Spill: one directory's runs
+    # are in memory at a time, however many runs the set has.
+    with Spill(key=itemgetter(0)) as claims:
+        yield from _clashes(ctx, claims)
+
+
+def _clashes(ctx, claims):
     for entry in ctx.runs:
-        if (entry.path, entry.index) in seen:
-            continue
-        seen.add((entry.path, entry.index))
         dirs_here = set()
         for concept in _DIRS:
             v = entry.values.get(concept)
@@ -119,9 +124,13 @@ def shared_dir(ctx):
             if d is None or d in dirs_here:
                 continue  # checkpoints and outputs of one run in one directory: no clash
             dirs_here.add(d)
-            owners.setdefault(d, []).append((entry, concept))
-    for d in sorted(owners):
-        group = owners[d]
+            claims.append((d, entry, concept))
+    for d, claimed in groupby(claims, key=itemgetter(0)):
+        group, seen = [], set()
+        for _d, entry, concept in claimed:
+            if (entry.path, entry.index) not in seen:  # a run checked twice is one run
+                seen.add((entry.path, entry.index))
+                group.append((entry, concept))
         if len(group) < 2:
             continue
         # One finding per place the directory is written. Runs composed from a shared base file meet at
