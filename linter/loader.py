@@ -240,8 +240,9 @@ def _compose(doc: Document, text: str, limits: Limits) -> Document:
     except Exception as exc:  # a reader defect must not become a traceback: say so, located at the file
         return _fail(doc, "parse", f"cannot be read: the YAML reader failed ({type(exc).__name__}: {exc})")
     builder = _Builder(doc, limits, be.name)
-    for raw in raw_roots:
-        root = builder.build(raw)
+    raw_roots.reverse()
+    while raw_roots:
+        root = builder.build(raw_roots.pop())  # perf: each parser graph is let go as it is read
         if root is None:
             break
         doc.roots.append(root)
@@ -398,7 +399,12 @@ def _tag(raw_tag) -> str:
 
 
 class _Builder:
-    """Turns a parser node graph into located trimtab nodes, each parser node once."""
+    """Turns a parser node graph into located trimtab nodes, each parser node once.
+
+    perf: the graph is let go as it is read (each parser node's slot in its parent is cleared once
+    its trimtab node exists), so a large file's two trees never coexist whole; only the nodes an
+    alias can reach again (collections and anchored scalars) are remembered by identity. The
+    graph is the builder's own: nothing else holds it."""
 
     def __init__(self, doc: Document, limits: Limits, engine: str = ""):
         self.doc = doc
@@ -482,7 +488,8 @@ class _Builder:
                     tag = "!" if m.group(1) == "!" else _tag(raw.tag)
             node: Node = Scalar(raw.value, raw.style or None, tag)
             self._place(node, raw, path)
-            self.memo[id(raw)] = node
+            if node.anchor is not None:  # only an anchored scalar can be met again (an alias)
+                self.memo[id(raw)] = node
             if role and not raw.value and node.plain and node.start == node.end and not node.anchor:
                 self.empties.append((node, role))
             return node
@@ -490,18 +497,22 @@ class _Builder:
             node = Sequence()
             self._place(node, raw, path)
             self.memo[id(raw)] = node
-            for i, item in enumerate(raw.value):
+            items = raw.value
+            for i, item in enumerate(items):
                 child = self._node(item, path + (str(i),), depth + 1)
                 if child is None:
                     return node
                 node.items.append(child)
+                items[i] = None  # let go of the parser's node (see _Builder)
             return node
         node = Mapping()
         self._place(node, raw, path)
         self.memo[id(raw)] = node
         first: dict[str, Node] = {}
         flow = bool(getattr(raw, "flow_style", False))
-        for raw_k, raw_v in raw.value:
+        pairs = raw.value
+        for i, (raw_k, raw_v) in enumerate(pairs):
+            pairs[i] = None  # let go of the parser's nodes once read (see _Builder)
             k = self._node(raw_k, path, depth + 1, "key" if flow else "")
             if k is None:
                 return node
