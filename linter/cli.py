@@ -196,13 +196,14 @@ def _own_output(path) -> bool:
 
 
 def cmd_check(args) -> int:
+    from itertools import chain
+
     from . import filtering
     from .check import CheckOptions, Checker, run, summary_counts
     from .discover import changed_since, discover
     from .findings import Finding, Level, Location
     from .settings import SettingsError
     from .spill import Stream
-    from itertools import chain
 
     settings = _settings(args)
     if getattr(args, "staged_root", None) is not None:
