@@ -56,7 +56,11 @@ class Spill:
         if self._file is None:
             import tempfile
 
-            self._file = tempfile.TemporaryFile(prefix="trimtab-")
+            try:
+                self._file = tempfile.TemporaryFile(prefix="trimtab-")
+            except OSError as exc:  # the command reports it (exit 2) with this name and hint
+                raise OSError(exc.errno, f"{exc.strerror or exc}; set TMPDIR to a writable folder",
+                              "the temporary folder") from None
         f = self._file
         offset = f.seek(0, os.SEEK_END)
         items = sorted(self._items, key=self.key) if self.key is not None else self._items

@@ -101,6 +101,22 @@ def test_a_check_that_spills_reports_the_same_bytes(monkeypatch, fmt, where):
         assert _report(monkeypatch, buffer, fmt, cwd) == want, buffer
 
 
+def test_no_writable_temporary_folder_is_a_plain_error(monkeypatch):
+    import errno
+    import tempfile
+
+    def refuse(*_a, **_k):
+        raise FileNotFoundError(errno.ENOENT, "No usable temporary directory found")
+
+    monkeypatch.setattr(tempfile, "TemporaryFile", refuse)
+    monkeypatch.setattr(spill, "BUFFER", 1)
+    r = run_cli("check", cwd=FIXTURES / "demo")
+    assert r.code == 2 and "Traceback" not in r.err
+    assert r.err.strip().splitlines()[-1] == ("trimtab: error: the temporary folder: cannot be written or "
+                                               "read: No usable temporary directory found; set TMPDIR to a "
+                                               "writable folder")
+
+
 def test_opt4_groups_a_spilled_set(monkeypatch):
     """The set rule's own grouping spills too: the clash is still found, with the same text."""
     cwd = FIXTURES / "rules" / "OPT-4"
