@@ -8,6 +8,16 @@ from .document import Document, Node
 from .findings import Location
 
 
+def whole(x):
+    """``x`` as a positive whole number (an integral float as an int), else None: zero, negative,
+    fractional, boolean and non-numeric values are reported by the rules, never computed with."""
+    if isinstance(x, bool):
+        return None
+    if isinstance(x, float) and x.is_integer():
+        x = int(x)
+    return x if isinstance(x, int) and x > 0 else None
+
+
 @dataclass
 class Value:
     """One resolved concept: its value, the node it was read from and how it got there."""
@@ -22,6 +32,10 @@ class Value:
     inputs: tuple[str, ...] = ()  # for derived values: the concepts it was computed from
     note: str = ""  # how it was read or converted ("x group size 8")
     raw: Any = None  # the value as written, before unit conversion
+
+    @property
+    def whole(self):
+        return whole(self.value)
 
     @property
     def number(self):

@@ -404,22 +404,12 @@ def _world(model: RunModel):
 
 
 # --- derived arithmetic -----------------------------------------------------------------------
-def _whole(v: Value | None):
-    """A positive whole number, or None (zero, negative, fractional or non-numeric values are
-    reported by the rules, never computed with)."""
-    if v is None:
-        return None
-    n = v.number
-    if isinstance(n, float) and n.is_integer():
-        n = int(n)
-    return n if isinstance(n, int) and n > 0 else None
-
-
 def settled(model: RunModel, concept: str):
     """The positive whole value of a concept that later arithmetic may build on: the stated
     value, else the derived one; None when neither exists or when a stated value and the value
     derived from its factors disagree (a rule reports the disagreement; nothing is built on it)."""
-    stated, derived = _whole(model.values.get(concept)), _whole(model.derived.get(concept))
+    s, d = model.values.get(concept), model.derived.get(concept)
+    stated, derived = (s.whole if s is not None else None), (d.whole if d is not None else None)
     if concept in model.values:
         if stated is None:
             return None

@@ -8,6 +8,7 @@ disagreement and the rules downstream stay silent instead of repeating it.
 from __future__ import annotations
 
 from trimtab import rule
+from trimtab.model import whole
 from trimtab.arithmetic import (PARALLEL, either, lcm, near_divisors, near_multiples, related, remainder,
                                 settled)
 
@@ -22,14 +23,6 @@ _NAMES = {
 }
 
 
-def _whole(x):
-    if isinstance(x, bool):
-        return None
-    if isinstance(x, float) and x.is_integer():
-        x = int(x)
-    return x if isinstance(x, int) and x > 0 else None
-
-
 @rule("BAT-1", "completions-product-mismatch", "error",
       "Stated completions per step differ from prompts per step x group size.",
       "Completions per step are prompts per step times completions per prompt (the group size); a "
@@ -39,7 +32,7 @@ def _whole(x):
       needs=("batch.rollouts", "batch.prompts", "rollout.group_size"))
 def completions_product(ctx):
     m = ctx.model
-    r, p, g = (_whole(getattr(m.values.get(c), "value", None))
+    r, p, g = (whole(getattr(m.values.get(c), "value", None))
                for c in ("batch.rollouts", "batch.prompts", "rollout.group_size"))
     if not (r and p and g) or r == p * g:
         return
@@ -96,7 +89,7 @@ def partial_mini_batch(ctx):
         return
     stated = m.values.get("optim.updates_per_step")
     derived = m.derived.get("optim.updates_per_step")
-    if stated is not None and derived is not None and _whole(stated.value) and stated.value != derived.value:
+    if stated is not None and derived is not None and whole(stated.value) and stated.value != derived.value:
         yield ctx.finding(
             f"{_show(stated.value)} updates per step are stated, but {derived.note} = {derived.value}",
             stated.location, related=related(m, "batch.rollouts", "batch.mini", "optim.epochs"),
@@ -121,7 +114,7 @@ def micro_batch_fit(ctx):
     mini, dp = settled(m, "batch.mini"), settled(m, "train.data_parallel")
     micro = settled(m, "batch.micro_per_gpu")
     accum_v = m.values.get("batch.grad_accum")
-    accum = _whole(accum_v.value) if accum_v is not None else None
+    accum = whole(accum_v.value) if accum_v is not None else None
     if not mini or not dp:
         return
     gs = settled(m, "rollout.group_size") or 1
@@ -181,7 +174,7 @@ def micro_batch_fit(ctx):
       needs=("cluster.world_size", "cluster.nodes", "cluster.gpus_per_node"))
 def world_size(ctx):
     m = ctx.model
-    w, n, g = (_whole(getattr(m.values.get(c), "value", None))
+    w, n, g = (whole(getattr(m.values.get(c), "value", None))
                for c in ("cluster.world_size", "cluster.nodes", "cluster.gpus_per_node"))
     if not (w and n and g) or w == n * g:
         return
@@ -242,7 +235,7 @@ def model_parallel(ctx):
                           suggestion="use " + ", or ".join(hints), subject=(world, tuple(degrees.values())))
         return
     stated = m.values.get("train.data_parallel")
-    if stated is not None and _whole(stated.value) and stated.value != world // par:
+    if stated is not None and whole(stated.value) and stated.value != world // par:
         yield ctx.finding(
             f"{_show(stated.value)} data-parallel ranks are stated, but {world} GPUs / {par} per model replica = "
             f"{world // par}", stated.location, related=related(m, "cluster.world_size", *degrees),

@@ -9,13 +9,9 @@ LENGTHS = ("length.prompt_max", "length.response_max", "rollout.context_max", "m
 
 
 def _len(model, concept):
+    """A stated budget as a positive whole number, else None (LEN-1 reports the others)."""
     v = model.values.get(concept)
-    if v is None:
-        return None
-    n = v.number
-    if isinstance(n, float) and n.is_integer():
-        n = int(n)
-    return n if isinstance(n, int) and n > 0 else None
+    return v.whole if v is not None else None
 
 
 @rule("LEN-1", "length-not-positive", "error", "A token budget or context window is not a positive whole number.",
