@@ -9,7 +9,8 @@ from __future__ import annotations
 import io
 import json
 import os
-from contextlib import redirect_stderr, redirect_stdout
+import signal
+from contextlib import contextmanager, redirect_stderr, redirect_stdout
 from pathlib import Path
 
 import pytest
@@ -92,3 +93,18 @@ def pytest_terminal_summary(terminalreporter):
         terminalreporter.section("trimtab measurements")
         for line in MEASURED:
             terminalreporter.write_line(line)
+
+
+@contextmanager
+def bounded(seconds: int, what: str = "the check"):
+    """A hard time bound: a hang fails the test instead of stalling the suite."""
+    def expire(_sig, _frame):
+        raise TimeoutError(f"{what} took longer than {seconds} s")
+
+    old = signal.signal(signal.SIGALRM, expire)
+    signal.alarm(seconds)
+    try:
+        yield
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, old)

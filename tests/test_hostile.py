@@ -4,16 +4,14 @@ from __future__ import annotations
 
 import codecs
 import os
-import signal
 import time
 import tracemalloc
-from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
 import yaml
 
-from support import FIXTURES, MEASURED, run_cli
+from support import FIXTURES, MEASURED, bounded, run_cli
 from trimtab import loader
 from trimtab.check import Checker
 from trimtab.document import Scalar, Sequence, walk
@@ -21,21 +19,6 @@ from trimtab.engine import Registry
 from trimtab.settings import Settings, SettingsError
 
 HOSTILE = FIXTURES / "hostile"
-
-
-@contextmanager
-def bounded(seconds: int, what: str = "the check"):
-    """A hard time bound: a hang fails the test instead of stalling the suite."""
-    def expire(_sig, _frame):
-        raise TimeoutError(f"{what} took longer than {seconds} s")
-
-    old = signal.signal(signal.SIGALRM, expire)
-    signal.alarm(seconds)
-    try:
-        yield
-    finally:
-        signal.alarm(0)
-        signal.signal(signal.SIGALRM, old)
 
 
 @pytest.fixture
@@ -165,7 +148,7 @@ def _mapping_bomb(levels: int = 9, refs: int = 9) -> str:
 
 
 @pytest.mark.parametrize("shape", ["sequence", "mapping"])
-def test_nested_alias_bomb_is_fast_and_bounded(repo, checker_factory, shape):
+def test_nested_alias_bomb_is_fast_andbounded(repo, checker_factory, shape):
     text = _alias_bomb() if shape == "sequence" else _mapping_bomb()
     path = repo / "bomb.yaml"
     path.write_text(text, encoding="utf-8")

@@ -8,15 +8,13 @@ Three external references:
 from __future__ import annotations
 
 import json
-import signal
 import time
-from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
 import yaml
 
-from support import MEASURED, run_cli, shared_path
+from support import MEASURED, bounded, run_cli, shared_path
 from trimtab import loader
 from trimtab.check import Checker
 from trimtab.document import Mapping, Scalar, Sequence, walk
@@ -42,20 +40,6 @@ def _cases(root: Path) -> list[tuple[str, Path]]:
     return sorted((str(p.parent.relative_to(root)), p.parent) for p in root.rglob("in.yaml"))
 
 
-@contextmanager
-def _bounded(seconds: int, what: str):
-    def expire(_sig, _frame):
-        raise TimeoutError(f"{what} took longer than {seconds} s")
-
-    old = signal.signal(signal.SIGALRM, expire)
-    signal.alarm(seconds)
-    try:
-        yield
-    finally:
-        signal.alarm(0)
-        signal.signal(signal.SIGALRM, old)
-
-
 @pytest.fixture(scope="module")
 def checker():
     return Checker(Settings(root=_suite()), Registry())
@@ -69,7 +53,7 @@ def results(checker):
     for cid, folder in _cases(root):
         path = folder / "in.yaml"
         start = time.perf_counter()
-        with _bounded(PER_FILE_SECONDS, cid):
+        with bounded(PER_FILE_SECONDS, cid):
             doc = loader.load(str(path), cid)
             res = checker.check_file(str(path), cid)
         out[cid] = (folder, doc, res, time.perf_counter() - start)
