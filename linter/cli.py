@@ -146,6 +146,13 @@ def _registry():
     return reg
 
 
+def _prepare(args):
+    """What check and audit both start from: the settings, the rules, the options of the run."""
+    from .check import CheckOptions
+
+    return _settings(args), _registry(), CheckOptions(args.only, args.skip, _overrides(args.overrides))
+
+
 def _overrides(items: list[str]) -> list[tuple[str, str]]:
     from .settings import SettingsError
 
@@ -199,17 +206,15 @@ def cmd_check(args) -> int:
     from itertools import chain
 
     from . import filtering
-    from .check import CheckOptions, Checker, run, summary_counts
+    from .check import Checker, run, summary_counts
     from .discover import changed_since, discover
     from .findings import Finding, Level, Location
     from .settings import SettingsError
     from .spill import Stream
 
-    settings = _settings(args)
+    settings, registry, options = _prepare(args)
     if getattr(args, "staged_root", None) is not None:
         settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
-    registry = _registry()
-    options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
     checker = Checker(settings, registry, options)
     if getattr(args, "staged_files", None) is not None:
         files, missing = args.staged_files, []
@@ -355,14 +360,9 @@ def cmd_rules(args) -> int:
 
 def cmd_audit(args) -> int:
     from .audit import audit, write
-    from .check import CheckOptions
     from .findings import Level
 
-    settings = _settings(args)
-    if getattr(args, "staged_root", None) is not None:
-        settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
-    registry = _registry()
-    options = CheckOptions(args.only, args.skip, _overrides(args.overrides))
+    settings, registry, options = _prepare(args)
     page, code = audit(args.configs, settings, registry, options, Level.parse(args.gate or settings.gate))
     try:
         write(page, args.html)
