@@ -960,4 +960,6 @@ def write(page: str, target: str) -> None:
             sys.stdout.write(data.decode("utf-8"))
         sys.stdout.flush()
         return
-    Path(target).write_bytes(data)
+    from .paths import write_atomic
+
+    write_atomic(target, data)

@@ -217,15 +217,14 @@ def cmd_check(args) -> int:
         settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
     checker = Checker(settings, registry, options)
     if getattr(args, "staged_files", None) is not None:
-        files, missing = args.staged_files, []
+        files, missing = args.staged_files, list(getattr(args, "staged_missing", []))
     else:
         used: set[str] = set()
         files, missing = discover(args.paths, settings.root, settings.include, settings.exclude, used,
                                   confine=True)
         for idle in settings.check_include(used, bool(args.paths)):
             print(f"trimtab: note: setting {idle} matches no file", file=sys.stderr)
-    _refuse_overwrite(files, args.output, "--output")
-    _refuse_overwrite(files, args.write_accepted, "--write-accepted")
+    found = list(files)  # every file found, before --since narrows them: none is ever written to
     files = _not_accepted_files(files, args, settings)
     if args.diff and not args.fix:
         raise SettingsError("--diff shows what --fix would change: use --fix --diff")
@@ -238,7 +237,13 @@ def cmd_check(args) -> int:
             raise SettingsError(str(exc)) from None
         files = [(p, s) for p, s in files if s in changed]
     files = _with_dependants(args, files, changed if args.since else None, settings)
-    jobs = args.jobs if args.jobs is not None else settings.jobs
+    # after every file to check is known (the configs built on a base among them): a report or
+    # accepted-findings file never overwrites a checked config
+    _refuse_overwrite(found + files, args.output, "--output")
+    _refuse_overwrite(found + files, args.write_accepted, "--write-accepted")
+    # a number of workers from the settings (which the repository writes) is capped at the
+    # machine's processors; one given on the command line is the user's own choice
+    jobs = args.jobs if args.jobs is not None else min(settings.jobs, _cores())
     if jobs < 1:
         raise SettingsError(f"--jobs {jobs}: expected a number of at least 1")
     progress = None
@@ -268,9 +273,8 @@ def cmd_check(args) -> int:
             return EXIT_INCOMPLETE
         return EXIT_OK
     if accepted_path:
-        path = Path(accepted_path)
-        if not path.is_absolute() and not args.accepted:
-            path = settings.root / path
+        # from the command line: the user's own file; from the settings: confined to the repository
+        path = Path(args.accepted) if args.accepted else settings.path("accepted")
         try:
             rows = filtering.read_accepted(path)
         except filtering.AcceptedFileError as exc:
@@ -290,8 +294,11 @@ def cmd_check(args) -> int:
     failing = any(n and Level.parse(level) >= gate for level, n in counts.items())
     code = EXIT_INCOMPLETE if incomplete else (EXIT_FINDINGS if failing else EXIT_OK)
     summary = {"files": result.files, "runs": result.runs, "skipped": result.skipped, "by_level": counts}
-    out = open(args.output, "w", encoding="utf-8") if args.output else sys.stdout
-    try:
+    from contextlib import nullcontext
+
+    from .paths import atomic_open
+
+    with atomic_open(args.output) if args.output else nullcontext(sys.stdout) as out:
         if args.format == "json":
             from .reports import json_report
 
@@ -304,13 +311,18 @@ def cmd_check(args) -> int:
             from .reports import text
 
             text(findings, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
-    finally:
-        if out is not sys.stdout:
-            out.close()
     skipped = f", {result.skipped} skipped as not run configs" if result.skipped else ""
     print(f"trimtab: {result.files} file(s) checked{skipped}; {counts['error']} error(s), "
           f"{counts['warning']} warning(s), {counts['note']} note(s)", file=sys.stderr)
     return code
+
+
+def _cores() -> int:
+    """The processors this process may run on."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
 
 
 def _with_dependants(args, files, changed, settings):
@@ -387,7 +399,7 @@ def _not_accepted_files(files, args, settings):
     """The accepted-findings file is trimtab's own output, not a config: never check it."""
     own = [p for p in (args.accepted, args.write_accepted) if p]
     if settings.accepted:
-        own.append(str(settings.root / settings.accepted))
+        own.append(str(settings.path("accepted")))
     if not own:
         return files
     skip = {Path(p).resolve() for p in own}
@@ -418,8 +430,10 @@ def _fix(args, settings, findings, files) -> int | None:
     def locate(shown: str):
         if shown in on_disk:
             return on_disk[shown]
-        candidate = settings.root / shown
-        return candidate if candidate.is_file() else None
+        from .paths import confined
+
+        candidate = confined(settings.root / shown, settings.root)  # never a file outside
+        return candidate if candidate is not None and candidate.is_file() else None
 
     plans = fix.plan(findings, locate)
     told = set()

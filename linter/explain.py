@@ -19,6 +19,14 @@ def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel],
     from .discover import relpath
     from pathlib import Path
 
+    from .discover import Refused, discover
+    from .settings import SettingsError
+
+    # the same rule as check and audit: a link in the repository that leads out of it is not followed
+    _found, missing = discover([path], settings.root, [], [])
+    refused = [m for m in missing if isinstance(m, Refused)]
+    if refused:
+        raise SettingsError(f"{refused[0]} {refused[0].reason}")
     checker = Checker(settings, registry, CheckOptions(overrides=list(overrides)))
     shown = relpath(Path(path), settings.root.resolve())
     doc = loader.load(path, shown, settings.limits)

@@ -485,6 +485,8 @@ def draft_command(config: str, settings, output: str | None, out: TextIO, err: T
         return 2
     d = draft(runs, relpath(Path(config), settings.root.resolve()))
     if output:
-        Path(output).write_text(d.toml(), encoding="utf-8")
+        from .paths import write_atomic
+
+        write_atomic(output, d.toml())
     d.report(out, output)
     return 0
