@@ -19,6 +19,7 @@ from pathlib import Path
 from . import __version__
 from .findings import Finding, Level, Location
 from .model import RunModel, Value
+from .redact import for_text, mask_source
 
 LEVELS = (Level.ERROR, Level.WARNING, Level.NOTE)
 # Told by text and by shape as well as by colour (the shapes also print in black and white).
@@ -27,19 +28,14 @@ SHAPE = {Level.ERROR: "\u25a0", Level.WARNING: "\u25b2", Level.NOTE: "\u25cf"}
 BROKEN_FILL = "#fbd5d5"
 BROKEN_INK = "#a50f15"
 
-_CONTROL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f\u202a-\u202e\u2066-\u2069\u200e\u200f\ufeff]")
 _LINE_BREAK = re.compile("\r\n|[\r\n\x85\u2028\u2029]")  # the line breaks YAML counts
 
 
-def _visible(ch: re.Match) -> str:
-    # Control and bidirectional-override characters are shown, never obeyed (they could make the
-    # source read differently from what the loader reads).
-    return f"\u27e8U+{ord(ch.group()):04X}\u27e9"
-
-
 def _e(value) -> str:
-    """Escape any text for an HTML text node or a quoted attribute."""
-    return html.escape(_CONTROL.sub(_visible, str(value)), quote=True)
+    """Escape any text for an HTML text node or a quoted attribute: masked (no credential is shown,
+    ``trimtab.redact``), control and bidirectional-override characters shown, never obeyed (they
+    could make the source read differently from what the loader reads), then HTML-escaped."""
+    return html.escape(for_text(value), quote=True)
 
 
 def _num(n) -> str:
@@ -279,7 +275,7 @@ class Page:
             '<html lang="en">',
             "<head>",
             '<meta charset="utf-8">',
-            f'<meta http-equiv="Content-Security-Policy" content="{_e(csp())}">',
+            f'<meta http-equiv="Content-Security-Policy" content="{html.escape(csp(), quote=True)}">',
             '<meta name="referrer" content="no-referrer">',
             '<meta name="viewport" content="width=device-width, initial-scale=1">',
             f"<title>{_e(title)}</title>",
@@ -925,7 +921,7 @@ def audit(paths: list[str], settings, registry, options, gate: Level) -> tuple[s
         doc = loader.load(path, shown, settings.limits)
         runs, _problems = models(path, settings, registry, options.overrides)
         mine = [f for f in findings if f.location.path == shown]
-        configs.append(Config(shown, doc.text, runs, list(doc.problems), mine))
+        configs.append(Config(shown, mask_source(doc.text, doc), runs, list(doc.problems), mine))
         shown_paths.add(shown)
     # base files the runs were composed from (RunModel.files): shown too, so that findings and
     # related locations in them have a line to point at
@@ -939,7 +935,7 @@ def audit(paths: list[str], settings, registry, options, gate: Level) -> tuple[s
         disk = Path(name) if Path(name).is_absolute() else settings.root / name
         doc = loader.load(str(disk), name, settings.limits)
         mine = [f for f in findings if f.location.path == name]
-        configs.append(Config(name, doc.text, [], list(doc.problems), mine, base_of=bases[name]))
+        configs.append(Config(name, mask_source(doc.text, doc), [], list(doc.problems), mine, base_of=bases[name]))
         shown_paths.add(name)
     other = [f for f in findings if f.location.path not in shown_paths]
     counts = summary_counts(findings)

@@ -69,6 +69,7 @@ class Composed:
     root: Node
     problems: list[CompositionProblem] = field(default_factory=list)
     files: list[str] = field(default_factory=list)  # every file the run was composed from
+    sources: list = field(default_factory=list)  # the Documents of those files other than the run's own
 
 
 class ComposedMapping(Mapping):
@@ -298,15 +299,18 @@ class Composer:
         for _role, d, _r in layers:
             if d.path not in files:
                 files.append(d.path)
+        sources = []
         for _role, d, _r in layers:
             if d is not doc:  # perf: an entry only for a run built from other files (memory per file)
                 self._used.setdefault(doc.path, {})[d.path] = d.text
+                if d not in sources:
+                    sources.append(d)
         interpolate = any("${" in d.text for _role, d, _r in layers) or any(
             "${" in g.text for g in self.given)
         plain = len(layers) == 1 and not self.given and not interpolate and not (
             self.bases_key and isinstance(root, Mapping) and root.get(self.bases_key) is not None)
         if plain or not isinstance(root, Mapping):
-            return Composed(root, self._flush(), files)
+            return Composed(root, self._flush(), files, sources)
         self.hist: dict[tuple, list[tuple[Node, str, str]]] = {}
         self.refs: set[tuple] = set()  # every path on the way to a value that holds a ${...}
         top = _M(root)
@@ -330,7 +334,7 @@ class Composer:
         else:
             out.pairs = list(built.pairs)
         out.chains = chains
-        return Composed(out, self._flush(), files)
+        return Composed(out, self._flush(), files, sources)
 
     def texts(self, doc: Document):
         """(shown path, text) of the other files a run of ``doc`` was composed from."""

@@ -42,6 +42,9 @@ class Rule:
     help: str = ""
     rl_only: bool = True  # skipped for supervised/distillation stages and non-RL files
     scope: str = "run"  # run (one RunModel), file (every Document, RL or not), set (all runs at once)
+    # file rules only: also run on every other file a run is composed from (its bases, the overrides
+    # file, the settings' layers), reporting in that file, whether or not that file is checked itself
+    sources: bool = False
 
     @property
     def area(self) -> str:
@@ -50,12 +53,12 @@ class Rule:
 
 def rule(id: str, name: str, level: str, summary: str, rationale: str, *, needs: tuple = (),
          options: dict | None = None, cwe: int | None = None, help: str = "", rl_only: bool = True,
-         scope: str = "run"):
+         scope: str = "run", sources: bool = False):
     """Decorator: turn a check function into a Rule."""
 
     def wrap(fn):
         return Rule(id, name, Level.parse(level), summary, rationale, fn, tuple(needs), dict(options or {}),
-                    cwe, help, rl_only, scope)
+                    cwe, help, rl_only, scope, sources)
 
     return wrap
 
