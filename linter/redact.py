@@ -241,7 +241,7 @@ def _known():
 _URL = re.compile(r"\b[A-Za-z][A-Za-z0-9+.-]*://[^\s'\"<>`]+")
 _USERINFO = re.compile(r"(?<=://)[^/?#@\s]*@")
 _KEYED = re.compile(r"(?P<key>[A-Za-z_][\w.-]*)(?P<sep>['\"]?\s*[:=]\s*)"
-                    r"(?P<val>\"[^\"\n]*\"|'[^'\n]*'|[^\s,;}\]'\"]+)")
+                    r"(?P<val>\"[^\"\n]*\"|'[^'\n]*'|\$\{[^}\n]*\}|[^\s,;}\]'\"]+)")
 _WORD = re.compile(r"[A-Za-z0-9_+=-]{%d,}" % MIN_LENGTH)
 
 
@@ -277,12 +277,12 @@ def mask(text) -> str:
 
 @functools.lru_cache(maxsize=4096)  # perf: help texts and messages repeat across findings
 def _mask(s: str) -> str:
+    if "://" in s:  # first: the host and path stay readable
+        s = _URL.sub(_url, s)
     known = _known()
     if known is not None:
         s = known.sub(MASK, s)
     s = _any_shape().sub(MASK, s)
-    if "://" in s:
-        s = _URL.sub(_url, s)
     if ":" in s or "=" in s:
         s = _KEYED.sub(_keyed, s)
     return _WORD.sub(_word, s)
