@@ -69,7 +69,6 @@ class Composed:
     root: Node
     problems: list[CompositionProblem] = field(default_factory=list)
     files: list[str] = field(default_factory=list)  # every file the run was composed from
-    sources: list = field(default_factory=list)  # the Documents of those files other than the run's own
 
 
 class ComposedMapping(Mapping):
@@ -109,7 +108,6 @@ class GivenScalar(Scalar):
 
 # --- base files: loaded once per process -------------------------------------------------------
 _DOCS: dict[str, tuple] = {}
-_TEXTS: dict[str, str] = {}
 LOADS = {"count": 0}  # how many base files were read from disk (tests watch the cache with it)
 
 
@@ -128,13 +126,7 @@ def load_source(real: Path, shown: str, limits=loader.Limits()) -> Document:
         LOADS["count"] += 1
         doc = loader.load(key, shown, limits)
         _DOCS[key] = (stamp, doc)
-    _TEXTS[shown] = doc.text
     return doc
-
-
-def source_text(shown: str | None) -> str | None:
-    """The text of a file a composed run used (for the raw text of its nodes)."""
-    return _TEXTS.get(shown) if shown is not None else None
 
 
 def _place(dst: Node, src: Node | None, path: tuple) -> Node:
@@ -233,7 +225,6 @@ class Composer:
                 self.base_files.add(self._shown(self.root / b))
         if self.overrides_doc is not None:
             self.base_files.add(self.overrides_doc.path)
-        self._used: dict[str, dict[str, str]] = {}
         self._places: dict[str, tuple] = {}
         self._source_shown = self._shown(Path(settings.source)) if getattr(settings, "source", None) else "settings"
 
@@ -299,18 +290,15 @@ class Composer:
         for _role, d, _r in layers:
             if d.path not in files:
                 files.append(d.path)
-        sources = []
         for _role, d, _r in layers:
-            if d is not doc:  # perf: an entry only for a run built from other files (memory per file)
-                self._used.setdefault(doc.path, {})[d.path] = d.text
-                if d not in sources:
-                    sources.append(d)
+            if d is not doc:  # the document carries the files its runs were built from
+                doc.sources[d.path] = d
         interpolate = any("${" in d.text for _role, d, _r in layers) or any(
             "${" in g.text for g in self.given)
         plain = len(layers) == 1 and not self.given and not interpolate and not (
             self.bases_key and isinstance(root, Mapping) and root.get(self.bases_key) is not None)
         if plain or not isinstance(root, Mapping):
-            return Composed(root, self._flush(), files, sources)
+            return Composed(root, self._flush(), files)
         self.hist: dict[tuple, list[tuple[Node, str, str]]] = {}
         self.refs: set[tuple] = set()  # every path on the way to a value that holds a ${...}
         top = _M(root)
@@ -334,11 +322,11 @@ class Composer:
         else:
             out.pairs = list(built.pairs)
         out.chains = chains
-        return Composed(out, self._flush(), files, sources)
+        return Composed(out, self._flush(), files)
 
     def texts(self, doc: Document):
         """(shown path, text) of the other files a run of ``doc`` was composed from."""
-        return tuple(self._used.get(doc.path, {}).items())
+        return tuple((shown, source.text) for shown, source in doc.sources.items())
 
     # --- problems -----------------------------------------------------------------------------
     def _problem(self, kind: str, message: str, where: Location, related=(), subject: str = "") -> None:
