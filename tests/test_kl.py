@@ -40,7 +40,7 @@ def test_good_fixture_is_silent(rule_id, name):
 def test_published_kl_coefficients_are_in_the_fixture():
     # Read by a reference library (PyYAML, YAML 1.1), not by trimtab: the check points are really there.
     docs = list(yaml.safe_load_all(fx("KL-5", "good.yaml").read_text()))
-    # 0.04: arXiv:2402.03300; 0.02: arXiv:2203.02155 (from memory); 0.001: arXiv:2501.12948 (from memory)
+    # 0.04: arXiv:2402.03300; 0.02: arXiv:2203.02155 (from memory); 0.001: arXiv:2501.12948v2 (from memory)
     assert [d["kl"]["coef"] for d in docs] == [0.04, 0.02, 0.001]
 
 
@@ -106,7 +106,7 @@ def test_rules_command_shows_the_rationale_with_sources(rule_id):
 
 def test_rules_command_names_the_published_kl_sources():
     out = run_cli("rules", "KL-5").out
-    for source in ("arXiv:2402.03300", "arXiv:2203.02155", "arXiv:2501.12948"):
+    for source in ("arXiv:2402.03300", "arXiv:2203.02155", "arXiv:2501.12948v2"):
         assert source in out
     assert "min = 0.0001" in out and "max = 0.5" in out
     out = run_cli("rules", "KL-4").out

@@ -30,7 +30,7 @@ def test_good_fixture_is_silent(rule_id, name):
 
 
 def test_published_learning_rates_are_in_the_fixture():
-    # 1e-6: arXiv:2402.03300; 3e-6: arXiv:2501.12948 (from memory). PyYAML (YAML 1.1) reads both as
+    # 1e-6: arXiv:2402.03300; 3e-6: arXiv:2501.12948v2 (from memory). PyYAML (YAML 1.1) reads both as
     # floats, so the fixture is written the way both YAML versions agree on.
     docs = list(yaml.safe_load_all(fx("OPT-1", "good.yaml").read_text()))
     rates = [d["optim"].get("lr", d["optim"].get("learning_rate")) for d in docs]
@@ -113,7 +113,7 @@ def test_rules_command_shows_the_rationale_with_sources(rule_id):
 
 def test_rules_command_names_the_published_lr_sources():
     out = run_cli("rules", "OPT-1").out
-    assert "arXiv:2402.03300" in out and "arXiv:2501.12948" in out
+    assert "arXiv:2402.03300" in out and "arXiv:2501.12948v2" in out
     out = run_cli("rules", "OPT-4").out
     assert "Needs: checkpoint.dir, output.dir" in out
 

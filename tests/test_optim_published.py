@@ -14,7 +14,7 @@ PUBLISHED = FIXTURES / "rules" / "published"
 RECIPES = sorted(p.name for p in PUBLISHED.glob("*.yaml"))
 # What each recipe does on purpose (and accepts in place), with the line it would be reported on.
 ON_PURPOSE = {
-    "reasoning-2501.12948.yaml": ("CLP-3", 17, 12),  # clip 10: arXiv:2501.12948, from memory
+    "reasoning-2501.12948.yaml": ("CLP-3", 17, 12),  # clip 10: arXiv:2501.12948v2, from memory
     "decoupled-clip-2503.14476.yaml": ("KL-1", 11, 9),  # no KL term: arXiv:2503.14476
 }
 
