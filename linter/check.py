@@ -53,6 +53,7 @@ class Checker:
         self.registry = registry
         self.options = options or CheckOptions()
         self.active: list[tuple[Rule, dict, Level]] = []
+        _known_ids(registry, self.options)
         configured = settings.rules
         for rid in configured:
             if rid not in registry.rules:
@@ -195,6 +196,23 @@ class Checker:
             out.extend(found)
             crashed = crashed or c
         return out, crashed
+
+
+def _known_ids(registry: Registry, options: CheckOptions) -> None:
+    """--only and --skip name rule ids or areas that exist: a typo would check nothing (or skip
+    nothing) and pass the gate, so it stops the check with the nearest known ids."""
+    import difflib
+
+    from .engine import TOOL_RULES
+
+    ids = set(registry.rules) | set(TOOL_RULES)
+    known = ids | {i.split("-")[0] for i in ids}
+    for option, given in (("--only", options.only), ("--skip", options.skip)):
+        for name in sorted(set(given) - known):
+            near = difflib.get_close_matches(name, sorted(known), n=3, cutoff=0.5)
+            hint = f" (did you mean {', '.join(near)}?)" if near else ""
+            raise SettingsError(f"{option} {name}: expected a rule id or area, found unknown {name!r}{hint}; "
+                                "`trimtab rules` lists them")
 
 
 def _name_run(findings: list[Finding], shown: str) -> None:

@@ -63,7 +63,8 @@ def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
         if len(runs) > 1:
             out.write(f"--- document {m.index + 1}\n")
         kind = "an RL run config" if m.is_rl else "not an RL run config (RL rules skip it)"
-        out.write(f"{m.path}: {kind}; stage {m.stage}; values read as YAML {m.version}\n\n")
+        given = "; --set values as YAML 1.2" if overrides and m.version != "1.2" else ""
+        out.write(f"{m.path}: {kind}; stage {m.stage}; values read as YAML {m.version}{given}\n\n")
         if len(m.files) > 1:
             out.write(f"composed from (first to last): {', '.join(m.files)}\n\n")
         out.write("Concepts found:\n")
