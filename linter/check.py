@@ -38,6 +38,7 @@ class FileResult:
     crashed: bool = False
     set_accepts: bool = False  # the file has acceptance comments naming a set-scope rule
     accepted_at: set = field(default_factory=set)  # (path, line) of findings accepted in a base's text
+    accepted: int = 0  # findings dropped by acceptance comments
 
 
 @dataclass
@@ -153,7 +154,9 @@ class Checker:
             res.skipped = res.runs == 0
         # Acceptances of set-scope rules are applied once the whole set has been checked (accept_set).
         set_ids = {r.id for r, _o, _l in self.rules("set")}
-        res.findings = filtering.apply_acceptances(res.findings, doc.text, shown, self.active_ids - set_ids)
+        before = res.findings
+        res.findings = filtering.apply_acceptances(before, doc.text, shown, self.active_ids - set_ids)
+        res.accepted += _dropped(before, res.findings)
         res.set_accepts = bool(set_ids) and any(set_ids & set(a.ids) for a in filtering.acceptances(doc.text))
         for extra_path, extra_text in self.composer.texts(doc):
             before = res.findings
@@ -161,6 +164,7 @@ class Checker:
                                                        report_unused=False)
             kept = {id(f) for f in res.findings}
             res.accepted_at |= {(f.location.path, f.location.line) for f in before if id(f) not in kept}
+            res.accepted += _dropped(before, res.findings)
         return res
 
     def _run(self, r: Rule, ctx: Context, path: str, res: FileResult) -> None:
@@ -215,6 +219,12 @@ def _known_ids(registry: Registry, options: CheckOptions) -> None:
                                 "`trimtab rules` lists them")
 
 
+def _dropped(before: list[Finding], after: list[Finding]) -> int:
+    """How many findings of ``before`` an acceptance removed (``after`` may add ACC findings)."""
+    kept = {id(f) for f in after}
+    return sum(1 for f in before if id(f) not in kept)
+
+
 def _name_run(findings: list[Finding], shown: str) -> None:
     """A finding of a composed run located in another file (a base) names the run it was found in."""
     for f in findings:
@@ -264,6 +274,7 @@ class RunResult:
     skipped: int
     crashed: bool
     checked: set[str]
+    accepted: int = 0  # findings accepted by comments in the files
 
 
 class _Checked(AbcSet):
@@ -310,6 +321,7 @@ class _Totals:
         self.checked = _Checked()
         self.accepted_at: set = set()
         self.set_accepts: list[str] = []  # files with acceptance comments of set rules
+        self.accepted = 0
         self.progress = progress
 
     def append(self, res: FileResult) -> None:
@@ -321,6 +333,7 @@ class _Totals:
         self.crashed = self.crashed or res.crashed
         self.checked.add(res.path)
         self.accepted_at |= res.accepted_at
+        self.accepted += res.accepted
         if res.set_accepts:
             self.set_accepts.append(res.path)
         if self.progress:
@@ -357,10 +370,11 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
     set_findings, set_crashed = checker.check_set(results.entries)
     results.entries.close()
     # set findings arrive after every file's, as before: ties in the sorted stream keep that order
-    results.findings.extend(checker.accept_set(set_findings, results.checked, results.set_accepts, files))
+    kept = checker.accept_set(set_findings, results.checked, results.set_accepts, files)
+    results.findings.extend(kept)
     stream = spill.Stream(lambda: _reported(results.findings, results.accepted_at))
     return RunResult(stream, results.files, results.runs, results.skipped, results.crashed or set_crashed,
-                     results.checked)
+                     results.checked, results.accepted + _dropped(set_findings, kept))
 
 
 def _reported(findings: spill.Spill, accepted_at: set) -> Iterator[Finding]:

@@ -56,6 +56,9 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--output", metavar="FILE", help="write the report here instead of standard output")
     c.add_argument("--gate", choices=("error", "warning", "note"),
                    help="lowest level that makes the exit status 1 (default: settings, else warning)")
+    c.add_argument("--show", choices=("error", "warning", "note"),
+                   help="report only findings at or above this level; the summary counts the others as not "
+                        "shown (default: note, every finding)")
     c.add_argument("--only", type=_ids, default=set(), metavar="IDS", help="only these rule ids or areas")
     c.add_argument("--skip", type=_ids, default=set(), metavar="IDS", help="not these rule ids or areas")
     c.add_argument("--since", metavar="GIT_REF", help="only files changed since this git ref")
@@ -296,6 +299,7 @@ def cmd_check(args) -> int:
     checked_findings = result.findings
     findings = Stream(lambda: chain(unreadable, checked_findings))
     accepted_path = args.accepted or settings.accepted
+    tally = {"accepted": 0}  # findings the accepted-findings file accepted (set on each pass)
     if args.write_accepted:
         keep = _accepted_elsewhere(Path(args.write_accepted), result.checked, settings.root)
         # a crashed rule is never accepted: it would hide whatever the rule misses
@@ -317,7 +321,7 @@ def cmd_check(args) -> int:
             raise SettingsError(str(exc)) from None
         gone = {str(r.get("file")) for r in rows if not (settings.root / str(r.get("file"))).exists()}
         before, known = findings, result.checked | gone
-        findings = Stream(lambda: filtering.apply_accepted(before, rows, str(accepted_path), known))
+        findings = Stream(lambda: filtering.apply_accepted(before, rows, str(accepted_path), known, tally))
     if args.fix:
         code = _fix(args, settings, findings, files)
         if code is not None:
@@ -330,26 +334,35 @@ def cmd_check(args) -> int:
     failing = any(n and Level.parse(level) >= gate for level, n in counts.items())
     code = EXIT_INCOMPLETE if incomplete else (EXIT_FINDINGS if failing else EXIT_OK)
     summary = {"files": result.files, "runs": result.runs, "skipped": result.skipped, "by_level": counts}
+    shown, hidden = findings, 0
+    if args.show:  # --show LEVEL: the report holds what is at or above it; the gate still sees all
+        least = Level.parse(args.show)
+        hidden = sum(n for level, n in counts.items() if Level.parse(level) < least)
+        shown = Stream(lambda: (f for f in findings if f.level >= least))
+    accepted = result.accepted + tally["accepted"]
+    summary.update(hidden=hidden, accepted=accepted)
     out = open(args.output, "w", encoding="utf-8") if args.output else sys.stdout
     try:
         if args.format == "json":
             from .reports import json_report
 
-            json_report(findings, summary, code, out)
+            json_report(shown, summary, code, out)
         elif args.format == "sarif":
             from . import sarif
 
-            sarif.write(findings, _catalogue(registry), settings.root, out, not incomplete)
+            sarif.write(shown, _catalogue(registry), settings.root, out, not incomplete)
         else:
             from .reports import text
 
-            text(findings, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
+            text(shown, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
     finally:
         if out is not sys.stdout:
             out.close()
     skipped = f", {result.skipped} skipped as not run configs" if result.skipped else ""
+    extra = f"; {hidden} below {args.show} not shown" if args.show else ""
+    extra += f"; {accepted} accepted" if accepted else ""
     print(f"trimtab: {result.files} file(s) checked{skipped}; {counts['error']} error(s), "
-          f"{counts['warning']} warning(s), {counts['note']} note(s)", file=sys.stderr)
+          f"{counts['warning']} warning(s), {counts['note']} note(s){extra}", file=sys.stderr)
     return code
 
 

@@ -18,6 +18,9 @@ def _where(loc: Location) -> str:
 
 
 def text(findings: Iterable[Finding], out: TextIO, colour: bool = False) -> None:
+    """One finding after another; a help paragraph only at the first finding that has it (a
+    report of twenty findings of one rule prints the rule's help once)."""
+    helped: set[str] = set()
     for f in findings:
         level = str(f.level)
         if colour:
@@ -31,7 +34,8 @@ def text(findings: Iterable[Finding], out: TextIO, colour: bool = False) -> None
             out.write((f"{_DIM}{line}{_RESET}" if colour else line) + "\n")
         if f.suggestion:
             out.write(f"    suggestion: {f.suggestion}\n")
-        if f.help:
+        if f.help and f.help not in helped:
+            helped.add(f.help)
             out.write(f"    help: {f.help}\n")
 
 

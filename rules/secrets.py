@@ -134,8 +134,9 @@ def _entries(root):
       "100 characters or more (words and numbers in run names change it far less often). "
       "The value is never shown: findings give the key and a masked form.",
       options={"min_length": 24, "min_entropy_bits": 4.0}, cwe=798, rl_only=False, scope="file",
-      help=CAUTIONS + " A credential that was committed should be treated as exposed: revoke and rotate "
-                      "it, and read it at run time from the environment or a secret store.")
+      help="A credential that was committed should be treated as exposed: revoke and rotate it, and read it "
+           "at run time from the environment or a secret store. Your organisation's security policy and local "
+           "rules take precedence over this advice.")
 def literal_credential(ctx):
     seen = set()
     for root in ctx.doc.roots:

@@ -154,3 +154,55 @@ def test_extra_argument_shows_the_commands_own_usage(repo):
     assert r.err.startswith("usage: trimtab explain ") and "unrecognized arguments: other.yaml" in r.err
     r = run_cli("rules", "BAT-1", "--bogus", cwd=repo)
     assert r.code == 2 and r.err.startswith("usage: trimtab rules ")
+
+
+# --- 8. a rule's help once per report; the safety cautions only where they apply -------------------
+def test_text_report_prints_each_help_paragraph_once():
+    from trimtab.engine import Registry
+    from trimtab_rules._safety import CAUTIONS
+
+    r = run_cli("check", cwd=DEMO)
+    helps = [line for line in r.out.splitlines() if line.startswith("    help: ")]
+    assert helps and len(helps) == len(set(helps)), helps
+    assert r.out.count(CAUTIONS) == 1
+    # every finding still carries its help in the JSON report
+    j = check_json(cwd=DEMO)
+    with_help = [f for f in j.findings if f["help"]]
+    assert len(with_help) > len(helps)
+    rules = Registry().rules
+    for rid in ("REW-3", "REW-4", "REW-5", "SEC-1"):  # plain http, timeout, offline, a literal token
+        assert CAUTIONS not in rules[rid].help, rid
+
+
+# --- 9. show only findings at or above a level --------------------------------------------------
+def test_show_level_hides_lower_findings_and_the_summary_counts_them(repo):
+    (repo / "run.yaml").write_text(RUN.replace("  temperature: 0.9\n", "  temperature: 0.9\n  temperature: 1.0\n")
+                                   .replace("group_size: 8", "group_size: 1"), encoding="utf-8")
+    full = check_json("run.yaml", cwd=repo)
+    levels = {f["level"] for f in full.findings}
+    assert "error" in levels and levels - {"error"}, full.findings
+    below = sum(1 for f in full.findings if f["level"] != "error")
+    r = run_cli("check", "--gate", "error", "--show", "error", "run.yaml", cwd=repo)
+    lines = [ln for ln in r.out.splitlines() if not ln.startswith("    ")]
+    assert lines and all(": error " in ln for ln in lines), lines
+    assert r.code == full.code == 1
+    assert f"{below} below error not shown" in r.err
+    j = check_json("run.yaml", args=["--show", "error"], cwd=repo)
+    assert {f["level"] for f in j.findings} == {"error"} and j.json["summary"]["hidden"] == below
+    assert j.json["summary"]["by_level"] == full.json["summary"]["by_level"]
+
+
+def test_summary_says_how_many_findings_were_accepted(repo):
+    text = RUN.replace("  temperature: 0.9\n", "  temperature: 0.9\n  temperature: 1.0\n")
+    (repo / "run.yaml").write_text(text, encoding="utf-8")
+    assert check_json("run.yaml", cwd=repo).of("YML-2")
+    assert run_cli("check", "--write-accepted", "acc.json", "run.yaml", cwd=repo).code == 0
+    r = run_cli("check", "--accepted", "acc.json", "run.yaml", cwd=repo)
+    n = len(check_json("run.yaml", cwd=repo).findings)
+    assert r.code == 0 and f"; {n} accepted" in r.err, r.err
+    # an acceptance comment counts too
+    (repo / "run.yaml").write_text(text.replace("  temperature: 1.0\n",
+                                                "  temperature: 1.0  # trimtab: accept YML-2 -- test\n"),
+                                   encoding="utf-8")
+    r = check_json("run.yaml", cwd=repo)
+    assert not r.of("YML-2") and r.json["summary"]["accepted"] == 1
