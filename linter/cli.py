@@ -313,7 +313,7 @@ def cmd_check(args) -> int:
         else:
             from .reports import text
 
-            text(shown, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
+            text(findings, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
     finally:
         if out is not sys.stdout:
             out.close()
