@@ -263,7 +263,8 @@ def cmd_check(args) -> int:
     from .pipeline import Pipeline
     from .settings import SettingsError
 
-    settings, registry = _settings(args), _registry()
+    registry = _registry()  # first: a plugin may declare concepts the settings' key map names
+    settings = _settings(args)
     if getattr(args, "staged_root", None) is not None:
         settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
     if args.diff and not args.fix:
@@ -355,7 +356,7 @@ def cmd_rules(args) -> int:
         return EXIT_OK
     for r in rules.values():
         print(f"{r.id:<8} {str(r.level):<8} {r.name:<34} {r.summary}")
-    return EXIT_OK
+    return EXIT_INCOMPLETE if registry.errors else EXIT_OK
 
 
 def _toml(value) -> str:
@@ -376,7 +377,8 @@ def cmd_audit(args) -> int:
     from .pipeline import Pipeline
 
     # a one-off audit may look at a config kept outside the repository (not confined)
-    outcome = Pipeline(_settings(args), _registry()).run(
+    registry = _registry()  # first: a plugin may declare concepts the settings' key map names
+    outcome = Pipeline(_settings(args), registry).run(
         _request(args, paths=args.configs, confine=False, keep_models=True))
     page, code = audit(outcome), outcome.status
     try:
@@ -399,7 +401,8 @@ def _one_file(args):
     """The Outcome of a check of one named file, with its models: what explain and map show."""
     from .pipeline import Pipeline
 
-    return Pipeline(_settings(args), _registry()).run(
+    registry = _registry()  # first: a plugin may declare concepts the settings' key map names
+    return Pipeline(_settings(args), registry).run(
         _request(args, paths=[args.config], confine=False, dependants=False, keep_models=True))
 
 

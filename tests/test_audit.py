@@ -372,7 +372,7 @@ def test_base_files_of_a_composed_run_are_shown_and_linkable(tmp_path, monkeypat
 
     monkeypatch.setattr(compose.Composer, "compose", composed)
 
-    @rule("TST-1", "points-into-base", "note", "test rule", "test only")
+    @rule(id="TST-1", name="points-into-base", level="note", summary="test rule", rationale="test only")
     def points(ctx):
         yield ctx.finding("stated in the base", ctx.model.loc("batch.mini"),
                           related=[Location(base, 15, 3, message="the base's mini-batch")], subject=1)

@@ -199,7 +199,7 @@ def test_missing_path_stops_the_check_with_exit_2(repo):
 class _CrashPlugin:
     @hookimpl
     def trimtab_rules(self):
-        @rule("ZZT-1", "always-crashes", "error", "test rule", "test rule")
+        @rule(id="ZZT-1", name="always-crashes", level="error", summary="test rule", rationale="test rule")
         def crash(ctx):
             raise RuntimeError("boom")
 
@@ -327,6 +327,7 @@ def test_readme_plugin_example_works(tmp_path, monkeypatch):
     readme = (REPO / "README.md").read_text()
     code = re.search(r"```python\n# burrow_rules/__init__.py\n(.*?)```", readme, re.S).group(1)
     module = types.ModuleType("burrow_rules")
+    monkeypatch.setitem(sys.modules, "burrow_rules", module)  # as an installed plugin is
     exec(compile(code, "README.md", "exec"), module.__dict__)
     monkeypatch.setattr(cli, "_registry", lambda: Registry(plugins=[module]))
     (tmp_path / ".git").mkdir()
