@@ -363,3 +363,21 @@ def test_a_fix_through_a_link_in_the_repository_keeps_the_link(repo):
     assert (repo.root / "configs" / "alias.yaml").is_symlink()
     assert real.stat().st_mode & 0o777 == 0o640
     assert "Traceback" not in r.err
+
+
+@pytest.mark.parametrize("how", ["dot-dot", "absolute", "link"])
+def test_a_layers_base_outside_the_repository_is_refused_unread(repo, outside, how):
+    """Bases named in the settings' layers go through the same rule (this held before; kept so)."""
+    target = outside / "base.yaml"
+    target.write_text("optim:\n  lr: 1.0e-6\nnote: " + OUTSIDE_TOKEN + "\n")
+    if how == "link":
+        _symlink(repo.root / "shared-base.yaml", target)
+        name = "shared-base.yaml"
+    else:
+        name = target.as_posix() if how == "absolute" else os.path.relpath(target, repo.root)
+    repo.write("trimtab.toml", 'include = ["configs/*.yaml"]\n[[layers]]\nfiles = "configs/*.yaml"\n'
+                               f"bases = [{json.dumps(name)}]\n")
+    r = repo.trimtab("check", "--format", "json")
+    assert OUTSIDE_TOKEN not in r.out + r.err
+    msgs = [f["message"] for f in json.loads(r.out)["findings"]]
+    assert any("outside the repository" in m for m in msgs), msgs
