@@ -21,10 +21,12 @@ def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel],
 
     checker = Checker(settings, registry, CheckOptions(overrides=list(overrides)))
     shown = relpath(Path(path), settings.root.resolve())
-    doc = loader.load(path, shown, settings.limits)
+    from .shell import load, runs_of
+
+    doc = load(path, shown, settings)
     out = []
     if doc.readable:
-        for i, root in enumerate(doc.roots):
+        for i, root in enumerate(runs_of(doc)):
             composed = checker.composer.compose(doc, root, path)
             m = resolve(doc, composed.root, checker.resolve_opts, i)
             m.settings = settings
@@ -60,7 +62,11 @@ def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
     if not runs:
         return 1 if problems else 0
     for m in runs:
-        if len(runs) > 1:
+        script = m.doc.fmt == "shell"
+        if script:
+            cmd = m.doc.runs[m.index]
+            out.write(f"--- training command {m.index + 1}: {cmd.what} (line {cmd.program.location().line})\n")
+        elif len(runs) > 1:
             out.write(f"--- document {m.index + 1}\n")
         kind = "an RL run config" if m.is_rl else "not an RL run config (RL rules skip it)"
         out.write(f"{m.path}: {kind}; stage {m.stage}; values read as YAML {m.version}\n\n")
@@ -70,7 +76,8 @@ def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
         width = max([len(c) for c in m.values] + [10])
         for name in sorted(m.values):
             v = m.values[name]
-            origin = f"{v.location.label()}  {v.key}  [{v.via}]"
+            layer = m.roles.get(v.key)
+            origin = f"{v.location.label()}  {v.key}  [{v.via}{'; ' + layer if layer else ''}]"
             if v.note:
                 origin += f"  ({v.note})"
             out.write(f"  {name:<{width}}  {_show(v.value):<16}  {origin}\n")
@@ -91,6 +98,10 @@ def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
             out.write("\nAmbiguous (set them in [tool.trimtab.keys]):\n")
             for name, locs in sorted(m.ambiguous.items()):
                 out.write(f"  {name}: " + "; ".join(f"{l.key_path} at {l.label()}" for l in locs) + "\n")
-        missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous]
+        if m.unknown:
+            out.write("\nKnown only at launch (left out of the checks):\n")
+            for name, v in sorted(m.unknown.items()):
+                out.write(f"  {name}  {v.location.label()}  {v.key}: {v.note}\n")
+        missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous and c not in m.unknown]
         out.write("\nNot found:\n" + _wrap(", ".join(missing)) + "\n")
     return 0

@@ -76,6 +76,9 @@ class RunModel:
     settings: Any = None
     files: list[str] = field(default_factory=list)  # every file this run was composed from
     chains: dict[str, list[Location]] = field(default_factory=dict)  # key path -> origin chain (compose)
+    roles: dict[str, str] = field(default_factory=dict)  # key path -> the layer its value came from (compose)
+    notes: list = field(default_factory=list)  # values known only at launch (compose problems, note level)
+    unknown: dict[str, Value] = field(default_factory=dict)  # concepts whose value is known only at launch
 
     @property
     def path(self) -> str:
