@@ -48,6 +48,7 @@ VALUE_UNKNOWN = "compose-value-unknown"  # a value known only at launch (a scrip
 _REF = re.compile(r"\$\$\{|\$\{([^{}$]*)\}")
 _WHOLE = re.compile(r"\$\{([^{}$]*)\}")
 _PATH = re.compile(r"[A-Za-z0-9_\-]+(?:\.[A-Za-z0-9_\-]+)*")
+_RESOLVER = re.compile(r"([A-Za-z_][\w.\-]*)\s*:(.*)", re.S)  # ${name:args}
 _ENV = re.compile(r"[A-Z_][A-Z0-9_]*")  # ${HOME}: an environment variable, not a key of the run
 _MAX_DEPTH = 64
 
@@ -222,6 +223,20 @@ def _entry(item: Node):
         return {"group": group.strip("/"), "option": option, "pkg": pkg, "optional": optional,
                 "override": override, "node": value}
     return None
+
+
+def _absolute(parts: tuple, target: str) -> str:
+    """``${.key}`` / ``${..key}``: relative to the mapping that holds the referring key (one dot) or
+    the one above it (each further dot); other targets as written."""
+    if not target.startswith("."):
+        return target
+    rest = target.lstrip(".")
+    up = len(target) - len(rest)
+    base = parts[:-1]
+    if up - 1 > len(base):
+        return target  # above the top: not a key path (reported as unknown by the caller's check)
+    base = base[:len(base) - (up - 1)]
+    return ".".join(base + ((rest,) if rest else ()))
 
 
 def _removes(node: Node) -> bool:
@@ -883,8 +898,10 @@ class _Interp:
         text = raw.text
         dotted = ".".join(parts)
         whole = _WHOLE.fullmatch(text.strip())
-        if whole and _PATH.fullmatch(whole[1].strip()):
-            target = whole[1].strip()
+        if whole and _RESOLVER.fullmatch(whole[1].strip()):
+            return self._resolver(parts, src, raw, whole[1].strip(), inherited, True)
+        if whole and _PATH.fullmatch(_absolute(parts, whole[1].strip())):
+            target = _absolute(parts, whole[1].strip())
             found = self._lookup(parts, raw, target)
             if parts in self.cyclic or found is None:
                 return plain
@@ -905,6 +922,15 @@ class _Interp:
                 changed = True
                 continue
             target = (m[1] or "").strip()
+            if _RESOLVER.fullmatch(target):
+                r = self._resolver(parts, src, raw, target, inherited, False)
+                if not isinstance(r[0], Scalar) or isinstance(r[0], Unresolved):
+                    return r
+                pieces.append(r[0].text)
+                changed = True
+                hops.extend(r[2][len(inherited):])
+                continue
+            target = _absolute(parts, target)
             if not _PATH.fullmatch(target):
                 pieces.append(m[0])
                 continue
@@ -929,6 +955,32 @@ class _Interp:
         pieces.append(text[pos:])
         new = _place(Scalar("".join(pieces), '"', None), raw, raw.path)
         return (new, src, inherited + hops)
+
+    def _resolver(self, parts: tuple, src: tuple, raw: Node, target: str, inherited: list, whole: bool):
+        """``${name:args}``: an environment lookup with a default reads as its default (the environment
+        can change it at launch); any other resolver's value is known only at launch."""
+        m = _RESOLVER.fullmatch(target)
+        name, args = m[1], m[2]
+        dotted = ".".join(parts)
+        if name == "env" or name.endswith(".env"):
+            var, comma, default = args.partition(",")
+            var, default = var.strip(), default.strip()
+            if comma and "${" not in default:
+                if len(default) >= 2 and default[0] == default[-1] and default[0] in "'\"":
+                    default = default[1:-1]
+                self.c._problem(VALUE_UNKNOWN, f"{dotted}: ${{{target}}} reads the environment variable {var}: "
+                                               f"checked with its default {default!r}, which the environment can "
+                                               "change at launch", raw.location(), subject=f"{dotted}|{target}")
+                node = _place(GivenScalar(default, None, None), raw, raw.path)
+                hop = raw.location(f"{dotted} = ${{{target}}}: the default of environment variable {var}")
+                return (node, src, inherited + [hop])
+            why = f"${{{target}}} reads the environment variable {var}, known only at launch"
+        else:
+            why = f"${{{target}}} is computed by the resolver {name!r} of the launcher's config library at launch"
+        self.c._problem(VALUE_UNKNOWN, f"{dotted}: {why}", raw.location(), subject=f"{dotted}|{target}")
+        node = _place(Unknown(raw.text, raw.style, None), raw, raw.path)
+        node.why = why
+        return (node, src, inherited)
 
     def _lookup(self, parts: tuple, raw: Node, target: str):
         self.active.append((parts, raw))
