@@ -202,6 +202,20 @@ def _own_output(path) -> bool:
     return isinstance(driver, dict) and driver.get("name") == "trimtab"
 
 
+def _refuse_non_configs(paths, settings) -> None:
+    """A file named on the command line that is neither a YAML or JSON config nor a launch script:
+    one plain message (exit 2), not a parse finding."""
+    from .discover import relpath
+    from .settings import SettingsError
+    from .shell import is_config
+
+    for p in paths:
+        path = Path(p)
+        if path.is_file() and not is_config(str(path), relpath(path, settings.root.resolve()), settings):
+            raise SettingsError(f"{p} is neither a YAML or JSON config nor a launch script (settings include and "
+                                "launch.scripts say which files are)")
+
+
 def cmd_check(args) -> int:
     from itertools import chain
 
@@ -213,6 +227,7 @@ def cmd_check(args) -> int:
     from .spill import Stream
 
     settings, registry, options = _prepare(args)
+    _refuse_non_configs(args.paths, settings)
     if getattr(args, "staged_root", None) is not None:
         settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
     checker = Checker(settings, registry, options)
@@ -363,6 +378,7 @@ def cmd_audit(args) -> int:
     from .findings import Level
 
     settings, registry, options = _prepare(args)
+    _refuse_non_configs(args.configs, settings)
     page, code = audit(args.configs, settings, registry, options, Level.parse(args.gate or settings.gate))
     try:
         write(page, args.html)
@@ -378,6 +394,7 @@ def cmd_explain(args) -> int:
     from .explain import explain
 
     settings = _settings(args)
+    _refuse_non_configs([args.config], settings)
     registry = _registry()
     return explain(args.config, settings, registry, _overrides(args.overrides), sys.stdout)
 

@@ -539,28 +539,42 @@ class Reader:
 
         return str(_arith(expr, lookup))
 
-    def _word(self, tok: str, start: int, end: int, t: Text, exps: list[Exp]) -> Word:
+    def _words(self, tok: str, start: int, end: int, t: Text, exps: list[Exp]) -> list[Word]:
+        """The words the program receives for one token: its expansions substituted, and the result of
+        an unquoted expansion split at white space (as the shell splits fields)."""
         hops: list = []
-        out, why, why_at = [], "", -1
+        fields: list[list[str]] = [[]]
+        why, why_at, split = "", -1, False
         for c in tok:
             if c == _PAD:
                 continue
             k = ord(c) - _BASE
-            if 0 <= k < len(exps):
-                try:
-                    value = self._expand(exps[k], t, hops)
-                except _Unknown as exc:
-                    if not why:
-                        why, why_at = exc.why, exps[k].start
-                    continue
-                if len(value) > MAX_VALUE:
-                    why, why_at = "the value is longer than trimtab reads", exps[k].start
-                    continue
-                out.append(value)
-            else:
-                out.append(c)
-        text = None if why else "".join(out)
-        return Word(text, start, end, t.shown, why, why_at, hops, t.text[start:end], t)
+            if not 0 <= k < len(exps):
+                fields[-1].append(c)
+                continue
+            try:
+                value = self._expand(exps[k], t, hops)
+            except _Unknown as exc:
+                if not why:
+                    why, why_at = exc.why, exps[k].start
+                continue
+            if len(value) > MAX_VALUE:
+                why, why_at = "the value is longer than trimtab reads", exps[k].start
+                continue
+            if exps[k].quoted:
+                fields[-1].append(value)
+                continue
+            split = True  # an unquoted expansion: its value is split into fields at white space
+            pieces = re.split(r"[ \t\n]+", value)
+            fields[-1].append(pieces[0])
+            fields.extend([p] for p in pieces[1:])
+        raw = t.text[start:end]
+        if why:
+            return [Word(None, start, end, t.shown, why, why_at, hops, raw, t)]
+        texts = ["".join(f) for f in fields]
+        if split:
+            texts = [x for x in texts if x]
+        return [Word(x, start, end, t.shown, "", -1, list(hops), raw, t) for x in texts]
 
     # --- reading ------------------------------------------------------------------------------------
     def read(self, path: Path, shown: str, text: str, depth: int = 0) -> None:
@@ -614,7 +628,12 @@ class Reader:
                 st.loop_vars.add(cmd[1][0])
                 st.vars.pop(cmd[1][0], None)
             return
-        words = [self._word(tok, s, e, t, exps) for tok, s, e in cmd]
+        words, toks = [], []
+        for tok, s, e in cmd:
+            for w in self._words(tok, s, e, t, exps):
+                words.append(w)
+                toks.append((tok, s, e))
+        cmd = toks
         # leading assignments: the environment of this command, or the script's variables
         assigns = []
         i = 0
@@ -887,8 +906,8 @@ class Reader:
         self._put(run, run.flags, tuple(key.split(".")), value, t, key, flag)
 
     def _override(self, run: LaunchRoot, prefix: str, key: str, w: Word, t: Text) -> None:
-        eq = w.raw.find("=")
-        value = _tail(w, (w.text or "").split("=", 1)[0] + "=") if eq >= 0 else None
+        has_value = "=" in (w.text if w.text is not None else w.raw)
+        value = _tail(w, (w.text or "").split("=", 1)[0] + "=") if has_value else None
         if "@" in key or "/" in key:
             group, _, pkg = key.partition("@")
             run.choices.append((prefix, group, pkg, value, w))
@@ -1101,3 +1120,20 @@ def load(path: str, shown: str, settings) -> Document:
 def runs_of(doc: Document) -> list:
     """The roots a run is composed from: a script's training commands, a config's documents."""
     return doc.runs if doc.fmt == "shell" else doc.roots
+
+
+def is_config(path: str, shown: str, settings) -> bool:
+    """Is a file named on the command line one trimtab checks: YAML, JSON (by name, or by the
+    settings' include globs) or a launch script (by the settings' globs or a shell's ``#!`` line)?"""
+    from .discover import matches
+
+    if shown.lower().endswith((".yaml", ".yml", ".json")) or matches(shown, settings.include):
+        return True
+    if is_script(shown, settings):
+        return True
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(200)
+    except OSError:
+        return True  # unreadable: reported as such by the check, not as "not a config"
+    return is_script(shown, settings, head)
