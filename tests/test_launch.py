@@ -75,7 +75,7 @@ def test_a_finding_points_at_the_override_with_the_base_line_related():
     lines = (folder / "launch.sh").read_text().splitlines()
     assert lines[21][loc["col"] - 1:].startswith("96")
     related = {(Path(r["path"]).name, r["line"]) for r in bat2["related"]}
-    X
+    assert ("base.yaml", 21) in related  # the base's "  mini: 64", replaced by the override
 
 
 # --- 2. --flag value, with a launcher giving processes and nodes ---------------------------------------
