@@ -917,29 +917,19 @@ def csp() -> str:
 
 
 # --- the command -----------------------------------------------------------------------------------
-def audit(paths: list[str], settings, registry, options, gate: Level) -> tuple[str, int]:
-    """(page, exit status) for the configs at ``paths``; the status is the one ``check`` gives."""
-    from . import loader
-    from .check import Checker, run, summary_counts
-    from .discover import discover
-    from .explain import models
-
-    checker = Checker(settings, registry, options)
-    files, missing = discover(paths, settings.root, settings.include, settings.exclude)
-    result = run(checker, files)
-    findings = list(result.findings)
-    for m in missing:
-        findings.insert(0, Finding("YML-6", Level.ERROR, "cannot be read: no such file or folder",
-                                   Location(m), subject=m).finish())
+def audit(outcome) -> str:
+    """The page of a checked run (a pipeline Outcome with its models kept): each checked file,
+    then the base files its runs were composed from, with the findings in place."""
+    findings = list(outcome.findings)
+    by_path: dict = {}
+    for f in findings:
+        by_path.setdefault(f.location.path, []).append(f)
     configs = []
     shown_paths = set()
-    from .shell import load
-
-    for path, shown in files:
-        doc = load(path, shown, settings)
-        runs, _problems = models(path, settings, registry, options.overrides)
-        mine = [f for f in findings if f.location.path == shown]
-        configs.append(Config(shown, doc.text, runs, list(doc.problems), mine))
+    for _path, shown in outcome.files:
+        doc = outcome.doc(shown)
+        configs.append(Config(shown, doc.text if doc else "", outcome.models(shown),
+                              list(doc.problems) if doc else [], by_path.get(shown, [])))
         shown_paths.add(shown)
     # base files the runs were composed from (RunModel.files): shown too, so that findings and
     # related locations in them have a line to point at
@@ -950,17 +940,12 @@ def audit(paths: list[str], settings, registry, options, gate: Level) -> tuple[s
                 if name and name not in shown_paths and c.path not in bases.get(name, []):
                     bases.setdefault(name, []).append(c.path)
     for name in sorted(bases):
-        disk = Path(name) if Path(name).is_absolute() else settings.root / name
-        doc = loader.load(str(disk), name, settings.limits)
-        mine = [f for f in findings if f.location.path == name]
-        configs.append(Config(name, doc.text, [], list(doc.problems), mine, base_of=bases[name]))
+        doc = outcome.doc(name)
+        configs.append(Config(name, doc.text if doc else "", [], list(doc.problems) if doc else [],
+                              by_path.get(name, []), base_of=bases[name]))
         shown_paths.add(name)
     other = [f for f in findings if f.location.path not in shown_paths]
-    counts = summary_counts(findings)
-    incomplete = result.crashed or bool(registry.errors)
-    page = Page(configs, other, gate, counts, incomplete).render()
-    code = 2 if incomplete else (1 if any(f.level >= gate for f in findings) else 0)
-    return page, code
+    return Page(configs, other, outcome.gate, outcome.counts(), outcome.incomplete).render()
 
 
 def write(page: str, target: str) -> None:

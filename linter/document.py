@@ -137,6 +137,9 @@ class Document:
     fmt: str = "yaml"  # yaml, json or shell (a launch script)
     aliases: int = 0
     runs: list = field(default_factory=list)  # a launch script's training commands (shell.LaunchRoot)
+    # the other files a composed run of this document was built from (bases, the overrides file),
+    # by shown path: the raw text of a node written there is read from them
+    sources: dict[str, "Document"] = field(default_factory=dict)
 
     @property
     def readable(self) -> bool:
@@ -147,10 +150,8 @@ class Document:
 
     def raw(self, node: Node) -> str:
         if node.file != self.path:  # a node of a composed run written in another file
-            from .compose import source_text
-
-            text = source_text(node.file)
-            return text[node.start:node.end] if text is not None else getattr(node, "text", "")
+            source = self.sources.get(node.file) if node.file is not None else None
+            return source.text[node.start:node.end] if source is not None else getattr(node, "text", "")
         return self.text[node.start:node.end]
 
 

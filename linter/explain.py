@@ -5,37 +5,42 @@ from __future__ import annotations
 import re
 from typing import TextIO
 
-from . import arithmetic, loader
-from .check import CheckOptions, Checker
-from .model import RunModel
-from .resolve import resolve
+from . import arithmetic
 from .vocabulary import CONCEPTS
 
 _USERINFO = re.compile(r"(?<=://)[^/@\s]+@")  # a URL's user information (may hold a password)
 
 
-def models(path: str, settings, registry, overrides=()) -> tuple[list[RunModel], list[str]]:
-    """The RunModels of one file (one per YAML document) and its read problems."""
-    from .discover import relpath
-    from pathlib import Path
+def models(path: str, settings, registry, overrides=()) -> tuple[list, list[str]]:
+    """The run models of one file (one per YAML document) and its read problems, as the pipeline
+    checked them."""
+    from .pipeline import Pipeline, Request
 
-    checker = Checker(settings, registry, CheckOptions(overrides=list(overrides)))
-    shown = relpath(Path(path), settings.root.resolve())
-    from .shell import load, runs_of
+    outcome = Pipeline(settings, registry).run(Request(paths=[path], overrides=list(overrides), confine=False,
+                                                       dependants=False, keep_models=True))
+    if not outcome.files:
+        return [], [f"{m}: {getattr(m, 'reason', 'cannot be read: no such file or folder')}" for m in outcome.missing]
+    shown = outcome.files[0][1]
+    return outcome.models(shown), problems_of(outcome, shown)
 
-    doc = load(path, shown, settings)
-    out = []
-    if doc.readable:
-        for i, root in enumerate(runs_of(doc)):
-            composed = checker.composer.compose(doc, root, path)
-            m = resolve(doc, composed.root, checker.resolve_opts, i)
-            m.settings = settings
-            m.files = composed.files
-            out.append(m)
-    # read problems, then composition problems (located in the file that holds the line)
-    problems = [f"{getattr(p, 'path', shown) or '<command line>'}:{p.line}:{p.col}: {p.message}"
-                for p in doc.problems]
-    return out, problems
+
+def problems_of(outcome, shown: str) -> list[str]:
+    """The read problems of one checked file, then its composition problems (located in the file
+    that holds the line)."""
+    doc = outcome.doc(shown)
+    return [f"{getattr(p, 'path', shown) or '<command line>'}:{p.line}:{p.col}: {p.message}"
+            for p in (doc.problems if doc is not None else ())]
+
+
+def not_checked(outcome, err: TextIO) -> bool:
+    """Say why the one file asked for was not checked (missing, outside the repository, excluded)."""
+    if outcome.files:
+        return False
+    for m in outcome.missing:
+        err.write(f"trimtab: error: {m}: {getattr(m, 'reason', 'cannot be read: no such file or folder')}\n")
+    if not outcome.missing:
+        err.write("trimtab: error: the file matches the settings' exclude globs; it is not checked\n")
+    return True
 
 
 def _show(value) -> str:
@@ -55,8 +60,14 @@ def _wrap(text: str, width: int = 96) -> str:
     return "\n".join(textwrap.wrap(text, width, initial_indent="  ", subsequent_indent="  "))
 
 
-def explain(path: str, settings, registry, overrides, out: TextIO) -> int:
-    runs, problems = models(path, settings, registry, overrides)
+def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
+    """Explain the one file of a checked run (a pipeline Outcome with its models kept)."""
+    import sys
+
+    if not_checked(outcome, err or sys.stderr):
+        return 2
+    shown = outcome.files[0][1]
+    runs, problems = outcome.models(shown), problems_of(outcome, shown)
     for p in problems:
         out.write(p + "\n")
     if not runs:

@@ -412,10 +412,13 @@ def draft(runs, path: str) -> Draft:
                 d.placed.setdefault(concept, v.key)
                 taken.add(v.key)
     all_keys: dict[str, Node] = {}
+    from .shell import runs_of
+
     for m in runs:
-        if not m.doc.roots or m.index >= len(m.doc.roots):
+        roots = runs_of(m.doc)
+        if not roots or m.index >= len(roots):
             continue
-        root = m.doc.roots[m.index]
+        root = roots[m.index]
         for p, node in _keys(root):
             key = ".".join(p)
             if key in taken or any(key.startswith(t + ".") for t in taken):
@@ -471,19 +474,20 @@ def draft(runs, path: str) -> Draft:
     return d
 
 
-def draft_command(config: str, settings, output: str | None, out: TextIO, err: TextIO) -> int:
-    from .discover import relpath
-    from .engine import Registry
-    from .explain import models
+def draft_command(outcome, output: str | None, out: TextIO, err: TextIO) -> int:
+    """Draft the key map of the one file of a checked run (a pipeline Outcome with its models kept)."""
+    from .explain import not_checked, problems_of
 
-    registry = Registry()
-    runs, problems = models(config, settings, registry)
-    for p in problems:
+    if not_checked(outcome, err):
+        return 2
+    shown = outcome.files[0][1]
+    runs = outcome.models(shown)
+    for p in problems_of(outcome, shown):
         err.write(p + "\n")
     if not runs:
-        err.write(f"trimtab: error: {config}: nothing to map (the file could not be read as YAML or JSON)\n")
+        err.write(f"trimtab: error: {shown}: nothing to map (the file could not be read as YAML or JSON)\n")
         return 2
-    d = draft(runs, relpath(Path(config), settings.root.resolve()))
+    d = draft(runs, shown)
     if output:
         Path(output).write_text(d.toml(), encoding="utf-8")
     d.report(out, output)

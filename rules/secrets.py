@@ -123,8 +123,8 @@ def _entries(root):
                     stack.append((key, item))
 
 
-@rule("SEC-1", "literal-credential", "error", "A config holds a literal credential.",
-      "A token, password or API key written into a config is in version control, in every copy of the "
+@rule(id="SEC-1", name="literal-credential", level="error", summary="A config holds a literal credential.",
+      rationale="A token, password or API key written into a config is in version control, in every copy of the "
       "repository and in every log that prints the config (CWE-798, hard-coded credentials). trimtab "
       "looks at keys named like token, secret, password, api key or credentials whose value is a literal "
       "(not an environment reference such as ${VAR} or a placeholder), at values of well-known "
@@ -181,9 +181,9 @@ def _pinned(value) -> bool:
     return isinstance(value, str) and bool(_COMMIT.match(value.strip().lower()))
 
 
-@rule("SEC-2", "trust-remote-code", "warning",
-      "Weights are loaded with trust_remote_code on (an error when their revision is not pinned).",
-      "trust_remote_code runs Python files shipped with the downloaded weights, on every process that "
+@rule(id="SEC-2", name="trust-remote-code", level="warning",
+      summary="Weights are loaded with trust_remote_code on (an error when their revision is not pinned).",
+      rationale="trust_remote_code runs Python files shipped with the downloaded weights, on every process that "
       "loads them, with the job's permissions (CWE-829, inclusion of functionality from an untrusted "
       "control sphere). With a pinned full commit hash the code is at least the code that was reviewed; "
       "without one, whoever can push to the weights' repository can run code in the run. Checked for the "
@@ -223,9 +223,9 @@ def _remote_code(ctx, v, rev, what, where, rev_name, prefix=""):
 
 
 # --- SEC-3 -----------------------------------------------------------------------------------------
-@rule("SEC-3", "unsafe-deserialisation", "warning",
-      "Referenced reward code deserialises data unsafely.",
-      "Unpickling (pickle.load/loads, Unpickler, shelve, marshal), loading a checkpoint without "
+@rule(id="SEC-3", name="unsafe-deserialisation", level="warning",
+      summary="Referenced reward code deserialises data unsafely.",
+      rationale="Unpickling (pickle.load/loads, Unpickler, shelve, marshal), loading a checkpoint without "
       "weights_only=True, reading arrays with allow_pickle=True, and yaml.load without a safe loader can "
       "all run code named by the data (CWE-502). Found by static analysis of the referenced module and "
       "the local modules it imports; nothing is imported or run.",
@@ -250,5 +250,3 @@ def unsafe_deserialisation(ctx):
                               suggestion="use a safe format (JSON, a tensors-only format, yaml.safe_load) "
                                          "or weights_only=True")
 
-
-RULES = [literal_credential, trust_remote, unsafe_deserialisation]

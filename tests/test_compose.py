@@ -22,8 +22,8 @@ RULES = FIXTURES / "rules"
 
 
 # --- a test-only rule: the rollouts of a step split into whole mini-batches ------------------------
-@rule("TST-1", "rollouts-split-into-mini-batches", "error", "test only",
-      "test only: rollouts = prompts x group size must divide into mini-batches", needs=("batch.rollouts", "batch.mini"))
+@rule(id="TST-1", name="rollouts-split-into-mini-batches", level="error", summary="test only",
+      rationale="test only: rollouts = prompts x group size must divide into mini-batches", needs=("batch.rollouts", "batch.mini"))
 def _split(ctx):
     m = ctx.model
     rollouts, mini = m.int("batch.rollouts"), m.int("batch.mini")
