@@ -286,3 +286,16 @@ def test_credentials_in_a_script_are_masked_on_the_audit_page(tmp_path):
     for text in (r.out, r.err, page.read_text()):
         for secret in SECRETS:
             assert secret not in text
+
+
+def test_readme_launch_example_is_real():
+    """The launch-script output the README shows is what the check prints, line for line."""
+    import re
+
+    from support import REPO
+
+    readme = (REPO / "README.md").read_text()
+    section = readme[readme.index("\n## Launch scripts"):]
+    block = re.search(r"```console\n\$ trimtab check launch.sh --only BAT-2\n(.*?)```", section, re.S).group(1)
+    out = run_cli("check", "launch.sh", "--only", "BAT-2", cwd=LAUNCH / "overrides").out
+    assert block.splitlines() == out.splitlines()
