@@ -299,3 +299,23 @@ def test_readme_launch_example_is_real():
     block = re.search(r"```console\n\$ trimtab check launch.sh --only BAT-2\n(.*?)```", section, re.S).group(1)
     out = run_cli("check", "launch.sh", "--only", "BAT-2", cwd=LAUNCH / "overrides").out
     assert block.splitlines() == out.splitlines()
+
+
+def test_a_changed_base_rechecks_the_scripts_that_launch_it(tmp_path):
+    """pre-commit passes the changed files: a staged base brings the launch scripts that name it,
+    and a defaults list brings the configs whose list names a changed entry."""
+    repo = tmp_path / "repo"
+    shutil.copytree(LAUNCH / "overrides", repo)
+    (repo / ".git").mkdir()
+    res = check_json("configs/base.yaml", cwd=repo)
+    assert res.json["summary"]["files"] == 2  # the base and launch.sh
+    assert [f["location"]["line"] for f in res.of("BAT-2") if f["location"]["path"] == "launch.sh"] == [22]
+    repo = tmp_path / "defaults"
+    shutil.copytree(LAUNCH / "defaults", repo)
+    (repo / ".git").mkdir()
+    res = check_json("configs/optim/sgd.yaml", cwd=repo)
+    assert res.json["summary"]["files"] == 2  # the entry and launch.sh, which chooses it
+    res = check_json("configs/sampler/wide.yaml", cwd=repo)
+    # the entry, the two configs whose lists name it, and launch.sh built on one of them (its own group
+    # choice replaces the entry, but the dependants are found without composing: one check too many)
+    assert res.json["summary"]["files"] == 4
