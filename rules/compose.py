@@ -93,5 +93,18 @@ def override_adds_key(ctx):
     return _report(ctx, "compose-override-new")
 
 
+@rule("CMP-9", "reference-expansion-over-limit", "error", "`${...}` references expand past trimtab's limit.",
+      _LAYERS + "A few lines of references can ask for an exponential amount of text or values (`a: ${b}${b}`, "
+      "`b: ${c}${c}`, ... doubles the text at each level; sections that refer to sections double the tree). "
+      "trimtab stops at its limits (a million characters of text written by references in one run, a "
+      "ten thousand keys and items copied from sections, references leading through 64 others) and "
+      "leaves the value unresolved, so the rules that need it stay silent; the launcher's own resolver "
+      "would build the same amount, or stop. The finding points at the reference where the limit was "
+      "passed.",
+      rl_only=False, scope="file")
+def expansion_over_limit(ctx):
+    return _report(ctx, "compose-expansion")
+
+
 RULES = [reference_cycle, reference_unknown, base_missing, base_cycle, base_outside, override_not_applied,
-         composition_malformed, override_adds_key]
+         composition_malformed, override_adds_key, expansion_over_limit]

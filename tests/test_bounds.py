@@ -1,0 +1,165 @@
+"""Bounded time and memory on hostile input (issue 14, part C; issue 21, the cycle through sections).
+
+Each test is an attack a repository can make on the person or the CI job that checks it. Each
+asserts the safe outcome — a finding where one is due, no traceback, no internal error — under a
+hard time bound of the test harness (support.bounded) against hangs. Speed targets live in
+tests/perf/bench.py, not here: the bounds below are generous and only stop a hang."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from support import FIXTURES, bounded, run_cli
+
+RULES = FIXTURES / "rules"
+
+
+@pytest.fixture
+def repo(tmp_path):
+    (tmp_path / ".git").mkdir()  # tmp_path is the repository root
+    return tmp_path
+
+
+def check(path: Path, *args, cwd: Path | None = None, seconds: int = 60):
+    with bounded(seconds, f"checking {path.name}"):
+        r = run_cli("check", "--format", "json", *args, str(path), cwd=cwd or path.parent)
+    assert "Traceback" not in r.err, r.err
+    assert not [f for f in r.findings if f["rule"].startswith("TOOL")], r.out
+    return r
+
+
+def where(f) -> tuple:
+    return f["location"]["path"], f["location"]["line"], f["location"]["col"]
+
+
+# --- references: expansion and cycles (compose) -----------------------------------------------------
+def test_cmp_9_bad_and_good():
+    bad = check(RULES / "CMP-9" / "bad.yaml", "--only", "CMP", cwd=RULES / "CMP-9")
+    [f] = bad.of("CMP-9")
+    assert where(f) == ("fixtures/rules/CMP-9/bad.yaml", 14, 7), f
+    assert f["message"].startswith("names.r7: references expand to more than 1000000 characters"), f
+    good = check(RULES / "CMP-9" / "good.yaml", "--only", "CMP", cwd=RULES / "CMP-9")
+    assert not good.findings, good.out
+
+
+def test_text_references_that_double_at_each_level_stop_at_the_limit(repo):
+    # 40 levels would be 4 * 2**40 characters (the issue: 1 GB at 27 levels, a MemoryError at 40)
+    lines = [f"l{i}: ${{l{i + 1}}}${{l{i + 1}}}" for i in range(40)] + ["l40: wren"]
+    (repo / "run.yaml").write_text("\n".join(lines) + "\n")
+    r = check(repo / "run.yaml", "--only", "CMP", cwd=repo)
+    [f] = r.of("CMP-9")  # once, where the limit was passed; the references above it stay unresolved
+    assert where(f)[:2] == ("run.yaml", 24) and f["message"].startswith("l23: references expand"), f
+
+
+def test_sections_that_double_at_each_level_stop_at_the_limit(repo):
+    # each section holds two copies of the next: 2**40 values once expanded
+    lines = [f"l{i}:\n  x: ${{l{i + 1}}}\n  y: ${{l{i + 1}}}" for i in range(40)] + ["l40: {v: 1}"]
+    (repo / "run.yaml").write_text("\n".join(lines) + "\n")
+    r = check(repo / "run.yaml", "--only", "CMP", cwd=repo)
+    [f] = r.of("CMP-9")
+    assert "copy more than 10000 keys and items" in f["message"], f
+    assert "${" in (repo / "run.yaml").read_text().splitlines()[f["location"]["line"] - 1], f
+
+
+def test_a_long_chain_of_references_is_a_finding_not_a_recursion_error(repo):
+    lines = [f"l{i}: ${{l{i + 1}}}" for i in range(3000)] + ["l3000: 1"]
+    (repo / "run.yaml").write_text("\n".join(lines) + "\n")
+    r = check(repo / "run.yaml", "--only", "CMP", cwd=repo)
+    [f] = r.of("CMP-9")
+    assert "references lead through more than 64 other references" in f["message"], f
+
+
+# issue 21: a case a property test of composition drew (it hung about one run in eight)
+MUTUAL_SECTIONS = """\
+a:
+  c: ${rollout}
+  a: ${rollout}
+rollout:
+  b: ${a}
+b:
+  b: ${a}
+"""
+
+
+def test_sections_that_refer_to_each_other_are_a_cycle(repo):
+    (repo / "run.yaml").write_text(MUTUAL_SECTIONS)
+    r = check(repo / "run.yaml", "--only", "CMP", cwd=repo, seconds=30)
+    cycles = r.of("CMP-1")
+    through = [f for f in cycles if "cycle through sections" in f["message"]]
+    # b.b brings in a, whose c brings in rollout, whose b brings in a again: reported at rollout.b
+    assert [(where(f), f["message"].split(" (")[0]) for f in through] == [
+        (("run.yaml", 5, 6), "interpolation cycle through sections: a -> rollout -> a")], r.out
+    assert not r.of("CMP-9"), r.out
+
+
+# --- the answer-format pattern: compiled and tried within a CPU-time budget (REW-9, REW-11) --------
+def _with_pattern(repo: Path, pattern: str) -> Path:
+    text = (RULES / "REW-11" / "bad.yaml").read_text().replace("format_pattern: '^(.+)+!$'", "format_pattern: PATTERN")
+    path = repo / "run.yaml"
+    path.write_text(text.replace("PATTERN", "'" + pattern.replace("'", "''") + "'"))
+    return path
+
+
+def test_rew_11_bad_and_good():
+    bad = check(RULES / "REW-11" / "bad.yaml", "--only", "REW", cwd=RULES / "REW-11")
+    [f] = bad.of("REW-11")
+    assert where(f) == ("fixtures/rules/REW-11/bad.yaml", 18, 17), f
+    assert f["message"].startswith("reward.format_pattern: matching a 82-character answer built from the "
+                                   "template takes more than 1 s of CPU time"), f
+    assert not bad.of("REW-10"), bad.out  # not tested to the end: no claim that it rejects the answer
+    good = check(RULES / "REW-11" / "good.yaml", "--only", "REW", cwd=RULES / "REW-11")
+    assert not good.findings, good.out
+
+
+@pytest.mark.parametrize("pattern", [r"(.+)+!", r"(\s*\S+\s*)+!", r"(?s)(.*?,?)*!"])
+def test_backtracking_patterns_stop_at_the_budget(repo, pattern):
+    r = check(_with_pattern(repo, pattern), "--only", "REW", cwd=repo, seconds=30)
+    [f] = r.of("REW-11")
+    assert "takes more than 1 s of CPU time" in f["message"], f
+
+
+@pytest.mark.parametrize("pattern, why", [
+    ("(" * 5000 + ")" * 5000, "nests too deeply"),
+    ("a{4294967296}", "the repetition number is too large"),
+    ("(?:" * 300 + "a" + ")" * 300 + "{99999999999999999999}", "too large"),
+])
+def test_patterns_that_crash_the_compiler_are_rew_9(repo, pattern, why):
+    r = check(_with_pattern(repo, pattern), "--only", "REW", cwd=repo, seconds=30)
+    [f] = r.of("REW-9")
+    assert f["message"].startswith("reward.format_pattern does not compile") and why in f["message"], f
+
+
+def test_a_pattern_too_long_to_compile_in_the_budget_is_rew_11(repo):
+    r = check(_with_pattern(repo, "x" * 1_000_000), "--only", "REW", cwd=repo, seconds=60)
+    [f] = r.of("REW-11")
+    assert "compiling it takes more than 1 s" in f["message"], f
+
+
+def test_the_budget_interrupts_a_match_and_restores_the_signal_handler():
+    import re
+    import signal
+    import threading
+
+    from trimtab import budget
+
+    before = signal.getsignal(signal.SIGVTALRM)
+    with bounded(30, "a budgeted match"):
+        with pytest.raises(budget.OverBudget):
+            with budget.cpu_budget(0.2):
+                re.search(r"(.+)+!", "a" * 40)
+    assert signal.getsignal(signal.SIGVTALRM) is before
+    assert signal.getitimer(signal.ITIMER_VIRTUAL) == (0.0, 0.0)
+    seen = []
+
+    def elsewhere():
+        try:
+            with budget.cpu_budget(0.2):
+                seen.append("ran")
+        except budget.NoBudget:
+            seen.append("refused")
+
+    t = threading.Thread(target=elsewhere)
+    t.start()
+    t.join()
+    assert seen == ["refused"]  # never run unbounded
