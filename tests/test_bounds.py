@@ -163,3 +163,58 @@ def test_the_budget_interrupts_a_match_and_restores_the_signal_handler():
     t.start()
     t.join()
     assert seen == ["refused"]  # never run unbounded
+
+
+# --- integers of thousands of digits ---------------------------------------------------------------
+HUGE = {
+    "group_size: 8": "group_size: 0b" + "1" * 20_000,  # binary: 20,000 digits
+    "kl_coef: 0.001": "kl_coef: 0x" + "f" * 6_000,  # hexadecimal: 6,000 digits
+    "temperature: 1.0": "temperature: " + "9" * 5_000,  # decimal: past Python's 4300-digit printing limit
+}
+
+
+def test_integers_of_thousands_of_digits_are_a_finding_and_the_other_files_are_checked(repo):
+    base = (RULES / "REW-10" / "bad.yaml").read_text()
+    for i, (old, new) in enumerate(HUGE.items()):
+        assert old in base
+        (repo / f"huge{i}.yaml").write_text(base.replace(old, new))
+    (repo / "plain.yaml").write_text(base)
+    alone = check(repo / "plain.yaml", cwd=repo)
+    for fmt in ("json", "sarif", "text"):
+        with bounded(120, f"the {fmt} report"):
+            r = run_cli("check", "--format", fmt, ".", cwd=repo)
+        assert "Traceback" not in r.err and r.code == 1, (fmt, r.err)
+        if fmt == "sarif":
+            import json
+
+            assert not [x for x in json.loads(r.out)["runs"][0]["results"] if x["ruleId"].startswith("TOOL")]
+        else:
+            assert "TOOL-1" not in r.out, r.out
+    r = check(repo, cwd=repo)
+    line_of = {text.strip(): n for n, text in enumerate(base.splitlines(), 1)}
+    got = {(f["location"]["path"], f["location"]["line"]) for f in r.of("YML-5")}
+    assert got == {(f"huge{i}.yaml", line_of[old]) for i, old in enumerate(HUGE)}, r.out
+    assert all("past trimtab's limit (10^30)" in f["message"] for f in r.of("YML-5"))
+    assert not r.of("VOC-2"), r.out  # reported once, as the limit
+    # the plain file gets exactly the findings it gets when checked alone
+    assert [f for f in r.findings if f["location"]["path"] == "plain.yaml"] == alone.findings
+
+
+@pytest.mark.parametrize("text, value", [
+    ("1" * 30, int("1" * 30)),  # just below 10^30: still a number
+    ("0x" + "f" * 24, 16 ** 24 - 1),
+    ("1:30:00", 5400),  # YAML 1.1 base 60
+    ("0" * 500 + "7", 7),  # leading zeros do not count (YAML 1.1 octal, YAML 1.2 decimal)
+])
+def test_integers_below_the_limit_keep_their_value(text, value):
+    from trimtab import scalars
+
+    assert scalars.type11(text) == value and not scalars.oversized(text)
+
+
+@pytest.mark.parametrize("text", ["1" + "0" * 30, "0x" + "f" * 26, "-" + "9" * 40, "1" + ":00" * 5000])
+def test_integers_past_the_limit_stay_text_without_converting(text):
+    from trimtab import scalars
+
+    with bounded(10, "typing a long integer"):
+        assert scalars.typed(text, True, None, "1.1") == text and scalars.oversized(text)
