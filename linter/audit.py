@@ -19,6 +19,7 @@ from pathlib import Path
 from . import __version__
 from .findings import Finding, Level, Location
 from .model import RunModel, Value
+from .redact import for_text, mask_source
 
 LEVELS = (Level.ERROR, Level.WARNING, Level.NOTE)
 # Told by text and by shape as well as by colour (the shapes also print in black and white).
@@ -27,19 +28,18 @@ SHAPE = {Level.ERROR: "\u25a0", Level.WARNING: "\u25b2", Level.NOTE: "\u25cf"}
 BROKEN_FILL = "#fbd5d5"
 BROKEN_INK = "#a50f15"
 
-_CONTROL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f\u202a-\u202e\u2066-\u2069\u200e\u200f\ufeff]")
-_LINE_BREAK = re.compile("\r\n|[\r\n\x85\u2028\u2029]")  # the line breaks YAML counts
-
-
-def _visible(ch: re.Match) -> str:
-    # Control and bidirectional-override characters are shown, never obeyed (they could make the
-    # source read differently from what the loader reads).
-    return f"\u27e8U+{ord(ch.group()):04X}\u27e9"
+# The line breaks the loaders count, so that page lines match finding lines: YAML 1.1 counts CR, LF,
+# NEL, LS and PS (YAML 1.1, section 5.4), and both reference readers (PyYAML; ruamel.yaml, whose
+# scanner keeps PyYAML's) count all five even in YAML 1.2 mode. YAML 1.2 itself counts only CR and
+# LF (YAML 1.2.2, section 5.4): to a strict 1.2 reader NEL, LS and PS are content.
+_LINE_BREAK = re.compile("\r\n|[\r\n\x85\u2028\u2029]")
 
 
 def _e(value) -> str:
-    """Escape any text for an HTML text node or a quoted attribute."""
-    return html.escape(_CONTROL.sub(_visible, str(value)), quote=True)
+    """Escape any text for an HTML text node or a quoted attribute: masked (no credential is shown,
+    ``trimtab.redact``), control and bidirectional-override characters shown, never obeyed (they
+    could make the source read differently from what the loader reads), then HTML-escaped."""
+    return html.escape(for_text(value), quote=True)
 
 
 def _num(n) -> str:
@@ -279,7 +279,7 @@ class Page:
             '<html lang="en">',
             "<head>",
             '<meta charset="utf-8">',
-            f'<meta http-equiv="Content-Security-Policy" content="{_e(csp())}">',
+            f'<meta http-equiv="Content-Security-Policy" content="{html.escape(csp(), quote=True)}">',
             '<meta name="referrer" content="no-referrer">',
             '<meta name="viewport" content="width=device-width, initial-scale=1">',
             f"<title>{_e(title)}</title>",
@@ -905,27 +905,19 @@ def csp() -> str:
 
 
 # --- the command -----------------------------------------------------------------------------------
-def audit(paths: list[str], settings, registry, options, gate: Level) -> tuple[str, int]:
-    """(page, exit status) for the configs at ``paths``; the status is the one ``check`` gives."""
-    from . import loader
-    from .check import Checker, run, summary_counts
-    from .discover import discover
-    from .explain import models
-
-    checker = Checker(settings, registry, options)
-    files, missing = discover(paths, settings.root, settings.include, settings.exclude)
-    result = run(checker, files)
-    findings = list(result.findings)
-    for m in missing:
-        findings.insert(0, Finding("YML-6", Level.ERROR, "cannot be read: no such file or folder",
-                                   Location(m), subject=m).finish())
+def audit(outcome) -> str:
+    """The page of a checked run (a pipeline Outcome with its models kept): each checked file,
+    then the base files its runs were composed from, with the findings in place."""
+    findings = list(outcome.findings)
+    by_path: dict = {}
+    for f in findings:
+        by_path.setdefault(f.location.path, []).append(f)
     configs = []
     shown_paths = set()
-    for path, shown in files:
-        doc = loader.load(path, shown, settings.limits)
-        runs, _problems = models(path, settings, registry, options.overrides)
-        mine = [f for f in findings if f.location.path == shown]
-        configs.append(Config(shown, doc.text, runs, list(doc.problems), mine))
+    for _path, shown in outcome.files:
+        doc = outcome.doc(shown)
+        configs.append(Config(shown, mask_source(doc.text, doc) if doc else "", outcome.models(shown),
+                              list(doc.problems) if doc else [], by_path.get(shown, [])))
         shown_paths.add(shown)
     # base files the runs were composed from (RunModel.files): shown too, so that findings and
     # related locations in them have a line to point at
@@ -936,17 +928,12 @@ def audit(paths: list[str], settings, registry, options, gate: Level) -> tuple[s
                 if name and name not in shown_paths and c.path not in bases.get(name, []):
                     bases.setdefault(name, []).append(c.path)
     for name in sorted(bases):
-        disk = Path(name) if Path(name).is_absolute() else settings.root / name
-        doc = loader.load(str(disk), name, settings.limits)
-        mine = [f for f in findings if f.location.path == name]
-        configs.append(Config(name, doc.text, [], list(doc.problems), mine, base_of=bases[name]))
+        doc = outcome.doc(name)
+        configs.append(Config(name, mask_source(doc.text, doc) if doc else "", [], list(doc.problems) if doc else [],
+                              by_path.get(name, []), base_of=bases[name]))
         shown_paths.add(name)
     other = [f for f in findings if f.location.path not in shown_paths]
-    counts = summary_counts(findings)
-    incomplete = result.crashed or bool(registry.errors)
-    page = Page(configs, other, gate, counts, incomplete).render()
-    code = 2 if incomplete else (1 if any(f.level >= gate for f in findings) else 0)
-    return page, code
+    return Page(configs, other, outcome.gate, outcome.counts(), outcome.incomplete).render()
 
 
 def write(page: str, target: str) -> None:

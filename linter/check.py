@@ -9,6 +9,7 @@ from collections.abc import Iterable, Iterator
 from collections.abc import Set as AbcSet
 from dataclasses import dataclass, field
 from itertools import groupby
+from typing import Any
 
 from . import filtering, loader, spill
 from .compose import Composer
@@ -29,6 +30,14 @@ class SetEntry:
 
 
 @dataclass
+class Kept:
+    """A checked file's Document and every run model of it (RL or not), kept on request."""
+
+    doc: Any
+    models: list = field(default_factory=list)
+
+
+@dataclass
 class FileResult:
     path: str
     findings: list[Finding] = field(default_factory=list)
@@ -36,8 +45,9 @@ class FileResult:
     skipped: bool = False  # read, but not an RL run config
     entries: list[SetEntry] = field(default_factory=list)
     crashed: bool = False
-    set_accepts: bool = False  # the file has acceptance comments naming a set-scope rule
+    set_accepts: str | None = None  # the file's text, when it has acceptance comments naming a set-scope rule
     accepted_at: set = field(default_factory=set)  # (path, line) of findings accepted in a base's text
+    kept: Kept | None = None  # on request: the Document and its run models
 
 
 @dataclass
@@ -109,11 +119,15 @@ class Checker:
             hit = cache[scope] = (len(self.active), [(r, o, l) for r, o, l in self.active if r.scope == scope])
         return hit[1]
 
-    def check_file(self, path: str, shown: str) -> FileResult:
+    def check_file(self, path: str, shown: str, keep: bool = False) -> FileResult:
+        """Load, compose, resolve and run the rules on one file. ``keep``: keep its Document and
+        run models in the result (for the views that show them)."""
         from .discover import matches
 
         res = FileResult(shown)
         doc = loader.load(path, shown, self.settings.limits)
+        if keep:
+            res.kept = Kept(doc)
         # A file other files build on (a base declared in the settings' layers, the overrides file) is
         # checked as a file here and as part of every run built on it, not as a run of its own.
         as_run = doc.readable and shown not in self.composer.base_files
@@ -121,6 +135,15 @@ class Checker:
         composed = [self.composer.compose(doc, root, path) for root in doc.roots] if as_run else []
         for r, opts, level in self.rules("file"):
             self._run(r, Context(r, None, doc, opts, level, settings=self.settings), shown, res)
+        # File rules that cover every file a run is composed from (SEC-1): its bases, the overrides
+        # file and the settings' layers, each once, reporting in that file (a finding there that the
+        # file's own check also gives is merged with it, see _merge_duplicates).
+        for src in list(doc.sources.values()) if as_run else ():
+            if src.path == shown:
+                continue
+            for r, opts, level in self.rules("file"):
+                if r.sources:
+                    self._run(r, Context(r, None, src, opts, level, settings=self.settings), src.path, res)
         if as_run:
             force = matches(shown, self.settings.run_configs) if self.settings.run_configs else False
             opts_r = self.resolve_opts
@@ -131,6 +154,8 @@ class Checker:
                 model = resolve(doc, comp.root, opts_r, index)
                 model.settings = self.settings
                 model.files = comp.files
+                if keep:
+                    res.kept.models.append(model)
                 if not model.is_rl:
                     continue
                 res.runs += 1
@@ -153,7 +178,8 @@ class Checker:
         # Acceptances of set-scope rules are applied once the whole set has been checked (accept_set).
         set_ids = {r.id for r, _o, _l in self.rules("set")}
         res.findings = filtering.apply_acceptances(res.findings, doc.text, shown, self.active_ids - set_ids)
-        res.set_accepts = bool(set_ids) and any(set_ids & set(a.ids) for a in filtering.acceptances(doc.text))
+        if set_ids and any(set_ids & set(a.ids) for a in filtering.acceptances(doc.text)):
+            res.set_accepts = doc.text
         for extra_path, extra_text in self.composer.texts(doc):
             before = res.findings
             res.findings = filtering.apply_acceptances(before, extra_text, extra_path, self.active_ids,
@@ -167,9 +193,11 @@ class Checker:
         res.findings.extend(found)
         res.crashed = res.crashed or crashed
 
-    def accept_set(self, found: list[Finding], checked, set_accepts: list[str], files: list[tuple[str, str]]):
+    def accept_set(self, found: list[Finding], checked, set_accepts: dict[str, str], files: list[tuple[str, str]]):
         """Apply the files' acceptance comments to the set-scope findings. ``checked``: the paths
-        checked; ``set_accepts``: those holding acceptances of set rules."""
+        checked; ``set_accepts``: the text of those holding acceptances of set rules, by path."""
+        from .compose import load_source
+
         real = {shown: path for path, shown in files}
         set_ids = {r.id for r, _o, _l in self.rules("set")}
         by_path: dict[str, list[Finding]] = {}
@@ -180,10 +208,16 @@ class Checker:
         commented = list(set_accepts) + sorted(p for p in by_path if p and p not in checked)
         out = [f for p, fs in by_path.items() if p not in commented for f in fs]
         for path in commented:
-            doc = loader.load(real.get(path, str(self.settings.root / path)), path, self.settings.limits)
+            # the text kept by the check of the file; a base's from the composer's cache
+            text = set_accepts.get(path)
+            if text is None:
+                from pathlib import Path
+
+                text = load_source(Path(real.get(path, str(self.settings.root / path))), path,
+                                   self.settings.limits).text
             # Unused ones are not reported: whether a set rule fires depends on which files were
             # checked together (a pre-commit run sees only the changed ones).
-            out.extend(filtering.apply_acceptances(by_path.get(path, []), doc.text, path, set_ids,
+            out.extend(filtering.apply_acceptances(by_path.get(path, []), text, path, set_ids,
                                                    report_unused=False))
         return out
 
@@ -246,6 +280,7 @@ class RunResult:
     skipped: int
     crashed: bool
     checked: set[str]
+    kept: dict = field(default_factory=dict)  # shown path -> Kept (on request)
 
 
 class _Checked(AbcSet):
@@ -291,7 +326,8 @@ class _Totals:
         self.crashed = False
         self.checked = _Checked()
         self.accepted_at: set = set()
-        self.set_accepts: list[str] = []  # files with acceptance comments of set rules
+        self.set_accepts: dict[str, str] = {}  # text of the files with acceptance comments of set rules
+        self.kept: dict[str, Kept] = {}
         self.progress = progress
 
     def append(self, res: FileResult) -> None:
@@ -303,18 +339,21 @@ class _Totals:
         self.crashed = self.crashed or res.crashed
         self.checked.add(res.path)
         self.accepted_at |= res.accepted_at
-        if res.set_accepts:
-            self.set_accepts.append(res.path)
+        if res.set_accepts is not None:
+            self.set_accepts[res.path] = res.set_accepts
+        if res.kept is not None:
+            self.kept[res.path] = res.kept
         if self.progress:
             self.progress(res)
 
 
-def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=None) -> RunResult:
+def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=None,
+        keep: bool = False) -> RunResult:
     """Check the files. The result's findings are in report order, read again from a Spill on
-    each pass over them."""
+    each pass over them. ``keep``: keep each file's Document and run models (one process)."""
     global _WORKER
     results = _Totals(progress)
-    if jobs > 1 and len(files) > 1:
+    if jobs > 1 and len(files) > 1 and not keep:
         import multiprocessing
         from concurrent.futures import ProcessPoolExecutor
 
@@ -335,14 +374,14 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
         _WORKER = None
     else:
         for path, shown in files:
-            results.append(checker.check_file(path, shown))
+            results.append(checker.check_file(path, shown, keep))
     set_findings, set_crashed = checker.check_set(results.entries)
     results.entries.close()
     # set findings arrive after every file's, as before: ties in the sorted stream keep that order
     results.findings.extend(checker.accept_set(set_findings, results.checked, results.set_accepts, files))
     stream = spill.Stream(lambda: _reported(results.findings, results.accepted_at))
     return RunResult(stream, results.files, results.runs, results.skipped, results.crashed or set_crashed,
-                     results.checked)
+                     results.checked, results.kept)
 
 
 def _reported(findings: spill.Spill, accepted_at: set) -> Iterator[Finding]:

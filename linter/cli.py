@@ -10,6 +10,8 @@ import os
 import sys
 from pathlib import Path
 
+from .redact import for_text  # every message that shows a file's text: masked, controls made visible
+
 EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
 
 
@@ -116,7 +118,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "audit":
             return cmd_audit(args)
     except SettingsError as exc:
-        print(f"trimtab: error: {exc}", file=sys.stderr)
+        print(f"trimtab: error: {for_text(exc)}", file=sys.stderr)
         return EXIT_INCOMPLETE
     except BrokenPipeError:
         return EXIT_OK
@@ -125,7 +127,8 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INCOMPLETE
     except OSError as exc:  # a report or accepted-findings file that cannot be written: say so plainly
         where = exc.filename if exc.filename is not None else "a file"
-        print(f"trimtab: error: {where}: cannot be written or read: {exc.strerror or exc}", file=sys.stderr)
+        print(f"trimtab: error: {for_text(where)}: cannot be written or read: {for_text(exc.strerror or exc)}",
+              file=sys.stderr)
         return EXIT_INCOMPLETE
     parser.error(f"unknown command {args.command}")
     return EXIT_INCOMPLETE
@@ -142,15 +145,8 @@ def _registry():
 
     reg = Registry()
     for err in reg.errors:
-        print(f"trimtab: error: {err}", file=sys.stderr)
+        print(f"trimtab: error: {for_text(err)}", file=sys.stderr)
     return reg
-
-
-def _prepare(args):
-    """What check and audit both start from: the settings, the rules, the options of the run."""
-    from .check import CheckOptions
-
-    return _settings(args), _registry(), CheckOptions(args.only, args.skip, _overrides(args.overrides))
 
 
 def _overrides(items: list[str]) -> list[tuple[str, str]]:
@@ -202,104 +198,77 @@ def _own_output(path) -> bool:
     return isinstance(driver, dict) and driver.get("name") == "trimtab"
 
 
+def _request(args, **extra):
+    """The pipeline request of a command's arguments."""
+    from .pipeline import Request
+
+    return Request(only=getattr(args, "only", set()), skip=getattr(args, "skip", set()),
+                   overrides=_overrides(getattr(args, "overrides", [])), gate=getattr(args, "gate", None),
+                   notes=lambda text: print(f"trimtab: note: {for_text(text)}", file=sys.stderr), **extra)
+
+
+def _progress(args):
+    def start(total: int):
+        if args.no_progress or not sys.stderr.isatty() or total <= 20 or os.environ.get("PRE_COMMIT"):
+            return None
+        from .progress import Progress
+
+        return Progress(total, sys.stderr)
+
+    return start
+
+
 def cmd_check(args) -> int:
-    from itertools import chain
-
     from . import filtering
-    from .check import Checker, run, summary_counts
-    from .discover import changed_since, discover
-    from .findings import Finding, Level, Location
+    from .pipeline import Pipeline
     from .settings import SettingsError
-    from .spill import Stream
 
-    settings, registry, options = _prepare(args)
+    registry = _registry()  # first: a plugin may declare concepts the settings' key map names
+    settings = _settings(args)
     if getattr(args, "staged_root", None) is not None:
         settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
-    checker = Checker(settings, registry, options)
-    if getattr(args, "staged_files", None) is not None:
-        files, missing = args.staged_files, []
-    else:
-        used: set[str] = set()
-        files, missing = discover(args.paths, settings.root, settings.include, settings.exclude, used,
-                                  confine=True)
-        for idle in settings.check_include(used, bool(args.paths)):
-            print(f"trimtab: note: setting {idle} matches no file", file=sys.stderr)
-    _refuse_overwrite(files, args.output, "--output")
-    _refuse_overwrite(files, args.write_accepted, "--write-accepted")
-    files = _not_accepted_files(files, args, settings)
     if args.diff and not args.fix:
         raise SettingsError("--diff shows what --fix would change: use --fix --diff")
     if args.fix and args.write_accepted:
         raise SettingsError("--fix and --write-accepted: run --fix first, then record what is left")
-    if args.since:
-        try:
-            changed = set(changed_since(args.since, settings.root))
-        except ValueError as exc:
-            raise SettingsError(str(exc)) from None
-        files = [(p, s) for p, s in files if s in changed]
-    files = _with_dependants(args, files, changed if args.since else None, settings)
-    jobs = args.jobs if args.jobs is not None else settings.jobs
-    if jobs < 1:
-        raise SettingsError(f"--jobs {jobs}: expected a number of at least 1")
-    progress = None
-    if not args.no_progress and sys.stderr.isatty() and len(files) > 20 and not os.environ.get("PRE_COMMIT"):
-        from .progress import Progress
 
-        progress = Progress(len(files), sys.stderr)
-    result = run(checker, files, jobs, progress)
-    if progress:
-        progress.close()
-    # Findings are a Stream: each pass reads them again from the run's spill (perf: an audit of
-    # thousands of files never holds them all), so each step below wraps the one before.
-    unreadable = [Finding("YML-6", Level.ERROR, getattr(m, "reason", "cannot be read: no such file or folder"),
-                          Location(m), subject=m).finish() for m in reversed(missing)]
-    checked_findings = result.findings
-    findings = Stream(lambda: chain(unreadable, checked_findings))
-    accepted_path = args.accepted or settings.accepted
+    def guard(files):
+        _refuse_overwrite(files, args.output, "--output")
+        _refuse_overwrite(files, args.write_accepted, "--write-accepted")
+
+    req = _request(args, paths=args.paths, accepted=args.accepted, since=args.since, jobs=args.jobs,
+                   own_outputs=tuple(p for p in (args.write_accepted,) if p),
+                   staged_files=getattr(args, "staged_files", None), guard=guard, progress=_progress(args))
+    req.apply_accepted = not args.write_accepted  # record what is found, not what an older file accepts
+    outcome = Pipeline(settings, registry).run(req)
     if args.write_accepted:
-        keep = _accepted_elsewhere(Path(args.write_accepted), result.checked, settings.root)
+        keep = _accepted_elsewhere(Path(args.write_accepted), outcome.checked, settings.root)
         # a crashed rule is never accepted: it would hide whatever the rule misses
-        record = [f for f in findings if not f.rule_id.startswith("TOOL-")]
+        record = [f for f in outcome.recorded if not f.rule_id.startswith("TOOL-")]
         count = filtering.write_accepted(Path(args.write_accepted), record, keep)
         print(f"trimtab: recorded {count} accepted finding(s) in {args.write_accepted}", file=sys.stderr)
-        if result.crashed or registry.errors:
+        if outcome.incomplete:
             print("trimtab: the check was incomplete (a rule crashed or a plugin failed to load); "
                   "its findings are not recorded", file=sys.stderr)
             return EXIT_INCOMPLETE
         return EXIT_OK
-    if accepted_path:
-        path = Path(accepted_path)
-        if not path.is_absolute() and not args.accepted:
-            path = settings.root / path
-        try:
-            rows = filtering.read_accepted(path)
-        except filtering.AcceptedFileError as exc:
-            raise SettingsError(str(exc)) from None
-        gone = {str(r.get("file")) for r in rows if not (settings.root / str(r.get("file"))).exists()}
-        before, known = findings, result.checked | gone
-        findings = Stream(lambda: filtering.apply_accepted(before, rows, str(accepted_path), known))
     if args.fix:
-        code = _fix(args, settings, findings, files)
+        code = _fix(args, settings, outcome.findings, outcome.files)
         if code is not None:
             return code
         args.fix = False
         return cmd_check(args)  # report what is left after the fixes
-    gate = Level.parse(args.gate or settings.gate)
-    incomplete = result.crashed or bool(registry.errors)
-    counts = summary_counts(findings)
-    failing = any(n and Level.parse(level) >= gate for level, n in counts.items())
-    code = EXIT_INCOMPLETE if incomplete else (EXIT_FINDINGS if failing else EXIT_OK)
-    summary = {"files": result.files, "runs": result.runs, "skipped": result.skipped, "by_level": counts}
+    findings, code, counts = outcome.findings, outcome.status, outcome.counts()
     out = open(args.output, "w", encoding="utf-8") if args.output else sys.stdout
     try:
         if args.format == "json":
             from .reports import json_report
 
-            json_report(findings, summary, code, out)
+            json_report(findings, outcome.summary(), code, out)
         elif args.format == "sarif":
             from . import sarif
 
-            sarif.write(findings, _catalogue(registry), settings.root, out, not incomplete)
+            sarif.write(findings, _catalogue(registry), settings.root, out, not outcome.incomplete)
         else:
             from .reports import text
 
@@ -307,22 +276,10 @@ def cmd_check(args) -> int:
     finally:
         if out is not sys.stdout:
             out.close()
-    skipped = f", {result.skipped} skipped as not run configs" if result.skipped else ""
-    print(f"trimtab: {result.files} file(s) checked{skipped}; {counts['error']} error(s), "
+    skipped = f", {outcome.skipped} skipped as not run configs" if outcome.skipped else ""
+    print(f"trimtab: {len(outcome.files)} file(s) checked{skipped}; {counts['error']} error(s), "
           f"{counts['warning']} warning(s), {counts['note']} note(s)", file=sys.stderr)
     return code
-
-
-def _with_dependants(args, files, changed, settings):
-    """A base among the files to check (given, or changed since a ref) brings the files built on it."""
-    if not (args.paths or changed is not None):
-        return files  # the whole repository is checked anyway
-    from .compose import with_dependants
-    from .discover import relpath
-
-    seeds = set(changed or ()) | {s for _p, s in files}
-    seeds |= {relpath(Path(p), settings.root.resolve()) for p in args.paths if Path(p).is_file()}
-    return with_dependants(files, seeds, settings)
 
 
 def _catalogue(registry):
@@ -333,6 +290,7 @@ def _catalogue(registry):
 
 def cmd_rules(args) -> int:
     from .engine import TOOL_RULES
+    from .redact import visible as _v
 
     registry = _registry()
     rules = {**{r.id: r for r in registry.ordered()}, **TOOL_RULES}
@@ -340,30 +298,34 @@ def cmd_rules(args) -> int:
         rid = args.rule_id.upper()
         r = rules.get(rid)
         if r is None:
-            print(f"trimtab: error: no rule {rid}; `trimtab rules` lists them", file=sys.stderr)
+            print(f"trimtab: error: no rule {_v(rid)}; `trimtab rules` lists them", file=sys.stderr)
             return EXIT_INCOMPLETE
-        print(f"{r.id}  {r.name}  (default level: {r.level}{', CWE-%d' % r.cwe if r.cwe else ''})")
-        print(f"\n{r.summary}\n\n{r.rationale}")
+        # a plugin's texts are shown, never obeyed: control characters made visible (trimtab.redact)
+        print(f"{_v(r.id)}  {_v(r.name)}  (default level: {r.level}{', CWE-%d' % r.cwe if r.cwe else ''})")
+        print(f"\n{_v(r.summary)}\n\n{_v(r.rationale)}")
         if r.needs:
-            print(f"\nNeeds: {', '.join(r.needs)}")
+            print(f"\nNeeds: {_v(', '.join(r.needs))}")
         if r.options:
-            print("\nOptions (set under [tool.trimtab.rules.\"%s\"]):" % r.id)
+            print("\nOptions (set under [tool.trimtab.rules.\"%s\"]):" % _v(r.id))
             for k, v in r.options.items():
-                print(f"  {k} = {v!r}")
+                print(f"  {_v(k)} = {_v(repr(v))}")
         if r.help:
-            print(f"\nHelp: {r.help}")
+            print(f"\nHelp: {_v(r.help)}")
         return EXIT_OK
     for r in rules.values():
-        print(f"{r.id:<8} {str(r.level):<8} {r.name:<34} {r.summary}")
-    return EXIT_OK
+        print(f"{_v(r.id):<8} {str(r.level):<8} {_v(r.name):<34} {_v(r.summary)}")
+    return EXIT_INCOMPLETE if registry.errors else EXIT_OK
 
 
 def cmd_audit(args) -> int:
     from .audit import audit, write
-    from .findings import Level
+    from .pipeline import Pipeline
 
-    settings, registry, options = _prepare(args)
-    page, code = audit(args.configs, settings, registry, options, Level.parse(args.gate or settings.gate))
+    # a one-off audit may look at a config kept outside the repository (not confined)
+    registry = _registry()  # first: a plugin may declare concepts the settings' key map names
+    outcome = Pipeline(_settings(args), registry).run(
+        _request(args, paths=args.configs, confine=False, keep_models=True))
+    page, code = audit(outcome), outcome.status
     try:
         write(page, args.html)
     except OSError as exc:
@@ -377,23 +339,19 @@ def cmd_audit(args) -> int:
 def cmd_explain(args) -> int:
     from .explain import explain
 
-    settings = _settings(args)
-    registry = _registry()
-    return explain(args.config, settings, registry, _overrides(args.overrides), sys.stdout)
+    return explain(_one_file(args), sys.stdout)
+
+
+def _one_file(args):
+    """The Outcome of a check of one named file, with its models: what explain and map show."""
+    from .pipeline import Pipeline
+
+    registry = _registry()  # first: a plugin may declare concepts the settings' key map names
+    return Pipeline(_settings(args), registry).run(
+        _request(args, paths=[args.config], confine=False, dependants=False, keep_models=True))
 
 
 # --- adoption: fixes, key-map drafts, the plain git hook ------------------------------------------
-def _not_accepted_files(files, args, settings):
-    """The accepted-findings file is trimtab's own output, not a config: never check it."""
-    own = [p for p in (args.accepted, args.write_accepted) if p]
-    if settings.accepted:
-        own.append(str(settings.root / settings.accepted))
-    if not own:
-        return files
-    skip = {Path(p).resolve() for p in own}
-    return [(p, s) for p, s in files if Path(p).resolve() not in skip]
-
-
 def _accepted_elsewhere(path: Path, checked: set[str], root: Path) -> list[dict]:
     """Entries of an existing accepted-findings file for files this run did not check and that
     still exist: a partial run (named paths, --since) keeps them rather than dropping them."""
@@ -425,7 +383,7 @@ def _fix(args, settings, findings, files) -> int | None:
     told = set()
     for ff in plans:
         for f, why in ff.refused:
-            line = f"trimtab: not fixed: {f.location.label()} {f.rule_id}: {why}"
+            line = f"trimtab: not fixed: {for_text(f.location.label())} {f.rule_id}: {for_text(why)}"
             if line not in told:
                 told.add(line)
                 print(line, file=sys.stderr)
@@ -446,8 +404,7 @@ def _fix(args, settings, findings, files) -> int | None:
 def cmd_map(args) -> int:
     from .keymap_draft import draft_command
 
-    settings = _settings(args)
-    return draft_command(args.config, settings, args.output, sys.stdout, sys.stderr)
+    return draft_command(_one_file(args), args.output, sys.stdout, sys.stderr)
 
 
 def cmd_install_hook(args) -> int:

@@ -115,7 +115,6 @@ class GivenScalar(Scalar):
 
 # --- base files: loaded once per process -------------------------------------------------------
 _DOCS: dict[str, tuple] = {}
-_TEXTS: dict[str, str] = {}
 LOADS = {"count": 0}  # how many base files were read from disk (tests watch the cache with it)
 
 
@@ -134,13 +133,7 @@ def load_source(real: Path, shown: str, limits=loader.Limits()) -> Document:
         LOADS["count"] += 1
         doc = loader.load(key, shown, limits)
         _DOCS[key] = (stamp, doc)
-    _TEXTS[shown] = doc.text
     return doc
-
-
-def source_text(shown: str | None) -> str | None:
-    """The text of a file a composed run used (for the raw text of its nodes)."""
-    return _TEXTS.get(shown) if shown is not None else None
 
 
 def _place(dst: Node, src: Node | None, path: tuple) -> Node:
@@ -239,7 +232,6 @@ class Composer:
                 self.base_files.add(self._shown(self.root / b))
         if self.overrides_doc is not None:
             self.base_files.add(self.overrides_doc.path)
-        self._used: dict[str, dict[str, str]] = {}
         self._places: dict[str, tuple] = {}
         self._source_shown = self._shown(Path(settings.source)) if getattr(settings, "source", None) else "settings"
 
@@ -306,8 +298,8 @@ class Composer:
             if d.path not in files:
                 files.append(d.path)
         for _role, d, _r in layers:
-            if d is not doc:  # perf: an entry only for a run built from other files (memory per file)
-                self._used.setdefault(doc.path, {})[d.path] = d.text
+            if d is not doc:  # the document carries the files its runs were built from
+                doc.sources[d.path] = d
         interpolate = any("${" in d.text for _role, d, _r in layers) or any(
             "${" in g.text for g in self.given)
         plain = len(layers) == 1 and not self.given and not interpolate and not (
@@ -341,7 +333,7 @@ class Composer:
 
     def texts(self, doc: Document):
         """(shown path, text) of the other files a run of ``doc`` was composed from."""
-        return tuple(self._used.get(doc.path, {}).items())
+        return tuple((shown, source.text) for shown, source in doc.sources.items())
 
     # --- problems -----------------------------------------------------------------------------
     def _problem(self, kind: str, message: str, where: Location, related=(), subject: str = "") -> None:

@@ -136,6 +136,9 @@ class Document:
     encoding: str = "utf-8"
     fmt: str = "yaml"  # yaml or json
     aliases: int = 0
+    # the other files a composed run of this document was built from (bases, the overrides file),
+    # by shown path: the raw text of a node written there is read from them
+    sources: dict[str, "Document"] = field(default_factory=dict)
 
     @property
     def readable(self) -> bool:
@@ -146,10 +149,8 @@ class Document:
 
     def raw(self, node: Node) -> str:
         if node.file != self.path:  # a node of a composed run written in another file
-            from .compose import source_text
-
-            text = source_text(node.file)
-            return text[node.start:node.end] if text is not None else getattr(node, "text", "")
+            source = self.sources.get(node.file) if node.file is not None else None
+            return source.text[node.start:node.end] if source is not None else getattr(node, "text", "")
         return self.text[node.start:node.end]
 
 

@@ -5,27 +5,40 @@ group; the built-in rules register the same way.
 """
 from __future__ import annotations
 
+import dataclasses
+import re
 from dataclasses import dataclass, field
-from typing import Any, Callable, Iterable, Iterator
+from types import ModuleType
+from typing import Any, Callable, Iterable, Iterator, Union
 
 import pluggy
 
 from .document import Document
 from .findings import Finding, Level, Location
 from .model import RunModel
+from .vocabulary import CONCEPTS, Concept, declare
 
 hookspec = pluggy.HookspecMarker("trimtab")
 hookimpl = pluggy.HookimplMarker("trimtab")
 
+# A key map as a plugin publishes it: concept -> key path, or a table with key, per, scope, fields.
+KeyMap = dict[str, Union[str, dict[str, Any]]]
+
 
 class Specs:
-    @hookspec
-    def trimtab_rules(self) -> list:
-        """Return the Rule objects this plugin provides."""
+    """The hooks a plugin may implement (namespace ``trimtab``)."""
 
     @hookspec
-    def trimtab_key_maps(self) -> dict:
+    def trimtab_rules(self) -> list[Rule]:
+        """Return the Rule objects this plugin provides (``trimtab.collect(__name__)`` finds them)."""
+
+    @hookspec
+    def trimtab_key_maps(self) -> dict[str, KeyMap]:
         """Return named key maps: {name: {concept: key path or table}}."""
+
+    @hookspec
+    def trimtab_concepts(self) -> list[Concept]:
+        """Return the additional concepts this plugin's rules speak of (name, type, unit, meaning)."""
 
 
 @dataclass(frozen=True)
@@ -42,22 +55,132 @@ class Rule:
     help: str = ""
     rl_only: bool = True  # skipped for supervised/distillation stages and non-RL files
     scope: str = "run"  # run (one RunModel), file (every Document, RL or not), set (all runs at once)
+    # file rules only: also run on every other file a run is composed from (its bases, the overrides
+    # file, the settings' layers), reporting in that file, whether or not that file is checked itself
+    sources: bool = False
 
     @property
     def area(self) -> str:
         return self.id.split("-", 1)[0]
 
 
-def rule(id: str, name: str, level: str, summary: str, rationale: str, *, needs: tuple = (),
+def rule(*, id: str, name: str, level: str, summary: str, rationale: str, needs: tuple = (),
          options: dict | None = None, cwe: int | None = None, help: str = "", rl_only: bool = True,
-         scope: str = "run"):
-    """Decorator: turn a check function into a Rule."""
+         scope: str = "run", sources: bool = False):
+    """Decorator: turn a check function into a Rule. Every field is checked when the plugin
+    registers (``validate``), so a mistake names the plugin and the field."""
 
     def wrap(fn):
-        return Rule(id, name, Level.parse(level), summary, rationale, fn, tuple(needs), dict(options or {}),
-                    cwe, help, rl_only, scope)
+        return Rule(id, name, level, summary, rationale, fn, tuple(needs), dict(options or {}),  # type: ignore[arg-type]
+                    cwe, help, rl_only, scope, sources)
 
     return wrap
+
+
+def collect(where: str | ModuleType) -> list[Rule]:
+    """Every Rule defined in a module, or in each module of a package (modules whose names start
+    with ``_`` hold helpers), in the order they are written: no hand-kept list."""
+    import importlib
+    import pkgutil
+
+    module = importlib.import_module(where) if isinstance(where, str) else where
+    modules = [module]
+    if hasattr(module, "__path__"):
+        for info in sorted(pkgutil.iter_modules(module.__path__), key=lambda i: i.name):
+            if not info.name.startswith("_"):
+                modules.append(importlib.import_module(f"{module.__name__}.{info.name}"))
+    out: list[Rule] = []
+    seen: set[int] = set()
+    for m in modules:
+        for value in vars(m).values():
+            if isinstance(value, Rule) and id(value) not in seen:
+                seen.add(id(value))
+                out.append(value)
+    return out
+
+
+# --- what registration checks ----------------------------------------------------------------------
+RULE_ID = re.compile(r"[A-Z]{2,6}-[1-9][0-9]{0,3}")
+RULE_NAME = re.compile(r"[a-z0-9]+(?:-[a-z0-9]+)*")
+SCOPES = ("run", "file", "set")
+CONCEPT_NAME = re.compile(r"[a-z][a-z0-9_]*(?:\.[a-z][a-z0-9_]*)+")
+CONCEPT_TYPES = ("int", "number", "bool", "str", "list", "any")
+_OPTION_TYPES = (bool, int, float, str)  # what a TOML setting can hold (and lists of them)
+
+
+class RuleError(ValueError):
+    """A rule's metadata is wrong: names the field, what was expected and what was found."""
+
+    def __init__(self, field: str, expected: str, found: Any):
+        super().__init__(f"field {field}: expected {expected}, found {found!r}")
+        self.field = field
+
+
+def validate(r: Any) -> Rule:
+    """Check every field of a rule; return it with its level parsed. Raises RuleError."""
+    if not isinstance(r, Rule):
+        raise RuleError("(rule)", "a Rule made with @trimtab.rule", r)
+    if not isinstance(r.id, str) or not RULE_ID.fullmatch(r.id):
+        raise RuleError("id", "an area code of 2-6 capitals, a hyphen and a number, like BAT-3", r.id)
+    if not isinstance(r.name, str) or not RULE_NAME.fullmatch(r.name):
+        raise RuleError("name", "a kebab-case name like partial-mini-batch", r.name)
+    try:
+        level = Level.parse(r.level)
+    except (ValueError, TypeError, AttributeError):
+        raise RuleError("level", "one of error, warning, note", r.level) from None
+    for name in ("summary", "rationale"):
+        if not isinstance(getattr(r, name), str) or not getattr(r, name).strip():
+            raise RuleError(name, "a non-empty text", getattr(r, name))
+    if not callable(r.check):
+        raise RuleError("check", "a function of the rule's context", r.check)
+    if r.scope not in SCOPES:
+        raise RuleError("scope", "one of " + ", ".join(SCOPES), r.scope)
+    for c in r.needs:
+        if c not in CONCEPTS:
+            near = [k for k in CONCEPTS if k.split(".")[-1] == str(c).split(".")[-1] or
+                    k.split(".")[0] == str(c).split(".")[0] and _close(k, str(c))]
+            hint = f" (did you mean {', '.join(near)}?)" if near else ""
+            raise RuleError("needs", f"known concepts{hint}", c)
+    if not isinstance(r.options, dict):
+        raise RuleError("options", "a table of option names and default values", r.options)
+    for key, value in r.options.items():
+        items = value if isinstance(value, list) else [value]
+        if not isinstance(key, str) or not key.isidentifier() or not all(isinstance(v, _OPTION_TYPES) for v in items):
+            raise RuleError(f"options.{key}", "a name and a default value of type bool, int, float, str or a "
+                                             "list of them", value)
+    if r.cwe is not None and (isinstance(r.cwe, bool) or not isinstance(r.cwe, int) or r.cwe <= 0):
+        raise RuleError("cwe", "a CWE number like 78", r.cwe)
+    if not isinstance(r.help, str):
+        raise RuleError("help", "a text", r.help)
+    if not isinstance(r.rl_only, bool):
+        raise RuleError("rl_only", "true or false", r.rl_only)
+    if not isinstance(r.sources, bool) or (r.sources and r.scope != "file"):
+        raise RuleError("sources", "true or false (true only for a rule of scope file)", r.sources)
+    return r if r.level is level else dataclasses.replace(r, level=level)
+
+
+def _close(a: str, b: str) -> bool:
+    import difflib
+
+    return difflib.SequenceMatcher(None, a, b).ratio() >= 0.85
+
+
+def validate_concept(c: Any) -> Concept:
+    if not isinstance(c, Concept):
+        raise RuleError("(concept)", "a trimtab.vocabulary.Concept", c)
+    if not isinstance(c.name, str) or not CONCEPT_NAME.fullmatch(c.name):
+        raise RuleError("name", "a dotted lower-case name like sandbox.retries", c.name)
+    if c.type not in CONCEPT_TYPES:
+        raise RuleError("type", "one of " + ", ".join(CONCEPT_TYPES), c.type)
+    for name in ("unit", "meaning"):
+        if not isinstance(getattr(c, name), str):
+            raise RuleError(name, "a text", getattr(c, name))
+    if not c.meaning.strip():
+        raise RuleError("meaning", "a non-empty text", c.meaning)
+    known = CONCEPTS.get(c.name)
+    if known is not None and known != c:
+        raise RuleError("name", "a concept name not already declared otherwise", c.name)
+    return c
 
 
 class Context:
@@ -130,16 +253,39 @@ class Registry:
             self._load_entry_points()
         for p in plugins:
             self.pm.register(p)
+        # concepts first: a plugin's rules may need the concepts it declares
+        self.concepts: dict[str, Concept] = {}
+        for plugin, found in self._each("trimtab_concepts"):
+            for c in found or ():
+                try:
+                    self.concepts[c.name] = declare(validate_concept(c))
+                except RuleError as exc:
+                    self.errors.append(f"plugin {plugin!r}: concept {getattr(c, 'name', c)!r}: {exc}")
         self.rules: dict[str, Rule] = {}
-        for batch in self.pm.hook.trimtab_rules():
+        for plugin, batch in self._each("trimtab_rules"):
             for r in batch or ():
+                try:
+                    r = validate(r)
+                except RuleError as exc:
+                    self.errors.append(f"plugin {plugin!r}: rule {getattr(r, 'id', r)!r}: {exc}; the rule is not "
+                                       "registered")
+                    continue
                 if r.id in self.rules:
                     self.errors.append(f"rule id {r.id} is provided twice")
                     continue
                 self.rules[r.id] = r
         self.key_maps: dict[str, dict] = {}
-        for maps in self.pm.hook.trimtab_key_maps():
+        for _plugin, maps in self._each("trimtab_key_maps"):
             self.key_maps.update(maps or {})
+
+    def _each(self, hook: str) -> Iterator[tuple[str, Any]]:
+        """(plugin name, result) of each implementation of a hook; a hook that raises is an error
+        naming the plugin."""
+        for impl in reversed(getattr(self.pm.hook, hook).get_hookimpls()):
+            try:
+                yield impl.plugin_name, impl.function()
+            except Exception as exc:  # a broken plugin must not stop the check
+                self.errors.append(f"plugin {impl.plugin_name!r}: {hook}() failed: {type(exc).__name__}: {exc}")
 
     def _load_entry_points(self) -> None:
         for name, value, load in entry_points("trimtab"):
@@ -278,7 +424,7 @@ def iter_rules(rules: Iterable[Rule], scope: str) -> Iterator[Rule]:
     return (r for r in rules if r.scope == scope)
 
 
-def _engine_rule(id, name, level, summary, rationale) -> Rule:
+def _engine_rule(id: str, name: str, level: str, summary: str, rationale: str) -> Rule:
     return Rule(id, name, Level.parse(level), summary, rationale, lambda ctx: (), rl_only=False, scope="engine")
 
 

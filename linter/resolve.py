@@ -7,17 +7,8 @@ from dataclasses import dataclass, field
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .model import Component, RunModel, Value
+from .settings import KeySpec
 from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, normalise_key
-
-
-@dataclass(frozen=True)
-class KeySpec:
-    """Where the user's file keeps one concept, and in what unit."""
-
-    key: str
-    per: str = ""  # prompt | completion
-    scope: str = ""  # global | gpu
-    fields: tuple = ()  # for reward.sources: ((field, key in component), ...)
 
 
 @dataclass

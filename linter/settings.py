@@ -7,8 +7,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .loader import Limits
-from .resolve import KeySpec
-
 
 
 def _tomllib():
@@ -21,6 +19,16 @@ def _tomllib():
 
 DEFAULT_INCLUDE = ["**/*.yaml", "**/*.yml", "**/*.json"]
 SCHEMA_PATH = Path(__file__).with_name("settings.schema.json")
+
+
+@dataclass(frozen=True)
+class KeySpec:
+    """Where the user's file keeps one concept, and in what unit (the settings' key map)."""
+
+    key: str
+    per: str = ""  # prompt | completion
+    scope: str = ""  # global | gpu
+    fields: tuple = ()  # for reward.sources: ((field, key in component), ...)
 
 
 class SettingsError(Exception):

@@ -97,6 +97,12 @@ CONCEPTS: dict[str, Concept] = {c.name: c for c in (
 )}
 
 # Fields of one reward component (reward.sources items).
+def declare(concept: Concept) -> Concept:
+    """Add a plugin's concept to the vocabulary (validated by the plugin registry)."""
+    CONCEPTS.setdefault(concept.name, concept)
+    return concept
+
+
 REWARD_FIELDS = ("kind", "ref", "weight", "revision", "endpoint", "timeout_s", "name")
 REWARD_KINDS = ("rule", "model", "judge", "code", "remote")
 

@@ -17,8 +17,8 @@ def _critic(m):
     return "unstated", None
 
 
-@rule("ALG-1", "critic-unused", "warning", "A critic-free estimator is configured with a value model.",
-      "Group-relative estimators take the baseline from the other completions of the same prompt "
+@rule(id="ALG-1", name="critic-unused", level="warning", summary="A critic-free estimator is configured with a value model.",
+      rationale="Group-relative estimators take the baseline from the other completions of the same prompt "
       "(arXiv:2402.03300: the group baseline replaces the value model; leave-one-out, arXiv:2402.14740, "
       "from memory), and REINFORCE-style estimators with a greedy or batch baseline need none either. A "
       "value model configured beside them is loaded, and in many trainers trained, but never used: "
@@ -37,8 +37,8 @@ def critic_unused(ctx):
                       related=[m.loc("run.estimator", "the critic-free estimator")], subject=est)
 
 
-@rule("ALG-2", "gae-without-critic", "error", "A GAE-based estimator has no value model.",
-      "Generalised advantage estimation (Schulman et al. 2016, arXiv:1506.02438) computes advantages "
+@rule(id="ALG-2", name="gae-without-critic", level="error", summary="A GAE-based estimator has no value model.",
+      rationale="Generalised advantage estimation (Schulman et al. 2016, arXiv:1506.02438) computes advantages "
       "from a learned value function; PPO as published uses it (arXiv:1707.06347). With the value "
       "model switched off, or none configured, the advantages cannot be computed: the trainer fails, "
       "or falls back to something that is not the estimator the config names.")
@@ -61,8 +61,8 @@ def gae_without_critic(ctx):
                           suggestion="configure the value model (critic.source), or use a critic-free estimator")
 
 
-@rule("ALG-3", "gae-constant-range", "error", "The discount gamma or the GAE lambda is outside [0, 1].",
-      "The discount gamma and the GAE parameter lambda are weights of a geometric sum "
+@rule(id="ALG-3", name="gae-constant-range", level="error", summary="The discount gamma or the GAE lambda is outside [0, 1].",
+      rationale="The discount gamma and the GAE parameter lambda are weights of a geometric sum "
       "(arXiv:1506.02438): outside [0, 1] the advantage estimate diverges or changes sign. PPO's "
       "published defaults are gamma = 0.99 and lambda = 0.95 (arXiv:1707.06347, from memory); "
       "language-model recipes often use 1.0 for both (common practice).")
@@ -72,5 +72,3 @@ def gae_range(ctx):
         if v is not None and v.number is not None and not 0 <= v.number <= 1:
             yield ctx.finding(f"{c} = {shown(v)}: the {name} must be in [0, 1]", v.location, subject=v.number)
 
-
-RULES = [critic_unused, gae_without_critic, gae_range]

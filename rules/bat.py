@@ -13,8 +13,9 @@ from trimtab.arithmetic import (PARALLEL, either, lcm, near_divisors, near_multi
                                 settled)
 
 _GROUP_RELATIVE_BASIS = ("Group-relative estimators sample a group of completions per prompt and use the "
-                         "group's statistics as the baseline (Shao et al. 2024, arXiv:2402.03300: 64 "
-                         "completions per prompt, 1024 per step).")
+                         "group's statistics as the baseline (Shao et al. 2024, arXiv:2402.03300, section 4.2: 64 "
+                         "outputs per question and a training batch size of 1024; that the batch counts "
+                         "completions, 16 prompts of 64, is trimtab's reading, not the paper's words).")
 
 _NAMES = {
     "train.tensor_parallel": "tensor-parallel degree",
@@ -23,12 +24,13 @@ _NAMES = {
 }
 
 
-@rule("BAT-1", "completions-product-mismatch", "error",
-      "Stated completions per step differ from prompts per step x group size.",
-      "Completions per step are prompts per step times completions per prompt (the group size); a "
-      "recipe states them as such (Shao et al. 2024, arXiv:2402.03300: 1024 completions per step at 64 "
-      "per prompt). Where the product and both factors are written, a trainer uses one of them and "
-      "silently ignores the others, so the run is not the one its config describes.",
+@rule(id="BAT-1", name="completions-product-mismatch", level="error",
+      summary="Stated completions per step differ from prompts per step x group size.",
+      rationale="Completions per step are prompts per step times completions per prompt (the group size); a "
+      "recipe gives them as such (Guo et al. 2025, arXiv:2501.12948v2, the revised version, from memory: "
+      "32 questions x 16 outputs, a training batch size of 512). Where the product and both factors are "
+      "written, a trainer uses one of them and silently ignores the others, so the run is not the one "
+      "its config describes.",
       needs=("batch.rollouts", "batch.prompts", "rollout.group_size"))
 def completions_product(ctx):
     m = ctx.model
@@ -48,12 +50,13 @@ def completions_product(ctx):
         suggestion="use " + ", or ".join(hints), subject=(r, p, g))
 
 
-@rule("BAT-2", "partial-mini-batch", "error",
-      "Completions per step do not split into whole mini-batches.",
-      "Each training step's completions are cut into mini-batches, one optimiser update each; "
+@rule(id="BAT-2", name="partial-mini-batch", level="error",
+      summary="Completions per step do not split into whole mini-batches.",
+      rationale="Each training step's completions are cut into mini-batches, one optimiser update each; "
       "updates per step = completions per step / mini-batch x epochs must be a whole number (PPO's "
-      "own recipe, Schulman et al. 2017, arXiv:1707.06347, from memory: 2048 timesteps in "
-      "mini-batches of 64 for 10 epochs; 128 x 8 actors in mini-batches of 256 for 3 epochs). A "
+      "own recipe, Schulman et al. 2017, arXiv:1707.06347, appendix A, from memory: 2048 timesteps "
+      "in mini-batches of 64 for 10 epochs in the continuous-control setting, Table 3; 128 x 8 actors "
+      "in mini-batches of 32 x 8 for 3 epochs in the game setting, Table 5). A "
       "remainder is dropped or becomes a short last update, depending on the trainer; a mini-batch "
       "larger than the step makes no whole update at all. A stated updates-per-step that disagrees "
       "with the arithmetic is reported too.",
@@ -101,9 +104,9 @@ def _show(x):
     return str(int(x)) if isinstance(x, float) and x.is_integer() else str(x)
 
 
-@rule("BAT-3", "micro-batch-misfit", "error",
-      "A mini-batch does not split into micro-batch per GPU x data-parallel ranks x accumulation.",
-      "One optimiser update consumes a mini-batch: every data-parallel rank runs whole micro-batches and "
+@rule(id="BAT-3", name="micro-batch-misfit", level="error",
+      summary="A mini-batch does not split into micro-batch per GPU x data-parallel ranks x accumulation.",
+      rationale="One optimiser update consumes a mini-batch: every data-parallel rank runs whole micro-batches and "
       "accumulates their gradients, so mini-batch = micro-batch per GPU x ranks x accumulation steps "
       "(common practice of data-parallel training). A remainder either crashes the launch or leaves "
       "ranks with unequal work; a stated accumulation that differs from the implied one changes the "
@@ -166,9 +169,9 @@ def micro_batch_fit(ctx):
             suggestion=f"use {either(accums)} accumulation steps" if accums else "", subject=(mini, dp, accum))
 
 
-@rule("BAT-4", "world-size-mismatch", "error",
-      "A stated world size differs from nodes x GPUs per node.",
-      "The training world is the job's machines times the GPUs on each (common practice of "
+@rule(id="BAT-4", name="world-size-mismatch", level="error",
+      summary="A stated world size differs from nodes x GPUs per node.",
+      rationale="The training world is the job's machines times the GPUs on each (common practice of "
       "distributed launchers). A stated world size that disagrees means either the launcher or the "
       "batch arithmetic works with the wrong number of ranks.",
       needs=("cluster.world_size", "cluster.nodes", "cluster.gpus_per_node"))
@@ -198,10 +201,10 @@ def _culprit(world: int, degrees: dict[str, int]) -> str:
     return max(pool, key=lambda c: (world % degrees[c] != 0, degrees[c], -PARALLEL.index(c)))
 
 
-@rule("BAT-5", "model-parallel-misfit", "error",
-      "The world size does not divide by tensor x pipeline x context parallel, or leaves no "
+@rule(id="BAT-5", name="model-parallel-misfit", level="error",
+      summary="The world size does not divide by tensor x pipeline x context parallel, or leaves no "
       "data-parallel rank.",
-      "Data-parallel ranks = world size / (tensor x pipeline x context parallel degree) must be a whole "
+      rationale="Data-parallel ranks = world size / (tensor x pipeline x context parallel degree) must be a whole "
       "number of at least 1 (common practice of model-parallel training: every replica of the model "
       "occupies the same number of GPUs). A stated data-parallel size that disagrees is reported too.")
 def model_parallel(ctx):
@@ -242,9 +245,9 @@ def model_parallel(ctx):
             suggestion=f"use {world // par} data-parallel ranks", subject=(stated.value, world, par))
 
 
-@rule("BAT-6", "rollout-parallel-misfit", "error",
-      "The rollout engine's tensor-parallel degree does not divide the GPUs it runs on.",
-      "The inference engine runs whole instances of the model, each over as many GPUs as its "
+@rule(id="BAT-6", name="rollout-parallel-misfit", level="error",
+      summary="The rollout engine's tensor-parallel degree does not divide the GPUs it runs on.",
+      rationale="The inference engine runs whole instances of the model, each over as many GPUs as its "
       "tensor-parallel degree; the GPUs it is given (rollout.gpus, else the training world) must divide "
       "by that degree, or some GPUs idle and the launch may refuse (common practice).",
       needs=("rollout.tensor_parallel",))
@@ -267,9 +270,9 @@ def rollout_parallel(ctx):
                       subject=(rt, gpus))
 
 
-@rule("BAT-7", "group-split", "error",
-      "A batch that is split before advantages are computed does not hold whole groups.",
-      _GROUP_RELATIVE_BASIS + " A group's completions must stay together until its baseline is "
+@rule(id="BAT-7", name="group-split", level="error",
+      summary="A batch that is split before advantages are computed does not hold whole groups.",
+      rationale=_GROUP_RELATIVE_BASIS + " A group's completions must stay together until its baseline is "
       "computed. Completions per step that are not a multiple of the group size cut the last group "
       "(error). Where advantages are normalised per rank or per update, a per-rank share or a "
       "mini-batch that is not whole groups mixes two groups' baselines (warning; options check_ranks "
@@ -320,9 +323,9 @@ COUNTS = ("cluster.nodes", "cluster.gpus_per_node", "cluster.world_size", *PARAL
           "batch.mini", "batch.micro_per_gpu", "batch.grad_accum", "optim.epochs", "optim.updates_per_step")
 
 
-@rule("BAT-8", "count-not-positive", "error",
-      "A batch or topology count is zero, negative, or not whole after unit conversion.",
-      "GPUs, parallel degrees, prompts, completions, micro-batches and accumulation steps are counts: a "
+@rule(id="BAT-8", name="count-not-positive", level="error",
+      summary="A batch or topology count is zero, negative, or not whole after unit conversion.",
+      rationale="GPUs, parallel degrees, prompts, completions, micro-batches and accumulation steps are counts: a "
       "zero or negative one cannot launch, and one that a key map's unit conversion (per prompt / per "
       "GPU) turns into a fraction does not describe whole completions. A count that cannot be converted "
       "because the group size or the ranks are unknown is a note: the arithmetic rules skip it.")
@@ -348,6 +351,3 @@ def count_not_positive(ctx):
             yield ctx.finding(f"{c} = {_show(n)}: a count must be a positive whole number", v.location,
                               subject=(c, n))
 
-
-RULES = [completions_product, partial_mini_batch, micro_batch_fit, world_size, model_parallel,
-         rollout_parallel, group_split, count_not_positive]

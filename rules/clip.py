@@ -11,8 +11,8 @@ from trimtab import rule
 from ._common import CLIPPED, anchor, clipped, estimator, num, shown, unresolved
 
 
-@rule("CLP-1", "clip-unstated", "warning", "A clipped objective does not state its clip range epsilon.",
-      "PPO and the group-relative estimators clip the probability ratio to [1 - eps, 1 + eps] "
+@rule(id="CLP-1", name="clip-unstated", level="warning", summary="A clipped objective does not state its clip range epsilon.",
+      rationale="PPO and the group-relative estimators clip the probability ratio to [1 - eps, 1 + eps] "
       "(arXiv:1707.06347; arXiv:2402.03300). Left out, eps is the trainer's default, which differs "
       "between trainers and versions (0.2 is the published value, arXiv:1707.06347, from memory). "
       "Applies when run.estimator is one of " + ", ".join(sorted(CLIPPED)) + ", or an upper or dual "
@@ -40,8 +40,8 @@ def _eps(m):
             yield c, v
 
 
-@rule("CLP-2", "clip-not-positive", "error", "A ratio clip epsilon is zero or negative.",
-      "With eps <= 0 the clip interval [1 - eps, 1 + eps] is a point or empty: every token's ratio is "
+@rule(id="CLP-2", name="clip-not-positive", level="error", summary="A ratio clip epsilon is zero or negative.",
+      rationale="With eps <= 0 the clip interval [1 - eps, 1 + eps] is a point or empty: every token's ratio is "
       "clipped, the clipped term has no gradient, and the policy does not learn (arXiv:1707.06347).")
 def clip_not_positive(ctx):
     for c, v in _eps(ctx.model):
@@ -49,8 +49,8 @@ def clip_not_positive(ctx):
             yield ctx.finding(f"{c} = {shown(v)}: the clip epsilon must be positive", v.location, subject=v.number)
 
 
-@rule("CLP-3", "clip-lower-inactive", "warning", "The lower clip epsilon is 1 or more, so it never acts.",
-      "The ratio r = pi / pi_old is positive, so with eps >= 1 the lower bound 1 - eps <= 0 can never be "
+@rule(id="CLP-3", name="clip-lower-inactive", level="warning", summary="The lower clip epsilon is 1 or more, so it never acts.",
+      rationale="The ratio r = pi / pi_old is positive, so with eps >= 1 the lower bound 1 - eps <= 0 can never be "
       "reached: tokens with negative advantage are not clipped at all (arXiv:1707.06347). Some recipes "
       "do this on purpose; then accept it with a reason: `# trimtab: accept CLP-3 -- reason`.")
 def clip_lower_inactive(ctx):
@@ -60,8 +60,8 @@ def clip_lower_inactive(ctx):
                           "above 0, so the lower clip never acts", v.location, subject=v.number)
 
 
-@rule("CLP-4", "clip-high-below-low", "warning", "The upper clip epsilon_high is smaller than the lower epsilon.",
-      "Decoupled clipping (arXiv:2503.14476) raises the upper bound above the lower one to leave room "
+@rule(id="CLP-4", name="clip-high-below-low", level="warning", summary="The upper clip epsilon_high is smaller than the lower epsilon.",
+      rationale="Decoupled clipping (arXiv:2503.14476) raises the upper bound above the lower one to leave room "
       "for low-probability tokens to grow (published: eps_low 0.2, eps_high 0.28). An upper bound "
       "below the lower one does the opposite of what the setting is for, and is usually two values "
       "swapped.")
@@ -77,8 +77,8 @@ def clip_high_below_low(ctx):
                           suggestion=f"swap them? clip.low = {shown(hi)}, clip.high = {shown(lo)}")
 
 
-@rule("CLP-5", "dual-clip-too-small", "error", "The dual-clip constant c is 1 or less.",
-      "Dual clipping bounds the objective of tokens with negative advantage at c x A, with c > 1 "
+@rule(id="CLP-5", name="dual-clip-too-small", level="error", summary="The dual-clip constant c is 1 or less.",
+      rationale="Dual clipping bounds the objective of tokens with negative advantage at c x A, with c > 1 "
       "(Ye et al. 2020, arXiv:1912.09729, from memory: published c = 3). With c <= 1 the bound cuts "
       "into the ordinary clipped region and changes the objective of ratios near 1.")
 def dual_clip(ctx):
@@ -88,8 +88,8 @@ def dual_clip(ctx):
                           v.location, subject=v.number)
 
 
-@rule("CLP-6", "clip-never-acts", "note", "One optimiser update per rollout batch: the ratio clip never acts.",
-      "With exactly one optimiser update per rollout batch, the update is computed with the weights that "
+@rule(id="CLP-6", name="clip-never-acts", level="note", summary="One optimiser update per rollout batch: the ratio clip never acts.",
+      rationale="With exactly one optimiser update per rollout batch, the update is computed with the weights that "
       "sampled the batch, so the probability ratio pi / pi_old is 1 for every token (up to numerical "
       "differences between the sampler and the trainer) and the clip (arXiv:1707.06347) has nothing to "
       "bound: the objective is the plain policy gradient. This is not wrong (arXiv:2402.03300 trains with "
@@ -131,8 +131,8 @@ def clip_never_acts(ctx):
                       key_path="optim.updates_per_step")
 
 
-@rule("CLP-7", "grad-clip-not-positive", "error", "The maximum gradient norm is zero or negative.",
-      "Gradient-norm clipping rescales the gradient to at most the given norm. A maximum of 0 scales "
+@rule(id="CLP-7", name="grad-clip-not-positive", level="error", summary="The maximum gradient norm is zero or negative.",
+      rationale="Gradient-norm clipping rescales the gradient to at most the given norm. A maximum of 0 scales "
       "every update to nothing (or, in trainers that read 0 as off, silently disables the clip); a "
       "negative maximum is refused or undefined. Write a positive norm (1.0 is common practice), or "
       "leave clipping off explicitly in the trainer's own way.")
@@ -143,8 +143,8 @@ def grad_clip_not_positive(ctx):
                           subject=v.number)
 
 
-@rule("CLP-8", "grad-clip-unstated", "note", "No maximum gradient norm is stated.",
-      "Policy-gradient updates on language models have heavy-tailed gradient norms; clipping the norm "
+@rule(id="CLP-8", name="grad-clip-unstated", level="note", summary="No maximum gradient norm is stated.",
+      rationale="Policy-gradient updates on language models have heavy-tailed gradient norms; clipping the norm "
       "(1.0 is common practice) keeps one bad batch from wrecking the weights. Unstated, the trainer's "
       "default decides, and defaults differ (some clip, some do not).")
 def grad_clip_unstated(ctx):
@@ -156,6 +156,3 @@ def grad_clip_unstated(ctx):
                                                                key_path="optim.grad_clip"),
                       subject="unstated", suggestion="state it, e.g. max_grad_norm: 1.0 (common practice)")
 
-
-RULES = [clip_unstated, clip_not_positive, clip_lower_inactive, clip_high_below_low, dual_clip, clip_never_acts,
-         grad_clip_not_positive, grad_clip_unstated]

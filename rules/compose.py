@@ -22,8 +22,8 @@ def _report(ctx, kind):
         yield ctx.finding(p.message, loc, related=p.related, subject=getattr(p, "subject", "") or p.message)
 
 
-@rule("CMP-1", "reference-cycle", "error", "`${...}` references form a cycle.",
-      _LAYERS + "A value that refers to itself, directly or through other references, has no value: the "
+@rule(id="CMP-1", name="reference-cycle", level="error", summary="`${...}` references form a cycle.",
+      rationale=_LAYERS + "A value that refers to itself, directly or through other references, has no value: the "
       "launcher's own resolver stops with an error, or (worse) leaves the reference text in place. "
       "The finding prints the cycle. Common practice of every interpolating config system.",
       rl_only=False, scope="file")
@@ -31,8 +31,8 @@ def reference_cycle(ctx):
     return _report(ctx, "compose-cycle")
 
 
-@rule("CMP-2", "reference-unknown", "warning", "A `${...}` reference names a key the composed run does not have.",
-      _LAYERS + "The reference resolves against the whole composed run (bases, file, overrides); a target "
+@rule(id="CMP-2", name="reference-unknown", level="warning", summary="A `${...}` reference names a key the composed run does not have.",
+      rationale=_LAYERS + "The reference resolves against the whole composed run (bases, file, overrides); a target "
       "that none of them has is usually a typo or a key a base renamed. The finding points at the line that "
       "refers. A warning, not an error: a launcher may supply variables of its own that no file shows. An "
       "upper-case name without dots (`${HOME}`) is taken for an environment variable and left alone. "
@@ -42,8 +42,8 @@ def reference_unknown(ctx):
     return _report(ctx, "compose-unknown")
 
 
-@rule("CMP-3", "base-missing", "error", "A base file does not exist or cannot be read.",
-      _LAYERS + "Without its base the run is not the run that launches: every value the base gives is "
+@rule(id="CMP-3", name="base-missing", level="error", summary="A base file does not exist or cannot be read.",
+      rationale=_LAYERS + "Without its base the run is not the run that launches: every value the base gives is "
       "missing, and the rules that need them stay silent. The finding points at the line (or the settings "
       "entry) that names the base.",
       rl_only=False, scope="file")
@@ -51,16 +51,16 @@ def base_missing(ctx):
     return _report(ctx, "compose-base-missing")
 
 
-@rule("CMP-4", "base-cycle", "error", "Base files name each other in a cycle.",
-      _LAYERS + "A file that is (through other files) its own base cannot be composed; the finding prints "
+@rule(id="CMP-4", name="base-cycle", level="error", summary="Base files name each other in a cycle.",
+      rationale=_LAYERS + "A file that is (through other files) its own base cannot be composed; the finding prints "
       "the cycle of files.",
       rl_only=False, scope="file")
 def base_cycle(ctx):
     return _report(ctx, "compose-base-cycle")
 
 
-@rule("CMP-5", "base-outside-repository", "error", "A base file lies outside the repository.",
-      _LAYERS + "trimtab reads only files inside the repository it checks (a run composed from a file "
+@rule(id="CMP-5", name="base-outside-repository", level="error", summary="A base file lies outside the repository.",
+      rationale=_LAYERS + "trimtab reads only files inside the repository it checks (a run composed from a file "
       "elsewhere cannot be reviewed with the change, and is not the same on another machine). Move the "
       "base into the repository, or check from a folder that contains it.",
       rl_only=False, scope="file")
@@ -68,24 +68,24 @@ def base_outside(ctx):
     return _report(ctx, "compose-base-outside")
 
 
-@rule("CMP-6", "override-not-applied", "error", "A --set override cannot be applied to the run.",
-      _LAYERS + "`--set a.b=v` reaches key b inside section a; when a is a single value, or a list without "
+@rule(id="CMP-6", name="override-not-applied", level="error", summary="A --set override cannot be applied to the run.",
+      rationale=_LAYERS + "`--set a.b=v` reaches key b inside section a; when a is a single value, or a list without "
       "that item, the override cannot take effect and the run checked would not be the run launched.",
       rl_only=False, scope="file")
 def override_not_applied(ctx):
     return _report(ctx, "compose-override")
 
 
-@rule("CMP-7", "composition-malformed", "error", "A bases entry or a reference cannot be used as written.",
-      _LAYERS + "The bases key takes a path or a list of paths; a base holds a mapping of keys; a "
+@rule(id="CMP-7", name="composition-malformed", level="error", summary="A bases entry or a reference cannot be used as written.",
+      rationale=_LAYERS + "The bases key takes a path or a list of paths; a base holds a mapping of keys; a "
       "reference written inside text must name a single value, not a section or a list.",
       rl_only=False, scope="file")
 def composition_malformed(ctx):
     return _report(ctx, "compose-malformed")
 
 
-@rule("CMP-8", "override-adds-key", "note", "A --set override adds a key that no layer of the run has.",
-      _LAYERS + "An override usually changes a value the run already has; one that adds a new key is often "
+@rule(id="CMP-8", name="override-adds-key", level="note", summary="A --set override adds a key that no layer of the run has.",
+      rationale=_LAYERS + "An override usually changes a value the run already has; one that adds a new key is often "
       "a misspelt key path (`--set rollout.group_sise=8`), which a trainer silently ignores. A note: adding "
       "a key on purpose is fine. The finding suggests the nearest key the run has.",
       rl_only=False, scope="file")
@@ -93,18 +93,15 @@ def override_adds_key(ctx):
     return _report(ctx, "compose-override-new")
 
 
-@rule("CMP-9", "reference-expansion-over-limit", "error", "`${...}` references expand past trimtab's limit.",
-      _LAYERS + "A few lines of references can ask for an exponential amount of text or values (`a: ${b}${b}`, "
-      "`b: ${c}${c}`, ... doubles the text at each level; sections that refer to sections double the tree). "
-      "trimtab stops at its limits (a million characters of text written by references in one run, a "
-      "ten thousand keys and items copied from sections, references leading through 64 others) and "
-      "leaves the value unresolved, so the rules that need it stay silent; the launcher's own resolver "
-      "would build the same amount, or stop. The finding points at the reference where the limit was "
-      "passed.",
+
+@rule(id="CMP-9", name="reference-expansion-over-limit", level="error",
+      summary="`${...}` references expand past trimtab's limit.",
+      rationale=_LAYERS + "A few lines of references can ask for an exponential amount of text or values "
+      "(`a: ${b}${b}`, `b: ${c}${c}`, ... doubles the text at each level; sections that refer to sections double "
+      "the tree). trimtab stops at its limits (a million characters of text written by references in one run, "
+      "ten thousand keys and items copied from sections, references leading through 64 others) and leaves the "
+      "value unresolved, so the rules that need it stay silent; the launcher's own resolver would build the "
+      "same amount, or stop. The finding points at the reference where the limit was passed.",
       rl_only=False, scope="file")
 def expansion_over_limit(ctx):
     return _report(ctx, "compose-expansion")
-
-
-RULES = [reference_cycle, reference_unknown, base_missing, base_cycle, base_outside, override_not_applied,
-         composition_malformed, override_adds_key, expansion_over_limit]

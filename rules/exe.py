@@ -70,15 +70,18 @@ def _limit_missing(v) -> bool:
     return str(v.value).strip().lower() in _NO_LIMIT
 
 
-@rule("EXE-1", "code-reward-unsandboxed", "error",
-      "A reward executes generated code with no sandbox (or sandbox kind none).",
-      "A code-execution reward runs programs the policy wrote. Without isolation they run with the "
+@rule(id="EXE-1", name="code-reward-unsandboxed", level="error",
+      summary="A reward executes generated code with no sandbox (or sandbox kind none).",
+      rationale="A code-execution reward runs programs the policy wrote. Without isolation they run with the "
       "training job's user, files, credentials and network: a completion can delete checkpoints, read "
-      "tokens or reach internal services (CWE-94, code injection). trimtab finds such rewards when they "
-      "are declared `kind: code` and by static analysis of the referenced module and the local modules it "
+      "tokens or reach internal services. CWE-653 (Improper Isolation or Compartmentalization: "
+      "functionality of different privilege runs in one compartment) is the weakness: the code is "
+      "untrusted by design, so the failure is the missing boundary, not the building of code from "
+      "unneutralised input that CWE-94 describes (catalogue text from memory). trimtab finds such "
+      "rewards when they are declared `kind: code` and by static analysis of the referenced module and the local modules it "
       "imports (exec, eval, compile, subprocess, os.system/popen/exec*/spawn*/posix_spawn*, pty.spawn, "
       "runpy, ctypes loading, multiprocessing with a code-running target); it never imports or runs them.",
-      needs=SOURCES, cwe=94, help=CAUTIONS)
+      needs=SOURCES, cwe=653, help=CAUTIONS)
 def unsandboxed(ctx):
     for rewards, kind, active, get in _sandbox(ctx):
         if not active:
@@ -102,8 +105,8 @@ def _unsandboxed(ctx, rewards, kind):
                                      "filesystem: read-only}")
 
 
-@rule("EXE-2", "sandbox-network", "warning", "The code sandbox has network access.",
-      "Generated code with a network can exfiltrate data, download payloads, or reach internal services "
+@rule(id="EXE-2", name="sandbox-network", level="warning", summary="The code sandbox has network access.",
+      rationale="Generated code with a network can exfiltrate data, download payloads, or reach internal services "
       "and the metadata endpoints of the cluster (common practice: no network in code sandboxes).",
       needs=SOURCES, help=CAUTIONS)
 def network(ctx):
@@ -114,10 +117,12 @@ def network(ctx):
                               v.location, related=_related(rewards), subject=_text(v), suggestion="network: false")
 
 
-@rule("EXE-3", "sandbox-no-timeout", "error", "The code sandbox has no wall-clock timeout.",
-      "A generated program that loops forever holds its rollout worker, and with it the whole step "
-      "(CWE-400). Every execution needs a wall-clock limit.",
-      needs=SOURCES, cwe=400, help=CAUTIONS)
+@rule(id="EXE-3", name="sandbox-no-timeout", level="error", summary="The code sandbox has no wall-clock timeout.",
+      rationale="A generated program that loops forever holds its rollout worker, and with it the whole step "
+      "(CWE-770, Allocation of Resources Without Limits or Throttling: the worker's time is allocated "
+      "to the program with no limit; the catalogue discourages the general CWE-400 for mapping and "
+      "points to such specific entries, from memory). Every execution needs a wall-clock limit.",
+      needs=SOURCES, cwe=770, help=CAUTIONS)
 def no_timeout(ctx):
     for rewards, kind, active, get in _sandbox(ctx):
         v = get("sandbox.timeout_s")
@@ -128,11 +133,13 @@ def no_timeout(ctx):
                               related=_related(rewards), subject=shown, suggestion="timeout_s: 10")
 
 
-@rule("EXE-4", "sandbox-long-timeout", "warning", "The code sandbox's timeout is longer than the option allows.",
-      "Reward programs for reasoning and coding tasks normally finish in seconds; a long limit lets a "
-      "stuck or hostile program hold a worker for that long on every sample (CWE-400). The option "
+@rule(id="EXE-4", name="sandbox-long-timeout", level="warning", summary="The code sandbox's timeout is longer than the option allows.",
+      rationale="Reward programs for reasoning and coding tasks normally finish in seconds; a long limit lets a "
+      "stuck or hostile program hold a worker for that long on every sample: a limit far above any need "
+      "throttles nothing (CWE-770, Allocation of Resources Without Limits or Throttling, rather than the "
+      "general CWE-400, which the catalogue discourages for mapping; from memory). The option "
       "max_timeout_s (default 60 s, common practice) sets the threshold.",
-      needs=SOURCES, cwe=400, options={"max_timeout_s": 60.0}, help=CAUTIONS)
+      needs=SOURCES, cwe=770, options={"max_timeout_s": 60.0}, help=CAUTIONS)
 def long_timeout(ctx):
     limit = ctx.options["max_timeout_s"]
     for rewards, kind, active, get in _sandbox(ctx):
@@ -142,9 +149,9 @@ def long_timeout(ctx):
                               "max_timeout_s)", v.location, related=_related(rewards), subject=v.number)
 
 
-@rule("EXE-5", "sandbox-no-limits", "warning", "The code sandbox has no memory limit or no process limit.",
-      "Without a memory limit one program can exhaust the host's memory; without a process limit a fork "
-      "bomb takes the machine down (CWE-770, allocation without limits).",
+@rule(id="EXE-5", name="sandbox-no-limits", level="warning", summary="The code sandbox has no memory limit or no process limit.",
+      rationale="Without a memory limit one program can exhaust the host's memory; without a process limit a fork "
+      "bomb takes the machine down (CWE-770, Allocation of Resources Without Limits or Throttling).",
       needs=SOURCES, cwe=770, help=CAUTIONS)
 def no_limits(ctx):
     for rewards, kind, active, get in _sandbox(ctx):
@@ -163,8 +170,8 @@ def _no_limits(ctx, rewards, kind, get):
                               subject=concept, suggestion=fix)
 
 
-@rule("EXE-6", "sandbox-writable-fs", "warning", "The code sandbox can write to the host file system.",
-      "Generated code that can write host files can overwrite checkpoints, data and the reward code "
+@rule(id="EXE-6", name="sandbox-writable-fs", level="warning", summary="The code sandbox can write to the host file system.",
+      rationale="Generated code that can write host files can overwrite checkpoints, data and the reward code "
       "itself (common practice: a read-only or no host mount, with a scratch tmpfs).",
       needs=SOURCES, help=CAUTIONS)
 def writable(ctx):
@@ -176,8 +183,8 @@ def writable(ctx):
                               suggestion="filesystem: read-only")
 
 
-@rule("EXE-7", "sandbox-privileged", "error", "Generated code runs as root or in a privileged sandbox.",
-      "Root inside a privileged or weakly isolated sandbox is close to root on the host; generated code "
+@rule(id="EXE-7", name="sandbox-privileged", level="error", summary="Generated code runs as root or in a privileged sandbox.",
+      rationale="Root inside a privileged or weakly isolated sandbox is close to root on the host; generated code "
       "needs no privileges (CWE-250, execution with unnecessary privileges).",
       needs=SOURCES, cwe=250, help=CAUTIONS)
 def privileged(ctx):
@@ -198,9 +205,9 @@ def _privileged(ctx, rewards, get):
                           suggestion="privileged: false")
 
 
-@rule("EXE-8", "sandbox-process-not-isolation", "warning",
-      "sandbox.kind process is a plain subprocess on the training host, not isolation.",
-      "A subprocess shares the host's user, file system, network and credentials; time and memory limits "
+@rule(id="EXE-8", name="sandbox-process-not-isolation", level="warning",
+      summary="sandbox.kind process is a plain subprocess on the training host, not isolation.",
+      rationale="A subprocess shares the host's user, file system, network and credentials; time and memory limits "
       "on it do not stop it reading tokens or writing files. Use a container or VM boundary for "
       "model-written code.",
       needs=SOURCES, help=CAUTIONS)
@@ -211,5 +218,3 @@ def process_kind(ctx):
                               "training host, which isolates nothing", kind.location, related=_related(rewards),
                               subject=_text(kind), suggestion="kind: container (or vm)")
 
-
-RULES = [unsandboxed, network, no_timeout, long_timeout, no_limits, writable, privileged, process_kind]

@@ -18,9 +18,9 @@ _ESTIMATORS = {
 _K_SOURCE = "Schulman 2020, \"Approximating KL Divergence\" (blog note)"
 
 
-@rule("KL-1", "kl-unstated", "warning",
-      "A clipped policy-gradient run never states its KL regularisation.",
-      "Trainers differ in their default KL coefficient (some default to a positive value, some to none), "
+@rule(id="KL-1", name="kl-unstated", level="warning",
+      summary="A clipped policy-gradient run never states its KL regularisation.",
+      rationale="Trainers differ in their default KL coefficient (some default to a positive value, some to none), "
       "so a run config that says nothing about KL is regularised by whatever the trainer version "
       "happens to ship. State kl.coef (or switch KL off explicitly). Applies to clipped policy-gradient "
       "runs: a clipped estimator (ppo, gae, grpo, dr_grpo, dapo, reinforce++) or a ratio clip in the "
@@ -59,9 +59,9 @@ def kl_unstated(ctx):
                                        "without KL on purpose")
 
 
-@rule("KL-2", "kl-reference-mismatch", "error",
-      "KL is on without a reference model, or a reference model is loaded while KL is off.",
-      "The KL term measures the policy against a reference policy (usually the initial weights). A "
+@rule(id="KL-2", name="kl-reference-mismatch", level="error",
+      summary="KL is on without a reference model, or a reference model is loaded while KL is off.",
+      rationale="The KL term measures the policy against a reference policy (usually the initial weights). A "
       "positive coefficient with the reference model written as absent or switched off (false, null, "
       "none, off) either fails at launch or, in trainers that quietly skip the term, trains without the "
       "regularisation the config asks for: an error. A reference that is simply not mentioned is "
@@ -95,8 +95,8 @@ def kl_reference(ctx):
             subject="reference-unused")
 
 
-@rule("KL-3", "kl-counted-twice", "warning", "The KL penalty is applied both in the reward and in the loss.",
-      "A KL penalty can be subtracted from the reward (a per-token penalty before the advantages, "
+@rule(id="KL-3", name="kl-counted-twice", level="warning", summary="The KL penalty is applied both in the reward and in the loss.",
+      rationale="A KL penalty can be subtracted from the reward (a per-token penalty before the advantages, "
       "arXiv:2203.02155, from memory) or added to the loss as a separate term (arXiv:2402.03300). "
       "Doing both regularises twice with two coefficients that were tuned for one place: the "
       "effective strength is neither.")
@@ -111,8 +111,8 @@ def kl_twice(ctx):
                       p.location, subject="both", suggestion="choose loss or reward")
 
 
-@rule("KL-4", "kl-estimator-unknown", "error", "The KL estimator is not k1, k2 or k3.",
-      "The per-sample KL between policy and reference is approximated by one of three estimators "
+@rule(id="KL-4", name="kl-estimator-unknown", level="error", summary="The KL estimator is not k1, k2 or k3.",
+      rationale="The per-sample KL between policy and reference is approximated by one of three estimators "
       f"({_K_SOURCE}): k1 = -log r ({_ESTIMATORS['k1']}), k2 = (log r)^2 / 2 ({_ESTIMATORS['k2']}), "
       f"k3 = (r - 1) - log r ({_ESTIMATORS['k3']}), with r = p_ref / p_policy. A value that is none of "
       "them is a typo or a trainer-specific name: the trainer refuses it or falls back to its default.")
@@ -133,8 +133,9 @@ def kl_estimator(ctx):
                       subject=name, suggestion=suggestion)
 
 
-@rule("KL-5", "kl-coef-range", "warning", "The KL coefficient is outside the usual range.",
-      "Published recipes use coefficients from 0.001 (arXiv:2501.12948, from memory) through 0.02 "
+@rule(id="KL-5", name="kl-coef-range", level="warning", summary="The KL coefficient is outside the usual range.",
+      rationale="Published recipes use coefficients from 0.001 (arXiv:2501.12948v2, the revised version, from "
+      "memory) through 0.02 "
       "(arXiv:2203.02155, from memory) to 0.04 (arXiv:2402.03300). Far below, the term does nothing "
       "measurable; far above, the policy cannot move away from the reference and learns little. The "
       "range is the options min and max (defaults 1e-4 and 0.5: an order of magnitude beyond the "
@@ -155,11 +156,16 @@ def kl_range(ctx):
                           "(published: 0.001, 0.02, 0.04)", v.location, subject=x)
 
 
-@rule("KL-6", "kl-adaptive-no-horizon", "warning", "An adaptive KL target is set without a horizon.",
-      "An adaptive KL controller moves the coefficient so that the measured KL approaches a target; the "
-      "horizon sets how fast (the proportional controller of Ziegler et al. 2019, arXiv:1909.08593, from "
-      "memory; the adaptive penalty of arXiv:1707.06347). Without a horizon the speed is the trainer's "
-      "default, and a horizon of 0 or less makes the update undefined or run backwards.")
+@rule(id="KL-6", name="kl-adaptive-no-horizon", level="warning", summary="An adaptive KL target is set without a horizon.",
+      rationale="An adaptive KL controller moves the coefficient so that the measured KL approaches a target. Two "
+      "published forms: the adaptive penalty of the clipped-objective paper (Schulman et al. 2017, "
+      "arXiv:1707.06347, section 4) halves or doubles the coefficient when the measured KL is below "
+      "target / 1.5 or above target x 1.5 (fixed thresholds, no horizon); the proportional controller "
+      "of Ziegler et al. 2019 (arXiv:1909.08593, section 2.2, from memory) moves it by a gain times the "
+      "clipped relative error; trainers commonly state that gain as a horizon, the number of samples "
+      "over which the error is corrected (the horizon wording is common practice, from memory; the paper "
+      "states the gain). Only the second form has a horizon. With a target and no horizon the speed is "
+      "the trainer's default, and a horizon of 0 or less makes the update undefined or run backwards.")
 def kl_adaptive(ctx):
     m = ctx.model
     t = m.get("kl.target")
@@ -177,5 +183,3 @@ def kl_adaptive(ctx):
                           f"(kl.target = {shown(t)})", h.location,
                           related=[t.location.with_message("the adaptive target")], subject=h.number)
 
-
-RULES = [kl_unstated, kl_reference, kl_twice, kl_estimator, kl_range, kl_adaptive]

@@ -14,8 +14,8 @@ def _len(model, concept):
     return v.whole if v is not None else None
 
 
-@rule("LEN-1", "length-not-positive", "error", "A token budget or context window is not a positive whole number.",
-      "Prompt and response budgets and context windows count tokens: zero or a negative number makes the "
+@rule(id="LEN-1", name="length-not-positive", level="error", summary="A token budget or context window is not a positive whole number.",
+      rationale="Prompt and response budgets and context windows count tokens: zero or a negative number makes the "
       "engine refuse the request or generate nothing, and a fraction is not a token count. (Text and other "
       "non-numbers are reported by VOC-2.)")
 def length_not_positive(ctx):
@@ -29,9 +29,9 @@ def length_not_positive(ctx):
                               subject=(c, n))
 
 
-@rule("LEN-2", "budget-exceeds-context", "error",
-      "The prompt budget plus the response budget do not fit the context window.",
-      "A rollout engine holds the prompt and the generated response in one context window (the rollout "
+@rule(id="LEN-2", name="budget-exceeds-context", level="error",
+      summary="The prompt budget plus the response budget do not fit the context window.",
+      rationale="A rollout engine holds the prompt and the generated response in one context window (the rollout "
       "engine's, else the model's): prompt max + response max must not exceed it, or long prompts are "
       "cut, generation stops early, or the engine refuses the request (common practice). With no prompt "
       "budget stated, a response budget that fills the whole window leaves no room for any prompt.")
@@ -65,9 +65,9 @@ def budget_exceeds_context(ctx):
                           subject=(response, window))
 
 
-@rule("LEN-3", "engine-context-exceeds-model", "error",
-      "The rollout engine's context window is larger than the model's.",
-      "A model is trained for a fixed number of positions; an engine configured for more either refuses to "
+@rule(id="LEN-3", name="engine-context-exceeds-model", level="error",
+      summary="The rollout engine's context window is larger than the model's.",
+      rationale="A model is trained for a fixed number of positions; an engine configured for more either refuses to "
       "start or generates past the positions the model knows, where quality collapses (common practice). "
       "If positional scaling extends the model's window, state the extended window as model.context_max, "
       "or accept the finding with its reason.",
@@ -81,5 +81,3 @@ def engine_context(ctx):
                           related=related(m, "model.context_max"),
                           suggestion=f"use an engine context of at most {model_ctx}", subject=(engine, model_ctx))
 
-
-RULES = [length_not_positive, budget_exceeds_context, engine_context]

@@ -11,11 +11,12 @@ from trimtab.spill import Spill
 from ._common import anchor, num, shown, unresolved
 
 
-@rule("OPT-1", "lr-range", "warning", "The policy learning rate is outside the range used for RL fine-tuning.",
-      "Full-weight RL fine-tuning of language models uses small learning rates: 1e-6 (arXiv:2402.03300) "
-      "and 3e-6 (arXiv:2501.12948, from memory) are published values. A rate far above collapses the "
+@rule(id="OPT-1", name="lr-range", level="warning", summary="The policy learning rate is outside the range used for RL fine-tuning.",
+      rationale="Full-weight RL fine-tuning of language models uses small learning rates: 1e-6 (arXiv:2402.03300) "
+      "and 3e-6 (arXiv:2501.12948v2, from memory: the revised version; v1 states no training "
+      "hyperparameters) are published values. A rate far above collapses the "
       "policy within a few steps; far below, it does not move. The range is the options min and max "
-      "(defaults 1e-8 and 1e-4: two orders of magnitude around the published values, common practice; "
+      "(defaults 1e-8 and 1e-4: two orders of magnitude either side of the published 1e-6, common practice; "
       "raise max for adapter training, which uses larger rates). A rate of 0 or less is an error: "
       "nothing is learned, or the update climbs the loss.",
       options={"min": 1e-8, "max": 1e-4})
@@ -37,8 +38,8 @@ def lr_range(ctx):
                           level="error", subject=c.number)
 
 
-@rule("OPT-2", "warmup-not-shorter", "warning", "The learning-rate warm-up is not shorter than the run.",
-      "A warm-up raises the learning rate linearly to its peak over the warm-up steps (common practice). "
+@rule(id="OPT-2", name="warmup-not-shorter", level="warning", summary="The learning-rate warm-up is not shorter than the run.",
+      rationale="A warm-up raises the learning rate linearly to its peak over the warm-up steps (common practice). "
       "With warm-up steps >= the run's total steps the peak rate is never reached, and every step "
       "trains at a fraction of the rate the config states.", rl_only=False)
 def warmup(ctx):
@@ -56,8 +57,8 @@ def _off(v) -> bool:
     return v.value is False or (v.number is not None and v.number <= 0)
 
 
-@rule("OPT-3", "checkpoint-durability", "warning", "A crash would lose the whole run: no checkpoint before the end.",
-      "A long run that writes no checkpoint before its last step loses everything to one node failure, "
+@rule(id="OPT-3", name="checkpoint-durability", level="warning", summary="A crash would lose the whole run: no checkpoint before the end.",
+      rationale="A long run that writes no checkpoint before its last step loses everything to one node failure, "
       "and failures are routine at cluster scale (common practice). Reported when the checkpoint "
       "interval is not shorter than the run (the first checkpoint would be the last step), or when "
       "checkpoints are off (0 or false) for a run longer than the option long_run_steps (default 1000 "
@@ -101,8 +102,8 @@ def _label(entry) -> str:
     return entry.path if entry.index == 0 else f"{entry.path} (document {entry.index + 1})"
 
 
-@rule("OPT-4", "shared-output-dir", "warning", "Two run configs write to the same checkpoint or output directory.",
-      "Two runs that share a checkpoint or output directory overwrite each other's checkpoints, and a "
+@rule(id="OPT-4", name="shared-output-dir", level="warning", summary="Two run configs write to the same checkpoint or output directory.",
+      rationale="Two runs that share a checkpoint or output directory overwrite each other's checkpoints, and a "
       "resumed run may load the other run's weights (common practice: one directory per run). This rule "
       "sees every run config of one invocation: each run of a clash is reported, pointing at the others. "
       "Directories are compared as written, after normalising '.', '..' and trailing slashes; templated "
@@ -171,8 +172,8 @@ def _doc(entry) -> str:
     return f" of document {entry.index + 1}" if entry.index else ""
 
 
-@rule("OPT-5", "seed-unstated", "note", "No random seed is stated.",
-      "Without a seed, sampling, data order and initialisation differ between launches, and a "
+@rule(id="OPT-5", name="seed-unstated", level="note", summary="No random seed is stated.",
+      rationale="Without a seed, sampling, data order and initialisation differ between launches, and a "
       "surprising result cannot be reproduced or bisected (common practice: state run.seed).")
 def seed_unstated(ctx):
     m = ctx.model
@@ -182,5 +183,3 @@ def seed_unstated(ctx):
                       anchor(m, "run.name", "run.estimator", key_path="run.seed"), subject="unstated",
                       suggestion="state a seed, e.g. seed: 1")
 
-
-RULES = [lr_range, warmup, checkpoint_durability, shared_dir, seed_unstated]

@@ -22,9 +22,9 @@ def _shown_list(items, limit=6) -> str:
 
 
 # --- REW-1 -----------------------------------------------------------------------------------------
-@rule("REW-1", "reward-reference-unverifiable", "error",
-      "A reward's Python reference cannot be verified in the repository.",
-      "A reward written as `package.module:function` or `path/to/file.py:function` is resolved statically "
+@rule(id="REW-1", name="reward-reference-unverifiable", level="error",
+      summary="A reward's Python reference cannot be verified in the repository.",
+      rationale="A reward written as `package.module:function` or `path/to/file.py:function` is resolved statically "
       "inside the search roots (setting search_roots, default the repository root): the module file must "
       "exist there and define the function. The module is read as a syntax tree only, never imported or "
       "run. A missing module or function fails the run at start-up at best, and at worst a different "
@@ -96,9 +96,9 @@ def _is_local(ref: str) -> bool:
     return r.count("/") >= 2 or r.endswith("/") or "\\" in r
 
 
-@rule("REW-2", "reward-model-unpinned", "warning",
-      "A learned reward model or judge is loaded from a floating revision, or from a missing local path.",
-      "A reward model or judge named by a hub-style id is fetched at launch; without a pinned immutable "
+@rule(id="REW-2", name="reward-model-unpinned", level="warning",
+      summary="A learned reward model or judge is loaded from a floating revision, or from a missing local path.",
+      rationale="A reward model or judge named by a hub-style id is fetched at launch; without a pinned immutable "
       "revision (a full commit hash) the weights behind a branch name such as `main` or a tag can change "
       "between runs, so two runs of the same config can optimise different rewards (common practice: pin "
       "every downloaded artefact). A local path that does not exist is an error: the run cannot start, "
@@ -158,9 +158,9 @@ def _loopback(host: str) -> bool:
         return False
 
 
-@rule("REW-3", "remote-reward-plain-http", "warning",
-      "A remote reward is reached over plain http:// to a host other than loopback.",
-      "Prompts, completions and any authorisation header cross the network in clear text and can be read "
+@rule(id="REW-3", name="remote-reward-plain-http", level="warning",
+      summary="A remote reward is reached over plain http:// to a host other than loopback.",
+      rationale="Prompts, completions and any authorisation header cross the network in clear text and can be read "
       "or altered on the way, so the reward itself can be forged (CWE-319). Use https://; plain http is "
       "accepted for loopback (localhost, 127.0.0.0/8, ::1).",
       needs=SOURCES, cwe=319, help=CAUTIONS)
@@ -181,12 +181,13 @@ def remote_plain_http(ctx):
                               suggestion="use https:// (or a loopback address for a local service)")
 
 
-@rule("REW-4", "remote-reward-no-timeout", "warning",
-      "A remote reward has no request timeout.",
-      "A reward service that stops answering holds every rollout worker that waits on it: the run stalls "
-      "with the GPUs allocated (CWE-400). State a timeout per request (and decide what reward a "
-      "timed-out sample gets).",
-      needs=SOURCES, cwe=400, help=CAUTIONS)
+@rule(id="REW-4", name="remote-reward-no-timeout", level="warning",
+      summary="A remote reward has no request timeout.",
+      rationale="A reward service that stops answering holds every rollout worker that waits on it: the run stalls "
+      "with the GPUs allocated. CWE-1088 (Synchronous Access of Remote Resource without Timeout) is "
+      "the specific entry; the general CWE-400 is discouraged for mapping by the catalogue (both from "
+      "memory). State a timeout per request (and decide what reward a timed-out sample gets).",
+      needs=SOURCES, cwe=1088, help=CAUTIONS)
 def remote_no_timeout(ctx):
     for comp, ep in _remote(ctx):
         t = comp.fields.get("timeout_s")
@@ -200,9 +201,9 @@ def remote_no_timeout(ctx):
                               t.location, subject=str(t.value))
 
 
-@rule("REW-5", "remote-reward-offline", "note",
-      "A remote reward makes the run not reproducible offline.",
-      "The reward depends on a service outside the run: its model, code and availability can change, "
+@rule(id="REW-5", name="remote-reward-offline", level="note",
+      summary="A remote reward makes the run not reproducible offline.",
+      rationale="The reward depends on a service outside the run: its model, code and availability can change, "
       "so the run cannot be repeated offline or audited later from the config alone (common practice: "
       "record the service's version with the run).",
       needs=SOURCES, help=CAUTIONS)
@@ -214,9 +215,9 @@ def remote_offline(ctx):
 
 
 # --- REW-6 -----------------------------------------------------------------------------------------
-@rule("REW-6", "no-verifiable-reward", "warning",
-      "The only reward is a learned model or judge; there is no rule-based or test-based component.",
-      "A policy optimised against a learned reward alone learns to exploit that model's errors (reward "
+@rule(id="REW-6", name="no-verifiable-reward", level="warning",
+      summary="The only reward is a learned model or judge; there is no rule-based or test-based component.",
+      rationale="A policy optimised against a learned reward alone learns to exploit that model's errors (reward "
       "hacking / over-optimisation: Gao, Schulman and Hilton 2022, arXiv:2210.10760). Rule-based or "
       "test-based rewards for reasoning tasks (answer checks, unit tests) are common practice and keep a "
       "verifiable signal in the mix.",
@@ -239,9 +240,9 @@ def no_verifiable(ctx):
 
 
 # --- REW-7 -----------------------------------------------------------------------------------------
-@rule("REW-7", "reward-weight", "error",
-      "A reward weight is not a number, all weights are zero, or a weight is zero or negative.",
-      "The total reward is the weighted sum of its components. A weight that is text is refused or "
+@rule(id="REW-7", name="reward-weight", level="error",
+      summary="A reward weight is not a number, all weights are zero, or a weight is zero or negative.",
+      rationale="The total reward is the weighted sum of its components. A weight that is text is refused or "
       "silently read as something else; when every weight is zero the reward is constantly zero and the "
       "policy learns nothing (error). A zero weight switches a component off while it is still computed, "
       "and a negative weight turns a reward into a penalty: often a sign slip (warning).",
@@ -286,8 +287,8 @@ def _norm_ref(text: str) -> str:
     return t
 
 
-@rule("REW-8", "duplicate-reward-reference", "warning", "The same reward reference is listed twice.",
-      "Listing one reward twice doubles its weight in a way the weights do not show, and usually means "
+@rule(id="REW-8", name="duplicate-reward-reference", level="warning", summary="The same reward reference is listed twice.",
+      rationale="Listing one reward twice doubles its weight in a way the weights do not show, and usually means "
       "one entry was meant to be a different function (common practice).",
       needs=SOURCES)
 def duplicate(ctx):
@@ -357,9 +358,9 @@ def _samples(ctx) -> tuple[str, ...]:
     return ()
 
 
-@rule("REW-9", "format-pattern-invalid", "error",
-      "The answer-format regular expression does not compile.",
-      "A format reward whose pattern does not compile (Python `re`) fails at the first reward call or, "
+@rule(id="REW-9", name="format-pattern-invalid", level="error",
+      summary="The answer-format regular expression does not compile.",
+      rationale="A format reward whose pattern does not compile (Python `re`) fails at the first reward call or, "
       "where errors are caught, gives every sample the same score. A pattern that nests too deeply or "
       "repeats too many times for the compiler is reported here too.",
       needs=("reward.format_pattern",))
@@ -399,9 +400,9 @@ def sample_answers(template: str) -> list[str]:
     return out
 
 
-@rule("REW-10", "format-pattern-rejects-template", "error",
-      "The answer-format pattern rejects a well-formed answer built from the prompt template's own tags.",
-      "When the template asks for, say, a think block then an answer block, a format reward whose pattern "
+@rule(id="REW-10", name="format-pattern-rejects-template", level="error",
+      summary="The answer-format pattern rejects a well-formed answer built from the prompt template's own tags.",
+      rationale="When the template asks for, say, a think block then an answer block, a format reward whose pattern "
       "does not match such an answer scores every correct completion as malformed: the format reward "
       "then pushes the policy away from the format the prompt asks for. The check builds answers from "
       "the template's tag pairs (several spacings, each tried with and without re.DOTALL and "
@@ -421,9 +422,9 @@ def pattern_rejects(ctx):
                       subject=v.value)
 
 
-@rule("REW-11", "format-pattern-too-costly", "error",
-      "Testing the answer-format pattern runs out of trimtab's time budget.",
-      "A regular expression with nested or overlapping repeats, such as `(.+)+!` or `(a|a)*b`, can take "
+@rule(id="REW-11", name="format-pattern-too-costly", level="error",
+      summary="Testing the answer-format pattern runs out of trimtab's time budget.",
+      rationale="A regular expression with nested or overlapping repeats, such as `(.+)+!` or `(a|a)*b`, can take "
       "time exponential in the length of the text it fails to match (catastrophic backtracking; the "
       "weakness catalogue's CWE-1333, from memory). A format reward with such a pattern can stall on one "
       "sampled completion and hold up the whole training step. trimtab compiles the pattern and tries it "
@@ -451,6 +452,3 @@ def pattern_too_costly(ctx):
                           "only with a CPU-time bound (run the check in the main thread of a POSIX system)",
                           v.location, subject=v.value, level="note")
 
-
-RULES = [reference_unverifiable, model_unpinned, remote_plain_http, remote_no_timeout, remote_offline,
-         no_verifiable, weights, duplicate, pattern_invalid, pattern_rejects, pattern_too_costly]

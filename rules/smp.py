@@ -6,16 +6,16 @@ from trimtab import rule
 from trimtab.arithmetic import related, settled
 
 _GROUPS = ("Published group sizes: 64 completions per prompt (Shao et al. 2024, arXiv:2402.03300) and 16 "
-           "(Guo et al. 2025, arXiv:2501.12948, from memory).")
+           "(Guo et al. 2025, arXiv:2501.12948v2, the revised version, from memory).")
 
 
 def _estimator(model) -> str | None:
     return model.text("run.estimator")
 
 
-@rule("SMP-1", "group-too-small", "error",
-      "A group-relative estimator is given fewer than 2 completions per prompt (warning under min_group).",
-      "A group-relative estimator (GRPO, leave-one-out and their variants) uses the group's own "
+@rule(id="SMP-1", name="group-too-small", level="error",
+      summary="A group-relative estimator is given fewer than 2 completions per prompt (warning under min_group).",
+      rationale="A group-relative estimator (GRPO, leave-one-out and their variants) uses the group's own "
       "completions as the baseline: with one completion per prompt the completion is its own baseline "
       "and every advantage is zero, so the policy never moves (error). A small group is a noisy "
       "baseline (warning below the option min_group, default 4: common practice; " + _GROUPS + ") The "
@@ -42,9 +42,9 @@ def group_too_small(ctx):
                                                   "per prompt", subject=(est, gs))
 
 
-@rule("SMP-2", "deterministic-group", "error",
-      "Several completions per prompt are sampled deterministically (or nearly).",
-      "With more than one completion per prompt, temperature 0, greedy decoding (sampling off, or top-k "
+@rule(id="SMP-2", name="deterministic-group", level="error",
+      summary="Several completions per prompt are sampled deterministically (or nearly).",
+      rationale="With more than one completion per prompt, temperature 0, greedy decoding (sampling off, or top-k "
       "of 1) makes every completion of a group the same, so rewards inside a group are equal and a "
       "group-relative advantage is zero (error). A temperature below the option min_temperature "
       "(default 0.3, common practice: published group-relative recipes sample at temperature near 1) "
@@ -82,9 +82,9 @@ def deterministic_group(ctx):
                           suggestion="sample at a temperature near 1", subject=("temperature", t.number, gs))
 
 
-@rule("SMP-3", "sampling-out-of-range", "error",
-      "A sampling parameter is outside its range (temperature < 0, top-p outside (0, 1], top-k < 0).",
-      "Nucleus sampling keeps the smallest set of tokens whose probability reaches top-p, so top-p lies in "
+@rule(id="SMP-3", name="sampling-out-of-range", level="error",
+      summary="A sampling parameter is outside its range (temperature < 0, top-p outside (0, 1], top-k < 0).",
+      rationale="Nucleus sampling keeps the smallest set of tokens whose probability reaches top-p, so top-p lies in "
       "(0, 1] (Holtzman et al. 2020, arXiv:1904.09751); top-k counts tokens and temperature divides the "
       "logits, so neither is negative. Many inference engines read top-k -1 as 'no cut-off' (common "
       "practice), which the option allow_top_k_minus_one accepts (default true).",
@@ -108,5 +108,3 @@ def sampling_range(ctx):
                                                                    if ctx.options["allow_top_k_minus_one"] else ""),
                               subject=("top_k", k.number))
 
-
-RULES = [group_too_small, deterministic_group, sampling_range]

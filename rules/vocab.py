@@ -9,8 +9,8 @@ from trimtab.vocabulary import CONCEPTS
 OWNED_ELSEWHERE = frozenset({"kl.estimator"})
 
 
-@rule("VOC-1", "ambiguous-key", "warning", "Two keys in the file could each be the same concept.",
-      "trimtab never guesses: when a generic key name matches in two places with the same strength, "
+@rule(id="VOC-1", name="ambiguous-key", level="warning", summary="Two keys in the file could each be the same concept.",
+      rationale="trimtab never guesses: when a generic key name matches in two places with the same strength, "
       "the concept stays unresolved and the rules that need it stay silent. Name the right key in "
       "[tool.trimtab.keys] (`trimtab map` drafts the block).", rl_only=False)
 def ambiguous(ctx):
@@ -26,8 +26,8 @@ def _type_name(t: str) -> str:
     return {"int": "an integer", "number": "a number", "bool": "true or false", "str": "text"}.get(t, t)
 
 
-@rule("VOC-2", "wrong-type", "error", "A concept's value has the wrong type.",
-      "A count that is text, a rate that is a boolean: the trainer either refuses the value or "
+@rule(id="VOC-2", name="wrong-type", level="error", summary="A concept's value has the wrong type.",
+      rationale="A count that is text, a rate that is a boolean: the trainer either refuses the value or "
       "converts it in a way the author did not intend. Values are typed as the settings' yaml_version "
       "reads them.", rl_only=False)
 def wrong_type(ctx):
@@ -42,8 +42,8 @@ def wrong_type(ctx):
                           f"(read under YAML {ctx.model.version})", v.location, subject=shown)
 
 
-@rule("VOC-3", "unknown-value", "warning", "A concept's value is not one trimtab knows.",
-      "Enumerated settings (estimator, stage, sandbox kind, KL placement, ...) accept a known set of "
+@rule(id="VOC-3", name="unknown-value", level="warning", summary="A concept's value is not one trimtab knows.",
+      rationale="Enumerated settings (estimator, stage, sandbox kind, KL placement, ...) accept a known set of "
       "values; an unknown one is often a typo, and the rules that depend on it cannot reason about it.",
       rl_only=False)
 def unknown_value(ctx):
@@ -55,5 +55,3 @@ def unknown_value(ctx):
             yield ctx.finding(f"{name} = {v.value!r} is not one of {', '.join(c.values)}", v.location,
                               subject=v.value)
 
-
-RULES = [ambiguous, wrong_type, unknown_value]

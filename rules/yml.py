@@ -17,14 +17,14 @@ def _problems(ctx, kinds, level=None):
                               subject=p.kind)
 
 
-@rule("YML-1", "parse-error", "error", "The file is not valid YAML (or, for .json, not valid JSON).",
-      _PARSE_WHY, rl_only=False, scope="file")
+@rule(id="YML-1", name="parse-error", level="error", summary="The file is not valid YAML (or, for .json, not valid JSON).",
+      rationale=_PARSE_WHY, rl_only=False, scope="file")
 def parse_error(ctx):
     return _problems(ctx, {"parse", "json"})
 
 
-@rule("YML-2", "duplicate-key", "warning", "A key is written twice in one mapping.",
-      "YAML requires keys of a mapping to be unique (YAML 1.2.2, section 3.2.1.1). Loaders differ: "
+@rule(id="YML-2", name="duplicate-key", level="warning", summary="A key is written twice in one mapping.",
+      rationale="YAML requires keys of a mapping to be unique (YAML 1.2.2, section 3.2.1.1). Loaders differ: "
       "some keep the last value, some the first, some refuse the file, so the run depends on the loader.",
       rl_only=False, scope="file")
 def duplicate_key(ctx):
@@ -34,8 +34,8 @@ def duplicate_key(ctx):
                               subject=p.message.split("'")[1] if "'" in p.message else p.message)
 
 
-@rule("YML-4", "encoding", "error", "The file is not UTF-8 text.",
-      "YAML streams are Unicode (YAML 1.2.2, section 5.2); most training stacks read configs as UTF-8. "
+@rule(id="YML-4", name="encoding", level="error", summary="The file is not UTF-8 text.",
+      rationale="YAML streams are Unicode (YAML 1.2.2, section 5.2); most training stacks read configs as UTF-8. "
       "Undecodable bytes or binary content stop the loader; UTF-16 or UTF-32 with a byte-order mark is "
       "valid YAML but not every loader reads it (a note).",
       rl_only=False, scope="file")
@@ -44,8 +44,8 @@ def encoding(ctx):
     yield from _problems(ctx, {"encoding-other"}, level=Level.NOTE)
 
 
-@rule("YML-5", "limit-exceeded", "error", "The file exceeds a size, nesting, alias or number limit.",
-      "Limits keep the check bounded in time and memory on crafted input (a nested-alias document "
+@rule(id="YML-5", name="limit-exceeded", level="error", summary="The file exceeds a size, nesting, alias or number limit.",
+      rationale="Limits keep the check bounded in time and memory on crafted input (a nested-alias document "
       "expands exponentially in a loader that builds objects). The limits are settings "
       "(limits.max_bytes, limits.max_depth, limits.max_aliases), and an integer of 10^30 or more (a "
       "literal of thousands of digits costs time to convert and cannot be printed) is read as text "
@@ -55,16 +55,16 @@ def limits(ctx):
     return _problems(ctx, {"size", "depth", "aliases", "number"})
 
 
-@rule("YML-6", "unreadable", "error", "The file cannot be read.",
-      "A path given to the check that cannot be opened (missing, a folder, a broken link, no "
+@rule(id="YML-6", name="unreadable", level="error", summary="The file cannot be read.",
+      rationale="A path given to the check that cannot be opened (missing, a folder, a broken link, no "
       "permission) is reported so that a gate never passes a file it did not see.",
       rl_only=False, scope="file")
 def unreadable(ctx):
     return _problems(ctx, {"io"})
 
 
-@rule("YML-7", "bad-merge", "error", "A merge key '<<' does not refer to mappings.",
-      "The merge key type (YAML 1.1 type repository, 'merge') takes a mapping or a list of mappings; "
+@rule(id="YML-7", name="bad-merge", level="error", summary="A merge key '<<' does not refer to mappings.",
+      rationale="The merge key type (YAML 1.1 type repository, 'merge') takes a mapping or a list of mappings; "
       "anything else is refused by loaders that implement merges and kept as a plain key by others.",
       rl_only=False, scope="file")
 def bad_merge(ctx):
@@ -109,9 +109,9 @@ def compatible_number(text: str) -> str | None:
     return None
 
 
-@rule("YML-3", "yaml-version-disagreement", "warning",
-      "A value a concept uses reads differently under YAML 1.1 and YAML 1.2.",
-      "YAML 1.2 (core schema, YAML 1.2.2 section 10.3.2) and YAML 1.1 (type repository) type plain "
+@rule(id="YML-3", name="yaml-version-disagreement", level="warning",
+      summary="A value a concept uses reads differently under YAML 1.1 and YAML 1.2.",
+      rationale="YAML 1.2 (core schema, YAML 1.2.2 section 10.3.2) and YAML 1.1 (type repository) type plain "
       "scalars differently: `3e-6` is a float in 1.2 and a string in 1.1 (1.1 floats need a point and a "
       "signed exponent); `on`, `off`, `yes`, `no` are booleans only in 1.1; `010` is octal 8 in 1.1 and "
       "decimal 10 in 1.2; `1:30` is the base-60 number 90 in 1.1. A trainer's loader reads one of the "
@@ -154,5 +154,3 @@ def _expects_text(concept: str) -> bool:
     c = CONCEPTS.get(concept)
     return c is not None and c.type == "str"  # "any" concepts (reference.source) give false a meaning
 
-
-RULES = [parse_error, duplicate_key, version_disagreement, encoding, limits, unreadable, bad_merge]

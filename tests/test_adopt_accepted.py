@@ -204,7 +204,7 @@ def test_a_crashed_rule_is_never_recorded(tmp_path, monkeypatch):
     class Crash:
         @hookimpl
         def trimtab_rules(self):
-            @rule("ZZA-1", "always-crashes", "error", "test rule", "test rule")
+            @rule(id="ZZA-1", name="always-crashes", level="error", summary="test rule", rationale="test rule")
             def crash(ctx):
                 raise RuntimeError("boom")
 

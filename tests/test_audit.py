@@ -1,8 +1,9 @@
 """``trimtab audit``: the page's structure, read back with the standard library's HTML parser
 (``html.parser``, which follows the HTML tokenisation rules closely enough for this), and checked
 against trimtab's own check output, against PyYAML's reading of the fixtures, and against the
-Content-Security-Policy hash-source definition (W3C CSP Level 3, section 2.3.1 / 8.4: base64 of the
-SHA-256 digest of the element's text)."""
+Content-Security-Policy hash-source definition (W3C CSP Level 3, section 2.3.1, the hash-source
+grammar: the algorithm name and the base64 of the SHA-256 digest of the element's text; from memory.
+Section 8.4 of that text is about external scripts allowed by hash, not this)."""
 from __future__ import annotations
 
 import base64
@@ -368,7 +369,7 @@ def test_base_files_of_a_composed_run_are_shown_and_linkable(tmp_path, monkeypat
 
     monkeypatch.setattr(compose.Composer, "compose", composed)
 
-    @rule("TST-1", "points-into-base", "note", "test rule", "test only")
+    @rule(id="TST-1", name="points-into-base", level="note", summary="test rule", rationale="test only")
     def points(ctx):
         yield ctx.finding("stated in the base", ctx.model.loc("batch.mini"),
                           related=[Location(base, 15, 3, message="the base's mini-batch")], subject=1)
@@ -381,11 +382,11 @@ def test_base_files_of_a_composed_run_are_shown_and_linkable(tmp_path, monkeypat
             return [points]
 
     from trimtab.audit import audit
-    from trimtab.check import CheckOptions
-    from trimtab.findings import Level
+    from trimtab.pipeline import Pipeline, Request
     from trimtab.settings import load
 
-    page, _code = audit([str(BROKEN)], load(None, REPO), Registry([Plugin()]), CheckOptions(), Level.WARNING)
+    page = audit(Pipeline(load(None, REPO), Registry([Plugin()])).run(
+        Request(paths=[str(BROKEN)], gate="warning", confine=False, keep_models=True)))
     tree = parse(page)
     sections = [(s["attrs"]["data-path"], s["attrs"].get("data-base")) for s in tree.find("section", "config")]
     assert sections == [("fixtures/audit/mini-remainder.yaml", None), (base, "1")]
@@ -416,8 +417,7 @@ def _quoted(text: str) -> str:
 
 def _page_for_name(tmp_path, name: str) -> str:
     from trimtab.audit import audit
-    from trimtab.check import CheckOptions
-    from trimtab.findings import Level
+    from trimtab.pipeline import Pipeline, Request
     from trimtab.settings import load
 
     global _REGISTRY
@@ -426,7 +426,8 @@ def _page_for_name(tmp_path, name: str) -> str:
     cfg.write_text(f"run:\n  name: {_quoted(name)}\n  estimator: grpo\nrollout:\n  group_size: 4\n"
                    "  temperature: 1.0\nbatch:\n  prompts_per_step: 8\n", encoding="utf-8")
     # SEC is skipped: a random name may look like a credential, and a finding changes the structure
-    page, _code = audit([str(cfg)], load(None, REPO), _REGISTRY, CheckOptions(skip={"SEC"}), Level.WARNING)
+    page = audit(Pipeline(load(None, REPO), _REGISTRY).run(
+        Request(paths=[str(cfg)], skip={"SEC"}, gate="warning", confine=False, keep_models=True)))
     return page
 
 

@@ -197,7 +197,7 @@ def test_missing_path_is_a_finding_and_the_rest_is_checked(repo):
 class _CrashPlugin:
     @hookimpl
     def trimtab_rules(self):
-        @rule("ZZT-1", "always-crashes", "error", "test rule", "test rule")
+        @rule(id="ZZT-1", name="always-crashes", level="error", summary="test rule", rationale="test rule")
         def crash(ctx):
             raise RuntimeError("boom")
 
@@ -325,6 +325,7 @@ def test_readme_plugin_example_works(tmp_path, monkeypatch):
     readme = (REPO / "README.md").read_text()
     code = re.search(r"```python\n# burrow_rules/__init__.py\n(.*?)```", readme, re.S).group(1)
     module = types.ModuleType("burrow_rules")
+    monkeypatch.setitem(sys.modules, "burrow_rules", module)  # as an installed plugin is
     exec(compile(code, "README.md", "exec"), module.__dict__)
     monkeypatch.setattr(cli, "_registry", lambda: Registry(plugins=[module]))
     (tmp_path / ".git").mkdir()

@@ -1,0 +1,212 @@
+"""The pipeline: one owner of every stage, from the paths asked for to the exit status.
+
+    discover -> load -> compose -> resolve -> rules -> filter -> gate -> Outcome
+
+``Pipeline(settings, registry).run(Request(...))`` returns an :class:`Outcome`: the findings
+stream (every filter applied: acceptance comments, the accepted-findings file, ``--only`` /
+``--skip``), the counts per level, the exit status, and, when the request asks for them, each
+checked file's Document and run models. ``check``, ``audit``, ``explain`` and ``map`` are views of
+one Outcome, so they agree by construction on which files were checked, what was accepted and
+what the exit status is; no view loads a file again.
+"""
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable, Iterator
+from dataclasses import dataclass, field
+from itertools import chain
+from pathlib import Path
+from typing import Any
+
+from . import filtering
+from .check import CheckOptions, Checker, Kept, run, summary_counts
+from .engine import Registry
+from .findings import Finding, Level, Location
+from .settings import Settings, SettingsError
+from .spill import Stream
+
+EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
+
+
+@dataclass
+class Request:
+    """What a command asks the pipeline for."""
+
+    paths: list[str] = field(default_factory=list)  # none: the settings' include globs
+    only: set[str] = field(default_factory=set)
+    skip: set[str] = field(default_factory=set)
+    overrides: list[tuple[str, str]] = field(default_factory=list)  # (key path, text) from --set
+    gate: str | None = None  # default: the settings' gate
+    accepted: str | None = None  # --accepted FILE (else the settings' accepted file)
+    apply_accepted: bool = True  # False: the accepted-findings file is not read (--write-accepted)
+    own_outputs: tuple[str, ...] = ()  # files trimtab writes in this run: never checked as configs
+    since: str | None = None  # a git ref: only files changed since it (and the runs built on them)
+    jobs: int | None = None  # default: the settings' jobs (1 when the models are kept)
+    confine: bool = True  # paths given must lie inside the repository (a one-off audit may look outside)
+    dependants: bool = True  # a base among the files brings the runs built on it
+    staged_files: list[tuple[str, str]] | None = None  # check --staged: the files, exported from the index
+    keep_models: bool = False  # keep each file's Document and run models (audit, explain, map)
+    guard: Callable[[list[tuple[str, str]]], None] | None = None  # sees the files found, may refuse the run
+    progress: Callable[[int], Any] | None = None  # progress(number of files) -> a progress callback or None
+    notes: Callable[[str], None] | None = None  # where notes about the settings go (stderr)
+
+
+@dataclass
+class Outcome:
+    """The checked run, for every view."""
+
+    settings: Settings
+    registry: Registry
+    files: list[tuple[str, str]]  # (path on disk, path shown), in report order
+    missing: list[str]  # paths asked for that were not read (as discover.Refused, with the reason)
+    checked: Any  # the shown paths checked (a set)
+    recorded: Iterable[Finding]  # every finding before the accepted-findings file (what --write-accepted records)
+    findings: Iterable[Finding]  # every filter applied: what is reported and counted
+    gate: Level
+    crashed: bool  # a rule crashed
+    runs: int
+    skipped: int
+    kept: dict[str, Kept] = field(default_factory=dict)  # shown path -> Document and run models (on request)
+
+    @property
+    def incomplete(self) -> bool:
+        """The check could not run as asked: a rule crashed or a plugin failed to load."""
+        return self.crashed or bool(self.registry.errors)
+
+    def counts(self) -> dict[str, int]:
+        c = self.__dict__.get("_counts")
+        if c is None:
+            c = self.__dict__["_counts"] = summary_counts(self.findings)
+        return c
+
+    @property
+    def status(self) -> int:
+        """0: nothing at or above the gate; 1: findings at or above it; 2: the check was incomplete."""
+        if self.incomplete:
+            return EXIT_INCOMPLETE
+        failing = any(n and Level.parse(level) >= self.gate for level, n in self.counts().items())
+        return EXIT_FINDINGS if failing else EXIT_OK
+
+    def summary(self) -> dict:
+        return {"files": len(self.files), "runs": self.runs, "skipped": self.skipped, "by_level": self.counts()}
+
+    def models(self, shown: str) -> list:
+        """The run models of one checked file (kept on request), one per YAML document."""
+        kept = self.kept.get(shown)
+        return kept.models if kept is not None else []
+
+    def doc(self, shown: str):
+        """The Document of a checked file, or of a file a run was composed from (kept on request)."""
+        kept = self.kept.get(shown)
+        if kept is not None:
+            return kept.doc
+        for k in self.kept.values():
+            if shown in k.doc.sources:
+                return k.doc.sources[shown]
+        # a file a run names that the composer did not read: through the composer's cache of bases
+        from .compose import load_source
+
+        disk = Path(shown) if Path(shown).is_absolute() else self.settings.root / shown
+        return load_source(disk, shown, self.settings.limits)
+
+
+class Pipeline:
+    def __init__(self, settings: Settings, registry: Registry):
+        self.settings = settings
+        self.registry = registry
+
+    # --- discover --------------------------------------------------------------------------------
+    def discover(self, req: Request) -> tuple[list[tuple[str, str]], list[str]]:
+        from .discover import changed_since, discover
+
+        settings = self.settings
+        if req.staged_files is not None:
+            files, missing = list(req.staged_files), []
+        else:
+            used: set[str] = set()
+            files, missing = discover(req.paths, settings.root, settings.include, settings.exclude, used,
+                                      confine=req.confine)
+            for idle in settings.check_include(used, bool(req.paths)):
+                if req.notes:
+                    req.notes(f"setting {idle} matches no file")
+        if req.guard is not None:
+            req.guard(files)
+        files = self._not_own_outputs(files, req)
+        changed = None
+        if req.since:
+            try:
+                changed = set(changed_since(req.since, settings.root))
+            except ValueError as exc:
+                raise SettingsError(str(exc)) from None
+            files = [(p, s) for p, s in files if s in changed]
+        if req.dependants:
+            files = self._with_dependants(req, files, changed)
+        return files, missing
+
+    def _not_own_outputs(self, files, req: Request):
+        """The accepted-findings file and the reports are trimtab's own output, not configs."""
+        own = [p for p in (req.accepted, *req.own_outputs) if p]
+        if self.settings.accepted:
+            own.append(str(self.settings.root / self.settings.accepted))
+        if not own:
+            return files
+        skip = {Path(p).resolve() for p in own}
+        return [(p, s) for p, s in files if Path(p).resolve() not in skip]
+
+    def _with_dependants(self, req: Request, files, changed):
+        """A base among the files to check (given, or changed since a ref) brings the files built on it."""
+        if not (req.paths or changed is not None):
+            return files  # the whole repository is checked anyway
+        from .compose import with_dependants
+        from .discover import relpath
+
+        seeds = set(changed or ()) | {s for _p, s in files}
+        seeds |= {relpath(Path(p), self.settings.root.resolve()) for p in req.paths if Path(p).is_file()}
+        return with_dependants(files, seeds, self.settings)
+
+    # --- load, compose, resolve, rules, filter, gate ----------------------------------------------
+    def run(self, req: Request, files: tuple[list[tuple[str, str]], list[str]] | None = None) -> Outcome:
+        """The Outcome of the request; ``files``: (files, missing) already discovered."""
+        settings = self.settings
+        files_, missing = files if files is not None else self.discover(req)
+        checker = Checker(settings, self.registry, CheckOptions(req.only, req.skip, list(req.overrides)))
+        jobs = req.jobs if req.jobs is not None else settings.jobs
+        if jobs < 1:
+            raise SettingsError(f"--jobs {jobs}: expected a number of at least 1")
+        if req.keep_models:
+            jobs = 1  # Documents and models stay in this process
+        progress = req.progress(len(files_)) if req.progress else None
+        try:
+            result = run(checker, files_, jobs, progress, keep=req.keep_models)
+        finally:
+            if progress is not None:
+                progress.close()
+        # Findings are a Stream: each pass reads them again from the run's spill (perf: a check of
+        # thousands of files never holds them all), so each step below wraps the one before.
+        unreadable = [Finding("YML-6", Level.ERROR, getattr(m, "reason", "cannot be read: no such file or folder"),
+                              Location(m), subject=m).finish() for m in reversed(missing)]
+        checked_findings = result.findings
+        recorded: Iterable[Finding] = Stream(lambda: chain(unreadable, checked_findings))
+        findings = self._accepted_filter(req, recorded, result.checked)
+        return Outcome(settings, self.registry, files_, missing, result.checked, recorded, findings,
+                       Level.parse(req.gate or settings.gate), result.crashed, result.runs, result.skipped,
+                       result.kept)
+
+    def _accepted_filter(self, req: Request, findings: Iterable[Finding], checked) -> Iterable[Finding]:
+        settings = self.settings
+        accepted_path = req.accepted or settings.accepted
+        if not accepted_path or not req.apply_accepted:
+            return findings
+        path = Path(accepted_path)
+        if not path.is_absolute() and not req.accepted:
+            path = settings.root / path
+        try:
+            rows = filtering.read_accepted(path)
+        except filtering.AcceptedFileError as exc:
+            raise SettingsError(str(exc)) from None
+        gone = {str(r.get("file")) for r in rows if not (settings.root / str(r.get("file"))).exists()}
+        known = checked | gone
+
+        def accepted() -> Iterator[Finding]:
+            return filtering.apply_accepted(findings, rows, str(accepted_path), known)
+
+        return Stream(accepted)
