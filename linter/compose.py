@@ -364,6 +364,7 @@ class Composer:
         from .discover import matches
 
         source = self._source_shown
+        named = []
         for i, entry in enumerate(self.layers):
             if not matches(doc.path, [entry.get("files", "")]):
                 continue
@@ -374,9 +375,17 @@ class Composer:
                 naming = Location(doc.path, 0, 0, message="", key_path="")
                 related = [Location(source, 0, 0, message=f"layers entry {i + 1} names base {b!r} for files "
                                                          f"matching {entry.get('files')!r}")]
-                self._add_base(real, b, naming, related, stack, out)
+                named.append((real, b, naming, related))
         for name, node in self._named_bases(doc, root):
-            self._add_base(Path(path).parent / name, name, node.location(), [], stack, out)
+            named.append((Path(path).parent / name, name, node.location(), []))
+        # Each base applies once, at the LAST place the order names it: applying a base again later
+        # overwrites everything its earlier application set, so the run is the same, and a file whose
+        # bases each name the same base twice costs one visit per base, not two to the power of the
+        # depth. Built backwards (a base, then its own bases from the last) and turned round.
+        seen: set = set()
+        for real, name, naming, related in reversed(named):
+            self._add_base(real, name, naming, related, stack, out, seen)
+        out.reverse()
         out.append(("experiment", doc, root))
         if self.overrides_doc is not None:
             out.append(("overrides file", self.overrides_doc, self.overrides_doc.roots[0]))
@@ -412,7 +421,10 @@ class Composer:
             hit = self._places[key] = (resolved, shown, resolved.is_file())
         return hit
 
-    def _add_base(self, real: Path, name: str, naming: Location, related: list, stack: list, out: list) -> None:
+    def _add_base(self, real: Path, name: str, naming: Location, related: list, stack: list, out: list,
+                  seen: set) -> None:
+        """Add the base and the bases it names to ``out`` in reverse order of application (the
+        caller turns the list round); a base already in ``seen`` is there with its own bases."""
         shown_real, shown, is_file = self._where(real)
         chain = [s for _r, s in stack]
         if shown is None:
@@ -427,6 +439,9 @@ class Composer:
         if len(stack) > _MAX_DEPTH:
             self._problem(BASE_CYCLE, f"bases nest deeper than {_MAX_DEPTH} files", naming, related, subject=name)
             return
+        if shown_real in seen:
+            return
+        seen.add(shown_real)
         if not is_file:
             looked = f" (looked for {shown})" if shown != name else ""
             self._problem(BASE_MISSING, f"base {name!r} does not exist{looked}", naming, related, subject=name)
@@ -443,11 +458,11 @@ class Composer:
             self._problem(MALFORMED, f"base {name!r} does not hold a mapping of keys to values", naming, related,
                           subject=name)
             return
-        stack.append((shown_real, shown))
-        for sub, node in self._named_bases(bdoc, broot):
-            self._add_base(real.parent / sub, sub, node.location(), [], stack, out)
-        stack.pop()
         out.append(("base", bdoc, broot))
+        stack.append((shown_real, shown))
+        for sub, node in reversed(self._named_bases(bdoc, broot)):
+            self._add_base(real.parent / sub, sub, node.location(), [], stack, out, seen)
+        stack.pop()
 
     # --- merging ---------------------------------------------------------------------------------
     def _merge(self, dst: _M, src: Mapping, role: str, path: tuple, top: bool) -> None:

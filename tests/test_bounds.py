@@ -220,3 +220,147 @@ def test_integers_past_the_limit_stay_text_without_converting(text):
 
     with bounded(10, "typing a long integer"):
         assert scalars.typed(text, True, None, "1.1") == text and scalars.oversized(text)
+
+
+# --- linear scanners ---------------------------------------------------------------------------------
+@pytest.mark.parametrize("comment", [
+    "# trimtab: accept KL-1 -- a" + " " * 40_000 + "x",  # a reason with a long blank run inside
+    "# trimtab: accept KL-1" + " " * 40_000 + "x",  # ids, a long blank run, a word without "--": malformed
+])
+def test_a_long_acceptance_comment_is_parsed_in_linear_time(comment):
+    from trimtab import filtering
+
+    with bounded(10, "parsing one acceptance comment"):  # 27 s before, on 40,000 characters
+        [a] = filtering.acceptances("kl_coef: 0.0  " + comment + "\n")
+    if "-- a" in comment:
+        assert a.ids == ("KL-1",) and a.reason == "a" + " " * 40_000 + "x"
+    else:
+        assert a.ids == () and not a.reason  # reported as malformed (ACC-4), as before
+
+
+def test_an_acceptance_comment_reads_as_before():
+    from trimtab import filtering
+
+    [a, b, c, d] = filtering.acceptances(
+        "a: 1  # trimtab: accept KL-1, clp-2 -- the recipe -- as published\n"
+        "b: 2  # trimtab: accept KL-1\n"
+        "c: 3  # trimtab: accept KL-1 because\n"
+        "d: 4  # trimtab: accept KL-1--terse\n")
+    assert (a.ids, a.reason) == (("KL-1", "CLP-2"), "the recipe -- as published")
+    assert (b.ids, b.reason) == (("KL-1",), "")
+    assert c.ids == ()  # malformed: words after the ids without "--"
+    assert (d.ids, d.reason) == (("KL-1",), "terse")
+
+
+def test_a_long_value_full_of_references_is_scanned_in_linear_time(repo):
+    # SEC-1's environment-reference test on a 40,000-character value of "${" (quadratic before)
+    (repo / "run.yaml").write_text("api_key: '" + "${" * 20_000 + "'\nhub_token: '" + "${" * 20_000 + "}'\n")
+    r = check(repo / "run.yaml", "--only", "SEC", cwd=repo, seconds=20)
+    # the second is an environment reference (a '${' closed by a '}'): not a literal credential
+    assert [f["location"]["line"] for f in r.of("SEC-1")] in ([1], []), r.out
+
+
+# --- bases that name the same base twice at every level ------------------------------------------------
+def test_bases_named_twice_per_level_are_read_once_each(repo):
+    (repo / "trimtab.toml").write_text('bases_key = "bases"\n')
+    run = (RULES / "REW-10" / "good.yaml").read_text()
+    (repo / "run.yaml").write_text(run + "bases: [b0.yaml, b0.yaml]\n")
+    for i in range(30):  # 2**30 paths through the bases
+        (repo / f"b{i}.yaml").write_text(f"bases: [b{i + 1}.yaml, b{i + 1}.yaml]\nx{i}: 1\n")
+    (repo / "b30.yaml").write_text("seed: 7\n")
+    r = check(repo / "run.yaml", cwd=repo, seconds=60)
+    assert not r.of("OPT-5"), r.out  # the seed of the deepest base reached the run
+    assert not [f for f in r.findings if f["rule"].startswith("CMP")], r.out
+
+
+def test_a_base_named_again_later_applies_at_its_last_place(repo):
+    # bases apply in order, later wins: [low, high, low] is high then low
+    (repo / "trimtab.toml").write_text('bases_key = "bases"\n')
+    (repo / "low.yaml").write_text("optim:\n  lr: 1.0e-6\n")
+    (repo / "high.yaml").write_text("optim:\n  lr: 1.0e-5\n  warmup_steps: 10\n")
+    (repo / "run.yaml").write_text((RULES / "REW-10" / "good.yaml").read_text()
+                                   + "bases: [low.yaml, high.yaml, low.yaml]\n")
+    from trimtab.engine import Registry
+    from trimtab.explain import models
+    from trimtab.settings import load as load_settings
+
+    settings = load_settings(start=repo)
+    (m,), _ = models(str(repo / "run.yaml"), settings, Registry(), [])
+    assert m.value("optim.lr") == 1.0e-6 and m.value("optim.warmup_steps") == 10
+
+
+# --- hostile reward modules ---------------------------------------------------------------------------
+@pytest.mark.parametrize("body", [
+    "x = a" + ".b" * 200_000 + "\n",  # 200,000 chained attributes
+    "x = " + "+".join(["1"] * 300_000) + "\n",  # a sum of 300,000 terms
+])
+def test_a_hostile_reward_module_is_a_finding_and_the_check_goes_on(repo, body):
+    (repo / "rewards.py").write_text(body + "\n\ndef reward(completion, answer):\n    return 1.0\n")
+    text = (RULES / "REW-10" / "good.yaml").read_text()
+    assert "ref: tidepool_exact_match" in text
+    (repo / "run.yaml").write_text(text.replace("ref: tidepool_exact_match", "ref: rewards:reward"))
+    (repo / "other.yaml").write_text((RULES / "REW-10" / "bad.yaml").read_text())
+    r = check(repo, cwd=repo, seconds=120)
+    [f] = [f for f in r.of("REW-1") if f["location"]["path"] == "run.yaml"]
+    assert "nests too deeply for Python's parser" in f["message"], f
+    assert r.of("REW-10") and r.of("REW-10")[0]["location"]["path"] == "other.yaml", r.out
+
+
+def test_a_long_attribute_chain_that_parses_is_scanned(repo):
+    # deep enough to pass Python's recursion limit in a recursive walk, shallow enough to parse
+    (repo / "rewards.py").write_text("import os\n\ndef reward(completion, answer):\n    x = os" + ".path" * 2500
+                                     + "(completion)\n    os.system(completion)\n    return 1.0\n")
+    text = (RULES / "REW-10" / "good.yaml").read_text()
+    (repo / "run.yaml").write_text(text.replace("ref: tidepool_exact_match", "ref: rewards:reward"))
+    r = check(repo / "run.yaml", cwd=repo, seconds=60)
+    assert not r.of("REW-1"), r.out
+    [f] = r.of("EXE-1")  # the scan went through: the call after the chain is seen
+    assert "calls os.system at rewards.py:5" in f["message"], f
+
+
+# --- the deepest nesting the settings accept ------------------------------------------------------------
+def test_max_depth_at_the_schemas_maximum_works_in_every_command(repo):
+    import json
+
+    from support import REPO
+
+    schema = json.loads((REPO / "linter" / "settings.schema.json").read_text())
+    deepest = schema["properties"]["limits"]["properties"]["max_depth"]["maximum"]
+    (repo / "trimtab.toml").write_text(f'bases_key = "bases"\n[limits]\nmax_depth = {deepest}\n')
+    (repo / "base.yaml").write_text("seed: 7\n")
+    nested = "".join("  " * i + f"k{i}:\n" for i in range(deepest - 1)) + "  " * (deepest - 1) + "leaf: ${run.estimator}\n"
+    (repo / "run.yaml").write_text((RULES / "REW-10" / "good.yaml").read_text() + "bases: [base.yaml]\n" + nested)
+    r = check(repo / "run.yaml", cwd=repo, seconds=120)
+    assert not r.of("YML-5"), r.out  # exactly at the limit: read, composed and checked
+    for args in (("explain", "run.yaml"), ("audit", "--html", str(repo / "audit.html"), "run.yaml")):
+        with bounded(120, args[0]):
+            out = run_cli(*args, cwd=repo)
+        assert "Traceback" not in out.err and "RecursionError" not in out.out + out.err, (args, out.err[-2000:])
+
+
+# --- OPT-4 over many runs that share one folder -----------------------------------------------------------
+def test_opt_4_is_linear_when_many_runs_share_one_folder():
+    """20,000 runs, each writing the same checkpoint folder at a line of its own: one finding per
+    run, each listing ten others and the count of the rest (quadratic before: each finding
+    built the list of all the others)."""
+    from trimtab.check import SetEntry
+    from trimtab.findings import Location
+    from trimtab.model import Value
+    from trimtab_rules import opt
+
+    n = 20_000
+    runs = [SetEntry(f"runs/r{i}.yaml", 0, {"checkpoint.dir": Value(
+        "checkpoint.dir", "/ckpt/shared", Location(f"runs/r{i}.yaml", 19, 8))}) for i in range(n)]
+
+    class Ctx:
+        def finding(self, message, location, related=(), subject=None, **_kw):
+            return message, location, list(related)
+
+    ctx = Ctx()
+    ctx.runs = runs
+    with bounded(60, "OPT-4 over 20,000 runs"):
+        found = list(opt.shared_dir.check(ctx))
+    assert len(found) == n
+    message, location, related = found[0]
+    assert location.path == "runs/r0.yaml" and len(related) == 10
+    assert message.endswith(f"and {n - 1 - 10} more; the runs overwrite each other's checkpoints and outputs"), message
