@@ -21,7 +21,7 @@ from .findings import Location
 
 @dataclass(frozen=True)
 class Limits:
-    max_bytes: int = 10 * 1024 * 1024
+    max_bytes: int = 4 * 1024 * 1024  # 4 MiB: a file costs time per value it holds (docs/hostile-input.md)
     max_depth: int = 200
     max_aliases: int = 1000
 

@@ -364,3 +364,18 @@ def test_opt_4_is_linear_when_many_runs_share_one_folder():
     message, location, related = found[0]
     assert location.path == "runs/r0.yaml" and len(related) == 10
     assert message.endswith(f"and {n - 1 - 10} more; the runs overwrite each other's checkpoints and outputs"), message
+
+
+# --- heavy files inside the old default limits -------------------------------------------------------------
+@pytest.mark.parametrize("shape", ["flow list", "million keys"])
+def test_heavy_files_past_the_default_size_are_refused_at_once(repo, shape):
+    # 9 MB of one-digit flow items (44 s and 1.9 GB before), a million short keys (53 s and 1.2 GB)
+    if shape == "flow list":
+        text = "data: [" + ", ".join(["1"] * 3_000_000) + "]\n"
+    else:
+        text = "".join(f"k{i:x}: 1\n" for i in range(1_000_000))
+    assert 4 * 2**20 < len(text) < 10 * 2**20  # inside the old default limit, past the new one
+    (repo / "run.yaml").write_text(text)
+    r = check(repo / "run.yaml", cwd=repo, seconds=30)
+    [f] = r.of("YML-5")
+    assert "larger than the size limit of 4194304 bytes" in f["message"], f
