@@ -35,11 +35,11 @@ def where(f) -> tuple:
 
 # --- references: expansion and cycles (compose) -----------------------------------------------------
 def test_cmp_9_bad_and_good():
-    bad = check(RULES / "CMP-9" / "bad.yaml", "--only", "CMP", cwd=RULES / "CMP-9")
-    [f] = bad.of("CMP-9")
-    assert where(f) == ("fixtures/rules/CMP-9/bad.yaml", 14, 7), f
+    bad = check(RULES / "CMP-11" / "bad.yaml", "--only", "CMP", cwd=RULES / "CMP-11")
+    [f] = bad.of("CMP-11")
+    assert where(f) == ("fixtures/rules/CMP-11/bad.yaml", 14, 7), f
     assert f["message"].startswith("names.r7: references expand to more than 1000000 characters"), f
-    good = check(RULES / "CMP-9" / "good.yaml", "--only", "CMP", cwd=RULES / "CMP-9")
+    good = check(RULES / "CMP-11" / "good.yaml", "--only", "CMP", cwd=RULES / "CMP-11")
     assert not good.findings, good.out
 
 
@@ -48,7 +48,7 @@ def test_text_references_that_double_at_each_level_stop_at_the_limit(repo):
     lines = [f"l{i}: ${{l{i + 1}}}${{l{i + 1}}}" for i in range(40)] + ["l40: wren"]
     (repo / "run.yaml").write_text("\n".join(lines) + "\n")
     r = check(repo / "run.yaml", "--only", "CMP", cwd=repo)
-    [f] = r.of("CMP-9")  # once, where the limit was passed; the references above it stay unresolved
+    [f] = r.of("CMP-11")  # once, where the limit was passed; the references above it stay unresolved
     assert where(f)[:2] == ("run.yaml", 24) and f["message"].startswith("l23: references expand"), f
 
 
@@ -57,7 +57,7 @@ def test_sections_that_double_at_each_level_stop_at_the_limit(repo):
     lines = [f"l{i}:\n  x: ${{l{i + 1}}}\n  y: ${{l{i + 1}}}" for i in range(40)] + ["l40: {v: 1}"]
     (repo / "run.yaml").write_text("\n".join(lines) + "\n")
     r = check(repo / "run.yaml", "--only", "CMP", cwd=repo)
-    [f] = r.of("CMP-9")
+    [f] = r.of("CMP-11")
     assert "copy more than 10000 keys and items" in f["message"], f
     assert "${" in (repo / "run.yaml").read_text().splitlines()[f["location"]["line"] - 1], f
 
@@ -66,7 +66,7 @@ def test_a_long_chain_of_references_is_a_finding_not_a_recursion_error(repo):
     lines = [f"l{i}: ${{l{i + 1}}}" for i in range(3000)] + ["l3000: 1"]
     (repo / "run.yaml").write_text("\n".join(lines) + "\n")
     r = check(repo / "run.yaml", "--only", "CMP", cwd=repo)
-    [f] = r.of("CMP-9")
+    [f] = r.of("CMP-11")
     assert "references lead through more than 64 other references" in f["message"], f
 
 
@@ -90,7 +90,7 @@ def test_sections_that_refer_to_each_other_are_a_cycle(repo):
     # b.b brings in a, whose c brings in rollout, whose b brings in a again: reported at rollout.b
     assert [(where(f), f["message"].split(" (")[0]) for f in through] == [
         (("run.yaml", 5, 6), "interpolation cycle through sections: a -> rollout -> a")], r.out
-    assert not r.of("CMP-9"), r.out
+    assert not r.of("CMP-11"), r.out
 
 
 # --- the answer-format pattern: compiled and tried within a CPU-time budget (REW-9, REW-11) --------
