@@ -34,7 +34,7 @@ def where(f) -> tuple:
 
 
 # --- references: expansion and cycles (compose) -----------------------------------------------------
-def test_cmp_9_bad_and_good():
+def test_cmp_11_bad_and_good():
     bad = check(RULES / "CMP-11" / "bad.yaml", "--only", "CMP", cwd=RULES / "CMP-11")
     [f] = bad.of("CMP-11")
     assert where(f) == ("fixtures/rules/CMP-11/bad.yaml", 14, 7), f
