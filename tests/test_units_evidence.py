@@ -162,7 +162,7 @@ def _findings(folder: Path, text: str):
             if f.rule_id.split("-")[0] in ARITH or f.rule_id == "CLP-6"]
 
 
-@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=30, suppress_health_check=[HealthCheck.too_slow])
 @given(stated_runs())
 def test_stated_units_give_the_same_findings_as_the_native_layout(run):
     gpus, group, units, written, epochs = run
