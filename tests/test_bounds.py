@@ -131,13 +131,13 @@ def test_patterns_that_crash_the_compiler_are_rew_9(repo, pattern, why):
 
 
 def test_a_pattern_too_costly_to_compile_in_the_budget_is_rew_11(monkeypatch):
-    # an alternation of 50,000 words costs about a second of CPU time to compile (Python's re);
+    # an alternation of 100,000 words costs seconds of CPU time to compile (Python's re);
     # with the budget at a twentieth of a second, compiling is what runs out
     from trimtab_rules import reward
 
     monkeypatch.setattr(reward, "PATTERN_BUDGET_S", 0.05)
     reward.trial.cache_clear()
-    pattern = "|".join(f"w{i}" for i in range(50_000))
+    pattern = "|".join(f"w{i}" for i in range(100_000))
     with bounded(60, "compiling a costly pattern"):
         found = reward.trial(pattern, ("<answer>42</answer>",))
     reward.trial.cache_clear()
@@ -151,13 +151,13 @@ def test_the_budget_interrupts_a_match_and_restores_the_signal_handler():
 
     from trimtab import budget
 
-    before = signal.getsignal(signal.SIGVTALRM)
+    before = signal.getsignal(signal.SIGPROF)
     with bounded(30, "a budgeted match"):
         with pytest.raises(budget.OverBudget):
             with budget.cpu_budget(0.2):
                 re.search(r"(.+)+!", "a" * 40)
-    assert signal.getsignal(signal.SIGVTALRM) is before
-    assert signal.getitimer(signal.ITIMER_VIRTUAL) == (0.0, 0.0)
+    assert signal.getsignal(signal.SIGPROF) is before
+    assert signal.getitimer(signal.ITIMER_PROF) == (0.0, 0.0)
     seen = []
 
     def elsewhere():
