@@ -28,7 +28,11 @@ BROKEN_FILL = "#fbd5d5"
 BROKEN_INK = "#a50f15"
 
 _CONTROL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f\u202a-\u202e\u2066-\u2069\u200e\u200f\ufeff]")
-_LINE_BREAK = re.compile("\r\n|[\r\n\x85\u2028\u2029]")  # the line breaks YAML counts
+# The line breaks the loaders count, so that page lines match finding lines: YAML 1.1 counts CR, LF,
+# NEL, LS and PS (YAML 1.1, section 5.4), and both reference readers (PyYAML; ruamel.yaml, whose
+# scanner keeps PyYAML's) count all five even in YAML 1.2 mode. YAML 1.2 itself counts only CR and
+# LF (YAML 1.2.2, section 5.4): to a strict 1.2 reader NEL, LS and PS are content.
+_LINE_BREAK = re.compile("\r\n|[\r\n\x85\u2028\u2029]")
 
 
 def _visible(ch: re.Match) -> str:

@@ -14,14 +14,14 @@ FINGERPRINT_KEY = "trimtabFingerprint/v1"
 
 # Names of the weaknesses trimtab cites, as in MITRE's CWE list.
 CWE_NAMES = {
-    94: "Improper Control of Generation of Code ('Code Injection')",
     250: "Execution with Unnecessary Privileges",
     319: "Cleartext Transmission of Sensitive Information",
-    400: "Uncontrolled Resource Consumption",
     502: "Deserialization of Untrusted Data",
+    653: "Improper Isolation or Compartmentalization",
     770: "Allocation of Resources Without Limits or Throttling",
     798: "Use of Hard-coded Credentials",
     829: "Inclusion of Functionality from Untrusted Control Sphere",
+    1088: "Synchronous Access of Remote Resource without Timeout",
 }
 
 

@@ -9,8 +9,9 @@ from trimtab import Location
 
 # Estimator families (values of run.estimator, lower case).
 # Clipped policy-gradient objectives: PPO (Schulman et al. 2017, arXiv:1707.06347) and its GAE
-# form; group-relative variants (arXiv:2402.03300; arXiv:2503.14476; the "dr_grpo" variant, from
-# memory); REINFORCE++ keeps the PPO clip (arXiv:2501.03262, from memory).
+# form; group-relative variants (arXiv:2402.03300; arXiv:2503.14476; the "dr_grpo" variant, Liu et
+# al. 2025, arXiv:2503.20783, which keeps the clip; from memory); REINFORCE++ keeps the PPO clip
+# (arXiv:2501.03262, from memory).
 CLIPPED = frozenset({"ppo", "gae", "grpo", "dr_grpo", "dapo", "reinforce++"})
 # Group-relative estimators: the baseline is computed from the other completions of the same prompt.
 GROUP_RELATIVE = frozenset({"grpo", "dr_grpo", "dapo", "rloo"})

@@ -13,8 +13,9 @@ from trimtab.arithmetic import (PARALLEL, either, lcm, near_divisors, near_multi
                                 settled)
 
 _GROUP_RELATIVE_BASIS = ("Group-relative estimators sample a group of completions per prompt and use the "
-                         "group's statistics as the baseline (Shao et al. 2024, arXiv:2402.03300: 64 "
-                         "completions per prompt, 1024 per step).")
+                         "group's statistics as the baseline (Shao et al. 2024, arXiv:2402.03300, section 4.2: 64 "
+                         "outputs per question and a training batch size of 1024; that the batch counts "
+                         "completions, 16 prompts of 64, is trimtab's reading, not the paper's words).")
 
 _NAMES = {
     "train.tensor_parallel": "tensor-parallel degree",
@@ -26,9 +27,10 @@ _NAMES = {
 @rule(id="BAT-1", name="completions-product-mismatch", level="error",
       summary="Stated completions per step differ from prompts per step x group size.",
       rationale="Completions per step are prompts per step times completions per prompt (the group size); a "
-      "recipe states them as such (Shao et al. 2024, arXiv:2402.03300: 1024 completions per step at 64 "
-      "per prompt). Where the product and both factors are written, a trainer uses one of them and "
-      "silently ignores the others, so the run is not the one its config describes.",
+      "recipe gives them as such (Guo et al. 2025, arXiv:2501.12948v2, the revised version, from memory: "
+      "32 questions x 16 outputs, a training batch size of 512). Where the product and both factors are "
+      "written, a trainer uses one of them and silently ignores the others, so the run is not the one "
+      "its config describes.",
       needs=("batch.rollouts", "batch.prompts", "rollout.group_size"))
 def completions_product(ctx):
     m = ctx.model
@@ -52,8 +54,9 @@ def completions_product(ctx):
       summary="Completions per step do not split into whole mini-batches.",
       rationale="Each training step's completions are cut into mini-batches, one optimiser update each; "
       "updates per step = completions per step / mini-batch x epochs must be a whole number (PPO's "
-      "own recipe, Schulman et al. 2017, arXiv:1707.06347, from memory: 2048 timesteps in "
-      "mini-batches of 64 for 10 epochs; 128 x 8 actors in mini-batches of 256 for 3 epochs). A "
+      "own recipe, Schulman et al. 2017, arXiv:1707.06347, appendix A, from memory: 2048 timesteps "
+      "in mini-batches of 64 for 10 epochs in the continuous-control setting, Table 3; 128 x 8 actors "
+      "in mini-batches of 32 x 8 for 3 epochs in the game setting, Table 5). A "
       "remainder is dropped or becomes a short last update, depending on the trainer; a mini-batch "
       "larger than the step makes no whole update at all. A stated updates-per-step that disagrees "
       "with the arithmetic is reported too.",

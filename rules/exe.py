@@ -74,11 +74,14 @@ def _limit_missing(v) -> bool:
       summary="A reward executes generated code with no sandbox (or sandbox kind none).",
       rationale="A code-execution reward runs programs the policy wrote. Without isolation they run with the "
       "training job's user, files, credentials and network: a completion can delete checkpoints, read "
-      "tokens or reach internal services (CWE-94, code injection). trimtab finds such rewards when they "
-      "are declared `kind: code` and by static analysis of the referenced module and the local modules it "
+      "tokens or reach internal services. CWE-653 (Improper Isolation or Compartmentalization: "
+      "functionality of different privilege runs in one compartment) is the weakness: the code is "
+      "untrusted by design, so the failure is the missing boundary, not the building of code from "
+      "unneutralised input that CWE-94 describes (catalogue text from memory). trimtab finds such "
+      "rewards when they are declared `kind: code` and by static analysis of the referenced module and the local modules it "
       "imports (exec, eval, compile, subprocess, os.system/popen/exec*/spawn*/posix_spawn*, pty.spawn, "
       "runpy, ctypes loading, multiprocessing with a code-running target); it never imports or runs them.",
-      needs=SOURCES, cwe=94, help=CAUTIONS)
+      needs=SOURCES, cwe=653, help=CAUTIONS)
 def unsandboxed(ctx):
     for rewards, kind, active, get in _sandbox(ctx):
         if not active:
@@ -116,8 +119,10 @@ def network(ctx):
 
 @rule(id="EXE-3", name="sandbox-no-timeout", level="error", summary="The code sandbox has no wall-clock timeout.",
       rationale="A generated program that loops forever holds its rollout worker, and with it the whole step "
-      "(CWE-400). Every execution needs a wall-clock limit.",
-      needs=SOURCES, cwe=400, help=CAUTIONS)
+      "(CWE-770, Allocation of Resources Without Limits or Throttling: the worker's time is allocated "
+      "to the program with no limit; the catalogue discourages the general CWE-400 for mapping and "
+      "points to such specific entries, from memory). Every execution needs a wall-clock limit.",
+      needs=SOURCES, cwe=770, help=CAUTIONS)
 def no_timeout(ctx):
     for rewards, kind, active, get in _sandbox(ctx):
         v = get("sandbox.timeout_s")
@@ -130,9 +135,11 @@ def no_timeout(ctx):
 
 @rule(id="EXE-4", name="sandbox-long-timeout", level="warning", summary="The code sandbox's timeout is longer than the option allows.",
       rationale="Reward programs for reasoning and coding tasks normally finish in seconds; a long limit lets a "
-      "stuck or hostile program hold a worker for that long on every sample (CWE-400). The option "
+      "stuck or hostile program hold a worker for that long on every sample: a limit far above any need "
+      "throttles nothing (CWE-770, Allocation of Resources Without Limits or Throttling, rather than the "
+      "general CWE-400, which the catalogue discourages for mapping; from memory). The option "
       "max_timeout_s (default 60 s, common practice) sets the threshold.",
-      needs=SOURCES, cwe=400, options={"max_timeout_s": 60.0}, help=CAUTIONS)
+      needs=SOURCES, cwe=770, options={"max_timeout_s": 60.0}, help=CAUTIONS)
 def long_timeout(ctx):
     limit = ctx.options["max_timeout_s"]
     for rewards, kind, active, get in _sandbox(ctx):
@@ -144,7 +151,7 @@ def long_timeout(ctx):
 
 @rule(id="EXE-5", name="sandbox-no-limits", level="warning", summary="The code sandbox has no memory limit or no process limit.",
       rationale="Without a memory limit one program can exhaust the host's memory; without a process limit a fork "
-      "bomb takes the machine down (CWE-770, allocation without limits).",
+      "bomb takes the machine down (CWE-770, Allocation of Resources Without Limits or Throttling).",
       needs=SOURCES, cwe=770, help=CAUTIONS)
 def no_limits(ctx):
     for rewards, kind, active, get in _sandbox(ctx):

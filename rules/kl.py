@@ -134,7 +134,8 @@ def kl_estimator(ctx):
 
 
 @rule(id="KL-5", name="kl-coef-range", level="warning", summary="The KL coefficient is outside the usual range.",
-      rationale="Published recipes use coefficients from 0.001 (arXiv:2501.12948, from memory) through 0.02 "
+      rationale="Published recipes use coefficients from 0.001 (arXiv:2501.12948v2, the revised version, from "
+      "memory) through 0.02 "
       "(arXiv:2203.02155, from memory) to 0.04 (arXiv:2402.03300). Far below, the term does nothing "
       "measurable; far above, the policy cannot move away from the reference and learns little. The "
       "range is the options min and max (defaults 1e-4 and 0.5: an order of magnitude beyond the "
@@ -156,10 +157,15 @@ def kl_range(ctx):
 
 
 @rule(id="KL-6", name="kl-adaptive-no-horizon", level="warning", summary="An adaptive KL target is set without a horizon.",
-      rationale="An adaptive KL controller moves the coefficient so that the measured KL approaches a target; the "
-      "horizon sets how fast (the proportional controller of Ziegler et al. 2019, arXiv:1909.08593, from "
-      "memory; the adaptive penalty of arXiv:1707.06347). Without a horizon the speed is the trainer's "
-      "default, and a horizon of 0 or less makes the update undefined or run backwards.")
+      rationale="An adaptive KL controller moves the coefficient so that the measured KL approaches a target. Two "
+      "published forms: the adaptive penalty of the clipped-objective paper (Schulman et al. 2017, "
+      "arXiv:1707.06347, section 4) halves or doubles the coefficient when the measured KL is below "
+      "target / 1.5 or above target x 1.5 (fixed thresholds, no horizon); the proportional controller "
+      "of Ziegler et al. 2019 (arXiv:1909.08593, section 2.2, from memory) moves it by a gain times the "
+      "clipped relative error; trainers commonly state that gain as a horizon, the number of samples "
+      "over which the error is corrected (the horizon wording is common practice, from memory; the paper "
+      "states the gain). Only the second form has a horizon. With a target and no horizon the speed is "
+      "the trainer's default, and a horizon of 0 or less makes the update undefined or run backwards.")
 def kl_adaptive(ctx):
     m = ctx.model
     t = m.get("kl.target")

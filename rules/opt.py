@@ -13,9 +13,10 @@ from ._common import anchor, num, shown, unresolved
 
 @rule(id="OPT-1", name="lr-range", level="warning", summary="The policy learning rate is outside the range used for RL fine-tuning.",
       rationale="Full-weight RL fine-tuning of language models uses small learning rates: 1e-6 (arXiv:2402.03300) "
-      "and 3e-6 (arXiv:2501.12948, from memory) are published values. A rate far above collapses the "
+      "and 3e-6 (arXiv:2501.12948v2, from memory: the revised version; v1 states no training "
+      "hyperparameters) are published values. A rate far above collapses the "
       "policy within a few steps; far below, it does not move. The range is the options min and max "
-      "(defaults 1e-8 and 1e-4: two orders of magnitude around the published values, common practice; "
+      "(defaults 1e-8 and 1e-4: two orders of magnitude either side of the published 1e-6, common practice; "
       "raise max for adapter training, which uses larger rates). A rate of 0 or less is an error: "
       "nothing is learned, or the update climbs the loss.",
       options={"min": 1e-8, "max": 1e-4})

@@ -182,9 +182,10 @@ def remote_plain_http(ctx):
 @rule(id="REW-4", name="remote-reward-no-timeout", level="warning",
       summary="A remote reward has no request timeout.",
       rationale="A reward service that stops answering holds every rollout worker that waits on it: the run stalls "
-      "with the GPUs allocated (CWE-400). State a timeout per request (and decide what reward a "
-      "timed-out sample gets).",
-      needs=SOURCES, cwe=400, help=CAUTIONS)
+      "with the GPUs allocated. CWE-1088 (Synchronous Access of Remote Resource without Timeout) is "
+      "the specific entry; the general CWE-400 is discouraged for mapping by the catalogue (both from "
+      "memory). State a timeout per request (and decide what reward a timed-out sample gets).",
+      needs=SOURCES, cwe=1088, help=CAUTIONS)
 def remote_no_timeout(ctx):
     for comp, ep in _remote(ctx):
         t = comp.fields.get("timeout_s")

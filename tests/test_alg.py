@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import pytest
-import yaml
 from hypothesis import given, settings, strategies as st
 
 from support import check_json, run_cli
@@ -15,12 +14,6 @@ GOOD = [("ALG-1", "good.yaml"), ("ALG-2", "good.yaml"), ("ALG-3", "good.yaml")]
 @pytest.mark.parametrize("rule_id,name", GOOD, ids=[r for r, _n in GOOD])
 def test_good_fixture_is_silent(rule_id, name):
     assert noisy(check(rule_id, name)) == []
-
-
-def test_ppo_defaults_are_in_the_fixture():
-    # gamma 0.99, lambda 0.95: arXiv:1707.06347 (from memory); read by PyYAML, a reference reader.
-    gae = next(yaml.safe_load_all(fx("ALG-3", "good.yaml").read_text()))["gae"]
-    assert (gae["gamma"], gae["lambda"]) == (0.99, 0.95)
 
 
 def test_critic_unused_points_at_the_estimator_too():
@@ -46,9 +39,9 @@ def test_gamma_outside_unit_interval_is_an_error(tmp_path_factory, x):
 
 
 @pytest.mark.parametrize("rule_id", ["ALG-1", "ALG-2", "ALG-3"])
-def test_rules_command_shows_the_rationale_with_sources(rule_id):
+def test_rules_command_shows_the_rationale(rule_id):
     from trimtab.engine import Registry
 
     rule = Registry().rules[rule_id]
     out = run_cli("rules", rule_id).out
-    assert rule.rationale in out and "arXiv:" in rule.rationale
+    assert rule.rationale in out  # the sources' figures are compared in test_published_values.py

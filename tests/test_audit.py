@@ -1,8 +1,9 @@
 """``trimtab audit``: the page's structure, read back with the standard library's HTML parser
 (``html.parser``, which follows the HTML tokenisation rules closely enough for this), and checked
 against trimtab's own check output, against PyYAML's reading of the fixtures, and against the
-Content-Security-Policy hash-source definition (W3C CSP Level 3, section 2.3.1 / 8.4: base64 of the
-SHA-256 digest of the element's text)."""
+Content-Security-Policy hash-source definition (W3C CSP Level 3, section 2.3.1, the hash-source
+grammar: the algorithm name and the base64 of the SHA-256 digest of the element's text; from memory.
+Section 8.4 of that text is about external scripts allowed by hash, not this)."""
 from __future__ import annotations
 
 import base64

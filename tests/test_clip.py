@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import pytest
-import yaml
 
 from support import check_json, run_cli
 from support import check_fixtures as check, fx, noisy, places
@@ -19,13 +18,6 @@ GOOD = [
 @pytest.mark.parametrize("rule_id,name", GOOD, ids=[f"{r}-{n}" for r, n in GOOD])
 def test_good_fixture_is_silent(rule_id, name):
     assert noisy(check(rule_id, name)) == []
-
-
-def test_published_clip_values_are_in_the_fixtures():
-    # Read by PyYAML (a reference reader), not by trimtab.
-    clip = yaml.safe_load(fx("CLP-4", "good.yaml").read_text())["clip"]
-    assert (clip["low"], clip["high"]) == (0.2, 0.28)  # arXiv:2503.14476
-    assert yaml.safe_load(fx("CLP-5", "good.yaml").read_text())["clip"]["dual"] == 3.0  # arXiv:1912.09729, from memory
 
 
 def test_clip_never_acts_states_the_arithmetic():
@@ -57,18 +49,12 @@ def test_clip_rules_are_silent_without_their_inputs(tmp_path):
 
 
 @pytest.mark.parametrize("rule_id", [f"CLP-{n}" for n in range(1, 9)])
-def test_rules_command_shows_the_rationale_with_sources(rule_id):
+def test_rules_command_shows_the_rationale(rule_id):
     from trimtab.engine import Registry
 
     rule = Registry().rules[rule_id]
     out = run_cli("rules", rule_id).out
-    assert rule.rationale in out
-    assert "arXiv:" in rule.rationale or "common practice" in rule.rationale
-
-
-def test_rules_command_names_the_published_clip_sources():
-    assert "arXiv:2503.14476" in run_cli("rules", "CLP-4").out
-    assert "arXiv:1912.09729" in run_cli("rules", "CLP-5").out
+    assert rule.rationale in out  # the sources' figures are compared in test_published_values.py
 
 
 def test_clip_never_acts_on_a_stated_update_count(tmp_path):

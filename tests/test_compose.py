@@ -434,7 +434,7 @@ def test_changed_overrides_file_rechecks_every_run():
 
 
 def test_two_keys_reaching_one_line_keep_their_own_chains(tmp_path):
-    # JSON is YAML 1.2 (YAML 1.2.2, section 1.3): the same composition applies to .json runs
+    # JSON is YAML 1.2 (YAML 1.2 of 2009, section 1.3 "Relation to JSON", from memory): the same composition applies to .json runs
     (tmp_path / "trimtab.toml").write_text('bases_key = "inherit"\n')
     (tmp_path / "base.json").write_text('{"algorithm": "grpo", "rollout": {"group_size": 8, "temperature": "warm"}}\n')
     (tmp_path / "exp.json").write_text('{"inherit": "base.json", "batch": {"prompts": 16},\n'

@@ -21,7 +21,7 @@ def test_exe1_bad_points_at_config_and_at_the_calls():
     res = check_json(R / "EXE-1" / "bad" / "run.yaml", cwd=R / "EXE-1" / "bad")
     assert at(res, "EXE-1") == [(15, 10)]  # the ref of the unit-test reward; the answer check is clean
     f = res.of("EXE-1")[0]
-    assert f["level"] == "error" and f["cwe"] == 94
+    assert f["level"] == "error" and f["cwe"] == 653  # CWE-653: see the rationale
     related = {(r["path"], r["line"], r["col"]) for r in f["related"]}
     # exec(...) in the referenced module, subprocess.run(...) in the local module it imports
     assert ("rewards/tidepool_exec.py", 11, 5) in related
@@ -56,8 +56,8 @@ def test_import_depth_setting_limits_the_scan(tmp_path):
 
 @pytest.mark.parametrize("rule_id, expected, level, cwe", [
     ("EXE-2", [(15, 12)], "warning", None),
-    ("EXE-3", [(14, 9)], "error", 400),  # no timeout: reported at sandbox.kind
-    ("EXE-4", [(16, 14)], "warning", 400),
+    ("EXE-3", [(14, 9)], "error", 770),  # no timeout: reported at sandbox.kind
+    ("EXE-4", [(16, 14)], "warning", 770),
     ("EXE-5", [(14, 9), (17, 14)], "warning", 770),  # memory not stated (at kind), processes: 0
     ("EXE-6", [(19, 15)], "warning", None),
     ("EXE-7", [(20, 9), (21, 15)], "error", 250),  # user: root, privileged: true

@@ -22,13 +22,15 @@ def test_explain_shows_the_table_on_a_recipe():
     rows = _table(res.out)
     shown = "fixtures/recipes/group-relative-64x16.yaml"  # relative to the repository root
     assert rows["completions per step"][0] == "1024"
-    assert rows["completions per step"][1].startswith("stated at " + shown + ":16")
-    assert "agrees with 16 x 64" in rows["completions per step"][1]
+    assert rows["completions per step"][1].startswith("stated at " + shown + ":19")
+    # the prompts are trimtab's inference from the paper's two figures (arXiv:2402.03300, section 4.2)
+    assert rows["prompts per step"] == ("16", f"= 1024 / 64; from batch.rollouts {shown}:19, "
+                                              f"rollout.group_size {shown}:27")
     assert rows["updates per step"][0] == "1"
     assert rows["data-parallel ranks"][0] == "16"
-    assert rows["accumulation steps"] == ("16", f"= 1024 / (4 x 16); from batch.mini {shown}:17, "
-                                                f"batch.micro_per_gpu {shown}:18, cluster.nodes {shown}:12, "
-                                                f"cluster.gpus_per_node {shown}:13")
+    assert rows["accumulation steps"] == ("16", f"= 1024 / (4 x 16); from batch.mini {shown}:20, "
+                                                f"batch.micro_per_gpu {shown}:21, cluster.nodes {shown}:16, "
+                                                f"cluster.gpus_per_node {shown}:17")
     # 1024 completions x 1024 tokens at the budget
     assert rows["tokens generated per step (at the budget)"][0] == "1,048,576"
     assert rows["tokens generated over the run (at the budget)"] == ("?", "not found (schedule.total_steps)")

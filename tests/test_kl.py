@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import pytest
-import yaml
 
 from support import run_cli
 from support import check_fixtures as check, fx, noisy, places
@@ -19,13 +18,6 @@ GOOD = [
 def test_good_fixture_is_silent(rule_id, name):
     r = check(rule_id, name)
     assert noisy(r) == []
-
-
-def test_published_kl_coefficients_are_in_the_fixture():
-    # Read by a reference library (PyYAML, YAML 1.1), not by trimtab: the check points are really there.
-    docs = list(yaml.safe_load_all(fx("KL-5", "good.yaml").read_text()))
-    # 0.04: arXiv:2402.03300; 0.02: arXiv:2203.02155 (from memory); 0.001: arXiv:2501.12948 (from memory)
-    assert [d["kl"]["coef"] for d in docs] == [0.04, 0.02, 0.001]
 
 
 def test_kl_off_note_is_suppressed_by_an_acceptance(tmp_path):
@@ -78,21 +70,16 @@ KL_IDS = ["KL-1", "KL-2", "KL-3", "KL-4", "KL-5", "KL-6"]
 
 
 @pytest.mark.parametrize("rule_id", KL_IDS)
-def test_rules_command_shows_the_rationale_with_sources(rule_id):
+def test_rules_command_shows_the_rationale(rule_id):
     from trimtab.engine import Registry
 
     rule = Registry().rules[rule_id]
     r = run_cli("rules", rule_id)
     assert r.code == 0
-    assert rule.rationale in r.out and rule.summary in r.out
-    assert "arXiv:" in rule.rationale or "common practice" in rule.rationale or "Schulman 2020" in rule.rationale
+    assert rule.rationale in r.out and rule.summary in r.out  # figures: test_published_values.py
 
 
-def test_rules_command_names_the_published_kl_sources():
-    out = run_cli("rules", "KL-5").out
-    for source in ("arXiv:2402.03300", "arXiv:2203.02155", "arXiv:2501.12948"):
-        assert source in out
-    assert "min = 0.0001" in out and "max = 0.5" in out
+def test_rules_command_lists_the_kl_estimators():
     out = run_cli("rules", "KL-4").out
     assert "Approximating KL Divergence" in out and all(k in out for k in ("k1", "k2", "k3"))
 

@@ -109,7 +109,7 @@ def test_rew3_loopback_http_is_accepted():
 def test_rew3_cwe_ids():
     res = check_json(R / "REW-3" / "bad.yaml")
     assert res.of("REW-3")[0]["cwe"] == 319
-    assert res.of("REW-4")[0]["cwe"] == 400
+    assert res.of("REW-4")[0]["cwe"] == 1088
 
 
 # --- REW-6 .. REW-8 -------------------------------------------------------------------------------------

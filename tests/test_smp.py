@@ -17,7 +17,7 @@ def test_smp1_group_of_one_is_an_error():
 
 def test_smp1_small_group_is_a_warning_with_the_threshold():
     # Basis of the default 4: common practice; published groups of 64 (arXiv:2402.03300) and 16
-    # (arXiv:2501.12948, from memory) per prompt are far above it.
+    # (arXiv:2501.12948v2, from memory) per prompt are far above it.
     expect_one("SMP-1/bad-small.yaml", "SMP-1", "warning", 5, 15, "a group of 2", "min_group 4")
 
 
