@@ -19,6 +19,7 @@ from pathlib import Path
 from . import __version__
 from .findings import Finding, Level, Location
 from .model import RunModel, Value
+from .redact import for_text, mask_source
 
 LEVELS = (Level.ERROR, Level.WARNING, Level.NOTE)
 # Told by text and by shape as well as by colour (the shapes also print in black and white).
@@ -27,7 +28,6 @@ SHAPE = {Level.ERROR: "\u25a0", Level.WARNING: "\u25b2", Level.NOTE: "\u25cf"}
 BROKEN_FILL = "#fbd5d5"
 BROKEN_INK = "#a50f15"
 
-_CONTROL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f\u202a-\u202e\u2066-\u2069\u200e\u200f\ufeff]")
 # The line breaks the loaders count, so that page lines match finding lines: YAML 1.1 counts CR, LF,
 # NEL, LS and PS (YAML 1.1, section 5.4), and both reference readers (PyYAML; ruamel.yaml, whose
 # scanner keeps PyYAML's) count all five even in YAML 1.2 mode. YAML 1.2 itself counts only CR and
@@ -35,15 +35,11 @@ _CONTROL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f\u202a-\u202e\u2066-\u2069
 _LINE_BREAK = re.compile("\r\n|[\r\n\x85\u2028\u2029]")
 
 
-def _visible(ch: re.Match) -> str:
-    # Control and bidirectional-override characters are shown, never obeyed (they could make the
-    # source read differently from what the loader reads).
-    return f"\u27e8U+{ord(ch.group()):04X}\u27e9"
-
-
 def _e(value) -> str:
-    """Escape any text for an HTML text node or a quoted attribute."""
-    return html.escape(_CONTROL.sub(_visible, str(value)), quote=True)
+    """Escape any text for an HTML text node or a quoted attribute: masked (no credential is shown,
+    ``trimtab.redact``), control and bidirectional-override characters shown, never obeyed (they
+    could make the source read differently from what the loader reads), then HTML-escaped."""
+    return html.escape(for_text(value), quote=True)
 
 
 def _num(n) -> str:
@@ -283,7 +279,7 @@ class Page:
             '<html lang="en">',
             "<head>",
             '<meta charset="utf-8">',
-            f'<meta http-equiv="Content-Security-Policy" content="{_e(csp())}">',
+            f'<meta http-equiv="Content-Security-Policy" content="{html.escape(csp(), quote=True)}">',
             '<meta name="referrer" content="no-referrer">',
             '<meta name="viewport" content="width=device-width, initial-scale=1">',
             f"<title>{_e(title)}</title>",
@@ -920,7 +916,7 @@ def audit(outcome) -> str:
     shown_paths = set()
     for _path, shown in outcome.files:
         doc = outcome.doc(shown)
-        configs.append(Config(shown, doc.text if doc else "", outcome.models(shown),
+        configs.append(Config(shown, mask_source(doc.text, doc) if doc else "", outcome.models(shown),
                               list(doc.problems) if doc else [], by_path.get(shown, [])))
         shown_paths.add(shown)
     # base files the runs were composed from (RunModel.files): shown too, so that findings and
@@ -933,7 +929,7 @@ def audit(outcome) -> str:
                     bases.setdefault(name, []).append(c.path)
     for name in sorted(bases):
         doc = outcome.doc(name)
-        configs.append(Config(name, doc.text if doc else "", [], list(doc.problems) if doc else [],
+        configs.append(Config(name, mask_source(doc.text, doc) if doc else "", [], list(doc.problems) if doc else [],
                               by_path.get(name, []), base_of=bases[name]))
         shown_paths.add(name)
     other = [f for f in findings if f.location.path not in shown_paths]

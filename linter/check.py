@@ -135,6 +135,15 @@ class Checker:
         composed = [self.composer.compose(doc, root, path) for root in doc.roots] if as_run else []
         for r, opts, level in self.rules("file"):
             self._run(r, Context(r, None, doc, opts, level, settings=self.settings), shown, res)
+        # File rules that cover every file a run is composed from (SEC-1): its bases, the overrides
+        # file and the settings' layers, each once, reporting in that file (a finding there that the
+        # file's own check also gives is merged with it, see _merge_duplicates).
+        for src in list(doc.sources.values()) if as_run else ():
+            if src.path == shown:
+                continue
+            for r, opts, level in self.rules("file"):
+                if r.sources:
+                    self._run(r, Context(r, None, src, opts, level, settings=self.settings), src.path, res)
         if as_run:
             force = matches(shown, self.settings.run_configs) if self.settings.run_configs else False
             opts_r = self.resolve_opts

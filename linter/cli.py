@@ -10,6 +10,8 @@ import os
 import sys
 from pathlib import Path
 
+from .redact import for_text  # every message that shows a file's text: masked, controls made visible
+
 EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
 
 
@@ -116,7 +118,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "audit":
             return cmd_audit(args)
     except SettingsError as exc:
-        print(f"trimtab: error: {exc}", file=sys.stderr)
+        print(f"trimtab: error: {for_text(exc)}", file=sys.stderr)
         return EXIT_INCOMPLETE
     except BrokenPipeError:
         return EXIT_OK
@@ -125,7 +127,8 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INCOMPLETE
     except OSError as exc:  # a report or accepted-findings file that cannot be written: say so plainly
         where = exc.filename if exc.filename is not None else "a file"
-        print(f"trimtab: error: {where}: cannot be written or read: {exc.strerror or exc}", file=sys.stderr)
+        print(f"trimtab: error: {for_text(where)}: cannot be written or read: {for_text(exc.strerror or exc)}",
+              file=sys.stderr)
         return EXIT_INCOMPLETE
     parser.error(f"unknown command {args.command}")
     return EXIT_INCOMPLETE
@@ -142,7 +145,7 @@ def _registry():
 
     reg = Registry()
     for err in reg.errors:
-        print(f"trimtab: error: {err}", file=sys.stderr)
+        print(f"trimtab: error: {for_text(err)}", file=sys.stderr)
     return reg
 
 
@@ -201,7 +204,7 @@ def _request(args, **extra):
 
     return Request(only=getattr(args, "only", set()), skip=getattr(args, "skip", set()),
                    overrides=_overrides(getattr(args, "overrides", [])), gate=getattr(args, "gate", None),
-                   notes=lambda text: print(f"trimtab: note: {text}", file=sys.stderr), **extra)
+                   notes=lambda text: print(f"trimtab: note: {for_text(text)}", file=sys.stderr), **extra)
 
 
 def _progress(args):
@@ -287,6 +290,7 @@ def _catalogue(registry):
 
 def cmd_rules(args) -> int:
     from .engine import TOOL_RULES
+    from .redact import visible as _v
 
     registry = _registry()
     rules = {**{r.id: r for r in registry.ordered()}, **TOOL_RULES}
@@ -294,21 +298,22 @@ def cmd_rules(args) -> int:
         rid = args.rule_id.upper()
         r = rules.get(rid)
         if r is None:
-            print(f"trimtab: error: no rule {rid}; `trimtab rules` lists them", file=sys.stderr)
+            print(f"trimtab: error: no rule {_v(rid)}; `trimtab rules` lists them", file=sys.stderr)
             return EXIT_INCOMPLETE
-        print(f"{r.id}  {r.name}  (default level: {r.level}{', CWE-%d' % r.cwe if r.cwe else ''})")
-        print(f"\n{r.summary}\n\n{r.rationale}")
+        # a plugin's texts are shown, never obeyed: control characters made visible (trimtab.redact)
+        print(f"{_v(r.id)}  {_v(r.name)}  (default level: {r.level}{', CWE-%d' % r.cwe if r.cwe else ''})")
+        print(f"\n{_v(r.summary)}\n\n{_v(r.rationale)}")
         if r.needs:
-            print(f"\nNeeds: {', '.join(r.needs)}")
+            print(f"\nNeeds: {_v(', '.join(r.needs))}")
         if r.options:
-            print("\nOptions (set under [tool.trimtab.rules.\"%s\"]):" % r.id)
+            print("\nOptions (set under [tool.trimtab.rules.\"%s\"]):" % _v(r.id))
             for k, v in r.options.items():
-                print(f"  {k} = {v!r}")
+                print(f"  {_v(k)} = {_v(repr(v))}")
         if r.help:
-            print(f"\nHelp: {r.help}")
+            print(f"\nHelp: {_v(r.help)}")
         return EXIT_OK
     for r in rules.values():
-        print(f"{r.id:<8} {str(r.level):<8} {r.name:<34} {r.summary}")
+        print(f"{_v(r.id):<8} {str(r.level):<8} {_v(r.name):<34} {_v(r.summary)}")
     return EXIT_INCOMPLETE if registry.errors else EXIT_OK
 
 
@@ -378,7 +383,7 @@ def _fix(args, settings, findings, files) -> int | None:
     told = set()
     for ff in plans:
         for f, why in ff.refused:
-            line = f"trimtab: not fixed: {f.location.label()} {f.rule_id}: {why}"
+            line = f"trimtab: not fixed: {for_text(f.location.label())} {f.rule_id}: {for_text(why)}"
             if line not in told:
                 told.add(line)
                 print(line, file=sys.stderr)

@@ -55,6 +55,9 @@ class Rule:
     help: str = ""
     rl_only: bool = True  # skipped for supervised/distillation stages and non-RL files
     scope: str = "run"  # run (one RunModel), file (every Document, RL or not), set (all runs at once)
+    # file rules only: also run on every other file a run is composed from (its bases, the overrides
+    # file, the settings' layers), reporting in that file, whether or not that file is checked itself
+    sources: bool = False
 
     @property
     def area(self) -> str:
@@ -63,13 +66,13 @@ class Rule:
 
 def rule(*, id: str, name: str, level: str, summary: str, rationale: str, needs: tuple = (),
          options: dict | None = None, cwe: int | None = None, help: str = "", rl_only: bool = True,
-         scope: str = "run"):
+         scope: str = "run", sources: bool = False):
     """Decorator: turn a check function into a Rule. Every field is checked when the plugin
     registers (``validate``), so a mistake names the plugin and the field."""
 
     def wrap(fn):
         return Rule(id, name, level, summary, rationale, fn, tuple(needs), dict(options or {}),  # type: ignore[arg-type]
-                    cwe, help, rl_only, scope)
+                    cwe, help, rl_only, scope, sources)
 
     return wrap
 
@@ -151,6 +154,8 @@ def validate(r: Any) -> Rule:
         raise RuleError("help", "a text", r.help)
     if not isinstance(r.rl_only, bool):
         raise RuleError("rl_only", "true or false", r.rl_only)
+    if not isinstance(r.sources, bool) or (r.sources and r.scope != "file"):
+        raise RuleError("sources", "true or false (true only for a rule of scope file)", r.sources)
     return r if r.level is level else dataclasses.replace(r, level=level)
 
 

@@ -2,13 +2,11 @@
 with its inputs, and the concepts that were not found."""
 from __future__ import annotations
 
-import re
 from typing import TextIO
 
 from . import arithmetic
+from .redact import for_text as _t
 from .vocabulary import CONCEPTS
-
-_USERINFO = re.compile(r"(?<=://)[^/@\s]+@")  # a URL's user information (may hold a password)
 
 
 def models(path: str, settings, registry, overrides=()) -> tuple[list, list[str]]:
@@ -37,7 +35,7 @@ def not_checked(outcome, err: TextIO) -> bool:
     if outcome.files:
         return False
     for m in outcome.missing:
-        err.write(f"trimtab: error: {m}: {getattr(m, 'reason', 'cannot be read: no such file or folder')}\n")
+        err.write(f"trimtab: error: {_t(m)}: {_t(getattr(m, 'reason', 'cannot be read: no such file or folder'))}\n")
     if not outcome.missing:
         err.write("trimtab: error: the file matches the settings' exclude globs; it is not checked\n")
     return True
@@ -50,8 +48,8 @@ def _show(value) -> str:
         return f"<{value.kind}>"
     if isinstance(value, float):
         return repr(value)
-    # a URL's user information can hold a password: never show it
-    return _USERINFO.sub("****@", str(value))
+    # masked (a credential is never shown) and made visible (nothing reaches the terminal raw)
+    return _t(value)
 
 
 def _wrap(text: str, width: int = 96) -> str:
@@ -61,7 +59,8 @@ def _wrap(text: str, width: int = 96) -> str:
 
 
 def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
-    """Explain the one file of a checked run (a pipeline Outcome with its models kept)."""
+    """Explain the one file of a checked run (a pipeline Outcome with its models kept). Every text
+    that came from a file goes through ``_t`` (``trimtab.redact.for_text``) or ``_show``."""
     import sys
 
     if not_checked(outcome, err or sys.stderr):
@@ -69,41 +68,42 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
     shown = outcome.files[0][1]
     runs, problems = outcome.models(shown), problems_of(outcome, shown)
     for p in problems:
-        out.write(p + "\n")
+        out.write(_t(p) + "\n")
     if not runs:
         return 1 if problems else 0
     for m in runs:
         if len(runs) > 1:
             out.write(f"--- document {m.index + 1}\n")
         kind = "an RL run config" if m.is_rl else "not an RL run config (RL rules skip it)"
-        out.write(f"{m.path}: {kind}; stage {m.stage}; values read as YAML {m.version}\n\n")
+        out.write(f"{_t(m.path)}: {kind}; stage {_t(m.stage)}; values read as YAML {m.version}\n\n")
         if len(m.files) > 1:
-            out.write(f"composed from (first to last): {', '.join(m.files)}\n\n")
+            out.write(f"composed from (first to last): {', '.join(map(_t, m.files))}\n\n")
         out.write("Concepts found:\n")
         width = max([len(c) for c in m.values] + [10])
         for name in sorted(m.values):
             v = m.values[name]
-            origin = f"{v.location.label()}  {v.key}  [{v.via}]"
+            origin = f"{_t(v.location.label())}  {_t(v.key)}  [{_t(v.via)}]"
             if v.note:
-                origin += f"  ({v.note})"
+                origin += f"  ({_t(v.note)})"
             out.write(f"  {name:<{width}}  {_show(v.value):<16}  {origin}\n")
             for hop in v.chain:
-                out.write(f"  {'':<{width}}  {'':<16}  <- {hop.label()} {hop.message}\n")
+                out.write(f"  {'':<{width}}  {'':<16}  <- {_t(hop.label())} {_t(hop.message)}\n")
         for c in m.components:
-            fields = ", ".join(f"{k}={_show(v.value)}" for k, v in c.fields.items())
-            out.write(f"  reward component {c.index + 1}: {fields}  {c.location.label()}\n")
+            fields = ", ".join(f"{_t(k)}={_show(v.value)}" for k, v in c.fields.items())
+            out.write(f"  reward component {c.index + 1}: {fields}  {_t(c.location.label())}\n")
         if m.derived:
             out.write("\nDerived:\n")
             for name in sorted(m.derived):
                 v = m.derived[name]
                 stated = m.values.get(name)
                 extra = f"  (stated: {_show(stated.value)})" if stated is not None else ""
-                out.write(f"  {name:<{width}}  {_show(v.value):<16}  = {v.note}  from {', '.join(v.inputs)}{extra}\n")
-        out.write(arithmetic.render(m))
+                out.write(f"  {name:<{width}}  {_show(v.value):<16}  = {_t(v.note)}  from "
+                          f"{', '.join(map(_t, v.inputs))}{extra}\n")
+        out.write("\n".join(_t(line) for line in arithmetic.render(m).split("\n")))
         if m.ambiguous:
             out.write("\nAmbiguous (set them in [tool.trimtab.keys]):\n")
             for name, locs in sorted(m.ambiguous.items()):
-                out.write(f"  {name}: " + "; ".join(f"{l.key_path} at {l.label()}" for l in locs) + "\n")
+                out.write(f"  {name}: " + "; ".join(f"{_t(l.key_path)} at {_t(l.label())}" for l in locs) + "\n")
         missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous]
         out.write("\nNot found:\n" + _wrap(", ".join(missing)) + "\n")
     return 0

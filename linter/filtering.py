@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .findings import Finding, Level, Location
+from .redact import mask
 
 _ACCEPT = re.compile(r"(?:^|\s)#\s*trimtab:\s*accept\b(?P<body>.*)$")
 _IDS = re.compile(r"\s*(?P<ids>[A-Za-z]+-\d+(?:\s*,\s*[A-Za-z]+-\d+)*)\s*(?:--\s*(?P<reason>.*?))?\s*$")
@@ -129,10 +130,11 @@ def write_accepted(path: Path, findings: list[Finding], keep: list[dict] = ()) -
             "fingerprint": f.fingerprint,
             "rule": f.rule_id,
             "file": f.location.path or "<command line>",
-            "what": _short(f.message),
+            "what": _short(mask(f.message)),  # masked whole, then shortened: no part of a credential stays
         }
     for row in keep:
-        entries.setdefault(row["fingerprint"], {k: v for k, v in row.items() if not k.startswith("_")})
+        entries.setdefault(row["fingerprint"], {k: (mask(v) if k == "what" and isinstance(v, str) else v)
+                                                for k, v in row.items() if not k.startswith("_")})
     rows = sorted(entries.values(), key=lambda e: (str(e.get("file")), str(e.get("rule")), e["fingerprint"]))
     doc = {"trimtab_accepted": ACCEPTED_VERSION, "findings": rows}
     import json  # here, not at the top: start-up (perf)

@@ -105,6 +105,20 @@ class Finding:
     def finish(self) -> "Finding":
         if not self.fingerprint:
             self.fingerprint = fingerprint(self.rule_id, self.location.path, self.key_path, self.subject)
+        return self.masked()
+
+    def masked(self) -> "Finding":
+        """The finding with every shown text masked (``trimtab.redact.mask``): done where a finding is
+        finished, in the process that read the files, so no credential travels further. The
+        fingerprint is computed from the subject, never from the shown text, and does not change."""
+        from .redact import mask
+
+        self.message = mask(self.message)
+        self.suggestion = mask(self.suggestion)
+        self.help = mask(self.help)
+        self.related = [r.with_message(mask(r.message)) if r.message else r for r in self.related]
+        if self.location.message:
+            self.location = self.location.with_message(mask(self.location.message))
         return self
 
     def __getstate__(self) -> dict:

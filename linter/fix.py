@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable
 
+from .redact import for_text
 from .findings import KEEP, Edit, Finding
 
 _BOMS = (codecs.BOM_UTF32_LE, codecs.BOM_UTF32_BE, codecs.BOM_UTF8, codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)
@@ -59,7 +60,10 @@ class FileFix:
                                      tofile=f"b/{self.path}" if rel else self.path)
         out = []
         for line in lines:
-            out.append(line if line.endswith("\n") else line + "\n\\ No newline at end of file\n")
+            # every line masked and its control characters made visible (trimtab.redact): the context
+            # lines around a fix are the file's own and can hold a credential or a terminal command
+            body = line[:-1] if line.endswith("\n") else line
+            out.append(for_text(body) + ("\n" if line.endswith("\n") else "\n\\ No newline at end of file\n"))
         return "".join(out)
 
     def write(self) -> None:

@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TextIO
 
+from .redact import for_text, mask
 from .document import Mapping, Node, Scalar, Sequence
 from .vocabulary import ALIASES, CONCEPTS, normalise_key
 
@@ -229,25 +230,25 @@ class Draft:
     documents: int = 1
 
     def toml(self) -> str:
-        lines = ["# Draft written by `trimtab map` for " + self.path + ": confirm every line before you rely on it.",
+        lines = ["# Draft written by `trimtab map` for " + for_text(self.path) + ": confirm every line before you rely on it.",
                  "# In a trimtab.toml write the header as [keys].",
                  "[tool.trimtab.keys]"]
         for concept in sorted(self.live):
             c = self.live[concept]
             lines.extend("# " + n for n in _unit_note(concept))
-            lines.append(f"{_q(concept)} = {c.toml_value()}  # {'; '.join(c.reasons)}")
+            lines.append(f"{_q(concept)} = {c.toml_value()}  # {for_text('; '.join(c.reasons))}")
         for concept in sorted(self.ambiguous):
             cands = self.ambiguous[concept]
             lines.append(f"# {concept}: {'ambiguous, uncomment the right line' if len(cands) > 1 else 'confirm'} "
                          f"({CONCEPTS[concept].meaning})")
             lines.extend("# " + n for n in _unit_note(concept))
             for c in cands:
-                lines.append(f"# {_q(concept)} = {c.toml_value()}  # {'; '.join(c.reasons)}")
+                lines.append(f"# {_q(concept)} = {c.toml_value()}  # {for_text('; '.join(c.reasons))}")
         return "\n".join(lines) + "\n"
 
     def report(self, out: TextIO, draft_to: str | None) -> None:
         docs = f" ({self.documents} documents)" if self.documents > 1 else ""
-        out.write(f"{self.path}{docs}: {len(self.placed)} concept(s) placed by the key map, the alias table or "
+        out.write(f"{for_text(self.path)}{docs}: {len(self.placed)} concept(s) placed by the key map, the alias table or "
                   f"the native layout; {len(self.live) + len(self.ambiguous)} more have candidate keys.\n")
         if self.live or self.ambiguous:
             out.write("\nCould not place (candidates in this file, with why):\n")
@@ -258,22 +259,23 @@ class Draft:
                     else "weak evidence: left commented out")
                 out.write(f"  {concept} ({CONCEPTS[concept].meaning}): {state}\n")
                 for c in cands:
-                    out.write(f"      {c.key}  line {c.line}: {_shown(c.node)}  -- {'; '.join(c.reasons)}\n")
+                    out.write(f"      {for_text(c.key)}  line {c.line}: {_shown(c.node)}  -- "
+                              f"{for_text('; '.join(c.reasons))}\n")
         if self.absent:
             out.write("\nNo candidate key in this file:\n")
             out.write(textwrap.fill(", ".join(self.absent), 96, initial_indent="  ", subsequent_indent="  ") + "\n")
         if self.unmatched:
             out.write("\nKeys no concept matched (not used by any rule):\n")
-            text = ", ".join(f"{k} (line {n.line})" for k, n in self.unmatched)
+            text = ", ".join(f"{for_text(k)} (line {n.line})" for k, n in self.unmatched)
             out.write(textwrap.fill(text, 96, initial_indent="  ", subsequent_indent="  ") + "\n")
         if draft_to:
-            out.write(f"\nDraft key map written to {draft_to}.\n")
+            out.write(f"\nDraft key map written to {for_text(draft_to)}.\n")
         else:
             out.write("\n" + self.toml())
 
 
 def _q(text: str) -> str:
-    return json.dumps(text, ensure_ascii=False)
+    return json.dumps(mask(text), ensure_ascii=False)
 
 
 def _unit_note(concept: str) -> list[str]:
@@ -286,7 +288,8 @@ def _unit_note(concept: str) -> list[str]:
 
 def _shown(node: Node) -> str:
     if isinstance(node, Scalar):
-        return node.text if len(node.text) <= 40 else node.text[:37] + "..."
+        text = mask(node.text)  # masked whole, then shortened: no part of a credential stays
+        return for_text(text if len(text) <= 40 else text[:37] + "...")
     return f"<{node.kind}>"
 
 
@@ -480,9 +483,9 @@ def draft_command(outcome, output: str | None, out: TextIO, err: TextIO) -> int:
     shown = outcome.files[0][1]
     runs = outcome.models(shown)
     for p in problems_of(outcome, shown):
-        err.write(p + "\n")
+        err.write(for_text(p) + "\n")
     if not runs:
-        err.write(f"trimtab: error: {shown}: nothing to map (the file could not be read as YAML or JSON)\n")
+        err.write(f"trimtab: error: {for_text(shown)}: nothing to map (the file could not be read as YAML or JSON)\n")
         return 2
     d = draft(runs, shown)
     if output:

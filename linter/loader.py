@@ -125,7 +125,11 @@ def load(path: str, shown: str | None = None, limits: Limits = Limits(), fmt: st
     if len(data) > limits.max_bytes:
         return _fail(doc, "size", f"is larger than the size limit of {limits.max_bytes} bytes "
                                   "(setting limits.max_bytes)")
-    return parse_bytes(doc, data, limits)
+    parse_bytes(doc, data, limits)
+    from .redact import learn  # every output masks the credentials of every file read (trimtab.redact)
+
+    learn(doc)
+    return doc
 
 
 _O_FLAGS = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_BINARY", 0)

@@ -6,6 +6,7 @@ from typing import Iterable, TextIO
 
 from . import __version__
 from .findings import Finding, Level, Location
+from .redact import for_text, mask
 
 JSON_FORMAT_VERSION = 1
 
@@ -14,33 +15,37 @@ _RESET, _DIM, _BOLD = "\033[0m", "\033[2m", "\033[1m"
 
 
 def _where(loc: Location) -> str:
-    return loc.label()
+    return for_text(loc.label())
 
 
 def text(findings: Iterable[Finding], out: TextIO, colour: bool = False) -> None:
+    """One line per finding, then its related places, suggestion and help. Every field is masked and
+    its control characters and line breaks made visible (``trimtab.redact.for_text``): nothing in a
+    file can forge a report line or send a terminal a command."""
     for f in findings:
         level = str(f.level)
+        rule_id, message = for_text(f.rule_id), for_text(f.message)
         if colour:
             level = f"{_COLOURS[f.level]}{level}{_RESET}"
-            head = f"{_BOLD}{_where(f.location)}{_RESET}: {level} {_BOLD}{f.rule_id}{_RESET} {f.message}"
+            head = f"{_BOLD}{_where(f.location)}{_RESET}: {level} {_BOLD}{rule_id}{_RESET} {message}"
         else:
-            head = f"{_where(f.location)}: {level} {f.rule_id} {f.message}"
+            head = f"{_where(f.location)}: {level} {rule_id} {message}"
         out.write(head + "\n")
         for r in f.related:
-            line = f"    {_where(r)}: {r.message}" if r.message else f"    {_where(r)}"
+            line = f"    {_where(r)}: {for_text(r.message)}" if r.message else f"    {_where(r)}"
             out.write((f"{_DIM}{line}{_RESET}" if colour else line) + "\n")
         if f.suggestion:
-            out.write(f"    suggestion: {f.suggestion}\n")
+            out.write(f"    suggestion: {for_text(f.suggestion)}\n")
         if f.help:
-            out.write(f"    help: {f.help}\n")
+            out.write(f"    help: {for_text(f.help)}\n")
 
 
 def _loc(loc: Location) -> dict:
     d = {"path": loc.path, "line": loc.line, "col": loc.col, "end_line": loc.end_line, "end_col": loc.end_col}
     if loc.message:
-        d["message"] = loc.message
+        d["message"] = mask(loc.message)
     if loc.key_path:
-        d["key_path"] = loc.key_path
+        d["key_path"] = mask(loc.key_path)
     return d
 
 
@@ -48,12 +53,12 @@ def finding_dict(f: Finding) -> dict:
     return {
         "rule": f.rule_id,
         "level": str(f.level),
-        "message": f.message,
+        "message": mask(f.message),
         "location": _loc(f.location),
         "related": [_loc(r) for r in f.related],
-        "key_path": f.key_path,
-        "suggestion": f.suggestion,
-        "help": f.help,
+        "key_path": mask(f.key_path),
+        "suggestion": mask(f.suggestion),
+        "help": mask(f.help),
         "fingerprint": f.fingerprint,
         "cwe": f.cwe,
         "fixable": f.fix is not None,

@@ -8,6 +8,7 @@ from urllib.parse import quote
 from . import __version__
 from .engine import Rule
 from .findings import Finding, Level, Location
+from .redact import mask
 
 SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
 FINGERPRINT_KEY = "trimtabFingerprint/v1"
@@ -35,8 +36,8 @@ def _location(loc: Location, ident: int | None = None) -> dict:
         out["id"] = ident
     if loc.path is None:
         # A value set on the command line has no file: a logical location names the key.
-        out["logicalLocations"] = [{"fullyQualifiedName": loc.key_path or "(command line)", "kind": "property"}]
-        out["message"] = {"text": (loc.message + " " if loc.message else "") + "(set on the command line)"}
+        out["logicalLocations"] = [{"fullyQualifiedName": mask(loc.key_path) or "(command line)", "kind": "property"}]
+        out["message"] = {"text": (mask(loc.message) + " " if loc.message else "") + "(set on the command line)"}
         return out
     phys: dict = {"artifactLocation": {"uri": quote(loc.path), "uriBaseId": "SRCROOT"}}
     if loc.line > 0:
@@ -48,9 +49,9 @@ def _location(loc: Location, ident: int | None = None) -> dict:
         phys["region"] = region
     out["physicalLocation"] = phys
     if loc.message:
-        out["message"] = {"text": loc.message}
+        out["message"] = {"text": mask(loc.message)}
     if loc.key_path:
-        out["logicalLocations"] = [{"fullyQualifiedName": loc.key_path, "kind": "property"}]
+        out["logicalLocations"] = [{"fullyQualifiedName": mask(loc.key_path), "kind": "property"}]
     return out
 
 
@@ -74,7 +75,7 @@ def _result(f: Finding, index: dict[str, int]) -> dict:
     res: dict = {
         "ruleId": f.rule_id,
         "level": _level(f.level),
-        "message": {"text": f.message},
+        "message": {"text": mask(f.message)},
         "locations": [_location(f.location)],
         "partialFingerprints": {FINGERPRINT_KEY: f.fingerprint},
     }
@@ -86,12 +87,13 @@ def _result(f: Finding, index: dict[str, int]) -> dict:
         res["taxa"] = [{"id": str(f.cwe), "toolComponent": {"name": "CWE"}}]
     props = {}
     if f.key_path:
-        props["keyPath"] = f.key_path
+        props["keyPath"] = mask(f.key_path)
     if f.suggestion:
-        props["suggestion"] = f.suggestion
+        props["suggestion"] = mask(f.suggestion)
     if props:
         res["properties"] = props
-    if f.fix is not None and f.location.path:
+    # a fix is described only when its text shows no credential (its inserted text cannot be masked)
+    if f.fix is not None and f.location.path and mask(f.fix.old) == f.fix.old and mask(f.fix.new) == f.fix.new:
         res["fixes"] = [{
             "description": {"text": f"replace {f.fix.old!r} with {f.fix.new!r}"},
             "artifactChanges": [{

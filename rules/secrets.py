@@ -2,127 +2,14 @@
 downloaded weights, and unsafe deserialisation in referenced reward code."""
 from __future__ import annotations
 
-import functools
-import math
 import re
-from collections import Counter
 
-from trimtab import Mapping, Scalar, Sequence, rule
+from trimtab import rule
 
 from ._safety import CAUTIONS, digest, kind_of, label, mask, safe_url, scanner
 
 # --- SEC-1 -----------------------------------------------------------------------------------------
-_CRED_WORDS = {"secret", "secrets", "password", "passwd", "passphrase", "pwd", "credential", "credentials",
-               "apikey", "api_key", "private_key", "access_key", "secret_key", "client_secret",
-               "auth_token", "access_token", "refresh_token", "bearer", "bearer_token", "api_token",
-               "session_token", "service_token", "hub_token", "personal_token", "webhook_secret"}
-_TOKEN_QUALIFIERS = {"api", "auth", "access", "bearer", "hub", "user", "personal", "service", "refresh",
-                     "session", "secret", "write", "read", "upload", "login"}
-# Keys that name a token of the vocabulary or a count of tokens, not a credential.
-_NOT_CRED_TEXT = (r"(^|_)(max|min|num|n|pad|eos|bos|unk|sep|cls|mask|start|end|stop|special|think|answer|"
-                  r"image|vision|audio|chat|tokens?_id|id)_token(s)?$|_tokens?_(id|ids|count|limit)$|"
-                  r"^tokens?$|tokenizer|_length$|_len$|_file$|_path$|_env$|_var$|_name$", 0)
-
-_ENV_REF_TEXT = (r"\$\{[^}]*\}|^\$[A-Za-z_]\w*$|^%\(?[A-Za-z_]\w*\)?s?%?$|^env:|^\{\{.*\}\}$|"
-                 r"os\.environ|^oc\.env|^secret:|^vault:|^file:|^@", re.I)
-_PLACEHOLDER_TEXT = (r"^(x+|\*+|\.+|-+|_+|#+|<[^>]*>|\[[^\]]*\]|changeme|change[_-]?me|replace[_-]?me|"
-                     r"todo|tbd|fixme|none|null|nil|redacted|placeholder|dummy|example\w*|your[_-].*|"
-                     r"insert[_-].*|set[_-]?me|fill[_-]?me|secret|password|token|test|fake\w*|"
-                     r"not[_-]?set|unset|empty)$", re.I)
-
-# Well-known credential shapes, by form only.
-_SHAPES_TEXT = (
-    ("a private key block", r"-----BEGIN [A-Z ]*PRIVATE KEY-----"),
-    ("a signed web token", r"\beyJ[A-Za-z0-9_-]{8,}\.eyJ[A-Za-z0-9_-]{8,}\.[A-Za-z0-9_-]{8,}"),
-    ("a secret-key token", r"\b(?:sk|rk)[-_](?:[A-Za-z0-9]+[-_])?[A-Za-z0-9]{20,}"),
-    ("a code-hosting access token", r"\bgh[pousr]_[A-Za-z0-9]{30,}"),
-    ("a model-hub access token", r"\bhf_[A-Za-z0-9]{30,}"),
-    ("a cloud access key id", r"\b(?:AKIA|ASIA)[0-9A-Z]{16}\b"),
-    ("a chat-service token", r"\bxox[abprs]-[A-Za-z0-9-]{10,}"),
-    ("a bearer token", r"\bBearer\s+[A-Za-z0-9._~+/-]{20,}=*"),
-    ("a password inside a URL", r"^[A-Za-z][A-Za-z0-9+.-]*://[^/\s:@]+:[^/\s@]+@"),
-)
-
-
-@functools.lru_cache(maxsize=1)
-def _patterns():
-    """The pattern tables, compiled on first use (start-up stays fast)."""
-    words = "|".join(sorted(map(re.escape, _CRED_WORDS), key=len, reverse=True))
-    return (re.compile(*_NOT_CRED_TEXT), re.compile(*_ENV_REF_TEXT), re.compile(*_PLACEHOLDER_TEXT),
-            tuple((name, re.compile(text)) for name, text in _SHAPES_TEXT),
-            re.compile(rf"(?:^|_)(?:{words})(?:_|$)"))
-
-
-@functools.lru_cache(maxsize=1)
-def _any_shape():
-    """perf: all credential shapes in one pattern; it matches exactly where one of them does."""
-    return re.compile("|".join(f"(?:{text})" for _name, text in _SHAPES_TEXT))
-
-
-@functools.lru_cache(maxsize=4096)
-def _is_cred_key(key: str) -> bool:
-    k = key.strip().lower().replace("-", "_").replace(" ", "_")
-    if _patterns()[0].search(k):
-        return False
-    if _patterns()[4].search(k):
-        return True
-    words = k.split("_")
-    if "password" in words or "secret" in words or "passwd" in words or "credentials" in words:
-        return True
-    if words[-1] in ("token", "key") and len(words) >= 2 and words[-2] in _TOKEN_QUALIFIERS | {"api", "private", "access", "secret"}:
-        return True
-    return False
-
-
-def _entropy(text: str) -> float:
-    counts = Counter(text)
-    n = len(text)
-    return -sum(c / n * math.log2(c / n) for c in counts.values())
-
-
-def _high_entropy(text: str, min_length: int, min_bits: float) -> bool:
-    # perf: str.split() finds whitespace (the same str.isspace test) in C, not per character in Python
-    if len(text) < min_length or "/" in text or "." in text or len("".join(text.split())) != len(text):
-        return False
-    if re.fullmatch(r"[0-9a-fA-F-]+", text):  # commit hashes, UUIDs
-        return False
-    classes = sum(bool(re.search(p, text)) for p in (r"[a-z]", r"[A-Z]", r"[0-9]"))
-    if classes < 3 or _entropy(text) < min_bits:
-        return False
-    # Words and numbers (run names, dataset ids) change character class rarely; random tokens change
-    # it at about 6 of 10 characters (for letters and digits drawn evenly). Require 45 in 100.
-    kinds = [("l" if c.islower() else "u" if c.isupper() else "d" if c.isdigit() else "o") for c in text]
-    switches = sum(1 for a, b in zip(kinds, kinds[1:]) if a != b)
-    return switches / (len(text) - 1) >= 0.45
-
-
-def _literal(text: str) -> bool:
-    t = text.strip()
-    _n, env, placeholder, _s, _w = _patterns()
-    return bool(t) and not env.search(t) and not placeholder.match(t) and not t.startswith(("/", "./", "~"))
-
-
-def _entries(root):
-    """(key text, value node) for every mapping entry (and sequence item under a key), each once."""
-    seen = set()
-    stack = [("", root)]
-    while stack:
-        key, node = stack.pop()
-        if id(node) in seen:
-            continue
-        seen.add(id(node))
-        if isinstance(node, Mapping):
-            for k, _kn, v, _via in node.entries():
-                yield k, v
-                stack.append((k, v))
-        elif isinstance(node, Sequence):
-            for item in node.items:
-                if isinstance(item, Scalar):
-                    yield key, item
-                else:
-                    stack.append((key, item))
-
-
+# The detector lives in trimtab.redact: every output masks what SEC-1 reports, with the same test.
 @rule(id="SEC-1", name="literal-credential", level="error", summary="A config holds a literal credential.",
       rationale="A token, password or API key written into a config is in version control, in every copy of the "
       "repository and in every log that prints the config (CWE-798, hard-coded credentials). trimtab "
@@ -132,41 +19,24 @@ def _entries(root):
       "(default 24), at least min_entropy_bits of Shannon entropy per character (default 4.0; common "
       "practice), upper case, lower case and digits mixed, and a character class that changes at 45 in "
       "100 characters or more (words and numbers in run names change it far less often). "
-      "The value is never shown: findings give the key and a masked form.",
-      options={"min_length": 24, "min_entropy_bits": 4.0}, cwe=798, rl_only=False, scope="file",
+      "Every file a run is composed from is looked at: its bases, the overrides file and the settings' "
+      "layers, each reported at the line in that file. "
+      "The value is never shown: findings give the key and a masked form, and every output of trimtab "
+      "masks the same values wherever they would appear.",
+      options={"min_length": 24, "min_entropy_bits": 4.0}, cwe=798, rl_only=False, scope="file", sources=True,
       help=CAUTIONS + " A credential that was committed should be treated as exposed: revoke and rotate "
                       "it, and read it at run time from the environment or a secret store.")
 def literal_credential(ctx):
-    seen = set()
-    for root in ctx.doc.roots:
-        for key, node in _entries(root):
-            if not isinstance(node, Scalar) or id(node) in seen:
-                continue
-            text = node.text
-            if not isinstance(text, str) or not text.strip() or node.tag not in (None, "!", "tag:yaml.org,2002:str"):
-                continue
-            why = ""
-            if _is_cred_key(key) and _literal(text) and not isinstance(node.value12, (bool, int, float)) \
-                    and node.value12 is not None:
-                why = f"key {key!r} holds a literal value"
-            else:
-                shape = ""
-                if _any_shape().search(text):  # perf: one search for every value, then which shape
-                    shape = next((name for name, pat in _patterns()[3] if pat.search(text)), "")
-                if shape:
-                    why = f"the value of {key!r} has the shape of {shape}" if key else f"a value has the shape of {shape}"
-                elif _high_entropy(text.strip(), ctx.options["min_length"], ctx.options["min_entropy_bits"]):
-                    why = f"the value of {key!r} looks like a credential (high entropy)"
-            if not why:
-                continue
-            seen.add(id(node))
-            loc = ctx.doc.loc(node)
-            shown = mask(text)
-            if "://" in text and "@" in text:
-                shown = safe_url(text) + ", user information masked"
-            yield ctx.finding(f"literal credential: {why} (masked: {shown})", loc, subject=digest(text),
-                              suggestion="read it at run time from an environment variable or a secret store, "
-                                         "and rotate it")
+    from trimtab.redact import credentials
+
+    for _key, node, why in credentials(ctx.doc, ctx.options["min_length"], ctx.options["min_entropy_bits"]):
+        text = node.text
+        shown = mask(text)
+        if "://" in text and "@" in text:
+            shown = safe_url(text) + ", user information masked"
+        yield ctx.finding(f"literal credential: {why} (masked: {shown})", ctx.doc.loc(node), subject=digest(text),
+                          suggestion="read it at run time from an environment variable or a secret store, "
+                                     "and rotate it")
 
 
 # --- SEC-2 -----------------------------------------------------------------------------------------

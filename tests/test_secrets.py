@@ -34,9 +34,9 @@ def test_sec1_good():
     ("api_key_env", False), ("password_file", False), ("tokenizer", False), ("max_tokens", False),
 ])
 def test_sec1_key_words(key, expected):
-    from trimtab_rules.secrets import _is_cred_key
+    from trimtab.redact import is_credential_key
 
-    assert _is_cred_key(key) is expected
+    assert is_credential_key(key) is expected
 
 
 def test_sec1_entropy_option(tmp_path):
@@ -78,7 +78,7 @@ def test_sec1_random_tokens_are_found_and_run_names_are_not():
     import random
     import string
 
-    from trimtab_rules.secrets import _high_entropy
+    from trimtab.redact import high_entropy as _high_entropy
 
     rng = random.Random(20261201)  # invented tokens, seeded
     alphabet = string.ascii_letters + string.digits

@@ -1,0 +1,328 @@
+"""Values that must never be shown, and characters that must never reach a terminal.
+
+One detector of credentials (the one SEC-1 reports with) and one masking function, ``mask``,
+that every output applies to every piece of text it writes: the text, JSON and SARIF reports,
+the audit page, explain, map, the ``--fix --diff`` output, the accepted-findings file and error
+messages. ``mask`` replaces, wherever they occur in the text:
+
+- every literal credential of any file this process has read (SEC-1's detector, run over each
+  document as it is loaded: ``learn``), and each line of a multi-line one;
+- anything of a well-known credential shape (a private key block, a signed web token, ...);
+- a URL's user information, query and fragment;
+- the value beside a key named like a credential (``api_key: ...``, ``password=...``);
+- a random-looking word (the high-entropy test of SEC-1, with its default thresholds).
+
+Text meant for a terminal also goes through ``visible`` (``for_text`` does both): control
+characters (which could retitle or clear the terminal), line breaks inside one field (which could
+forge a report line) and bidirectional overrides are shown as ⟨U+XXXX⟩, never obeyed.
+"""
+from __future__ import annotations
+
+import functools
+import math
+import re
+from collections import Counter
+
+MASK = "*" * 8
+MIN_LENGTH = 24  # SEC-1's default min_length
+MIN_BITS = 4.0  # SEC-1's default min_entropy_bits
+# A credential is masked wherever it occurs when it is at least this long and not a plain word (a
+# password "training" would otherwise hide that word in every message); any credential is masked
+# beside its key and at its place in a file's text.
+_MIN_KNOWN = 8
+_PLAIN_WORD = re.compile(r"[a-z]+|[A-Z][a-z]+|[A-Z]+")
+
+# --- the detector (SEC-1) ------------------------------------------------------------------------
+_CRED_WORDS = {"secret", "secrets", "password", "passwd", "passphrase", "pwd", "credential", "credentials",
+               "apikey", "api_key", "private_key", "access_key", "secret_key", "client_secret",
+               "auth_token", "access_token", "refresh_token", "bearer", "bearer_token", "api_token",
+               "session_token", "service_token", "hub_token", "personal_token", "webhook_secret"}
+_TOKEN_QUALIFIERS = {"api", "auth", "access", "bearer", "hub", "user", "personal", "service", "refresh",
+                     "session", "secret", "write", "read", "upload", "login"}
+# Keys that name a token of the vocabulary or a count of tokens, not a credential.
+_NOT_CRED_TEXT = (r"(^|_)(max|min|num|n|pad|eos|bos|unk|sep|cls|mask|start|end|stop|special|think|answer|"
+                  r"image|vision|audio|chat|tokens?_id|id)_token(s)?$|_tokens?_(id|ids|count|limit)$|"
+                  r"^tokens?$|tokenizer|_length$|_len$|_file$|_path$|_env$|_var$|_name$", 0)
+
+_ENV_REF_TEXT = (r"\$\{[^}]*\}|^\$[A-Za-z_]\w*$|^%\(?[A-Za-z_]\w*\)?s?%?$|^env:|^\{\{.*\}\}$|"
+                 r"os\.environ|^oc\.env|^secret:|^vault:|^file:|^@", re.I)
+_PLACEHOLDER_TEXT = (r"^(x+|\*+|\.+|-+|_+|#+|<[^>]*>|\[[^\]]*\]|changeme|change[_-]?me|replace[_-]?me|"
+                     r"todo|tbd|fixme|none|null|nil|redacted|placeholder|dummy|example\w*|your[_-].*|"
+                     r"insert[_-].*|set[_-]?me|fill[_-]?me|secret|password|token|test|fake\w*|"
+                     r"not[_-]?set|unset|empty)$", re.I)
+
+# Well-known credential shapes, by form only.
+SHAPES = (
+    ("a private key block", r"-----BEGIN [A-Z ]*PRIVATE KEY-----"),
+    ("a signed web token", r"\beyJ[A-Za-z0-9_-]{8,}\.eyJ[A-Za-z0-9_-]{8,}\.[A-Za-z0-9_-]{8,}"),
+    ("a secret-key token", r"\b(?:sk|rk)[-_](?:[A-Za-z0-9]+[-_])?[A-Za-z0-9]{20,}"),
+    ("a code-hosting access token", r"\bgh[pousr]_[A-Za-z0-9]{30,}"),
+    ("a model-hub access token", r"\bhf_[A-Za-z0-9]{30,}"),
+    ("a cloud access key id", r"\b(?:AKIA|ASIA)[0-9A-Z]{16}\b"),
+    ("a chat-service token", r"\bxox[abprs]-[A-Za-z0-9-]{10,}"),
+    ("a bearer token", r"\bBearer\s+[A-Za-z0-9._~+/-]{20,}=*"),
+    ("a password inside a URL", r"^[A-Za-z][A-Za-z0-9+.-]*://[^/\s:@]+:[^/\s@]+@"),
+)
+
+
+@functools.lru_cache(maxsize=1)
+def _patterns():
+    """The pattern tables, compiled on first use (start-up stays fast)."""
+    words = "|".join(sorted(map(re.escape, _CRED_WORDS), key=len, reverse=True))
+    return (re.compile(*_NOT_CRED_TEXT), re.compile(*_ENV_REF_TEXT), re.compile(*_PLACEHOLDER_TEXT),
+            tuple((name, re.compile(text)) for name, text in SHAPES),
+            re.compile(rf"(?:^|_)(?:{words})(?:_|$)"))
+
+
+@functools.lru_cache(maxsize=1)
+def _any_shape():
+    """perf: all credential shapes in one pattern; it matches exactly where one of them does."""
+    return re.compile("|".join(f"(?:{text})" for _name, text in SHAPES))
+
+
+def shape_of(text: str) -> str:
+    """The name of the well-known credential shape found in ``text``, or ""."""
+    if not _any_shape().search(text):  # perf: one search for every value, then which shape
+        return ""
+    return next((name for name, pat in _patterns()[3] if pat.search(text)), "")
+
+
+@functools.lru_cache(maxsize=4096)
+def is_credential_key(key: str) -> bool:
+    k = key.strip().lower().replace("-", "_").replace(" ", "_")
+    if _patterns()[0].search(k):
+        return False
+    if _patterns()[4].search(k):
+        return True
+    words = k.split("_")
+    if "password" in words or "secret" in words or "passwd" in words or "credentials" in words:
+        return True
+    if words[-1] in ("token", "key") and len(words) >= 2 and words[-2] in _TOKEN_QUALIFIERS | {"api", "private", "access", "secret"}:
+        return True
+    return False
+
+
+def _entropy(text: str) -> float:
+    counts = Counter(text)
+    n = len(text)
+    return -sum(c / n * math.log2(c / n) for c in counts.values())
+
+
+def high_entropy(text: str, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> bool:
+    # perf: str.split() finds whitespace (the same str.isspace test) in C, not per character in Python
+    if len(text) < min_length or "/" in text or "." in text or len("".join(text.split())) != len(text):
+        return False
+    if re.fullmatch(r"[0-9a-fA-F-]+", text):  # commit hashes, UUIDs
+        return False
+    classes = sum(bool(re.search(p, text)) for p in (r"[a-z]", r"[A-Z]", r"[0-9]"))
+    if classes < 3 or _entropy(text) < min_bits:
+        return False
+    # Words and numbers (run names, dataset ids) change character class rarely; random tokens change
+    # it at about 6 of 10 characters (for letters and digits drawn evenly). Require 45 in 100.
+    kinds = [("l" if c.islower() else "u" if c.isupper() else "d" if c.isdigit() else "o") for c in text]
+    switches = sum(1 for a, b in zip(kinds, kinds[1:]) if a != b)
+    return switches / (len(text) - 1) >= 0.45
+
+
+def literal(text: str) -> bool:
+    """A value written out, not an environment reference, a placeholder or a path."""
+    t = text.strip()
+    _n, env, placeholder, _s, _w = _patterns()
+    return bool(t) and not env.search(t) and not placeholder.match(t) and not t.startswith(("/", "./", "~"))
+
+
+def reason(key: str, node, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> str:
+    """Why the scalar ``node`` under ``key`` is a literal credential, or "" when it is not one."""
+    text = node.text
+    if not isinstance(text, str) or not text.strip() or node.tag not in (None, "!", "tag:yaml.org,2002:str"):
+        return ""
+    if is_credential_key(key) and literal(text) and not isinstance(node.value12, (bool, int, float)) \
+            and node.value12 is not None:
+        return f"key {key!r} holds a literal value"
+    shape = shape_of(text)
+    if shape:
+        return f"the value of {key!r} has the shape of {shape}" if key else f"a value has the shape of {shape}"
+    if high_entropy(text.strip(), min_length, min_bits):
+        return f"the value of {key!r} looks like a credential (high entropy)"
+    return ""
+
+
+def _entries(root):
+    """(key text, value node) for every mapping entry (and sequence item under a key), each once."""
+    from .document import Mapping, Sequence, Scalar
+
+    seen = set()
+    stack = [("", root)]
+    while stack:
+        key, node = stack.pop()
+        if id(node) in seen:
+            continue
+        seen.add(id(node))
+        if isinstance(node, Mapping):
+            for k, _kn, v, _via in node.entries():
+                yield k, v
+                stack.append((k, v))
+        elif isinstance(node, Sequence):
+            for item in node.items:
+                if isinstance(item, Scalar):
+                    yield key, item
+                else:
+                    stack.append((key, item))
+
+
+def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> list[tuple[str, object, str]]:
+    """(key, scalar node, why) of every literal credential of a document, each node once. Kept on
+    the document for the default thresholds (the loader's ``learn`` and SEC-1 share one walk)."""
+    from .document import Scalar
+
+    default = (min_length, min_bits) == (MIN_LENGTH, MIN_BITS)
+    if default:
+        memo = vars(doc).get("_credentials")
+        if memo is not None:
+            return memo
+    out, seen = [], set()
+    for root in doc.roots:
+        for key, node in _entries(root):
+            if not isinstance(node, Scalar) or id(node) in seen:
+                continue
+            why = reason(key, node, min_length, min_bits)
+            if why:
+                seen.add(id(node))
+                out.append((key, node, why))
+    if default:
+        vars(doc)["_credentials"] = out
+    return out
+
+
+# --- what this process has seen ---------------------------------------------------------------------
+_KNOWN: set[str] = set()
+_KNOWN_RE: list = [None]
+
+
+def learn(doc) -> None:
+    """Remember the literal credentials of a document just loaded: ``mask`` hides them wherever
+    they occur, whatever rule or output echoes them."""
+    added = False
+    for _key, node, _why in credentials(doc):
+        text = node.text.strip()
+        raw = doc.text[node.start:node.end] if getattr(node, "end", 0) else ""  # as written (quoted, folded)
+        wholes = (text, raw.strip())
+        if "://" in text:  # a URL: its password and query values, not its host and path
+            wholes = tuple(_url_secrets(text))
+        for whole in wholes:
+            for piece in {whole, *(line.strip() for line in whole.splitlines())}:
+                if len(piece) >= _MIN_KNOWN and not _PLAIN_WORD.fullmatch(piece) and piece not in _KNOWN:
+                    _KNOWN.add(piece)
+                    added = True
+    if added:
+        _KNOWN_RE[0] = None
+        _mask.cache_clear()
+
+
+def _url_secrets(url: str):
+    from urllib.parse import parse_qsl, urlsplit
+
+    try:
+        parts = urlsplit(url.strip())
+        yield from (parts.password or "", parts.username or "" if parts.password else "")
+    except ValueError:
+        return
+    for _k, v in parse_qsl(parts.query):
+        yield v
+
+
+def _known():
+    if _KNOWN_RE[0] is None and _KNOWN:
+        _KNOWN_RE[0] = re.compile("|".join(map(re.escape, sorted(_KNOWN, key=len, reverse=True))))
+    return _KNOWN_RE[0]
+
+
+# --- masking -----------------------------------------------------------------------------------------
+_URL = re.compile(r"\b[A-Za-z][A-Za-z0-9+.-]*://[^\s'\"<>`]+")
+_USERINFO = re.compile(r"(?<=://)[^/?#@\s]*@")
+_KEYED = re.compile(r"(?P<key>[A-Za-z_][\w.-]*)(?P<sep>['\"]?\s*[:=]\s*)"
+                    r"(?P<val>\"[^\"\n]*\"|'[^'\n]*'|\$\{[^}\n]*\}|[^\s,;}\]'\"]+)")
+_WORD = re.compile(r"[A-Za-z0-9_+=-]{%d,}" % MIN_LENGTH)
+
+
+def _url(m: re.Match) -> str:
+    url = _USERINFO.sub("****@", m.group())
+    for sep in "?#":
+        head, found, _rest = url.partition(sep)
+        if found:
+            url = head + sep + "****"
+    return url
+
+
+def _keyed(m: re.Match) -> str:
+    key = m["key"].rsplit(".", 1)[-1]
+    val = m["val"]
+    bare = val[1:-1] if val[:1] in "'\"" else val
+    if not is_credential_key(key) or not literal(bare) or bare.startswith("*"):
+        return m.group()
+    if re.fullmatch(r"[-+]?[0-9.]+|true|false|yes|no|on|off|null|~", bare, re.I):
+        return m.group()
+    return m["key"] + m["sep"] + (val[0] + MASK + val[0] if val[:1] in "'\"" else MASK)
+
+
+def _word(m: re.Match) -> str:
+    return MASK if high_entropy(m.group()) else m.group()
+
+
+def mask(text) -> str:
+    """``text`` with every credential it holds replaced by ``MASK`` (see the module's docstring)."""
+    s = text if isinstance(text, str) else str(text)
+    return _mask(s) if s else s
+
+
+@functools.lru_cache(maxsize=4096)  # perf: help texts and messages repeat across findings
+def _mask(s: str) -> str:
+    if "://" in s:  # first: the host and path stay readable
+        s = _URL.sub(_url, s)
+    known = _known()
+    if known is not None:
+        s = known.sub(MASK, s)
+    s = _any_shape().sub(MASK, s)
+    if ":" in s or "=" in s:
+        s = _KEYED.sub(_keyed, s)
+    return _WORD.sub(_word, s)
+
+
+def mask_source(text: str, doc=None) -> str:
+    """A file's text for showing whole (the audit page, a diff's context): every literal credential
+    of ``doc`` replaced by asterisks (line breaks kept, so lines keep their numbers), then every
+    line masked."""
+    if doc is not None and doc.text == text:
+        spans = sorted((node.start, node.end) for _k, node, _w in credentials(doc) if getattr(node, "end", 0))
+        if spans:
+            out, at = [], 0
+            for start, end in spans:
+                if start < at:
+                    continue
+                out.append(text[at:start])
+                out.append(re.sub(r"[^\r\n]", "*", text[start:end]))
+                at = end
+            out.append(text[at:])
+            text = "".join(out)
+    return "".join(mask(line) for line in text.splitlines(keepends=True))
+
+
+# --- terminals -----------------------------------------------------------------------------------
+# C0 controls but tab, DEL, C1 controls (CSI is one), the line breaks YAML and str.splitlines count,
+# and the bidirectional and invisible formatting characters.
+CONTROL = re.compile("[\x00-\x08\x0a-\x1f\x7f-\x9f\u2028\u2029\u202a-\u202e\u2066-\u2069\u200e\u200f\ufeff]")
+
+
+def _visible(ch: re.Match) -> str:
+    return f"\u27e8U+{ord(ch.group()):04X}\u27e9"
+
+
+def visible(text) -> str:
+    """Control characters and line breaks shown as ⟨U+XXXX⟩, never obeyed."""
+    s = text if isinstance(text, str) else str(text)
+    return CONTROL.sub(_visible, s)
+
+
+def for_text(text) -> str:
+    """One field of text output (a path, a message, a value): masked, then made visible."""
+    return visible(mask(text))
