@@ -16,7 +16,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from . import __version__
+from . import __version__, arithmetic
 from .findings import Finding, Level, Location
 from .model import RunModel, Value
 from .redact import for_text, mask_source
@@ -57,6 +57,7 @@ class Quantity:
     value: int | None
     origin: str  # "path:line", "derived (64 x 8)", "command line" or "not found"
     loc: Location | None = None  # where it was written (for a link)
+    shown: str = ""  # what is written beside what it means, when they differ ("24 prompts = 192 completions")
 
 
 @dataclass
@@ -85,25 +86,47 @@ class Picture:
     E: int | None = None
 
 
-def quantity(model: RunModel, concept: str) -> Quantity:
-    v: Value | None = model.get(concept)
-    n = model.int(concept)
-    if v is None or n is None:
-        return Quantity(concept, None, "not found" if v is None else f"not a whole number ({v.value!r})",
-                        v.location if v is not None and v.via != "derived" else None)
-    if v.via == "derived":
-        return Quantity(concept, n, f"derived ({v.note})" if v.note else "derived")
-    if v.location.path is None:
-        return Quantity(concept, n, "command line")
-    return Quantity(concept, n, f"{v.location.path}:{v.location.line}", v.location)
+def _int(x):
+    """A count the picture can label: an int, or an integral float as an int; else None."""
+    if isinstance(x, bool) or not isinstance(x, (int, float)):
+        return None
+    if isinstance(x, float):
+        return int(x) if x.is_integer() else None
+    return x
+
+
+def _x(text: str) -> str:
+    """The arithmetic's words with the multiplication sign of the page."""
+    return text.replace(" x ", " \u00d7 ")
+
+
+def quantity(a: arithmetic.Arithmetic, concept: str) -> Quantity:
+    """One number of the picture, read from the run's arithmetic: what it means (in the concept's
+    unit) and, when it was converted, what is written in the file beside it."""
+    t, d = a.term(concept), a.derived(concept)
+    if t is not None and t.source is not None:
+        v = t.source
+        n = _int(t.value)
+        loc = v.location
+        if n is None:
+            why = f"not converted ({t.missing} unknown)" if t.missing else f"not a whole number ({t.value!r})"
+            return Quantity(concept, None, why, loc)
+        if loc.path is None:
+            return Quantity(concept, n, "command line", shown=t.shown() if t.converted else "")
+        return Quantity(concept, n, f"{loc.path}:{loc.line}", loc, shown=t.shown() if t.converted else "")
+    if d is not None:
+        return Quantity(concept, _int(d.value), f"derived ({d.formula})" if d.formula else "derived")
+    return Quantity(concept, None, "not found")
 
 
 def batch_steps(model: RunModel) -> Picture:
-    """The batch arithmetic of one run, step by step, from the RunModel's values alone.
-    A step whose inputs are missing is shown as unknown, never as broken."""
-    q = {c: quantity(model, c) for c in ("batch.prompts", "rollout.group_size", "batch.rollouts", "batch.mini",
-                                         "batch.micro_per_gpu", "batch.grad_accum", "train.data_parallel",
-                                         "optim.epochs", "optim.updates_per_step", "cluster.world_size")}
+    """The batch arithmetic of one run, step by step, as ``trimtab.arithmetic`` computed it (the
+    same steps the BAT rules and ``explain`` read). A step whose inputs are missing is shown as
+    unknown, never as broken."""
+    a = arithmetic.of(model)
+    q = {c: quantity(a, c) for c in ("batch.prompts", "rollout.group_size", "batch.rollouts", "batch.mini",
+                                     "batch.micro_per_gpu", "batch.grad_accum", "train.data_parallel",
+                                     "optim.epochs", "optim.updates_per_step", "cluster.world_size")}
     P, G = q["batch.prompts"].value, q["rollout.group_size"].value
     R, M = q["batch.rollouts"].value, q["batch.mini"].value
     u, A, D = q["batch.micro_per_gpu"].value, q["batch.grad_accum"].value, q["train.data_parallel"].value
@@ -117,23 +140,24 @@ def batch_steps(model: RunModel) -> Picture:
              known=G is not None),
     ]
     comp = Step("completions", "Completions per step", "", [q["batch.rollouts"]])
-    if R is not None and P is not None and G is not None and stated_R and R != P * G:
-        comp.broken = f"{R} completions are stated, but {P} prompts \u00d7 {G} = {P * G}"
-        comp.remainder = abs(R - P * G)
-        comp.text = f"stated {R}; {P} \u00d7 {G} = {P * G}"
+    s = a.step("completions")
+    if s is not None and s.agrees is False:
+        comp.broken = f"{R} completions are stated, but {P} prompts \u00d7 {G} = {s.value}"
+        comp.remainder = abs(R - s.value)
+        comp.text = f"stated {R}; {P} \u00d7 {G} = {s.value}"
     else:
         comp.text = f"{_v(P)} \u00d7 {_v(G)} = {_v(R)} completions" if not stated_R else f"{_v(R)} completions"
         comp.known = R is not None
     steps.append(comp)
     mini = Step("mini", "Mini-batches", "", [q["batch.mini"]])
-    if R is not None and R > 0 and M is not None and M > 0:
-        k, r = divmod(R, M)
-        if r:
-            mini.broken = f"{R} completions do not split into mini-batches of {M}: {R} = {k} \u00d7 {M} + {r}"
-            mini.remainder = r
-            mini.text = f"{R} = {k} \u00d7 {M} + {r}: {k} whole mini-batches, remainder {r}"
-        else:
-            mini.text = f"{R} / {M} = {k} mini-batch{'es' if k != 1 else ''} of {M}"
+    s = a.step("mini")
+    if s is not None and s.divides is False:
+        k = R // M
+        mini.broken = f"{R} completions do not split into mini-batches of {M}: {_x(s.formula)}"
+        mini.remainder = s.remainder
+        mini.text = f"{_x(s.formula)}: {k} whole mini-batches, remainder {s.remainder}"
+    elif s is not None:
+        mini.text = f"{_x(s.formula)} = {s.value} mini-batch{'es' if s.value != 1 else ''} of {M}"
     elif M is not None and M <= 0:
         mini.broken, mini.text = f"a mini-batch of {M} completions", f"mini-batch {M}"
     else:
@@ -142,50 +166,54 @@ def batch_steps(model: RunModel) -> Picture:
     steps.append(mini)
     micro = Step("micro", "Per-rank micro-batches \u00d7 accumulation", "",
                  [q["train.data_parallel"], q["batch.micro_per_gpu"], q["batch.grad_accum"]])
-    if M is not None and M > 0 and u is not None and u > 0 and D is not None and D > 0:
-        k, r = divmod(M, u * D)
-        if r:
-            micro.broken = (f"a mini-batch of {M} does not split into micro-batches of {u} on {D} ranks: "
-                            f"{M} = {k} \u00d7 ({u} \u00d7 {D}) + {r}")
-            micro.remainder = r
-            micro.text = f"{M} = {k} \u00d7 ({u} \u00d7 {D}) + {r}"
+    per_rank, acc, ranks = a.step("per_rank"), a.step("accum"), a.step("ranks")
+    only = a.step("accum_only")  # no micro-batch stated: the accumulation alone splits the share of a rank
+    if only is not None and only.divides is False:
+        micro.broken = (f"a mini-batch of {M} over {D} ranks is {per_rank.value} per rank, which does not split "
+                        f"into {A} accumulation steps: {_x(only.formula)}")
+        micro.remainder = only.remainder
+        micro.text = _x(only.formula)
+    elif per_rank is not None and acc is not None or per_rank is not None and per_rank.divides is False:
+        bad = per_rank if per_rank.divides is False else acc
+        if bad.divides is False:
+            micro.broken = (f"a mini-batch of {M} does not split into micro-batches of {_v(u)} on {D} ranks: "
+                            f"{_x(bad.formula)}")
+            micro.remainder = bad.remainder
+            micro.text = _x(bad.formula)
         else:
-            micro.text = f"{M} / ({u} \u00d7 {D} ranks) = {k} accumulation steps"
-            stated_A = model.values.get("batch.grad_accum")
-            if stated_A is not None and A is not None and A != k:
-                micro.broken = f"accumulation {A} is stated, but {M} / ({u} \u00d7 {D}) = {k}"
-                micro.remainder = abs(A - k)
+            micro.text = f"{_x(acc.formula)} = {acc.value} accumulation steps"
+            if acc.agrees is False:
+                micro.broken = f"accumulation {A} is stated, but {_x(acc.formula)} = {acc.value}"
+                micro.remainder = abs(A - acc.value)
                 micro.text += f"; stated {A}"
-            A = k if stated_A is None or A == k else A
+            A = acc.value if acc.agrees is not False else A
     else:
         micro.text = (f"{_v(D)} data-parallel ranks \u00d7 {_v(u)} per micro-batch \u00d7 {_v(A)} accumulation "
                       f"steps")
         micro.known = False
-        world = q["cluster.world_size"].value
-        par = [model.int(c) for c in ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel")
-               if model.int(c)]
-        if D is None and world and world > 0 and par and all(x > 0 for x in par):
-            X = 1
-            for x in par:
-                X *= x
+        if ranks is not None and ranks.divides is False:
+            # the ranks themselves cannot be counted: the world does not split into model-parallel groups
+            world, X = ranks.terms[0].whole, a.step("replica").value
+            group = " \u00d7 ".join(str(t.whole) for t in ranks.terms[1:]) if len(ranks.terms) > 2 else str(X)
             k, r = divmod(world, X)
-            if r:  # the ranks themselves cannot be counted: the world does not split into model-parallel groups
-                group = " \u00d7 ".join(map(str, par)) if len(par) > 1 else str(X)
-                micro.broken = (f"{world} GPUs do not split into model-parallel groups of {group}: "
-                                f"{world} = {k} \u00d7 {X} + {r}")
-                micro.remainder = r
-                micro.text = f"data-parallel ranks: {world} GPUs = {k} \u00d7 {X} + {r}"
-                micro.known = True
+            micro.broken = (f"{world} GPUs do not split into model-parallel groups of {group}: "
+                            f"{world} = {k} \u00d7 {X} + {r}")
+            micro.remainder = r
+            micro.text = f"data-parallel ranks: {world} GPUs = {k} \u00d7 {X} + {r}"
+            micro.known = True
     steps.append(micro)
     upd = Step("updates", "Optimiser updates per step", "", [q["optim.epochs"]])
-    if R is not None and R > 0 and M is not None and M > 0 and R % M == 0:
+    s = a.step("updates")
+    if s is not None and s.divides is not False and not isinstance(s.value, float):
         k, e = R // M, E or 1
         upd.text = (f"{k} mini-batch{'es' if k != 1 else ''} \u00d7 {e} epoch{'s' if e != 1 else ''} = "
-                    f"{k * e} update{'s' if k * e != 1 else ''}")
-    elif R is not None and R > 0 and M is not None and M > 0:
-        k, e = R // M, E or 1
-        upd.text = (f"{k} whole mini-batch{'es' if k != 1 else ''} \u00d7 {e} epoch{'s' if e != 1 else ''} = "
-                    f"{k * e} update{'s' if k * e != 1 else ''}; the {R % M} completions left over make no "
+                    f"{s.value} update{'s' if s.value != 1 else ''}")
+        if s.agrees is False:
+            upd.broken = f"{s.stated.whole} updates per step are stated, but {_x(s.formula)} = {s.value}"
+    elif s is not None:
+        k = R // M
+        upd.text = (f"{_x(s.formula)} = {arithmetic.fmt(s.value)} updates per step: not a whole number; "
+                    f"{k} whole mini-batch{'es' if k != 1 else ''}, the {R % M} completions left over make no "
                     "whole mini-batch")
     else:
         upd.text = f"{_v(E)} epoch(s) over each step's completions"
@@ -208,19 +236,30 @@ class Budget:
 
 
 def token_budget(model: RunModel) -> Budget:
-    b = Budget(quantity(model, "length.prompt_max"), quantity(model, "length.response_max"),
-               quantity(model, "rollout.context_max"), quantity(model, "model.context_max"))
-    # only positive lengths are compared (a zero or negative one is another rule's business)
-    p, r, e, m = (_pos(x.value) for x in (b.prompt, b.response, b.engine, b.model))
-    if p is not None and r is not None:
-        for key, limit, name in (("engine", e, "the engine context"), ("model", m, "the model context")):
-            if limit is not None and p + r > limit:
-                b.broken.append((f"sequence-{key}", f"prompt {p} + response {r} = {p + r} tokens exceed "
-                                                    f"{name} of {limit} by {p + r - limit}", p + r - limit))
-                break
-    if e is not None and m is not None and e > m:
-        b.broken.append(("engine-model", f"the engine context {e} exceeds the model context {m} by {e - m}",
-                         e - m))
+    """The token budget against each context window, as ``trimtab.arithmetic`` computed it (the
+    steps LEN-2 and LEN-3 read)."""
+    a = arithmetic.of(model)
+    b = Budget(quantity(a, "length.prompt_max"), quantity(a, "length.response_max"),
+               quantity(a, "rollout.context_max"), quantity(a, "model.context_max"))
+    for key, name in (("fit_engine", "engine"), ("fit_model", "model")):
+        s = a.step(key)
+        if s is None or not s.broken:
+            continue
+        limit = s.terms[-1].whole
+        if len(s.terms) == 3 and s.terms[0].whole >= limit:
+            why = f"the prompt budget of {s.terms[0].whole} tokens fills the {name} context of {limit}: no room for " \
+                  "any response"
+        elif len(s.terms) == 3:
+            why = f"prompt {s.terms[0].whole} + response {s.terms[1].whole} = {s.value} tokens exceed the {name} " \
+                  f"context of {limit} by {s.excess}"
+        else:
+            why = f"the response budget of {s.value} tokens fills the {name} context of {limit}: no room for the prompt"
+        b.broken.append((f"sequence-{name}", why, s.excess))
+        break
+    s = a.step("engine_model")
+    if s is not None and s.broken:
+        b.broken.append(("engine-model", f"the engine context {s.value} exceeds the model context "
+                                         f"{s.terms[1].whole} by {s.excess}", s.excess))
     return b
 
 
@@ -402,6 +441,10 @@ class Page:
             out.append(f'<li data-step="{s.key}"{flag}>'
                        f"<strong>{_e(s.title)}</strong>: {_e(s.text)} {mark}</li>")
         out.append("</ol>")
+        readings = arithmetic.reading_lines(m)
+        if readings:  # counts whose unit the file does not state: every reading and what supports one
+            out.append(f"<h3>{head}Units by evidence</h3>")
+            out.append('<pre class="readings">' + _e("\n".join(line.strip() for line in readings[2:])) + "</pre>")
         out.append(f"<h3>{head}Token budget</h3>")
         out.append(budget_svg(self, rid, budget))
         out.append('<ul class="steps">')
@@ -563,7 +606,7 @@ def _label(page: Page, x, y, title: str, items: list[tuple[str, Quantity]]) -> l
     out = [_svg_text(x, y, title, "step-title")]
     for k, (name, qn) in enumerate(items):
         yy = y + 17 + k * 30
-        shown = "not found" if qn.value is None else _num(qn.value)
+        shown = "not found" if qn.value is None else (qn.shown or _num(qn.value))
         out.append(f'<text x="{x:.1f}" y="{yy:.1f}" class="qty"><tspan>{_e(name)} = </tspan>'
                    f'<tspan class="num" data-concept="{_e(qn.concept)}">{_e(shown)}</tspan></text>')
         out.append(_origin(page, qn, x + 10, yy + 13))

@@ -32,6 +32,7 @@ class Value:
     inputs: tuple[str, ...] = ()  # for derived values: the concepts it was computed from
     note: str = ""  # how it was read or converted ("x group size 8")
     raw: Any = None  # the value as written, before unit conversion
+    unit: Any = None  # for a batch count: the unit it is written in, when the key map states it (arithmetic.Unit)
 
     @property
     def whole(self):

@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
+from .arithmetic import Unit, settle
 from .model import Component, RunModel, Value
 from .settings import KeySpec
 from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, normalise_key
@@ -108,8 +109,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         hit = native.get(concept)
         if hit is not None:
             _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]))
-    _convert_units(model, opts)
-    derive(model)
+    settle(model)  # the run's arithmetic: counts in their concepts' units, derived quantities
     markers = sum(1 for c in RL_MARKERS if c in model.values)
     model.is_rl = opts.force_rl or markers >= RL_MIN_MARKERS or "run.estimator" in model.values and markers >= 2
     return model
@@ -222,6 +222,9 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
+    c = CONCEPTS[concept]
+    if spec is not None and c.per:
+        v.unit = Unit(spec.per or c.per, spec.scope or c.scope)  # the key map states the unit
     model.values[concept] = v
     expected = CONCEPTS[concept].type
     if value is not None and not _fits(value, expected):
@@ -304,160 +307,3 @@ def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
         return
 
 
-# --- units ------------------------------------------------------------------------------
-def _convert_units(model: RunModel, opts: ResolveOptions) -> None:
-    """Convert key-map values counted per prompt or per GPU into the concept's own unit.
-
-    A value that cannot be converted (the group size or the data-parallel ranks are unknown)
-    is kept with value None and a note, so that no rule reasons about it in the wrong unit. A
-    conversion that leaves a fraction keeps the fraction as a float (the arithmetic rules report
-    it); the value as written stays in ``raw``."""
-    for concept, spec in opts.keys.items():
-        v = model.values.get(concept)
-        c = CONCEPTS.get(concept)
-        if v is None or v.via != "keymap" or c is None or not c.per or v.number is None:
-            continue  # only values read through the key map are counted in the key map's unit
-        factor_num, factor_den, notes, missing = 1, 1, [], []
-        if spec.per and spec.per != c.per:
-            g = model.values.get("rollout.group_size")
-            gs = g.number if g is not None else None
-            if not isinstance(gs, int) or isinstance(gs, bool) or gs <= 0:
-                missing.append("the group size")
-            elif c.per == "completion":
-                factor_num *= gs
-                notes.append(f"x group size {gs}")
-            else:
-                factor_den *= gs
-                notes.append(f"/ group size {gs}")
-        if spec.scope and spec.scope != c.scope:
-            dp = _data_parallel(model)
-            if dp is None:
-                missing.append("the data-parallel ranks")
-            elif c.scope == "global":
-                factor_num *= dp
-                notes.append(f"x {dp} data-parallel ranks")
-            else:
-                factor_den *= dp
-                notes.append(f"/ {dp} data-parallel ranks")
-        written = f"{v.raw} as written (per {spec.per or c.per}, {spec.scope or c.scope})"
-        if missing:
-            v.value = None
-            v.note = f"{written}: not converted, {' and '.join(missing)} unknown"
-            continue
-        if not notes:
-            continue
-        total = v.number * factor_num
-        if isinstance(total, float) and total.is_integer():
-            total = int(total)
-        if isinstance(total, int) and total % factor_den == 0:
-            v.value = total // factor_den
-        else:
-            v.value = total / factor_den
-        v.note = f"{written} {' '.join(notes)}"
-
-
-def _data_parallel(model: RunModel):
-    """Data-parallel ranks for unit conversion: None when unknown or in dispute (a stated size
-    that disagrees with world / (tp x pp x cp)), so nothing is converted with a wrong count."""
-    world = _world(model)
-    computed = None
-    if world is not None:
-        par = 1
-        for name in PARALLEL:
-            p = model.values.get(name)
-            if p is not None:
-                if not isinstance(p.number, int) or p.number <= 0:
-                    return None
-                par *= p.number
-        computed = world // par if world % par == 0 else None
-    v = model.values.get("train.data_parallel")
-    if v is not None:
-        stated = v.number if isinstance(v.number, int) and v.number > 0 else None
-        if stated is None or computed is not None and computed != stated:
-            return None
-        return stated
-    return computed
-
-
-def _world(model: RunModel):
-    v = model.values.get("cluster.world_size")
-    n, g = model.values.get("cluster.nodes"), model.values.get("cluster.gpus_per_node")
-    product = None
-    if n is not None and g is not None and isinstance(n.number, int) and isinstance(g.number, int) \
-            and n.number > 0 and g.number > 0:
-        product = n.number * g.number
-    if v is not None:
-        stated = v.number if isinstance(v.number, int) and v.number > 0 else None
-        if stated is None or product is not None and product != stated:
-            return None
-        return stated
-    return product
-
-
-# --- derived arithmetic -----------------------------------------------------------------------
-def settled(model: RunModel, concept: str):
-    """The positive whole value of a concept that later arithmetic may build on: the stated
-    value, else the derived one; None when neither exists or when a stated value and the value
-    derived from its factors disagree (a rule reports the disagreement; nothing is built on it)."""
-    s, d = model.values.get(concept), model.derived.get(concept)
-    stated, derived = (s.whole if s is not None else None), (d.whole if d is not None else None)
-    if concept in model.values:
-        if stated is None:
-            return None
-        if concept in model.derived and derived is not None and derived != stated:
-            return None
-        return stated
-    return derived
-
-
-def _put(model: RunModel, concept: str, value, inputs: tuple, note: str) -> None:
-    loc = Location(model.path)
-    for name in inputs:
-        src = model.values.get(name) or model.derived.get(name)
-        if src is not None:
-            loc = src.location
-            break
-    model.derived[concept] = Value(concept, value, loc, None, "derived", "", inputs=inputs, note=note)
-
-
-PARALLEL = ("train.tensor_parallel", "train.pipeline_parallel", "train.context_parallel")
-
-
-def derive(model: RunModel) -> None:
-    """Compute what the stated values imply; only exact divisions become derived values
-    (the arithmetic rules report the ones that do not divide). A derived value is recorded even
-    where the same concept is stated (the rules compare the two); later steps build only on
-    values that are settled (see ``settled``)."""
-    n, g = settled(model, "cluster.nodes"), settled(model, "cluster.gpus_per_node")
-    if n is not None and g is not None:
-        _put(model, "cluster.world_size", n * g, ("cluster.nodes", "cluster.gpus_per_node"), f"{n} x {g}")
-    world = settled(model, "cluster.world_size")
-    if world is not None:
-        names = [c for c in PARALLEL if settled(model, c)]
-        if all(settled(model, c) is not None for c in PARALLEL if c in model.values):
-            par = 1
-            for c in names:
-                par *= settled(model, c)
-            if world % par == 0:
-                text = f"{world} / {par}" if names else f"{world} GPUs, no model parallelism"
-                _put(model, "train.data_parallel", world // par, ("cluster.world_size",) + tuple(names), text)
-    p, gs = settled(model, "batch.prompts"), settled(model, "rollout.group_size")
-    if p is not None and gs is not None:
-        _put(model, "batch.rollouts", p * gs, ("batch.prompts", "rollout.group_size"), f"{p} x {gs}")
-    rollouts, mini = settled(model, "batch.rollouts"), settled(model, "batch.mini")
-    if p is None and "batch.prompts" not in model.values and rollouts is not None and gs is not None \
-            and rollouts % gs == 0:
-        _put(model, "batch.prompts", rollouts // gs, ("batch.rollouts", "rollout.group_size"),
-             f"{rollouts} / {gs}")
-    epochs = settled(model, "optim.epochs")
-    if rollouts is not None and mini is not None and rollouts % mini == 0 and (
-            epochs is not None or "optim.epochs" not in model.values):
-        e = epochs or 1
-        _put(model, "optim.updates_per_step", rollouts // mini * e,
-             ("batch.rollouts", "batch.mini") + (("optim.epochs",) if epochs else ()),
-             f"{rollouts} / {mini}" + (f" x {epochs} epoch{'s' if epochs != 1 else ''}" if epochs
-                                           else " (1 epoch: none stated)"))
-    micro, dp = settled(model, "batch.micro_per_gpu"), settled(model, "train.data_parallel")
-    if mini is not None and micro is not None and dp is not None and mini % (micro * dp) == 0:
-        _put(model, "batch.grad_accum", mini // (micro * dp),
-             ("batch.mini", "batch.micro_per_gpu", "train.data_parallel"), f"{mini} / ({micro} x {dp})")

@@ -9,8 +9,8 @@ from __future__ import annotations
 
 from trimtab import rule
 from trimtab.model import whole
-from trimtab.arithmetic import (PARALLEL, either, lcm, near_divisors, near_multiples, related, remainder,
-                                settled)
+from trimtab import arithmetic
+from trimtab.arithmetic import PARALLEL, either, judge, keymap_line, lcm, near_divisors, near_multiples, related, remainder
 
 _GROUP_RELATIVE_BASIS = ("Group-relative estimators sample a group of completions per prompt and use the "
                          "group's statistics as the baseline (Shao et al. 2024, arXiv:2402.03300, section 4.2: 64 "
@@ -34,9 +34,13 @@ _NAMES = {
       needs=("batch.rollouts", "batch.prompts", "rollout.group_size"))
 def completions_product(ctx):
     m = ctx.model
-    r, p, g = (whole(getattr(m.values.get(c), "value", None))
-               for c in ("batch.rollouts", "batch.prompts", "rollout.group_size"))
-    if not (r and p and g) or r == p * g:
+    verdict = judge(m)
+    a = verdict.arithmetic
+    step = a.step("completions")
+    if step is None or not verdict.reportable(step) or not step.stated:
+        return
+    r, p, g = step.stated.whole, a.stated("batch.prompts"), a.stated("rollout.group_size")
+    if not (r and p and g):
         return
     hints = [f"completions per step of {p * g}"]
     if r % g == 0:
@@ -45,7 +49,7 @@ def completions_product(ctx):
         hints.append(f"a group size of {r // p}")
     yield ctx.finding(
         f"{r} completions per step are stated, but {p} prompts per step x {g} completions per prompt = "
-        f"{p * g}", m.values["batch.rollouts"].location,
+        f"{p * g}{verdict.suffix(step)}", m.values["batch.rollouts"].location,
         related=related(m, "batch.prompts", "rollout.group_size"),
         suggestion="use " + ", or ".join(hints), subject=(r, p, g))
 
@@ -63,41 +67,61 @@ def completions_product(ctx):
       needs=("batch.mini",))
 def partial_mini_batch(ctx):
     m = ctx.model
-    rollouts, mini = settled(m, "batch.rollouts"), settled(m, "batch.mini")
-    if not rollouts or not mini:
+    verdict = judge(m)
+    a = verdict.arithmetic
+    step = a.step("mini")
+    if step is None or step.disputed:
         return
-    epochs = settled(m, "optim.epochs") or 1
+    rollouts, mini = a.value("batch.rollouts"), a.value("batch.mini")
     loc = m.values["batch.mini"].location if "batch.mini" in m.values else m.loc("batch.mini")
-    if rollouts % mini:
-        gs = settled(m, "rollout.group_size") or 1
-        dp = settled(m, "train.data_parallel")
-        micro = settled(m, "batch.micro_per_gpu")
+    if step.divides is False:
+        if not verdict.reportable(step):
+            return
+        upd = a.step("updates")
+        gs = a.value("rollout.group_size") or 1
+        dp = a.value("train.data_parallel")
+        micro = a.value("batch.micro_per_gpu")
         unit = lcm(gs if gs > 1 else 1, (micro or 1) * (dp or 1))
         minis = near_divisors(rollouts, mini, unit) or near_divisors(rollouts, mini)
         steps = near_multiples(rollouts, lcm(mini, gs))
         hints = []
         if minis:
-            hints.append(f"a mini-batch of {either(minis)}")
+            hints.append(f"a mini-batch of {_in_own_unit(a, 'batch.mini', minis)}")
         if steps:
             hints.append(f"{either(steps)} completions per step")
         if mini > rollouts:
             msg = (f"a mini-batch of {mini} completions is larger than the {rollouts} completions per step: "
                    f"not one whole update per step")
         else:
-            msg = (f"{rollouts} completions per step do not split into mini-batches of {mini}: "
-                   f"{remainder(rollouts, mini)}; updates per step would be {rollouts} / {mini} x {epochs} = "
-                   f"{rollouts * epochs / mini:.2f}")
-        yield ctx.finding(msg, loc, related=related(m, "batch.rollouts", "optim.epochs"),
+            msg = f"{rollouts} completions per step do not split into mini-batches of {mini}: {step.formula}"
+            if upd is not None:
+                msg += f"; updates per step would be {upd.formula} = {arithmetic.fmt(upd.value)}"
+        yield ctx.finding(msg + verdict.suffix(step), loc, related=related(m, "batch.rollouts", "optim.epochs"),
                           suggestion="use " + ", or ".join(hints) if hints else "", subject=(rollouts, mini))
         return
+    upd = a.step("updates")
     stated = m.values.get("optim.updates_per_step")
-    derived = m.derived.get("optim.updates_per_step")
-    if stated is not None and derived is not None and whole(stated.value) and stated.value != derived.value:
+    if upd is not None and stated is not None and upd.agrees is False and verdict.reportable(upd):
         yield ctx.finding(
-            f"{_show(stated.value)} updates per step are stated, but {derived.note} = {derived.value}",
+            f"{_show(stated.value)} updates per step are stated, but {upd.formula} = {upd.value}{verdict.suffix(upd)}",
             stated.location, related=related(m, "batch.rollouts", "batch.mini", "optim.epochs"),
-            suggestion=f"use {derived.value} updates per step, or change the mini-batch or the epochs",
-            subject=(stated.value, derived.value))
+            suggestion=f"use {upd.value} updates per step, or change the mini-batch or the epochs",
+            subject=(stated.value, upd.value))
+
+
+def _in_own_unit(a, concept: str, values: list[int]) -> str:
+    """Suggested values of a count, in the unit its key is written in (a key counted in prompts
+    gets prompts): each completion count converted back, keeping only whole ones."""
+    t = a.term(concept)
+    if t is None or not t.converted or t.value is None or not t.written:
+        return either(values)
+    ratio = t.value / t.written  # completions (global) per unit as written
+    back = [v / ratio for v in values]
+    whole_back = [int(b) for b in back if abs(b - round(b)) < 1e-9 and b > 0]
+    if not whole_back:
+        return either(values) + " completions"
+    noun = t.read_as.noun(2) + (" per GPU" if t.read_as.scope == "gpu" else "")
+    return " or ".join(f"{b} {noun} ({int(b * ratio)} completions)" for b in whole_back)
 
 
 def _show(x):
@@ -114,59 +138,74 @@ def _show(x):
       needs=("batch.mini",))
 def micro_batch_fit(ctx):
     m = ctx.model
-    mini, dp = settled(m, "batch.mini"), settled(m, "train.data_parallel")
-    micro = settled(m, "batch.micro_per_gpu")
+    verdict = judge(m)
+    a = verdict.arithmetic
+    mini, dp = a.value("batch.mini"), a.value("train.data_parallel")
+    micro = a.value("batch.micro_per_gpu")
     accum_v = m.values.get("batch.grad_accum")
-    accum = whole(accum_v.value) if accum_v is not None else None
-    if not mini or not dp:
+    accum = a.stated("batch.grad_accum")
+    per_rank = a.step("per_rank")
+    if per_rank is None:
         return
-    gs = settled(m, "rollout.group_size") or 1
-    rollouts = settled(m, "batch.rollouts")
+    gs = a.value("rollout.group_size") or 1
+    rollouts = a.value("batch.rollouts")
 
     def minis(unit):
-        return (near_divisors(rollouts, mini, unit) if rollouts else []) or near_multiples(mini, unit)
+        found = (near_divisors(rollouts, mini, unit) if rollouts else []) or near_multiples(mini, unit)
+        return _own(a, found)
 
     mini_loc = m.values["batch.mini"].location if "batch.mini" in m.values else m.loc("batch.mini")
     rel = related(m, "train.data_parallel")
-    if mini % dp:
+    if per_rank.divides is False:
+        if not verdict.reportable(per_rank):
+            return
         unit = lcm(dp * (micro or 1), gs if gs > 1 else 1)
         yield ctx.finding(
             f"a mini-batch of {mini} completions does not split over {dp} data-parallel ranks: "
-            f"{remainder(mini, dp)}", mini_loc, related=rel,
-            suggestion=f"use a mini-batch of {either(minis(unit))}", subject=(mini, dp))
+            f"{per_rank.formula}{verdict.suffix(per_rank)}", mini_loc, related=rel,
+            suggestion=f"use a mini-batch of {minis(unit)}", subject=(mini, dp))
         return
-    share = mini // dp
-    if micro:
+    share = per_rank.value
+    step = a.step("accum")
+    if step is not None:
         micro_v = m.values.get("batch.micro_per_gpu")
-        if share % micro:
+        if step.divides is False:
+            if not verdict.reportable(step):
+                return
             unit = lcm(dp * micro, gs if gs > 1 else 1)
             micros = [d for d in near_divisors(share, micro) if d < micro][:1]
-            hints = [f"a mini-batch of {either(minis(unit))}"]
+            hints = [f"a mini-batch of {minis(unit)}"]
             if micros:
-                hints.append(f"a micro-batch of {micros[0]}")
+                hints.append(f"a micro-batch of {_own(a, micros, 'batch.micro_per_gpu')}")
             loc = micro_v.location if micro_v is not None else mini_loc
             yield ctx.finding(
                 f"a mini-batch of {mini} completions over {dp} data-parallel ranks is {share} per rank, which "
-                f"does not split into micro-batches of {micro}: {remainder(share, micro)}", loc,
+                f"does not split into micro-batches of {micro}: {step.formula}{verdict.suffix(step)}", loc,
                 related=related(m, "batch.mini", "train.data_parallel"),
                 suggestion="use " + ", or ".join(hints), subject=(mini, dp, micro))
             return
-        implied = share // micro
-        if accum_v is not None and accum and accum != implied:
+        implied = step.value
+        if accum_v is not None and step.agrees is False and verdict.reportable(step):
             yield ctx.finding(
                 f"gradient accumulation is stated as {accum}, but a mini-batch of {mini} = {micro} per GPU x "
-                f"{dp} ranks x {implied} accumulation steps", accum_v.location,
+                f"{dp} ranks x {implied} accumulation steps{verdict.suffix(step)}", accum_v.location,
                 related=related(m, "batch.mini", "batch.micro_per_gpu", "train.data_parallel"),
-                suggestion=f"use {implied} accumulation steps, or a mini-batch of {micro * dp * accum}",
+                suggestion=f"use {implied} accumulation steps, or a mini-batch of "
+                           f"{_own(a, [micro * dp * accum])}",
                 subject=(mini, dp, micro, accum))
         return
-    if accum_v is not None and accum and share % accum:
+    step = a.step("accum_only")
+    if step is not None and step.divides is False and verdict.reportable(step):
         accums = [d for d in near_divisors(share, accum)]
         yield ctx.finding(
             f"a mini-batch of {mini} completions over {dp} data-parallel ranks is {share} per rank, which "
-            f"does not split into {accum} accumulation steps: {remainder(share, accum)}", accum_v.location,
+            f"does not split into {accum} accumulation steps: {step.formula}{verdict.suffix(step)}", accum_v.location,
             related=related(m, "batch.mini", "train.data_parallel"),
             suggestion=f"use {either(accums)} accumulation steps" if accums else "", subject=(mini, dp, accum))
+
+
+def _own(a, values, concept="batch.mini"):
+    return _in_own_unit(a, concept, values)
 
 
 @rule(id="BAT-4", name="world-size-mismatch", level="error",
@@ -177,10 +216,11 @@ def micro_batch_fit(ctx):
       needs=("cluster.world_size", "cluster.nodes", "cluster.gpus_per_node"))
 def world_size(ctx):
     m = ctx.model
-    w, n, g = (whole(getattr(m.values.get(c), "value", None))
-               for c in ("cluster.world_size", "cluster.nodes", "cluster.gpus_per_node"))
-    if not (w and n and g) or w == n * g:
+    a = arithmetic.of(m)
+    step = a.step("world")
+    if step is None or step.agrees is not False:
         return
+    w, n, g = step.stated.whole, a.value("cluster.nodes"), a.value("cluster.gpus_per_node")
     hints = [f"a world size of {n * g}"]
     if w % n == 0:
         hints.append(f"{w // n} GPUs per node")
@@ -209,17 +249,15 @@ def _culprit(world: int, degrees: dict[str, int]) -> str:
       "occupies the same number of GPUs). A stated data-parallel size that disagrees is reported too.")
 def model_parallel(ctx):
     m = ctx.model
-    world = settled(m, "cluster.world_size")
-    if not world:
-        return
-    degrees = {c: settled(m, c) for c in PARALLEL if c in m.values}
-    if any(v is None for v in degrees.values()):
-        return  # not positive whole numbers: BAT-8 reports them
-    par = 1
-    for d in degrees.values():
-        par *= d
+    a = arithmetic.of(m)
+    step = a.step("ranks")
+    if step is None:
+        return  # no world size, or a degree that is not a positive whole number (BAT-8 reports it)
+    world = a.value("cluster.world_size")
+    degrees = {t.concept: t.whole for t in step.terms[1:]}
+    par = a.step("replica").value if "replica" in a.steps else 1
     product = " x ".join(f"{_NAMES[c].split('-')[0]} {d}" for c, d in degrees.items())
-    if degrees and (par > world or world % par):
+    if step.divides is False:
         culprit = _culprit(world, degrees)
         rest = par // degrees[culprit]
         options = [d for d in near_divisors(world // rest, degrees[culprit])] if world % rest == 0 else []
@@ -232,17 +270,17 @@ def model_parallel(ctx):
             msg = (f"{by} needs {par} GPUs per model replica, but the world has {world} GPUs: "
                    "no data-parallel rank")
         else:
-            msg = f"a world of {world} GPUs does not divide by {by}: {remainder(world, par)}"
+            msg = f"a world of {world} GPUs does not divide by {by}: {step.formula}"
         yield ctx.finding(msg, m.values[culprit].location,
                           related=related(m, "cluster.world_size", *[c for c in degrees if c != culprit]),
                           suggestion="use " + ", or ".join(hints), subject=(world, tuple(degrees.values())))
         return
     stated = m.values.get("train.data_parallel")
-    if stated is not None and whole(stated.value) and stated.value != world // par:
+    if stated is not None and step.agrees is False:
         yield ctx.finding(
             f"{_show(stated.value)} data-parallel ranks are stated, but {world} GPUs / {par} per model replica = "
-            f"{world // par}", stated.location, related=related(m, "cluster.world_size", *degrees),
-            suggestion=f"use {world // par} data-parallel ranks", subject=(stated.value, world, par))
+            f"{step.value}", stated.location, related=related(m, "cluster.world_size", *degrees),
+            suggestion=f"use {step.value} data-parallel ranks", subject=(stated.value, world, par))
 
 
 @rule(id="BAT-6", name="rollout-parallel-misfit", level="error",
@@ -253,11 +291,11 @@ def model_parallel(ctx):
       needs=("rollout.tensor_parallel",))
 def rollout_parallel(ctx):
     m = ctx.model
-    rt = settled(m, "rollout.tensor_parallel")
-    gpus_c = "rollout.gpus" if "rollout.gpus" in m.values else "cluster.world_size"
-    gpus = settled(m, gpus_c)
-    if not rt or not gpus or gpus % rt == 0:
+    step = arithmetic.of(m).step("engines")
+    if step is None or step.divides is not False:
         return
+    gpus_t, rt_t = step.terms
+    gpus_c, gpus, rt = gpus_t.concept, gpus_t.whole, rt_t.whole
     label = "the rollout engine" if gpus_c == "rollout.gpus" else "the world"
     if rt > gpus:
         msg = f"the rollout engine's tensor-parallel degree {rt} needs {rt} GPUs, but {label} has {gpus}"
@@ -280,42 +318,47 @@ def rollout_parallel(ctx):
       needs=("rollout.group_size",), options={"check_ranks": True, "check_mini": True})
 def group_split(ctx):
     m = ctx.model
-    gs = settled(m, "rollout.group_size")
+    verdict = judge(m)
+    a = verdict.arithmetic
+    gs = a.value("rollout.group_size")
     if not gs or gs < 2:
         return
     rel_g = related(m, "rollout.group_size")
     stated = m.values.get("batch.rollouts")
-    if stated is not None and "batch.prompts" not in m.values:
-        r = settled(m, "batch.rollouts")
-        if r and r % gs:
+    step = a.step("prompts")
+    if stated is not None and step is not None and step.divides is False:
+        if verdict.reportable(step):
+            r = a.value("batch.rollouts")
             yield ctx.finding(
-                f"{r} completions per step are not whole groups of {gs}: {remainder(r, gs)}; the last group "
-                f"is {gs - r % gs} completions short", stated.location, related=rel_g,
+                f"{r} completions per step are not whole groups of {gs}: {step.formula}; the last group "
+                f"is {gs - r % gs} completions short{verdict.suffix(step)}", stated.location, related=rel_g,
                 suggestion=f"use {either(near_multiples(r, gs))} completions per step", subject=(r, gs))
-            return
-    rollouts, dp = settled(m, "batch.rollouts"), settled(m, "train.data_parallel")
-    if ctx.options["check_ranks"] and rollouts and dp and dp > 1 and rollouts % dp == 0 and rollouts % gs == 0:
+        return
+    rollouts, dp = a.value("batch.rollouts"), a.value("train.data_parallel")
+    step = a.step("groups_ranks")
+    if ctx.options["check_ranks"] and step is not None and step.divides is False and verdict.reportable(step):
         share = rollouts // dp
-        if share % gs:
-            prompts = rollouts // gs
-            where_c = "batch.prompts" if "batch.prompts" in m.values else "batch.rollouts"
-            yield ctx.finding(
-                f"{rollouts} completions per step over {dp} data-parallel ranks are {share} per rank, not "
-                f"whole groups of {gs}: {remainder(share, gs)}; a group is split across ranks, "
-                f"{gs - share % gs} completions short on each",
-                m.values[where_c].location if where_c in m.values else m.loc("batch.rollouts"),
-                level="warning", related=rel_g + related(m, "train.data_parallel"),
-                suggestion=f"use {either(near_multiples(prompts, dp))} prompts per step (a multiple of the "
-                           f"{dp} ranks)", subject=("ranks", rollouts, dp, gs))
-    mini = settled(m, "batch.mini")
-    if ctx.options["check_mini"] and mini and mini % gs and "batch.mini" in m.values:
-        unit = lcm(gs, (settled(m, "batch.micro_per_gpu") or 1) * (dp or 1))
+        prompts = rollouts // gs
+        where_c = "batch.prompts" if "batch.prompts" in m.values else "batch.rollouts"
+        yield ctx.finding(
+            f"{rollouts} completions per step over {dp} data-parallel ranks are {share} per rank, not "
+            f"whole groups of {gs}: {step.formula}; a group is split across ranks, "
+            f"{gs - share % gs} completions short on each{verdict.suffix(step)}",
+            m.values[where_c].location if where_c in m.values else m.loc("batch.rollouts"),
+            level="warning", related=rel_g + related(m, "train.data_parallel"),
+            suggestion=f"use {either(near_multiples(prompts, dp))} prompts per step (a multiple of the "
+                       f"{dp} ranks)", subject=("ranks", rollouts, dp, gs))
+    mini = a.value("batch.mini")
+    step = a.step("groups_mini")
+    if ctx.options["check_mini"] and step is not None and step.divides is False and "batch.mini" in m.values \
+            and verdict.reportable(step):
+        unit = lcm(gs, (a.value("batch.micro_per_gpu") or 1) * (dp or 1))
         options = (near_divisors(rollouts, mini, unit) if rollouts else []) or near_multiples(mini, unit)
         yield ctx.finding(
-            f"a mini-batch of {mini} completions is not whole groups of {gs}: {remainder(mini, gs)}; "
-            f"one group is cut across two updates, {gs - mini % gs} completions short",
+            f"a mini-batch of {mini} completions is not whole groups of {gs}: {step.formula}; "
+            f"one group is cut across two updates, {gs - mini % gs} completions short{verdict.suffix(step)}",
             m.values["batch.mini"].location, level="warning", related=rel_g,
-            suggestion=f"use a mini-batch of {either(options)}", subject=("mini", mini, gs))
+            suggestion=f"use a mini-batch of {_own(a, options)}", subject=("mini", mini, gs))
 
 
 COUNTS = ("cluster.nodes", "cluster.gpus_per_node", "cluster.world_size", *PARALLEL, "train.data_parallel",
@@ -350,4 +393,51 @@ def count_not_positive(ctx):
         if n <= 0:
             yield ctx.finding(f"{c} = {_show(n)}: a count must be a positive whole number", v.location,
                               subject=(c, n))
+
+
+@rule(id="BAT-9", name="unit-unsettled", level="note",
+      summary="A batch count's unit is not stated, and the file's numbers are consistent under another reading "
+      "than the usual one.",
+      rationale="Trainers count batch keys differently: a rollout batch may be prompts or completions, a mini-batch "
+      "prompts or completions, per GPU or over all ranks (common practice differs between trainers). Where "
+      "neither a key map, the concept's own name nor the key's own words (per_gpu, n_prompts, ...) state "
+      "the unit, trimtab evaluates every reading: an error or warning only when no reading is consistent; "
+      "when the usual reading breaks and another holds, this note names the readings and the key-map line "
+      "that settles it.")
+def unit_unsettled(ctx):
+    m = ctx.model
+    verdict = judge(m)
+    if not verdict.mute:
+        return
+    usual = verdict.arithmetic
+    keys = [c for c, _u in usual.reading]
+    first = m.values[keys[0]]
+    def counts(a):
+        shown = ", ".join(a.term(c).shown() for c, _u in a.reading if a.term(c).converted)
+        return f" ({shown})" if shown else ""
+
+    breaks = "; ".join(f"{s.title} {s.text()}" for s in usual.broken if s.ambiguous)
+    parts = [f"read as {usual.label()} (the usual reading): {breaks}"]
+    fine = [a for a, status in verdict.considered if status == "consistent"]
+    unknown = [a for a, status in verdict.considered if status == "unknown"]
+    if fine:
+        parts.append("consistent only " + " or ".join(f"as {a.label()}{counts(a)}" for a in fine))
+    for a in unknown:
+        missing = " and ".join(sorted({t.missing for t in a.terms.values() if t.missing and t.ambiguous}))
+        parts.append(f"as {a.label()} it cannot be checked without {missing}")
+    others = len(verdict.considered) - 1 - len(fine) - len(unknown)
+    if others:
+        parts.append(f"{others} other reading{'s' if others != 1 else ''} break{'' if others != 1 else 's'} too")
+    supported = verdict.supported()
+    names = ", ".join(f"{m.values[c].key} = {_show(m.values[c].raw)}" for c in keys)
+    if len(supported) == 1:
+        fix = "state the unit in the key map ([tool.trimtab.keys]): " + "; ".join(
+            keymap_line(m.values[c], u) for c, u in supported[0].reading if len(arithmetic.admissible(m.values[c])) > 1)
+    else:
+        fix = "state the unit in the key map ([tool.trimtab.keys]), e.g. " + "; ".join(
+            keymap_line(m.values[c], u) for c, u in (supported or [a for a, _s in verdict.considered[1:]])[0].reading)
+    yield ctx.finding(f"{names}: the unit is not stated and the readings disagree; " + "; ".join(parts),
+                      first.location, related=[m.values[c].location.with_message(f"{c}: unit not stated")
+                                               for c in keys[1:]],
+                      suggestion=fix, subject=("readings", tuple(keys)))
 

@@ -6,6 +6,7 @@ arXiv:2503.14476), optionally with a dual clip c for negative advantages (arXiv:
 """
 from __future__ import annotations
 
+from trimtab.arithmetic import judge
 from trimtab import rule
 
 from ._common import CLIPPED, anchor, clipped, estimator, num, shown, unresolved
@@ -101,6 +102,10 @@ def clip_never_acts(ctx):
     u = m.get("optim.updates_per_step")
     if u is None or u.number != 1 or not clipped(m):
         return
+    verdict = judge(m)
+    if verdict.ambiguous and any(a.value("optim.updates_per_step") != 1 for a, status in verdict.considered
+                                 if status != "broken"):
+        return  # another reading of an unstated batch unit gives more updates: the clip may act
     tail = ("= 1 optimiser update per rollout batch: the probability ratio is 1 at that update, so the ratio "
             "clip never acts")
     if u.via != "derived":  # stated as such

@@ -3,6 +3,7 @@ which must itself fit the model's."""
 from __future__ import annotations
 
 from trimtab import rule
+from trimtab import arithmetic
 from trimtab.arithmetic import related
 
 LENGTHS = ("length.prompt_max", "length.response_max", "rollout.context_max", "model.context_max")
@@ -31,21 +32,23 @@ def length_not_positive(ctx):
 
 @rule(id="LEN-2", name="budget-exceeds-context", level="error",
       summary="The prompt budget plus the response budget do not fit the context window.",
-      rationale="A rollout engine holds the prompt and the generated response in one context window (the rollout "
-      "engine's, else the model's): prompt max + response max must not exceed it, or long prompts are "
-      "cut, generation stops early, or the engine refuses the request (common practice). With no prompt "
+      rationale="A rollout engine holds the prompt and the generated response in one context window: prompt "
+      "max + response max must not exceed the rollout engine's window, or long prompts are cut, generation "
+      "stops early, or the engine refuses the request; nor the model's, whose positions the sequence runs "
+      "through (common practice). The engine's window is checked first, then the model's. With no prompt "
       "budget stated, a response budget that fills the whole window leaves no room for any prompt.")
 def budget_exceeds_context(ctx):
     m = ctx.model
-    ctx_c = "rollout.context_max" if _len(m, "rollout.context_max") else "model.context_max"
-    window = _len(m, ctx_c)
-    prompt, response = _len(m, "length.prompt_max"), _len(m, "length.response_max")
-    if not window:
+    a = arithmetic.of(m)
+    # the engine's window first; the model's too, since the engine generates with the model's positions
+    step = next((a.step(k) for k in ("fit_engine", "fit_model") if a.step(k) is not None and a.step(k).broken), None)
+    if step is None:
         return
+    ctx_c = step.terms[-1].concept
+    window = step.terms[-1].whole
+    prompt, response = _len(m, "length.prompt_max"), _len(m, "length.response_max")
     which = "the rollout engine's context" if ctx_c == "rollout.context_max" else "the model's context"
-    if prompt and response:
-        if prompt + response <= window:
-            return
+    if prompt:
         if prompt >= window:
             yield ctx.finding(f"the prompt budget of {prompt} tokens fills {which} of {window}: no room for any "
                               "response", m.values["length.prompt_max"].location,
@@ -53,12 +56,12 @@ def budget_exceeds_context(ctx):
                               suggestion=f"use a prompt budget of at most {window - response}"
                               if window > response else "", subject=(prompt, response, window))
             return
-        yield ctx.finding(f"prompt {prompt} + response {response} = {prompt + response} tokens exceed {which} "
-                          f"of {window} by {prompt + response - window}", m.values["length.response_max"].location,
+        yield ctx.finding(f"prompt {prompt} + response {response} = {step.value} tokens exceed {which} "
+                          f"of {window} by {step.excess}", m.values["length.response_max"].location,
                           related=related(m, "length.prompt_max", ctx_c),
                           suggestion=f"use a response budget of at most {window - prompt}, or a context of "
                                      f"{prompt + response}", subject=(prompt, response, window))
-    elif response and response >= window:
+    else:
         yield ctx.finding(f"the response budget of {response} tokens fills {which} of {window}: no room for the "
                           "prompt", m.values["length.response_max"].location, related=related(m, ctx_c),
                           suggestion=f"use a response budget under {window}, and state the prompt budget",
@@ -75,7 +78,8 @@ def budget_exceeds_context(ctx):
 def engine_context(ctx):
     m = ctx.model
     engine, model_ctx = _len(m, "rollout.context_max"), _len(m, "model.context_max")
-    if engine and model_ctx and engine > model_ctx:
+    step = arithmetic.of(m).step("engine_model")
+    if step is not None and step.broken:
         yield ctx.finding(f"the rollout engine's context of {engine} tokens exceeds the model's {model_ctx} "
                           f"by {engine - model_ctx}", m.values["rollout.context_max"].location,
                           related=related(m, "model.context_max"),
