@@ -24,7 +24,8 @@ def test_fixture(tmp_path, kind, path):
         assert expected == [], "a good fixture expects nothing"
         assert [f for f in found if f[0] == rule] == []
         return
-    assert any(e[0] == rule for e in expected), f"{_id((kind, path))} states no expectation of {rule}"
+    # usually its own rule; a fixture may also show the rule silent where another one speaks
+    assert expected, f"{_id((kind, path))} states no expectation"
     named = {e[0] for e in expected} | {rule}
     got = [f for f in found if f[0] in named]
     # a level left out of an expectation matches any level; the expectations are written in report order
