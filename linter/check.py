@@ -47,6 +47,7 @@ class FileResult:
     crashed: bool = False
     set_accepts: str | None = None  # the file's text, when it has acceptance comments naming a set-scope rule
     accepted_at: set = field(default_factory=set)  # (path, line) of findings accepted in a base's text
+    accepted: int = 0  # findings dropped by acceptance comments
     kept: Kept | None = None  # on request: the Document and its run models
 
 
@@ -63,6 +64,7 @@ class Checker:
         self.registry = registry
         self.options = options or CheckOptions()
         self.active: list[tuple[Rule, dict, Level]] = []
+        _known_ids(registry, self.options)
         configured = settings.rules
         for rid in configured:
             if rid not in registry.rules:
@@ -177,7 +179,9 @@ class Checker:
             res.skipped = res.runs == 0
         # Acceptances of set-scope rules are applied once the whole set has been checked (accept_set).
         set_ids = {r.id for r, _o, _l in self.rules("set")}
-        res.findings = filtering.apply_acceptances(res.findings, doc.text, shown, self.active_ids - set_ids)
+        before = res.findings
+        res.findings = filtering.apply_acceptances(before, doc.text, shown, self.active_ids - set_ids)
+        res.accepted += _dropped(before, res.findings)
         if set_ids and any(set_ids & set(a.ids) for a in filtering.acceptances(doc.text)):
             res.set_accepts = doc.text
         for extra_path, extra_text in self.composer.texts(doc):
@@ -186,6 +190,7 @@ class Checker:
                                                        report_unused=False)
             kept = {id(f) for f in res.findings}
             res.accepted_at |= {(f.location.path, f.location.line) for f in before if id(f) not in kept}
+            res.accepted += _dropped(before, res.findings)
         return res
 
     def _run(self, r: Rule, ctx: Context, path: str, res: FileResult) -> None:
@@ -229,6 +234,29 @@ class Checker:
             out.extend(found)
             crashed = crashed or c
         return out, crashed
+
+
+def _known_ids(registry: Registry, options: CheckOptions) -> None:
+    """--only and --skip name rule ids or areas that exist: a typo would check nothing (or skip
+    nothing) and pass the gate, so it stops the check with the nearest known ids."""
+    import difflib
+
+    from .engine import TOOL_RULES
+
+    ids = set(registry.rules) | set(TOOL_RULES)
+    known = ids | {i.split("-")[0] for i in ids}
+    for option, given in (("--only", options.only), ("--skip", options.skip)):
+        for name in sorted(set(given) - known):
+            near = difflib.get_close_matches(name, sorted(known), n=3, cutoff=0.5)
+            hint = f" (did you mean {', '.join(near)}?)" if near else ""
+            raise SettingsError(f"{option} {name}: expected a rule id or area, found unknown {name!r}{hint}; "
+                                "`trimtab rules` lists them")
+
+
+def _dropped(before: list[Finding], after: list[Finding]) -> int:
+    """How many findings of ``before`` an acceptance removed (``after`` may add ACC findings)."""
+    kept = {id(f) for f in after}
+    return sum(1 for f in before if id(f) not in kept)
 
 
 def _name_run(findings: list[Finding], shown: str) -> None:
@@ -281,6 +309,7 @@ class RunResult:
     crashed: bool
     checked: set[str]
     kept: dict = field(default_factory=dict)  # shown path -> Kept (on request)
+    accepted: int = 0  # findings accepted by comments in the files
 
 
 class _Checked(AbcSet):
@@ -328,6 +357,7 @@ class _Totals:
         self.accepted_at: set = set()
         self.set_accepts: dict[str, str] = {}  # text of the files with acceptance comments of set rules
         self.kept: dict[str, Kept] = {}
+        self.accepted = 0
         self.progress = progress
 
     def append(self, res: FileResult) -> None:
@@ -339,6 +369,7 @@ class _Totals:
         self.crashed = self.crashed or res.crashed
         self.checked.add(res.path)
         self.accepted_at |= res.accepted_at
+        self.accepted += res.accepted
         if res.set_accepts is not None:
             self.set_accepts[res.path] = res.set_accepts
         if res.kept is not None:
@@ -378,10 +409,11 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
     set_findings, set_crashed = checker.check_set(results.entries)
     results.entries.close()
     # set findings arrive after every file's, as before: ties in the sorted stream keep that order
-    results.findings.extend(checker.accept_set(set_findings, results.checked, results.set_accepts, files))
+    set_kept = checker.accept_set(set_findings, results.checked, results.set_accepts, files)
+    results.findings.extend(set_kept)
     stream = spill.Stream(lambda: _reported(results.findings, results.accepted_at))
     return RunResult(stream, results.files, results.runs, results.skipped, results.crashed or set_crashed,
-                     results.checked, results.kept)
+                     results.checked, results.kept, results.accepted + _dropped(set_findings, set_kept))
 
 
 def _reported(findings: spill.Spill, accepted_at: set) -> Iterator[Finding]:

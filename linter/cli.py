@@ -25,6 +25,22 @@ def _ids(text: str) -> set[str]:
     return {t.strip().upper() for t in text.split(",") if t.strip()}
 
 
+class _Added(str):
+    """A --add KEY=VALUE: an override that adds a key no layer has, on purpose."""
+
+
+_SET_HELP = ("override a value of the run; VALUE is read as YAML 1.2 reads it, whatever the files' "
+             "yaml_version (repeatable); a key that no layer has is an error (CMP-8)")
+_ADD_HELP = "add a key that no layer of the run has, read like --set (repeatable)"
+
+
+def _set_options(parser) -> None:
+    parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                        help=_SET_HELP)
+    parser.add_argument("--add", action="append", metavar="KEY=VALUE", dest="overrides", type=_Added,
+                        help=_ADD_HELP)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="trimtab", description="Static checker for RL fine-tuning run configurations.")
     from . import __version__
@@ -36,27 +52,31 @@ def build_parser() -> argparse.ArgumentParser:
 
     c = sub.add_parser("check", help="check run configs and report findings")
     c.add_argument("paths", nargs="*", metavar="PATH", help="files or folders (default: the include globs)")
-    c.add_argument("--format", choices=("text", "json", "sarif"), default="text")
+    c.add_argument("--format", choices=("text", "json", "sarif"), default="text",
+                   help="report format: text for people, JSON (linter/report.schema.json) or SARIF 2.1.0 "
+                        "(default: text)")
     c.add_argument("--output", metavar="FILE", help="write the report here instead of standard output")
     c.add_argument("--gate", choices=("error", "warning", "note"),
                    help="lowest level that makes the exit status 1 (default: settings, else warning)")
+    c.add_argument("--show", choices=("error", "warning", "note"),
+                   help="report only findings at or above this level; the summary counts the others as not "
+                        "shown (default: note, every finding)")
     c.add_argument("--only", type=_ids, default=set(), metavar="IDS", help="only these rule ids or areas")
     c.add_argument("--skip", type=_ids, default=set(), metavar="IDS", help="not these rule ids or areas")
     c.add_argument("--since", metavar="GIT_REF", help="only files changed since this git ref")
     c.add_argument("--jobs", type=int, metavar="N", help="worker processes (default: settings, else 1)")
-    c.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
-                   help="override a value of the run, typed as YAML 1.2 would type it (repeatable)")
+    _set_options(c)
     c.add_argument("--accepted", metavar="FILE", help="accepted-findings file: its findings do not count")
     c.add_argument("--write-accepted", metavar="FILE", help="record today's findings as accepted, then exit 0")
     c.add_argument("--no-progress", action="store_true", help="no progress bar on a terminal")
     _adoption_options(c)
 
     e = sub.add_parser("explain", help="show what trimtab read from a run config")
-    e.add_argument("config", metavar="CONFIG")
-    e.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides")
+    e.add_argument("config", metavar="CONFIG", help="the run config file to explain")
+    _set_options(e)
 
     r = sub.add_parser("rules", help="list the rules, or show one rule's rationale")
-    r.add_argument("rule_id", nargs="?", metavar="ID")
+    r.add_argument("rule_id", nargs="?", metavar="ID", help="a rule id, e.g. BAT-1 (default: list every rule)")
     _adoption_commands(sub)
     _add_audit(sub)
     return p
@@ -73,7 +93,7 @@ def _adoption_options(c) -> None:
 
 def _adoption_commands(sub) -> None:
     m = sub.add_parser("map", help="draft a [tool.trimtab.keys] block for the keys trimtab could not place")
-    m.add_argument("config", metavar="CONFIG")
+    m.add_argument("config", metavar="CONFIG", help="the run config whose keys to place")
     m.add_argument("--output", metavar="FILE", help="write the draft block here (default: after the report)")
     h = sub.add_parser("install-hook", help="write a plain .git/hooks/pre-commit that checks staged configs")
     h.add_argument("--force", action="store_true", help="replace an existing pre-commit hook")
@@ -88,19 +108,21 @@ def _add_audit(sub) -> None:
                    help="lowest level the page's verdict and the exit status count (default: settings)")
     a.add_argument("--only", type=_ids, default=set(), metavar="IDS", help="only these rule ids or areas")
     a.add_argument("--skip", type=_ids, default=set(), metavar="IDS", help="not these rule ids or areas")
-    a.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
-                   help="override a value of the run (repeatable)")
+    _set_options(a)
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args, extra = parser.parse_known_args(argv)
     if not args.command:
         parser.print_help()
         return EXIT_INCOMPLETE
+    if extra:  # the command's own usage, not the top-level one
+        _commands(parser)[args.command].error(f"unrecognized arguments: {' '.join(extra)}")
     from .settings import SettingsError
 
     try:
+        _given_paths_exist(args)
         if args.command == "check":
             if args.staged:
                 from .hook import with_staged
@@ -134,6 +156,26 @@ def main(argv: list[str] | None = None) -> int:
     return EXIT_INCOMPLETE
 
 
+def _commands(parser) -> dict:
+    """The sub-command parsers by name."""
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            return action.choices
+    return {}
+
+
+def _given_paths_exist(args) -> None:
+    """A path given on the command line that does not exist stops every command the same way
+    (exit 2): there is nothing to check, and a gate must not pass it."""
+    from .settings import SettingsError
+
+    given = {"check": "paths", "explain": "config", "map": "config", "audit": "configs"}.get(args.command)
+    paths = getattr(args, given, None) if given else None
+    for p in [paths] if isinstance(paths, str) else paths or []:
+        if not os.path.lexists(p):
+            raise SettingsError(f"{p}: no such file or folder")
+
+
 def _settings(args):
     from . import settings
 
@@ -154,10 +196,11 @@ def _overrides(items: list[str]) -> list[tuple[str, str]]:
 
     out = []
     for item in items:
+        option = "--add" if isinstance(item, _Added) else "--set"
         key, sep, value = item.partition("=")
         if not sep or not key.strip():
-            raise SettingsError(f"--set {item!r}: expected KEY=VALUE, e.g. --set rollout.group_size=8")
-        out.append((key.strip(), value))
+            raise SettingsError(f"{option} {item!r}: expected KEY=VALUE, e.g. {option} rollout.group_size=8")
+        out.append((key.strip(), value, isinstance(item, _Added)))
     return out
 
 
@@ -258,13 +301,15 @@ def cmd_check(args) -> int:
             return code
         args.fix = False
         return cmd_check(args)  # report what is left after the fixes
-    findings, code, counts = outcome.findings, outcome.status, outcome.counts()
+    # --show LEVEL: the report lists what is at or above it; the gate and the counts still see all
+    findings, code, counts = outcome.at_least(args.show), outcome.status, outcome.counts()
+    summary = {**outcome.summary(), "hidden": outcome.below(args.show), "accepted": outcome.accepted}
     out = open(args.output, "w", encoding="utf-8") if args.output else sys.stdout
     try:
         if args.format == "json":
             from .reports import json_report
 
-            json_report(findings, outcome.summary(), code, out)
+            json_report(findings, summary, code, out)
         elif args.format == "sarif":
             from . import sarif
 
@@ -277,8 +322,10 @@ def cmd_check(args) -> int:
         if out is not sys.stdout:
             out.close()
     skipped = f", {outcome.skipped} skipped as not run configs" if outcome.skipped else ""
+    extra = f"; {summary['hidden']} below {args.show} not shown" if args.show else ""
+    extra += f"; {summary['accepted']} accepted" if summary["accepted"] else ""
     print(f"trimtab: {len(outcome.files)} file(s) checked{skipped}; {counts['error']} error(s), "
-          f"{counts['warning']} warning(s), {counts['note']} note(s)", file=sys.stderr)
+          f"{counts['warning']} warning(s), {counts['note']} note(s){extra}", file=sys.stderr)
     return code
 
 
@@ -308,13 +355,26 @@ def cmd_rules(args) -> int:
         if r.options:
             print("\nOptions (set under [tool.trimtab.rules.\"%s\"]):" % _v(r.id))
             for k, v in r.options.items():
-                print(f"  {_v(k)} = {_v(repr(v))}")
+                print(f"  {_v(k)} = {_v(_toml(v))}")
         if r.help:
             print(f"\nHelp: {_v(r.help)}")
         return EXIT_OK
     for r in rules.values():
         print(f"{_v(r.id):<8} {str(r.level):<8} {_v(r.name):<34} {_v(r.summary)}")
     return EXIT_INCOMPLETE if registry.errors else EXIT_OK
+
+
+def _toml(value) -> str:
+    """A rule option's default as it is written in a TOML settings file."""
+    import json
+
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml(v) for v in value) + "]"
+    if isinstance(value, str):
+        return json.dumps(value)  # a TOML basic string: the same escapes
+    return repr(value)
 
 
 def cmd_audit(args) -> int:

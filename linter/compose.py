@@ -180,11 +180,14 @@ class _M:
 
 
 def _paths_of(top: "_M", limit: int = 5000) -> list[str]:
+    """The key paths some layer of the run has (not those a --set has just opened or added)."""
     out, stack = [], [((), top)]
     while stack and len(out) < limit:
         p, m = stack.pop()
         if isinstance(m, _M):
-            for name, (_k, c) in m.items.items():
+            for name, (k, c) in m.items.items():
+                if isinstance(k, GivenScalar):
+                    continue
                 out.append(".".join(p + (name,)))
                 stack.append((p + (name,), c))
     return out
@@ -206,6 +209,7 @@ class _Given:
     parts: tuple
     node: Node
     text: str
+    added: bool = False  # given with --add: a key no layer has, on purpose
 
 
 class Composer:
@@ -215,7 +219,7 @@ class Composer:
         self.bases_key = getattr(settings, "bases_key", "") or ""
         self.layers = list(getattr(settings, "layers", []) or [])
         self.overrides = list(overrides)
-        self.given = [self._parse_given(k, t) for k, t in self.overrides]
+        self.given = [self._parse_given(*o) for o in self.overrides]
         self.overrides_doc = self._load_overrides_file()
         # Files declared as bases in the settings' layers (and the overrides file): partial configs,
         # checked as files and through the runs built on them, not as runs of their own.
@@ -229,7 +233,7 @@ class Composer:
         self._source_shown = self._shown(Path(settings.source)) if getattr(settings, "source", None) else "settings"
 
     # --- settings-level inputs: parsed once ----------------------------------------------------
-    def _parse_given(self, key: str, text: str) -> _Given:
+    def _parse_given(self, key: str, text: str, added: bool = False) -> _Given:
         from .settings import SettingsError
 
         parts = tuple(key.split("."))
@@ -241,7 +245,7 @@ class Composer:
             why = doc.problems[0].message if doc.problems else "holds more than one YAML document"
             raise SettingsError(f"--set {key}={text}: the value {why}")
         raw = doc.roots[0] if doc.roots else Scalar("", None, None)
-        return _Given(key, parts, self._given_tree(raw, parts), text)
+        return _Given(key, parts, self._given_tree(raw, parts), text, added)
 
     def _given_tree(self, node: Node, path: tuple) -> Node:
         if isinstance(node, Scalar):
@@ -542,13 +546,14 @@ class Composer:
             return
         key = _place(GivenScalar(last, None, None), None, p)
         old = cur.items.get(last)
-        if old is None and not _removes(g.node):
+        if old is None and not _removes(g.node) and not g.added:
             import difflib
 
             near = difflib.get_close_matches(g.key, _paths_of(top), n=1)
             hint = f"; did you mean {near[0]}?" if near else ""
             self._problem(OVERRIDE_NEW, f"--set {g.key} adds a key that no layer of the run has; a trainer that "
-                                        f"does not read it ignores the override{hint}", cmd, subject=g.key)
+                                        f"does not read it ignores the override{hint} (to add it on purpose: "
+                                        f"--add {g.key}=...)", cmd, subject=g.key)
         self._write(cur, last, old[0] if old else key, g.node, "--set", p)
 
     def _role_of(self, p: tuple) -> str:

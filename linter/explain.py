@@ -75,7 +75,9 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
         if len(runs) > 1:
             out.write(f"--- document {m.index + 1}\n")
         kind = "an RL run config" if m.is_rl else "not an RL run config (RL rules skip it)"
-        out.write(f"{_t(m.path)}: {kind}; stage {_t(m.stage)}; values read as YAML {m.version}\n\n")
+        given = any(v.location.path is None for v in m.values.values()) and m.version != "1.2"
+        given = "; --set values as YAML 1.2" if given else ""
+        out.write(f"{_t(m.path)}: {kind}; stage {_t(m.stage)}; values read as YAML {m.version}{given}\n\n")
         if len(m.files) > 1:
             out.write(f"composed from (first to last): {', '.join(map(_t, m.files))}\n\n")
         out.write("Concepts found:\n")

@@ -178,7 +178,7 @@ _FINGERPRINT = re.compile(r'"fingerprint"\s*:\s*"([^"]*)"')
 
 
 def apply_accepted(findings: Iterable[Finding], rows: list[dict], accepted_path: str,
-                   checked_files: AbcSet[str] | None = None) -> Iterator[Finding]:
+                   checked_files: AbcSet[str] | None = None, tally: dict | None = None) -> Iterator[Finding]:
     """Drop findings recorded in the accepted-findings file; after them, report entries that
     match nothing (only for files that were checked in this run, so a partial run reports no
     false stale). A generator: findings pass through one at a time.
@@ -195,6 +195,8 @@ def apply_accepted(findings: Iterable[Finding], rows: list[dict], accepted_path:
             used[f.fingerprint] = used.get(f.fingerprint, 0) + 1
         else:
             yield f
+    if tally is not None:  # how many this pass accepted (the summary line says so)
+        tally["accepted"] = sum(used.values())
     for fp, row in sorted(wanted.items(), key=lambda kv: (str(kv[1].get("file")), kv[0])):
         if used.get(fp, 0) >= _count(row):
             continue

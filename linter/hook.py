@@ -117,7 +117,7 @@ fi
 if command -v trimtab >/dev/null 2>&1; then
   exec trimtab check --staged
 fi
-echo "trimtab pre-commit hook: trimtab is not installed (pip install trimtab), or delete .git/hooks/pre-commit" >&2
+echo "trimtab pre-commit hook: trimtab is not installed; install it from a checkout of its repository as its README says (pip install -e . there), or delete .git/hooks/pre-commit" >&2
 exit 1
 """
 

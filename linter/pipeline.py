@@ -66,6 +66,27 @@ class Outcome:
     runs: int
     skipped: int
     kept: dict[str, Kept] = field(default_factory=dict)  # shown path -> Document and run models (on request)
+    accepted_in_place: int = 0  # findings accepted by acceptance comments
+    tally: dict = field(default_factory=dict)  # what the accepted-findings file accepted (set on each pass)
+
+    @property
+    def accepted(self) -> int:
+        """Findings accepted, by comments or by the accepted-findings file (after a pass over findings)."""
+        return self.accepted_in_place + self.tally.get("accepted", 0)
+
+    def at_least(self, level: str | None) -> Iterable[Finding]:
+        """The findings at or above ``level`` (every finding when None): what a report shows."""
+        if level is None:
+            return self.findings
+        least = Level.parse(level)
+        return Stream(lambda: (f for f in self.findings if f.level >= least))
+
+    def below(self, level: str | None) -> int:
+        """How many findings are below ``level``: counted, not shown."""
+        if level is None:
+            return 0
+        least = Level.parse(level)
+        return sum(n for name, n in self.counts().items() if Level.parse(name) < least)
 
     @property
     def incomplete(self) -> bool:
@@ -186,12 +207,13 @@ class Pipeline:
                               Location(m), subject=m).finish() for m in reversed(missing)]
         checked_findings = result.findings
         recorded: Iterable[Finding] = Stream(lambda: chain(unreadable, checked_findings))
-        findings = self._accepted_filter(req, recorded, result.checked)
+        tally: dict = {}
+        findings = self._accepted_filter(req, recorded, result.checked, tally)
         return Outcome(settings, self.registry, files_, missing, result.checked, recorded, findings,
                        Level.parse(req.gate or settings.gate), result.crashed, result.runs, result.skipped,
-                       result.kept)
+                       result.kept, result.accepted, tally)
 
-    def _accepted_filter(self, req: Request, findings: Iterable[Finding], checked) -> Iterable[Finding]:
+    def _accepted_filter(self, req: Request, findings: Iterable[Finding], checked, tally: dict) -> Iterable[Finding]:
         settings = self.settings
         accepted_path = req.accepted or settings.accepted
         if not accepted_path or not req.apply_accepted:
@@ -207,6 +229,6 @@ class Pipeline:
         known = checked | gone
 
         def accepted() -> Iterator[Finding]:
-            return filtering.apply_accepted(findings, rows, str(accepted_path), known)
+            return filtering.apply_accepted(findings, rows, str(accepted_path), known, tally)
 
         return Stream(accepted)

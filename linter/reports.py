@@ -21,7 +21,9 @@ def _where(loc: Location) -> str:
 def text(findings: Iterable[Finding], out: TextIO, colour: bool = False) -> None:
     """One line per finding, then its related places, suggestion and help. Every field is masked and
     its control characters and line breaks made visible (``trimtab.redact.for_text``): nothing in a
-    file can forge a report line or send a terminal a command."""
+    file can forge a report line or send a terminal a command. A help paragraph is printed only at
+    the first finding that has it (a report of twenty findings of one rule prints its help once)."""
+    helped: set[str] = set()
     for f in findings:
         level = str(f.level)
         rule_id, message = for_text(f.rule_id), for_text(f.message)
@@ -36,7 +38,8 @@ def text(findings: Iterable[Finding], out: TextIO, colour: bool = False) -> None
             out.write((f"{_DIM}{line}{_RESET}" if colour else line) + "\n")
         if f.suggestion:
             out.write(f"    suggestion: {for_text(f.suggestion)}\n")
-        if f.help:
+        if f.help and f.help not in helped:
+            helped.add(f.help)
             out.write(f"    help: {for_text(f.help)}\n")
 
 

@@ -84,10 +84,12 @@ def composition_malformed(ctx):
     return _report(ctx, "compose-malformed")
 
 
-@rule(id="CMP-8", name="override-adds-key", level="note", summary="A --set override adds a key that no layer of the run has.",
+@rule(id="CMP-8", name="override-adds-key", level="error", summary="A --set override adds a key that no layer of the run has.",
       rationale=_LAYERS + "An override usually changes a value the run already has; one that adds a new key is often "
-      "a misspelt key path (`--set rollout.group_sise=8`), which a trainer silently ignores. A note: adding "
-      "a key on purpose is fine. The finding suggests the nearest key the run has.",
+      "a misspelt key path (`--set rollout.group_sise=8`), which a trainer silently ignores, so the run "
+      "checked is not the run launched. An error, so that a typo does not pass the gate: to add a key on "
+      "purpose, give it with `--add KEY=VALUE` instead of `--set`. The finding suggests the nearest key some "
+      "layer of the run has.",
       rl_only=False, scope="file")
 def override_adds_key(ctx):
     return _report(ctx, "compose-override-new")

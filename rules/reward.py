@@ -8,7 +8,7 @@ from pathlib import Path
 
 from trimtab import Location, Scalar, rule
 
-from ._safety import CAUTIONS, kind_of, label, safe_url, scanner
+from ._safety import kind_of, label, safe_url, scanner
 
 SOURCES = ("reward.sources",)
 
@@ -161,7 +161,7 @@ def _loopback(host: str) -> bool:
       rationale="Prompts, completions and any authorisation header cross the network in clear text and can be read "
       "or altered on the way, so the reward itself can be forged (CWE-319). Use https://; plain http is "
       "accepted for loopback (localhost, 127.0.0.0/8, ::1).",
-      needs=SOURCES, cwe=319, help=CAUTIONS)
+      needs=SOURCES, cwe=319)
 def remote_plain_http(ctx):
     from urllib.parse import urlsplit
 
@@ -185,7 +185,7 @@ def remote_plain_http(ctx):
       "with the GPUs allocated. CWE-1088 (Synchronous Access of Remote Resource without Timeout) is "
       "the specific entry; the general CWE-400 is discouraged for mapping by the catalogue (both from "
       "memory). State a timeout per request (and decide what reward a timed-out sample gets).",
-      needs=SOURCES, cwe=1088, help=CAUTIONS)
+      needs=SOURCES, cwe=1088)
 def remote_no_timeout(ctx):
     for comp, ep in _remote(ctx):
         t = comp.fields.get("timeout_s")
@@ -204,7 +204,7 @@ def remote_no_timeout(ctx):
       rationale="The reward depends on a service outside the run: its model, code and availability can change, "
       "so the run cannot be repeated offline or audited later from the config alone (common practice: "
       "record the service's version with the run).",
-      needs=SOURCES, help=CAUTIONS)
+      needs=SOURCES)
 def remote_offline(ctx):
     for comp, ep in _remote(ctx):
         yield ctx.finding(f"{label(comp)} is computed by a remote service{' at ' + safe_url(ep) if ep else ''}: "

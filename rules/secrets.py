@@ -24,8 +24,9 @@ from ._safety import CAUTIONS, digest, kind_of, label, mask, safe_url, scanner
       "The value is never shown: findings give the key and a masked form, and every output of trimtab "
       "masks the same values wherever they would appear.",
       options={"min_length": 24, "min_entropy_bits": 4.0}, cwe=798, rl_only=False, scope="file", sources=True,
-      help=CAUTIONS + " A credential that was committed should be treated as exposed: revoke and rotate "
-                      "it, and read it at run time from the environment or a secret store.")
+      help="A credential that was committed should be treated as exposed: revoke and rotate it, and read it "
+           "at run time from the environment or a secret store. Your organisation's security policy and local "
+           "rules take precedence over this advice.")
 def literal_credential(ctx):
     from trimtab.redact import credentials
 

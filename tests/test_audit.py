@@ -285,11 +285,15 @@ def test_exit_status_follows_the_gate(tmp_path):
 def test_bad_input_gives_located_findings_and_a_status_not_a_traceback(tmp_path):
     bad = tmp_path / "bad.yaml"
     bad.write_text("run:\n  name: [unclosed\n", encoding="utf-8")
-    res, page = audit_page(tmp_path, bad, tmp_path / "missing.yaml")
+    (tmp_path / "gone.yaml").symlink_to(tmp_path / "nowhere.yaml")  # a broken link: read, and reported
+    res, page = audit_page(tmp_path, bad, tmp_path / "gone.yaml")
     assert res.code == 1 and "Traceback" not in res.err
     tree = parse(page)
     rules = sorted(m["attrs"]["data-rule"] for m in tree.find("div", "finding"))
     assert rules == ["YML-1", "YML-6"]
+    # a path that does not exist at all stops the audit (exit 2), as it stops every command (issue 19)
+    res = run_cli("audit", str(bad), str(tmp_path / "missing.yaml"), "--html", str(tmp_path / "m.html"), cwd=REPO)
+    assert res.code == 2 and "missing.yaml: no such file or folder" in res.err
     res = run_cli("audit", str(CLEAN), "--html", str(tmp_path / "no" / "such" / "dir" / "p.html"), cwd=REPO)
     assert res.code == 2 and "cannot write" in res.err and "Traceback" not in res.err
     res = run_cli("audit", str(CLEAN), cwd=REPO)  # --html is required

@@ -516,7 +516,7 @@ def test_cmp_8_bad_and_good():
     folder = RULES / "CMP-8"
     bad = check_json("bad.yaml", args=["--set", "rollout.group_sise=16"], cwd=folder)
     (f,) = bad.of("CMP-8")
-    assert f["level"] == "note" and f["location"]["path"] is None
+    assert f["level"] == "error" and f["location"]["path"] is None  # an error since issue 19 (item 5)
     assert f["location"]["key_path"] == "rollout.group_sise" and "did you mean rollout.group_size?" in f["message"]
     assert not check_json("good.yaml", args=["--set", "rollout.group_size=16"], cwd=folder).of("CMP-8")
 

@@ -187,10 +187,12 @@ def test_bad_arguments_exit_2(repo):
     assert run_cli("nonsense", cwd=repo).code == 2
 
 
-def test_missing_path_is_a_finding_and_the_rest_is_checked(repo):
+def test_missing_path_stops_the_check_with_exit_2(repo):
+    # issue 19 item 6: a path given that does not exist is exit 2 for every command (tests/test_gate.py)
     write(repo, "run.yaml", RUN_CONFIG + "  coef: 0.05\n")
     r = check_json("run.yaml", "gone.yaml", cwd=repo)
-    assert sorted(r.ids()) == ["YML-2", "YML-6"]
+    assert r.code == 2 and "gone.yaml: no such file or folder" in r.err
+    assert sorted(check_json("run.yaml", cwd=repo).ids()) == ["YML-2"]
 
 
 # --- a rule that crashes --------------------------------------------------------------------
