@@ -126,15 +126,17 @@ class Checker:
         run models in the result (for the views that show them)."""
         from .discover import matches
 
+        from .shell import load, runs_of
+
         res = FileResult(shown)
-        doc = loader.load(path, shown, self.settings.limits)
+        doc = load(path, shown, self.settings)
         if keep:
             res.kept = Kept(doc)
         # A file other files build on (a base declared in the settings' layers, the overrides file) is
         # checked as a file here and as part of every run built on it, not as a run of its own.
         as_run = doc.readable and shown not in self.composer.base_files
         # Compose first: composition problems are recorded on the document for the file rules.
-        composed = [self.composer.compose(doc, root, path) for root in doc.roots] if as_run else []
+        composed = [self.composer.compose(doc, root, path) for root in runs_of(doc)] if as_run else []
         for r, opts, level in self.rules("file"):
             self._run(r, Context(r, None, doc, opts, level, settings=self.settings), shown, res)
         # File rules that cover every file a run is composed from (SEC-1): its bases, the overrides
