@@ -28,10 +28,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from . import loader
-from .document import Document, Mapping, Node, Problem, Scalar, Sequence
+from .composed import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, GivenScalar,  # noqa: F401
+                       Unknown, Unresolved)
+from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 
-REMOVE_TAG = "!trimtab/remove"
 
 # problem kinds (the CMP rules read them)
 CYCLE = "compose-cycle"
@@ -45,78 +46,13 @@ OVERRIDE_NEW = "compose-override-new"
 OPTIONAL_MISSING = "compose-optional-missing"
 VALUE_UNKNOWN = "compose-value-unknown"  # a value known only at launch (a script, a resolver)
 
+
 _REF = re.compile(r"\$\$\{|\$\{([^{}$]*)\}")
 _WHOLE = re.compile(r"\$\{([^{}$]*)\}")
 _PATH = re.compile(r"[A-Za-z0-9_\-]+(?:\.[A-Za-z0-9_\-]+)*")
 _RESOLVER = re.compile(r"([A-Za-z_][\w.\-]*)\s*:(.*)", re.S)  # ${name:args}
 _ENV = re.compile(r"[A-Z_][A-Z0-9_]*")  # ${HOME}: an environment variable, not a key of the run
 _MAX_DEPTH = 64
-
-
-@dataclass
-class CompositionProblem(Problem):
-    """A problem of composition, located in the file that holds the offending line."""
-
-    path: str | None = None
-    end_line: int = 0
-    end_col: int = 0
-    key_path: str = ""
-    subject: str = ""
-
-    def location(self) -> Location:
-        return Location(self.path, self.line, self.col, self.end_line, self.end_col, "", self.key_path)
-
-
-@dataclass
-class Composed:
-    root: Node
-    problems: list[CompositionProblem] = field(default_factory=list)
-    files: list[str] = field(default_factory=list)  # every file the run was composed from
-
-
-class ComposedMapping(Mapping):
-    """The root of a composed run: a mapping that also carries the origin chains."""
-
-    __slots__ = ("chains", "roles", "notes")
-
-    def __init__(self):
-        super().__init__()
-        self.chains: dict[str, list[Location]] = {}
-        self.roles: dict[str, str] = {}  # dotted key path -> the layer its value came from
-        self.notes: list = []  # values known only at launch (CompositionProblems of this run)
-
-
-class Unresolved(Scalar):
-    """A reference that could not be resolved (a cycle, an unknown target): it stays in the run as
-    written, with no value, so no rule reasons about the text of the reference itself."""
-
-    __slots__ = ()
-
-    @property
-    def value11(self):
-        return None
-
-    @property
-    def value12(self):
-        return None
-
-
-class Unknown(Unresolved):
-    """A value known only at launch (a launch script's command substitution, a resolver): no value,
-    and the reason (``why``). The resolver leaves its concept out of the run, so no rule reasons
-    about it; the run's notes say what trimtab would need."""
-
-    __slots__ = ("why",)
-
-
-class GivenScalar(Scalar):
-    """A value given on the command line: typed as YAML 1.2 types it, whatever the file version."""
-
-    __slots__ = ()
-
-    @property
-    def value11(self):
-        return self.value12
 
 
 # --- base files: loaded once per process -------------------------------------------------------

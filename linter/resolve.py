@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from .compose import Unknown
+from .composed import Unknown
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .arithmetic import Unit, settle
