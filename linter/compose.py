@@ -990,7 +990,12 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
     include one of ``seeds`` (shown paths, e.g. the files changed in a commit)."""
     layers = list(getattr(settings, "layers", []) or [])
     key = getattr(settings, "bases_key", "") or ""
-    if not seeds or (not layers and not key and not getattr(settings, "overrides", "")):
+    dkey = getattr(settings, "defaults_key", "") or ""
+    from .shell import SCRIPTS
+
+    scripts = (getattr(settings, "launch", None) or {}).get("scripts", SCRIPTS)
+    if not seeds or (not layers and not key and not dkey and not getattr(settings, "overrides", "") and not any(
+            s.lower().endswith((".yaml", ".yml", ".json")) for s in seeds)):
         return files
     from .discover import discover, matches
 
@@ -1013,20 +1018,49 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
             return None
 
     def named(real: Path) -> list[Path]:
-        if not key:
+        shown = shown_of(real)
+        if shown is not None and matches(shown, scripts):
+            return script_bases(real, shown)
+        if not key and not dkey:
             return []
         try:
             data = real.read_bytes()[: settings.limits.max_bytes]
         except OSError:
             return []
-        if key.encode("utf-8") not in data:
+        if not any(k and k.encode("utf-8") in data for k in (key, dkey)):
             return []
-        doc = load_source(real, shown_of(real) or real.as_posix(), settings.limits)
+        doc = load_source(real, shown or real.as_posix(), settings.limits)
         out_paths = []
         for r in doc.roots:
-            v = r.get(key) if isinstance(r, Mapping) else None
+            v = r.get(key) if key and isinstance(r, Mapping) else None
             items = v.items if isinstance(v, Sequence) else [v] if v is not None else []
             out_paths += [real.parent / it.text.strip() for it in items if isinstance(it, Scalar)]
+            d = r.get(dkey) if dkey and isinstance(r, Mapping) else None
+            for it in (d.items if isinstance(d, Sequence) else []):
+                e = _entry(it)
+                if isinstance(e, dict) and e["option"] is not None:
+                    rel = e["option"] if e["group"] is None else f"{e['group']}/{e['option']}"
+                    out_paths.append(real.parent / (rel if Path(rel).suffix else rel + ".yaml"))
+        return out_paths
+
+    def script_bases(real: Path, shown: str) -> list[Path]:
+        """The base configs a launch script's training commands name (read, never run)."""
+        from .shell import read
+
+        out_paths = []
+        for r in read(str(real), shown, settings).runs:
+            names = [w.text for w in r.bases if w.text is not None]
+            if r.config_name is not None and r.config_name.text is not None:
+                folder = r.config_dir.text if r.config_dir is not None and r.config_dir.text else ""
+                name = r.config_name.text if Path(r.config_name.text).suffix else r.config_name.text + ".yaml"
+                names.append(str(Path(folder) / name))
+            for text in names:
+                first = root / text
+                base = first if first.is_file() else real.parent / text
+                out_paths.append(base)
+                for _prefix, group, _pkg, value, _whole in r.choices:  # group=option: that group's file
+                    if value is not None and value.text:
+                        out_paths.append(base.parent / group / (value.text + ".yaml"))
         return out_paths
 
     def closure(real: Path, shown: str, depth: int = 0) -> set[str]:
