@@ -67,6 +67,7 @@ class Unknown(Unresolved):
     about it; the run's notes say what trimtab would need."""
 
     __slots__ = ("why",)
+    why: str  # what trimtab would need to know the value
 
 
 class GivenScalar(Scalar):

@@ -34,7 +34,7 @@ class Request:
     paths: list[str] = field(default_factory=list)  # none: the settings' include globs
     only: set[str] = field(default_factory=set)
     skip: set[str] = field(default_factory=set)
-    overrides: list[tuple[str, str]] = field(default_factory=list)  # (key path, text) from --set
+    overrides: list[tuple] = field(default_factory=list)  # (key path, text, added) from --set / --add
     gate: str | None = None  # default: the settings' gate
     accepted: str | None = None  # --accepted FILE (else the settings' accepted file)
     apply_accepted: bool = True  # False: the accepted-findings file is not read (--write-accepted)
@@ -141,7 +141,7 @@ class Pipeline:
 
         settings = self.settings
         if req.staged_files is not None:
-            files, missing = list(req.staged_files), []
+            files, missing = list(req.staged_files), list[str]()
         else:
             used: set[str] = set()
             files, missing = discover(req.paths, settings.root, settings.include, settings.exclude, used,

@@ -22,6 +22,7 @@ import functools
 import math
 import re
 from collections import Counter
+from typing import Any
 
 MASK = "*" * 8
 MIN_LENGTH = 24  # SEC-1's default min_length
@@ -170,7 +171,7 @@ def _entries(root):
                     stack.append((key, item))
 
 
-def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> list[tuple[str, object, str]]:
+def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> list[tuple[str, Any, str]]:
     """(key, scalar node, why) of every literal credential of a document, each node once. Kept on
     the document for the default thresholds (the loader's ``learn`` and SEC-1 share one walk)."""
     default = (min_length, min_bits) == (MIN_LENGTH, MIN_BITS)

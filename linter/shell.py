@@ -653,7 +653,7 @@ class Reader:
             return
         name = rest[0].text
         if name in ("export", "readonly", "declare", "typeset", "local"):
-            for w, (tok, s, e) in zip(rest[1:], cmd[i + 1:]):
+            for w, (tok, _s, _e) in zip(rest[1:], cmd[i + 1:]):
                 if tok.startswith("-"):
                     continue
                 if _ASSIGN.match(tok):
@@ -815,7 +815,7 @@ class Reader:
             if name.endswith("VISIBLE_DEVICES"):
                 visible = (name, w)
         topo: dict[str, tuple[Word, str]] = {}
-        for flag, value, fw in _flags(launcher):
+        for flag, value, _fw in _flags(launcher):
             concept = self.topology.get(flag.lstrip("-").lower().replace("-", "_"))
             if concept is not None and value is not None:
                 topo[concept] = (value, flag)

@@ -201,7 +201,7 @@ def rule_fixtures() -> list[tuple[str, Path]]:
         if p.suffix in _CONFIG_SUFFIXES and (p.is_file() or p.is_symlink()) and _kind(p):
             found.append((_kind(p), p))
     companions = set()
-    for _kind_, p in found:
+    for _k, p in found:
         companions |= {(p.parent / a).resolve() for a in expectations(p)[1] if not a.startswith("-")}
     return [(k, p) for k, p in found if p.resolve() not in companions]
 
