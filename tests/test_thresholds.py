@@ -103,6 +103,9 @@ GROUP = "group of 2 or more for a group baseline (arXiv:2402.03300); min_group 4
 TEMP = "min_temperature 0.3: common practice (published recipes sample near 1)"
 WARM = "warm-up shorter than the run: common practice"
 TIMEOUT = "max_timeout_s 60: common practice"
+LONG = "long_run_steps 1000 for a run without checkpoints: common practice"
+CKPT = "a checkpoint before the last step (every < total steps): common practice"
+FIT = "prompt + response <= the context window: common practice of rollout engines"
 
 CASES = [
     ("ALG-3", {"gae.gamma": num(below(0.0))}, "error", GAMMA),
@@ -151,6 +154,16 @@ CASES = [
     ("OPT-2", {"optim.warmup_steps": "99"}, None, WARM),
     ("OPT-2", {"optim.warmup_steps": "100"}, "warning", WARM),
     ("OPT-2", {"optim.warmup_steps": "101"}, "warning", WARM),
+    ("OPT-3", {"checkpoint.every": "0", "optim.total_steps": "1000", "optim.warmup_steps": "10"}, None, LONG),
+    ("OPT-3", {"checkpoint.every": "0", "optim.total_steps": "1001", "optim.warmup_steps": "10"}, "warning", LONG),
+    ("OPT-3", {"checkpoint.every": "99"}, None, CKPT),
+    ("OPT-3", {"checkpoint.every": "100"}, "warning", CKPT),
+    ("OPT-3", {"checkpoint.every": "101"}, "warning", CKPT),
+    ("LEN-2", {"length.prompt_max": "1024", "length.response_max": "3071", "model.context_max": "4096"}, None, FIT),
+    ("LEN-2", {"length.prompt_max": "1024", "length.response_max": "3072", "model.context_max": "4096"}, None, FIT),
+    ("LEN-2", {"length.prompt_max": "1024", "length.response_max": "3073", "model.context_max": "4096"}, "error", FIT),
+    ("LEN-2", {"length.response_max": "4095", "model.context_max": "4096"}, None, FIT),
+    ("LEN-2", {"length.response_max": "4096", "model.context_max": "4096"}, "error", FIT),
     ("SMP-1", {"rollout.group_size": "1"}, "error", GROUP),
     ("SMP-1", {"rollout.group_size": "2"}, "warning", GROUP),
     ("SMP-1", {"rollout.group_size": "3"}, "warning", GROUP),
