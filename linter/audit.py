@@ -14,7 +14,6 @@ import hashlib
 import html
 import re
 from dataclasses import dataclass, field
-from pathlib import Path
 
 from . import __version__, arithmetic
 from .findings import Finding, Level, Location
@@ -1002,4 +1001,6 @@ def write(page: str, target: str) -> None:
             sys.stdout.write(data.decode("utf-8"))
         sys.stdout.flush()
         return
-    Path(target).write_bytes(data)
+    from .paths import write_atomic
+
+    write_atomic(target, data)

@@ -296,7 +296,8 @@ def cmd_check(args) -> int:
 
     req = _request(args, paths=args.paths, accepted=args.accepted, since=args.since, jobs=args.jobs,
                    own_outputs=tuple(p for p in (args.write_accepted,) if p),
-                   staged_files=getattr(args, "staged_files", None), guard=guard, progress=_progress(args))
+                   staged_files=getattr(args, "staged_files", None),
+                   staged_missing=list(getattr(args, "staged_missing", [])), guard=guard, progress=_progress(args))
     req.apply_accepted = not args.write_accepted  # record what is found, not what an older file accepts
     outcome = Pipeline(settings, registry).run(req)
     if args.write_accepted:
@@ -319,8 +320,12 @@ def cmd_check(args) -> int:
     # --show LEVEL: the report lists what is at or above it; the gate and the counts still see all
     findings, code, counts = outcome.at_least(args.show), outcome.status, outcome.counts()
     summary = {**outcome.summary(), "hidden": outcome.below(args.show), "accepted": outcome.accepted}
-    out = open(args.output, "w", encoding="utf-8") if args.output else sys.stdout
-    try:
+    from contextlib import nullcontext
+
+    from .paths import atomic_open
+
+    # a report file appears whole or not at all (written beside it, then renamed)
+    with atomic_open(args.output) if args.output else nullcontext(sys.stdout) as out:
         if args.format == "json":
             from .reports import json_report
 
@@ -333,9 +338,6 @@ def cmd_check(args) -> int:
             from .reports import text
 
             text(findings, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
-    finally:
-        if out is not sys.stdout:
-            out.close()
     skipped = f", {outcome.skipped} skipped as not run configs" if outcome.skipped else ""
     extra = f"; {summary['hidden']} below {args.show} not shown" if args.show else ""
     extra += f"; {summary['accepted']} accepted" if summary["accepted"] else ""
@@ -442,7 +444,10 @@ def _accepted_elsewhere(path: Path, checked: set[str], root: Path) -> list[dict]
         rows = filtering.read_accepted(path)
     except filtering.AcceptedFileError:
         return []
-    return [r for r in rows if r.get("file") not in checked and (root / str(r.get("file"))).is_file()]
+    from .paths import confined
+
+    return [r for r in rows if r.get("file") not in checked
+            and (real := confined(root / str(r.get("file")), root)) is not None and real.is_file()]
 
 
 def _fix(args, settings, findings, files) -> int | None:
@@ -455,8 +460,10 @@ def _fix(args, settings, findings, files) -> int | None:
     def locate(shown: str):
         if shown in on_disk:
             return on_disk[shown]
-        candidate = settings.root / shown
-        return candidate if candidate.is_file() else None
+        from .paths import confined
+
+        candidate = confined(settings.root / shown, settings.root)  # never a file outside
+        return candidate if candidate is not None and candidate.is_file() else None
 
     plans = fix.plan(findings, locate)
     told = set()

@@ -23,6 +23,7 @@ Document as ``CompositionProblem``s; the CMP rules report them. The composer kno
 """
 from __future__ import annotations
 
+import os
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -33,6 +34,7 @@ from .composed import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem
                        Unknown, Unresolved)
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
+from .paths import confined
 
 
 # problem kinds (the CMP rules read them)
@@ -301,7 +303,7 @@ class Composer:
         if not name:
             return None
         where = f"{self.settings.source}: setting {self.settings.name('overrides')}"
-        path = (self.root / name).resolve()
+        path = self.settings.path("overrides", self.root)  # refused when it leaves the repository
         if not path.is_file():
             raise SettingsError(f"{where}: expected an overrides file, found no file {name!r}")
         doc = load_source(path, self._shown(path), self.settings.limits)
@@ -447,12 +449,10 @@ class Composer:
         key = str(real)
         hit = self._places.get(key)
         if hit is None:
-            resolved = real.resolve()
-            try:
-                shown = resolved.relative_to(self.root).as_posix()
-            except ValueError:
-                shown = None
-            hit = self._places[key] = (resolved, shown, resolved.is_file())
+            resolved = confined(real, self.root)
+            shown = resolved.relative_to(self.root).as_posix() if resolved is not None else None
+            resolved = resolved if resolved is not None else Path(os.path.realpath(real))
+            hit = self._places[key] = (resolved, shown, shown is not None and resolved.is_file())
         return hit
 
     def _add_base(self, real: Path, name: str, naming: Location, related: list, stack: list, out: list,
@@ -1089,7 +1089,7 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
     have = {shown for _p, shown in files}
     out = list(files)
     overrides = getattr(settings, "overrides", "") or ""
-    if overrides and (root / overrides).resolve().relative_to(root).as_posix() in seeds:
+    if overrides and settings.path("overrides", root).relative_to(root).as_posix() in seeds:
         # the overrides file applies to every run: all of them are checked again
         by_shown = {shown: disk for disk, shown in candidates}
         by_shown.update({shown: disk for disk, shown in files})
@@ -1097,10 +1097,8 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
     memo: dict[str, set[str]] = {}
 
     def shown_of(p: Path) -> str | None:
-        try:
-            return p.resolve().relative_to(root).as_posix()
-        except ValueError:
-            return None
+        real = confined(p, root)
+        return real.relative_to(root).as_posix() if real is not None else None
 
     def named(real: Path) -> list[Path]:
         shown = shown_of(real)
@@ -1108,9 +1106,9 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
             return script_bases(real, shown)
         if not key and not dkey:
             return []
-        try:
-            data = real.read_bytes()[: settings.limits.max_bytes]
-        except OSError:
+        # a regular file within the size limit only: a named pipe or a huge file is no base
+        data, _why = loader.read(str(real), settings.limits)
+        if not data or len(data) > settings.limits.max_bytes:
             return []
         if not any(k and k.encode("utf-8") in data for k in (key, dkey)):
             return []

@@ -142,7 +142,9 @@ def write_accepted(path: Path, findings: list[Finding], keep: Iterable[dict] = (
     doc = {"trimtab_accepted": ACCEPTED_VERSION, "findings": rows}
     import json  # here, not at the top: start-up (perf)
 
-    path.write_text(json.dumps(doc, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
+    from .paths import write_atomic
+
+    write_atomic(path, json.dumps(doc, indent=2, ensure_ascii=False) + "\n")
     return len(rows)
 
 
@@ -154,14 +156,23 @@ class AcceptedFileError(Exception):
     pass
 
 
+ACCEPTED_MAX_BYTES = 64 * 1024 * 1024
+
+
 def read_accepted(path: Path) -> list[dict]:
     import json
 
+    from .loader import Limits, read
+
+    # a regular file only, of bounded size: a device or named pipe named here never hangs the check
+    raw, why = read(str(path), Limits(max_bytes=ACCEPTED_MAX_BYTES))
+    if raw is None:
+        raise AcceptedFileError(f"{path}: {why}")
+    if len(raw) > ACCEPTED_MAX_BYTES:
+        raise AcceptedFileError(f"{path}: is larger than {ACCEPTED_MAX_BYTES} bytes; not read")
     try:
-        text = path.read_text(encoding="utf-8")
+        text = raw.decode("utf-8")
         data = json.loads(text)
-    except OSError as exc:
-        raise AcceptedFileError(f"{path}: cannot be read: {exc.strerror}") from None
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise AcceptedFileError(f"{path}: is not an accepted-findings file (invalid JSON: {exc})") from None
     if not isinstance(data, dict) or not isinstance(data.get("findings"), list):

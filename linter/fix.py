@@ -19,6 +19,7 @@ from __future__ import annotations
 import codecs
 import difflib
 import math
+import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -68,7 +69,10 @@ class FileFix:
 
     def write(self) -> None:
         if self.changed:
-            self.disk.write_bytes(self.after)
+            from .paths import write_atomic
+
+            # through a link (inside the repository) to the file itself: the link stays a link
+            write_atomic(os.path.realpath(self.disk), self.after)
 
 
 def plan(findings: Iterable[Finding], locate: Callable[[str], Path | None]) -> list[FileFix]:

@@ -24,7 +24,6 @@ import json
 import re
 import textwrap
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import TextIO
 
 from .redact import for_text, mask
@@ -492,6 +491,8 @@ def draft_command(outcome, output: str | None, out: TextIO, err: TextIO) -> int:
         return 2
     d = draft(runs, shown)
     if output:
-        Path(output).write_text(d.toml(), encoding="utf-8")
+        from .paths import write_atomic
+
+        write_atomic(output, d.toml())
     d.report(out, output)
     return 0

@@ -212,3 +212,26 @@ SANDBOX_CASES = [
 def test_sandbox_threshold(tmp_path, rule_id, values, level, source):
     got = findings(tmp_path, values, rule_id, SANDBOX)
     assert [f["level"] for f in got] == ([level] if level else []), source
+
+
+def test_random_looking_value_thresholds():
+    # SEC-1's min_length 24 and min_entropy_bits 4.0 (common practice; Shannon entropy per character,
+    # log2 of 16 equally frequent characters is exactly 4.0). Values built so that only the tested measure
+    # changes: letters beyond f (not hexadecimal), three classes, a class switch at every character.
+    from trimtab.redact import MIN_BITS, MIN_LENGTH, high_entropy
+
+    opts = {k: v for k, v in (line.strip().split(" = ") for line in
+                                  run_options("SEC-1"))}
+    assert (int(opts["min_length"]), float(opts["min_entropy_bits"])) == (MIN_LENGTH, MIN_BITS) == (24, 4.0)
+    varied = "gG0hH1iI2jJ3kK4mnN5pP6qQ7rR8"
+    assert not high_entropy(varied[:23]) and high_entropy(varied[:24]) and high_entropy(varied[:25])
+    exactly_four = "gG0hH1iI2jJ3kK4m" * 2  # 16 characters, each twice: 4.0 bits
+    assert high_entropy(exactly_four)
+    assert not high_entropy(exactly_four[:-1] + "g")  # one character repeated once more: below 4.0 bits
+
+
+def run_options(rule_id):
+    from support import run_cli
+
+    out = run_cli("rules", rule_id).out
+    return [line for line in out.splitlines() if line.startswith("  ") and " = " in line]
