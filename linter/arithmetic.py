@@ -521,7 +521,9 @@ class Arithmetic:
         n = written if isinstance(written, (int, float)) and not isinstance(written, bool) else None
         if n is None or read_as is None or read_as == own:
             return
-        top, bottom, notes, missing = 1, 1, [], []
+        top, bottom = 1, 1
+        notes: list = []
+        missing: list = []
         for differs, factor, needed, label, up in (
                 (read_as.per != own.per, G, "the group size", f"group size {G}", own.per == "completion"),
                 (read_as.scope != own.scope, D, "the data-parallel ranks", f"{D} data-parallel ranks",

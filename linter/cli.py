@@ -191,7 +191,7 @@ def _registry():
     return reg
 
 
-def _overrides(items: list[str]) -> list[tuple[str, str]]:
+def _overrides(items: list[str]) -> list[tuple[str, str, bool]]:
     from .settings import SettingsError
 
     out = []

@@ -296,7 +296,7 @@ class Scanner:
             return cached[1]
         out = Scan()
         seen = {located.real}
-        queue = [(located.real, 0, ())]
+        queue: list[tuple[Path, int, tuple]] = [(located.real, 0, ())]
         while queue:
             real, depth, chain = queue.pop(0)
             info = self.module(real)
@@ -429,8 +429,8 @@ class _Visitor:
         return len(line.encode("utf-8")[:node.col_offset].decode("utf-8", "ignore")) + 1
 
     def run(self, tree: ast.Module) -> None:
-        for node in tree.body:
-            self._top_level(node)
+        for stmt in tree.body:
+            self._top_level(stmt)
         for node in ast.walk(tree):
             if isinstance(node, ast.Import):
                 for a in node.names:

@@ -37,7 +37,7 @@ class Acceptance:
 
 
 def acceptances(text: str) -> list[Acceptance]:
-    out = []
+    out: list[Acceptance] = []
     if "trimtab:" not in text:
         return out
     for n, line in enumerate(text.splitlines(), 1):
@@ -119,7 +119,7 @@ def select(findings: list[Finding], only: set[str], skip: set[str]) -> list[Find
 ACCEPTED_VERSION = 1
 
 
-def write_accepted(path: Path, findings: list[Finding], keep: list[dict] = ()) -> int:
+def write_accepted(path: Path, findings: list[Finding], keep: Iterable[dict] = ()) -> int:
     """Write the accepted-findings file: one entry per fingerprint (with a count when one
     fingerprint stands for several findings), sorted by file, rule and fingerprint so that the
     file is stable and diffs well. ``keep``: entries of files this run did not check."""
@@ -179,7 +179,7 @@ def read_accepted(path: Path) -> list[dict]:
         raise AcceptedFileError(f"{path}: is not an accepted-findings file (expected a 'findings' list)")
     rows = [r for r in data["findings"] if isinstance(r, dict) and isinstance(r.get("fingerprint"), str)]
     # where each entry is written, so that a stale one can be pointed at (never written back)
-    where = {}
+    where: dict[str, tuple[int, int]] = {}
     for n, line in enumerate(text.splitlines(), 1):
         for m in _FINGERPRINT.finditer(line):
             where.setdefault(m.group(1), (n, m.start() + 1))

@@ -179,11 +179,11 @@ def _prove(doc, text: str, chosen: list, fmt: str) -> str:
     return new_text
 
 
-def _value_scalars(doc) -> dict[int, object]:
+def _value_scalars(doc) -> dict[int, tuple]:
     """Scalar nodes that are mapping values or sequence items (never keys), by end offset."""
     from .document import Mapping, Scalar, Sequence, walk
 
-    out = {}
+    out: dict[int, tuple] = {}
     for root in doc.roots:
         for node in walk(root):
             if isinstance(node, Mapping):

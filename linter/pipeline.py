@@ -34,7 +34,7 @@ class Request:
     paths: list[str] = field(default_factory=list)  # none: the settings' include globs
     only: set[str] = field(default_factory=set)
     skip: set[str] = field(default_factory=set)
-    overrides: list[tuple[str, str]] = field(default_factory=list)  # (key path, text) from --set
+    overrides: list[tuple] = field(default_factory=list)  # (key path, text, added) from --set / --add
     gate: str | None = None  # default: the settings' gate
     accepted: str | None = None  # --accepted FILE (else the settings' accepted file)
     apply_accepted: bool = True  # False: the accepted-findings file is not read (--write-accepted)

@@ -8,7 +8,6 @@ disagreement and the rules downstream stay silent instead of repeating it.
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab.model import whole
 from trimtab import arithmetic
 from trimtab.arithmetic import PARALLEL, either, judge, keymap_line, lcm, near_divisors, near_multiples, related, remainder
 

@@ -15,7 +15,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from support import FIXTURES, check_json, run_cli
+from support import FIXTURES, check_json, expectations, run_cli
 
 from trimtab import arithmetic
 from trimtab.check import Checker
@@ -28,10 +28,9 @@ ARITH = ("BAT", "SMP", "LEN")
 
 
 def _expected(path: Path) -> list[tuple[str, str, int, int]]:
-    """(rule, level, line, col) from the fixture's '# expect: RULE level line N col M' comments."""
-    text = path.read_text(encoding="utf-8")
-    return [(r, lvl, int(line), int(col)) for r, lvl, line, col in
-            re.findall(r"^# expect: ([A-Z]+-\d+) (error|warning|note) line (\d+) col (\d+)", text, re.M)]
+    """(rule, level, line, col) from the fixture's '# expect: RULE LINE:COL LEVEL' comments (the
+    fixture harness's reading, support.expectations)."""
+    return [(r, lvl, line, col) for r, _path, line, col, lvl in expectations(path)[0]]
 
 
 @pytest.mark.parametrize("rel", ["bad.yaml", "good.yaml", "bad-every-reading.yaml", "settled/run.yaml"])
