@@ -203,7 +203,10 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
 
 # --- what this process has seen ---------------------------------------------------------------------
 _KNOWN: set[str] = set()
-_KNOWN_RE: list = [None]
+# The known credentials by their first _MIN_KNOWN characters, longest first: ``mask`` finds them in
+# one pass over a text, with no pattern to compile (a compiled alternation cost time in the total
+# length of every credential seen, again each time a file added one).
+_BY_HEAD: dict[str, list[str]] = {}
 
 
 def learn(doc) -> None:
@@ -220,9 +223,11 @@ def learn(doc) -> None:
             for piece in {whole, *(line.strip() for line in whole.splitlines())}:
                 if len(piece) >= _MIN_KNOWN and not _PLAIN_WORD.fullmatch(piece) and piece not in _KNOWN:
                     _KNOWN.add(piece)
+                    pieces = _BY_HEAD.setdefault(piece[:_MIN_KNOWN], [])
+                    pieces.append(piece)
+                    pieces.sort(key=len, reverse=True)
                     added = True
     if added:
-        _KNOWN_RE[0] = None
         _mask.cache_clear()
 
 
@@ -238,10 +243,25 @@ def _url_secrets(url: str):
         yield v
 
 
-def _known():
-    if _KNOWN_RE[0] is None and _KNOWN:
-        _KNOWN_RE[0] = re.compile("|".join(map(re.escape, sorted(_KNOWN, key=len, reverse=True))))
-    return _KNOWN_RE[0]
+def _replace_known(s: str) -> str:
+    """``s`` with every known credential replaced by ``MASK``: at each place, the longest one that
+    starts there (as a pattern of the alternatives, longest first, would), in time linear in ``s``."""
+    heads, size = _BY_HEAD, _MIN_KNOWN
+    out: list[str] = []
+    last, i, end = 0, 0, len(s) - size
+    while i <= end:
+        pieces = heads.get(s[i:i + size])
+        if pieces:
+            for piece in pieces:
+                if s.startswith(piece, i):
+                    out += (s[last:i], MASK)
+                    i = last = i + len(piece)
+                    break
+            else:
+                i += 1
+        else:
+            i += 1
+    return "".join(out) + s[last:] if out else s
 
 
 # --- masking -----------------------------------------------------------------------------------------
@@ -286,9 +306,8 @@ def mask(text) -> str:
 def _mask(s: str) -> str:
     if "://" in s:  # first: the host and path stay readable
         s = _URL.sub(_url, s)
-    known = _known()
-    if known is not None:
-        s = known.sub(MASK, s)
+    if _BY_HEAD:
+        s = _replace_known(s)
     s = _any_shape().sub(MASK, s)
     if ":" in s or "=" in s:
         s = _KEYED.sub(_keyed, s)

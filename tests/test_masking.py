@@ -272,3 +272,29 @@ def test_worker_processes_mask_before_findings_travel(repo):
         assert "KL-4" in res.out
         for secret in (SK, RANDOM):
             assert secret not in res.out + res.err and secret[:12] not in res.out + res.err, (fmt, secret)
+
+
+def test_known_credentials_are_replaced_as_the_standard_library_s_alternation_would(monkeypatch):
+    # reference: Python's re, whose alternation tries its branches in order (longest first here)
+    # at the leftmost place; the one-pass replacement must give the same text, with no pattern
+    # compiled however many credentials the files held
+    import random
+    import re
+
+    from trimtab import redact
+
+    rng = random.Random(7)
+    alphabet = "ab7_-"
+    pieces = {"".join(rng.choice(alphabet) for _ in range(rng.randint(8, 14))) for _ in range(40)}
+    pieces |= {p + "ab" for p in list(pieces)[:10]}  # some share a head, one longer than another
+    by_head: dict[str, list[str]] = {}
+    for p in pieces:
+        by_head.setdefault(p[:redact._MIN_KNOWN], []).append(p)
+    for group in by_head.values():
+        group.sort(key=len, reverse=True)
+    monkeypatch.setattr(redact, "_BY_HEAD", by_head)
+    reference = re.compile("|".join(map(re.escape, sorted(pieces, key=len, reverse=True))))
+    for _ in range(300):
+        text = "".join(rng.choice(alphabet + " :") for _ in range(rng.randint(0, 80)))
+        text += rng.choice(sorted(pieces)) + "".join(rng.choice(alphabet) for _ in range(rng.randint(0, 5)))
+        assert redact._replace_known(text) == reference.sub(redact.MASK, text), text
