@@ -281,7 +281,8 @@ def cmd_check(args) -> int:
 
     req = _request(args, paths=args.paths, accepted=args.accepted, since=args.since, jobs=args.jobs,
                    own_outputs=tuple(p for p in (args.write_accepted,) if p),
-                   staged_files=getattr(args, "staged_files", None), guard=guard, progress=_progress(args))
+                   staged_files=getattr(args, "staged_files", None), guard=guard, progress=_progress(args),
+                   changed=getattr(args, "staged_changed", None), cross_run=True)
     req.apply_accepted = not args.write_accepted  # record what is found, not what an older file accepts
     outcome = Pipeline(settings, registry).run(req)
     if args.write_accepted:

@@ -279,6 +279,24 @@ class Composer:
             raise SettingsError(f"{where}: expected {doc.path} to hold a mapping of keys to values")
         return doc
 
+    def named_as_base(self, shown: str) -> bool:
+        """Does some file of the repository build on this one (a base in the settings' layers, the
+        overrides file, or a file named under the bases key by another file)? Found once, lazily."""
+        if shown in self.base_files:
+            return True
+        if not self.bases_key:
+            return False
+        named = self.__dict__.get("_named")
+        if named is None:
+            from .discover import discover
+
+            named = set()
+            files, _missing = discover([], self.root, self.settings.include, self.settings.exclude)
+            for disk, _shown in files:
+                named |= {self._shown(b) for b in bases_named(Path(disk), self.bases_key, self.settings.limits)}
+            self.__dict__["_named"] = named
+        return shown in named
+
     def _shown(self, path: Path) -> str:
         try:
             return path.resolve().relative_to(self.root).as_posix()
@@ -785,6 +803,26 @@ class _Interp:
 
 
 # --- which files build on which: for pre-commit and CI ------------------------------------------
+def bases_named(real: Path, key: str, limits) -> list[Path]:
+    """The bases a file names under the settings' bases key (as paths beside it; not followed)."""
+    if not key:
+        return []
+    try:
+        data = real.read_bytes()[: limits.max_bytes]
+    except OSError:
+        return []
+    if key.encode("utf-8") not in data:
+        return []
+    root = real.parent
+    doc = load_source(real, real.as_posix(), limits)
+    out_paths = []
+    for r in doc.roots:
+        v = r.get(key) if isinstance(r, Mapping) else None
+        items = v.items if isinstance(v, Sequence) else [v] if v is not None else []
+        out_paths += [root / it.text.strip() for it in items if isinstance(it, Scalar)]
+    return out_paths
+
+
 def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> list[tuple[str, str]]:
     """``files`` plus every file of the repository whose bases (direct or through other bases)
     include one of ``seeds`` (shown paths, e.g. the files changed in a commit)."""
@@ -813,21 +851,7 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
             return None
 
     def named(real: Path) -> list[Path]:
-        if not key:
-            return []
-        try:
-            data = real.read_bytes()[: settings.limits.max_bytes]
-        except OSError:
-            return []
-        if key.encode("utf-8") not in data:
-            return []
-        doc = load_source(real, shown_of(real) or real.as_posix(), settings.limits)
-        out_paths = []
-        for r in doc.roots:
-            v = r.get(key) if isinstance(r, Mapping) else None
-            items = v.items if isinstance(v, Sequence) else [v] if v is not None else []
-            out_paths += [real.parent / it.text.strip() for it in items if isinstance(it, Scalar)]
-        return out_paths
+        return bases_named(real, key, settings.limits)
 
     def closure(real: Path, shown: str, depth: int = 0) -> set[str]:
         if shown in memo:

@@ -165,5 +165,7 @@ def changed_since(ref: str, root: Path) -> list[str]:
     if diff.returncode:
         raise ValueError(f"--since {ref}: {diff.stderr.strip() or 'git diff failed'}")
     untracked = git("ls-files", "--others", "--exclude-standard")
-    names = diff.stdout.splitlines() + untracked.stdout.splitlines()
+    # deleted files and the old names of renamed ones: the configs that named them are checked again
+    gone = git("diff", "--name-only", "--diff-filter=D", "--no-renames", "--relative", ref)
+    names = diff.stdout.splitlines() + untracked.stdout.splitlines() + gone.stdout.splitlines()
     return sorted(set(n for n in names if n))
