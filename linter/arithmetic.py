@@ -522,20 +522,18 @@ class Arithmetic:
         if n is None or read_as is None or read_as == own:
             return
         top, bottom, notes, missing = 1, 1, [], []
-        if read_as.per != own.per:
-            if G is None:
-                missing.append("the group size")
-            elif own.per == "completion":
-                top, notes = top * G, notes + [f"x group size {G}"]
+        for differs, factor, needed, label, up in (
+                (read_as.per != own.per, G, "the group size", f"group size {G}", own.per == "completion"),
+                (read_as.scope != own.scope, D, "the data-parallel ranks", f"{D} data-parallel ranks",
+                 own.scope == "global")):
+            if not differs:
+                continue
+            if factor is None:
+                missing.append(needed)
+            elif up:
+                top, notes = top * factor, notes + [f"x {label}"]
             else:
-                bottom, notes = bottom * G, notes + [f"/ group size {G}"]
-        if read_as.scope != own.scope:
-            if D is None:
-                missing.append("the data-parallel ranks")
-            elif own.scope == "global":
-                top, notes = top * D, notes + [f"x {D} data-parallel ranks"]
-            else:
-                bottom, notes = bottom * D, notes + [f"/ {D} data-parallel ranks"]
+                bottom, notes = bottom * factor, notes + [f"/ {label}"]
         t.conversion = " ".join(notes) or "not converted"
         if missing:
             t.value, t.missing = None, " and ".join(missing)

@@ -528,17 +528,29 @@ class Page:
         from .vocabulary import CONCEPTS
 
         head = f"Document {m.index + 1}: " if several else ""
+        if m.doc.fmt == "shell":
+            cmd = m.doc.runs[m.index]
+            head = f"Training command {m.index + 1} ({_e(cmd.what)}, line {cmd.program.location().line}): "
         out = [f"<h3>{head}Concepts found</h3>",
                '<table class="concepts"><thead><tr><th scope="col">concept</th><th scope="col">value</th>'
                '<th scope="col">written at</th><th scope="col">key</th><th scope="col">read by</th></tr></thead><tbody>']
         for name in sorted(m.values):
             v = m.values[name]
             note = f" ({_e(v.note)})" if v.note else ""
+            layer = m.roles.get(v.key)
+            if layer:
+                note += f"; layer: {_e(layer)}"
             chain = "".join(f"<br>\u2190 {self.link(h)} {_e(h.message)}" for h in v.chain)
             out.append(f'<tr data-concept="{_e(name)}"><td><code>{_e(name)}</code></td><td><code>'
                        f"{_e(_show(v.value))}</code></td><td>{self.link(v.location)}{chain}</td>"
                        f"<td><code>{_e(v.key)}</code></td><td>{_e(v.via)}{note}</td></tr>")
         out.append("</tbody></table>")
+        if m.unknown:
+            out.append("<h4>Known only at launch (left out of the checks)</h4><ul>")
+            for name, v in sorted(m.unknown.items()):
+                out.append(f"<li><code>{_e(name)}</code> {self.link(v.location)} <code>{_e(v.key)}</code>: "
+                           f"{_e(v.note)}</li>")
+            out.append("</ul>")
         for c in m.components:
             fields = ", ".join(f"{_e(k)}={_e(_show(v.value))}" for k, v in sorted(c.fields.items()))
             out.append(f"<p>reward component {c.index + 1}: <code>{fields}</code> at {self.link(c.location)}</p>")

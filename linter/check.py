@@ -124,15 +124,17 @@ class Checker:
     def check_file(self, path: str, shown: str, keep: bool = False) -> FileResult:
         """Load, compose, resolve and run the rules on one file. ``keep``: keep its Document and
         run models in the result (for the views that show them)."""
+        from .shell import load, runs_of
+
         res = FileResult(shown)
-        doc = loader.load(path, shown, self.settings.limits)
+        doc = load(path, shown, self.settings)
         if keep:
             res.kept = Kept(doc)
         # A file other files build on (a base declared in the settings' layers, the overrides file) is
         # checked as a file here and as part of every run built on it, not as a run of its own.
         as_run = doc.readable and shown not in self.composer.base_files
         # Compose first: composition problems are recorded on the document for the file rules.
-        composed = [self.composer.compose(doc, root, path) for root in doc.roots] if as_run else []
+        composed = [self.composer.compose(doc, root, path) for root in runs_of(doc)] if as_run else []
         for r, opts, level in self.rules("file"):
             self._run(r, Context(r, None, doc, opts, level, settings=self.settings), shown, res)
         # File rules that cover every file a run is composed from (SEC-1): its bases, the overrides
@@ -210,11 +212,13 @@ class Checker:
         of the repository, linter/context.py): (index, values) of each of its runs, the other files
         they were composed from, and whether that is uncertain (the file could not be read, or a
         base is missing: not to be kept in a cache)."""
-        doc = loader.load(path, shown, self.settings.limits)
+        from .shell import load, runs_of
+
+        doc = load(path, shown, self.settings)
         if not doc.readable or shown in self.composer.base_files:
             return [], [], not doc.readable
         runs, files = [], set()
-        for index, root in enumerate(doc.roots):
+        for index, root in enumerate(runs_of(doc)):
             comp = self.composer.compose(doc, root, path)
             files.update(comp.files)
             model = self._resolve(doc, comp, shown, index)

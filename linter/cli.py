@@ -241,6 +241,20 @@ def _own_output(path) -> bool:
     return isinstance(driver, dict) and driver.get("name") == "trimtab"
 
 
+def _refuse_non_configs(paths, settings) -> None:
+    """A file named on the command line that is neither a YAML or JSON config nor a launch script:
+    one plain message (exit 2), not a parse finding."""
+    from .discover import relpath
+    from .settings import SettingsError
+    from .shell import is_config
+
+    for p in paths:
+        path = Path(p)
+        if path.is_file() and not is_config(str(path), relpath(path, settings.root.resolve()), settings):
+            raise SettingsError(f"{p} is neither a YAML or JSON config nor a launch script (settings include and "
+                                "launch.scripts say which files are)")
+
+
 def _request(args, **extra):
     """The pipeline request of a command's arguments."""
     from .pipeline import Request
@@ -268,6 +282,7 @@ def cmd_check(args) -> int:
 
     registry = _registry()  # first: a plugin may declare concepts the settings' key map names
     settings = _settings(args)
+    _refuse_non_configs(args.paths, settings)
     if getattr(args, "staged_root", None) is not None:
         settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
     if args.diff and not args.fix:
@@ -384,7 +399,9 @@ def cmd_audit(args) -> int:
 
     # a one-off audit may look at a config kept outside the repository (not confined)
     registry = _registry()  # first: a plugin may declare concepts the settings' key map names
-    outcome = Pipeline(_settings(args), registry).run(
+    settings = _settings(args)
+    _refuse_non_configs(args.configs, settings)
+    outcome = Pipeline(settings, registry).run(
         _request(args, paths=args.configs, confine=False, keep_models=True))
     page, code = audit(outcome), outcome.status
     try:
@@ -408,7 +425,9 @@ def _one_file(args):
     from .pipeline import Pipeline
 
     registry = _registry()  # first: a plugin may declare concepts the settings' key map names
-    return Pipeline(_settings(args), registry).run(
+    settings = _settings(args)
+    _refuse_non_configs([args.config], settings)
+    return Pipeline(settings, registry).run(
         _request(args, paths=[args.config], confine=False, dependants=False, keep_models=True))
 
 

@@ -42,10 +42,13 @@ BASE_OUTSIDE = "compose-base-outside"
 OVERRIDE = "compose-override"
 MALFORMED = "compose-malformed"
 OVERRIDE_NEW = "compose-override-new"
+OPTIONAL_MISSING = "compose-optional-missing"
+VALUE_UNKNOWN = "compose-value-unknown"  # a value known only at launch (a script, a resolver)
 
 _REF = re.compile(r"\$\$\{|\$\{([^{}$]*)\}")
 _WHOLE = re.compile(r"\$\{([^{}$]*)\}")
 _PATH = re.compile(r"[A-Za-z0-9_\-]+(?:\.[A-Za-z0-9_\-]+)*")
+_RESOLVER = re.compile(r"([A-Za-z_][\w.\-]*)\s*:(.*)", re.S)  # ${name:args}
 _ENV = re.compile(r"[A-Z_][A-Z0-9_]*")  # ${HOME}: an environment variable, not a key of the run
 _MAX_DEPTH = 64
 
@@ -74,11 +77,13 @@ class Composed:
 class ComposedMapping(Mapping):
     """The root of a composed run: a mapping that also carries the origin chains."""
 
-    __slots__ = ("chains",)
+    __slots__ = ("chains", "roles", "notes")
 
     def __init__(self):
         super().__init__()
         self.chains: dict[str, list[Location]] = {}
+        self.roles: dict[str, str] = {}  # dotted key path -> the layer its value came from
+        self.notes: list = []  # values known only at launch (CompositionProblems of this run)
 
 
 class Unresolved(Scalar):
@@ -94,6 +99,14 @@ class Unresolved(Scalar):
     @property
     def value12(self):
         return None
+
+
+class Unknown(Unresolved):
+    """A value known only at launch (a launch script's command substitution, a resolver): no value,
+    and the reason (``why``). The resolver leaves its concept out of the run, so no rule reasons
+    about it; the run's notes say what trimtab would need."""
+
+    __slots__ = ("why",)
 
 
 class GivenScalar(Scalar):
@@ -145,6 +158,78 @@ def _show(node: Node) -> str:
         text = node.text if node.plain else repr(node.text)
         return text if len(text) <= 40 else text[:37] + "..."
     return "a list" if isinstance(node, Sequence) else "a section"
+
+
+def _without(root: Mapping, names: set) -> Mapping:
+    """The mapping without the entries named (the original nodes kept)."""
+    out = _place(Mapping(), root, tuple(root.path or ()))
+    out.pairs = [(k, v) for k, v in root.pairs if not (isinstance(k, Scalar) and k.text in names)]
+    out.merged = list(root.merged)
+    return out
+
+
+def _under(root: Mapping, package: tuple) -> Mapping:
+    """The mapping placed under the dotted package of a defaults entry."""
+    for part in reversed(package):
+        outer = _place(Mapping(), root, ())
+        outer.pairs = [(_place(GivenScalar(part, None, None), root, ()), root)]
+        root = outer
+    return root
+
+
+_PACKAGE = re.compile(r"#\s*@package\s+([\w.]+)")
+
+
+def _package_header(text: str) -> str:
+    """The package a config file declares for itself in a leading ``# @package NAME`` comment."""
+    for line in text.splitlines()[:10]:
+        if not line.strip():
+            continue
+        if not line.lstrip().startswith("#"):
+            return ""
+        m = _PACKAGE.match(line.strip())
+        if m:
+            return m[1]
+    return ""
+
+
+def _entry(item: Node):
+    """One entry of a defaults list: "_self_", or a dict (group, option, pkg, optional, override,
+    node), or None when it is not one."""
+    if isinstance(item, Scalar):
+        text = item.text.strip()
+        if text == "_self_":
+            return "_self_"
+        if not text:
+            return None
+        return {"group": None, "option": text, "pkg": "", "optional": False, "override": False, "node": item}
+    if isinstance(item, Mapping) and len(item.pairs) == 1:
+        key, value = item.pairs[0]
+        if not isinstance(key, Scalar) or not isinstance(value, Scalar):
+            return None
+        words = key.text.split()
+        optional, override = "optional" in words[:-1], "override" in words[:-1]
+        if not words or set(words[:-1]) - {"optional", "override"}:
+            return None
+        group, _, pkg = words[-1].partition("@")
+        option = None if value.value12 is None else value.text.strip()
+        return {"group": group.strip("/"), "option": option, "pkg": pkg, "optional": optional,
+                "override": override, "node": value}
+    return None
+
+
+def _absolute(parts: tuple, target: str) -> str:
+    """``${.key}`` / ``${..key}``: relative to the mapping that holds the referring key (one dot) or
+    the one above it (each further dot); other targets as written."""
+    if not target.startswith("."):
+        return target
+    rest = target.lstrip(".")
+    up = len(target) - len(rest)
+    base = parts[:-1]
+    if up - 1 > len(base):
+        return target  # above the top: not a key path (reported as unknown by the caller's check)
+    base = base[:len(base) - (up - 1)]
+    return ".".join(base + ((rest,) if rest else ()))
 
 
 def _removes(node: Node) -> bool:
@@ -217,6 +302,7 @@ class Composer:
         self.settings = settings
         self.root = Path(settings.root).resolve()
         self.bases_key = getattr(settings, "bases_key", "") or ""
+        self.defaults_key = getattr(settings, "defaults_key", "") or ""
         self.layers = list(getattr(settings, "layers", []) or [])
         self.overrides = list(overrides)
         self.given = [self._parse_given(*o) for o in self.overrides]
@@ -318,8 +404,11 @@ class Composer:
         interpolate = any("${" in d.text for _role, d, _r in layers) or any(
             "${" in g.text for g in self.given)
         plain = len(layers) == 1 and not self.given and not interpolate and not (
-            self.bases_key and isinstance(root, Mapping) and root.get(self.bases_key) is not None)
-        if plain or not isinstance(root, Mapping):
+            self.bases_key and isinstance(root, Mapping) and root.get(self.bases_key) is not None) and not (
+            self.defaults_key and isinstance(root, Mapping) and root.get(self.defaults_key) is not None)
+        from .shell import LaunchRoot
+
+        if (plain and not isinstance(root, LaunchRoot)) or not isinstance(root, Mapping):
             return Composed(root, self._flush(), files)
         self.hist: dict[tuple, list[tuple[Node, str, str]]] = {}
         self.refs: set[tuple] = set()  # every path on the way to a value that holds a ${...}
@@ -343,7 +432,14 @@ class Composer:
             chains.update(interp.chains)
         else:
             out.pairs = list(built.pairs)
+        for p, hops in (getattr(root, "hops", None) or {}).items():  # a launch script's variables
+            key = ".".join(p)
+            chains[key] = chains.get(key, []) + [h for h in hops if h not in chains.get(key, [])]
         out.chains = chains
+        if len(layers) > 1:
+            out.roles = {".".join(p): h[-1][1] for p, h in self.hist.items() if h}
+        out.notes = list(getattr(root, "notes", None) or []) + [p for p in self._problems if p.kind == VALUE_UNKNOWN]
+        self._problems = [p for p in self._problems if p.kind != VALUE_UNKNOWN]
         return Composed(out, self._flush(), files)
 
     def texts(self, doc: Document):
@@ -367,8 +463,13 @@ class Composer:
     # --- bases -----------------------------------------------------------------------------------
     def _layers(self, doc: Document, root: Node, path: str) -> list[tuple[str, Document, Mapping]]:
         out: list[tuple[str, Document, Mapping]] = []
+        from .shell import LaunchRoot
+
+        if isinstance(root, LaunchRoot):
+            return self._script_layers(doc, root, path)
         if not isinstance(root, Mapping) or not (self.layers or self.overrides_doc is not None or (
-                self.bases_key and root.get(self.bases_key) is not None)):
+                self.bases_key and root.get(self.bases_key) is not None) or (
+                self.defaults_key and root.get(self.defaults_key) is not None)):
             return [("experiment", doc, root)]
         top = self._where(Path(path))[0]
         stack = [(top, doc.path)]
@@ -388,7 +489,7 @@ class Composer:
                 self._add_base(real, b, naming, related, stack, out)
         for name, node in self._named_bases(doc, root):
             self._add_base(Path(path).parent / name, name, node.location(), [], stack, out)
-        out.append(("experiment", doc, root))
+        self._with_defaults(doc, root, Path(path), "experiment", stack, out)
         if self.overrides_doc is not None:
             out.append(("overrides file", self.overrides_doc, self.overrides_doc.roots[0]))
         return out
@@ -423,7 +524,21 @@ class Composer:
             hit = self._places[key] = (resolved, shown, resolved.is_file())
         return hit
 
-    def _add_base(self, real: Path, name: str, naming: Location, related: list, stack: list, out: list) -> None:
+    def _add_base(self, real: Path, name: str, naming: Location, related: list, stack: list, out: list,
+                  choices=None) -> None:
+        opened = self._open(real, name, naming, related, stack)
+        if opened is None:
+            return
+        bdoc, broot, shown_real, shown = opened
+        stack.append((shown_real, shown))
+        for sub, node in self._named_bases(bdoc, broot):
+            self._add_base(real.parent / sub, sub, node.location(), [], stack, out)
+        self._with_defaults(bdoc, broot, shown_real, "base", stack, out, choices)
+        stack.pop()
+
+    def _open(self, real: Path, name: str, naming: Location, related: list, stack: list, optional: bool = False):
+        """(document, root mapping, resolved path, shown path) of a file a run is composed from, or None
+        with the problem recorded."""
         shown_real, shown, is_file = self._where(real)
         chain = [s for _r, s in stack]
         if shown is None:
@@ -440,6 +555,10 @@ class Composer:
             return
         if not is_file:
             looked = f" (looked for {shown})" if shown != name else ""
+            if optional:
+                self._problem(OPTIONAL_MISSING, f"optional defaults entry {name!r} does not exist{looked}; the "
+                                                "run is composed without it", naming, related, subject=name)
+                return
             self._problem(BASE_MISSING, f"base {name!r} does not exist{looked}", naming, related, subject=name)
             return
         bdoc = load_source(shown_real, shown, self.settings.limits)
@@ -449,16 +568,124 @@ class Composer:
             self._problem(BASE_MISSING, f"base {name!r} cannot be read: {where}: {p.message}", naming,
                           related + [Location(shown, p.line, p.col, message=p.message)], subject=name)
             return
-        broot = bdoc.roots[0] if bdoc.roots else None
+        broot = bdoc.roots[0] if bdoc.roots else _place(Mapping(), None, ())  # an empty file: no keys
         if not isinstance(broot, Mapping):
             self._problem(MALFORMED, f"base {name!r} does not hold a mapping of keys to values", naming, related,
                           subject=name)
             return
-        stack.append((shown_real, shown))
-        for sub, node in self._named_bases(bdoc, broot):
-            self._add_base(real.parent / sub, sub, node.location(), [], stack, out)
-        stack.pop()
-        out.append(("base", bdoc, broot))
+        return bdoc, broot, shown_real, shown
+
+    # --- launch scripts and defaults lists -----------------------------------------------------
+    def _script_layers(self, doc: Document, root, path: str) -> list[tuple[str, Document, Mapping]]:
+        """A training command of a launch script: the base config it names (with its defaults list,
+        where the command's group choices apply), then its overrides, its own arguments and the
+        launcher's topology, then the settings' overrides file."""
+        out: list[tuple[str, Document, Mapping]] = []
+        script = self._where(Path(path))[0]
+        stack = [(script, doc.path)]
+        named = [w for w in root.bases if w.text is not None]
+        if root.config_name is not None and root.config_name.text is not None and (
+                root.config_dir is None or root.config_dir.text is not None):
+            folder = root.config_dir.text if root.config_dir is not None else ""
+            name = root.config_name.text
+            if not Path(name).suffix:
+                name += ".yaml"
+            from .shell import Word
+
+            w = root.config_name
+            named.append(Word(str(Path(folder) / name) if folder else name, w.start, w.end, w.file, raw=w.raw,
+                              t=w.t))
+        choices = [list(c) + [False] for c in root.choices]
+        for w in named:
+            text = w.text.strip()
+            first = Path(text) if Path(text).is_absolute() else self.root / text
+            candidates = [first, Path(path).parent / text]
+            real = next((c for c in candidates if self._where(c)[2]), first)
+            self._add_base(real, text, w.location(), [], stack, out, choices)
+        used = {c[1] for c in choices if c[-1]}
+        mine = _without(root, used) if used else root
+        out.append(("script override", doc, mine))
+        if root.flags.pairs:
+            out.append(("script argument", doc, root.flags))
+        if root.topology.pairs:
+            out.append(("launcher argument", doc, root.topology))
+        if self.overrides_doc is not None:
+            out.append(("overrides file", self.overrides_doc, self.overrides_doc.roots[0]))
+        return out
+
+    def _with_defaults(self, doc: Document, root: Mapping, real: Path, role: str, stack: list, out: list,
+                       choices=None, package: tuple = ()) -> None:
+        """The file's own layer, composed with the files its defaults list names, in the list's order
+        (``_self_`` marks where the file's own keys go; without it they come last)."""
+        dl = root.get(self.defaults_key) if self.defaults_key else None
+        if dl is None:
+            out.append((role, doc, _under(root, package)))
+            return
+        own = _without(root, {self.defaults_key})
+        if not isinstance(dl, Sequence):
+            self._problem(MALFORMED, f"{self.defaults_key} lists the files a config is composed from: expected a "
+                                     f"list, found {_show(dl)}", dl.location(), subject=self.defaults_key)
+            out.append((role, doc, _under(own, package)))
+            return
+        entries, self_at = [], None
+        for item in dl.items:
+            entry = _entry(item)
+            if entry is None:
+                self._problem(MALFORMED, f"{self.defaults_key}: expected a name, a `group: option` entry or _self_, "
+                                         f"found {_show(item)}", item.location(), subject=self.defaults_key)
+                continue
+            if entry == "_self_":
+                self_at = len(entries)
+                continue
+            if entry["override"]:
+                for e in entries:
+                    if e["group"] == entry["group"]:
+                        e["option"], e["node"] = entry["option"], entry["node"]
+                continue
+            entries.append(entry)
+        for c in choices or ():  # a launch script's group=option / +group=option
+            prefix, group, pkg, value, whole, _used = c
+            hit = [e for e in entries if e["group"] == group and (not pkg or e["pkg"] == pkg)]
+            if not hit and not (prefix.startswith("+") and self._where(real.parent / group)[0].is_dir()):
+                continue
+            if value is None or value.text is None:
+                continue
+            loc = value.location()
+            node = _place(Scalar(value.text, None, None), None, ())
+            node.file, node.line, node.col, node.end_line, node.end_col = (loc.path, loc.line, loc.col, loc.end_line,
+                                                                           loc.end_col)
+            if hit:
+                hit[0]["option"], hit[0]["node"] = value.text, node
+            else:
+                entries.append({"group": group, "option": value.text, "pkg": pkg, "optional": False,
+                                "override": False, "node": node})
+            c[-1] = True
+        if self_at is None:
+            self_at = len(entries)
+        folder = real.parent
+        for i, e in enumerate(entries + [None]):
+            if i == self_at:
+                out.append((role, doc, _under(own, package)))
+            if e is None or e["option"] is None:
+                continue
+            if e["group"] is None:
+                rel, pkg = e["option"], package
+            else:
+                rel = f"{e['group']}/{e['option']}"
+                pkg = None
+            name = rel if Path(rel).suffix in (".yaml", ".yml", ".json") else rel + ".yaml"
+            opened = self._open(folder / name, name, e["node"].location(), [], stack, e["optional"])
+            if opened is None:
+                continue
+            edoc, eroot, eshown_real, eshown = opened
+            if pkg is None:
+                header = _package_header(edoc.text)
+                where = e["pkg"] or header or e["group"].replace("/", ".")
+                where = {"_global_": "", "_group_": e["group"].replace("/", ".")}.get(where, where)
+                pkg = tuple(p for p in where.split(".") if p)
+            stack.append((eshown_real, eshown))
+            self._with_defaults(edoc, eroot, eshown_real, "defaults entry", stack, out, None, pkg)
+            stack.pop()
 
     # --- merging ---------------------------------------------------------------------------------
     def _merge(self, dst: _M, src: Mapping, role: str, path: tuple, top: bool) -> None:
@@ -686,8 +913,10 @@ class _Interp:
         text = raw.text
         dotted = ".".join(parts)
         whole = _WHOLE.fullmatch(text.strip())
-        if whole and _PATH.fullmatch(whole[1].strip()):
-            target = whole[1].strip()
+        if whole and _RESOLVER.fullmatch(whole[1].strip()):
+            return self._resolver(parts, src, raw, whole[1].strip(), inherited, True)
+        if whole and _PATH.fullmatch(_absolute(parts, whole[1].strip())):
+            target = _absolute(parts, whole[1].strip())
             found = self._lookup(parts, raw, target)
             if parts in self.cyclic or found is None:
                 return plain
@@ -708,6 +937,15 @@ class _Interp:
                 changed = True
                 continue
             target = (m[1] or "").strip()
+            if _RESOLVER.fullmatch(target):
+                r = self._resolver(parts, src, raw, target, inherited, False)
+                if not isinstance(r[0], Scalar) or isinstance(r[0], Unresolved):
+                    return r
+                pieces.append(r[0].text)
+                changed = True
+                hops.extend(r[2][len(inherited):])
+                continue
+            target = _absolute(parts, target)
             if not _PATH.fullmatch(target):
                 pieces.append(m[0])
                 continue
@@ -732,6 +970,32 @@ class _Interp:
         pieces.append(text[pos:])
         new = _place(Scalar("".join(pieces), '"', None), raw, raw.path)
         return (new, src, inherited + hops)
+
+    def _resolver(self, parts: tuple, src: tuple, raw: Node, target: str, inherited: list, whole: bool):
+        """``${name:args}``: an environment lookup with a default reads as its default (the environment
+        can change it at launch); any other resolver's value is known only at launch."""
+        m = _RESOLVER.fullmatch(target)
+        name, args = m[1], m[2]
+        dotted = ".".join(parts)
+        if name == "env" or name.endswith(".env"):
+            var, comma, default = args.partition(",")
+            var, default = var.strip(), default.strip()
+            if comma and "${" not in default:
+                if len(default) >= 2 and default[0] == default[-1] and default[0] in "'\"":
+                    default = default[1:-1]
+                self.c._problem(VALUE_UNKNOWN, f"{dotted}: ${{{target}}} reads the environment variable {var}: "
+                                               f"checked with its default {default!r}, which the environment can "
+                                               "change at launch", raw.location(), subject=f"{dotted}|{target}")
+                node = _place(GivenScalar(default, None, None), raw, raw.path)
+                hop = raw.location(f"{dotted} = ${{{target}}}: the default of environment variable {var}")
+                return (node, src, inherited + [hop])
+            why = f"${{{target}}} reads the environment variable {var}, known only at launch"
+        else:
+            why = f"${{{target}}} is computed by the resolver {name!r} of the launcher's config library at launch"
+        self.c._problem(VALUE_UNKNOWN, f"{dotted}: {why}", raw.location(), subject=f"{dotted}|{target}")
+        node = _place(Unknown(raw.text, raw.style, None), raw, raw.path)
+        node.why = why
+        return (node, src, inherited)
 
     def _lookup(self, parts: tuple, raw: Node, target: str):
         self.active.append((parts, raw))

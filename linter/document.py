@@ -134,8 +134,9 @@ class Document:
     problems: list[Problem] = field(default_factory=list)
     bom: str = ""  # a byte-order mark that preceded ``text`` in the file, if any
     encoding: str = "utf-8"
-    fmt: str = "yaml"  # yaml or json
+    fmt: str = "yaml"  # yaml, json or shell (a launch script)
     aliases: int = 0
+    runs: list = field(default_factory=list)  # a launch script's training commands (shell.LaunchRoot)
     # the other files a composed run of this document was built from (bases, the overrides file),
     # by shown path: the raw text of a node written there is read from them
     sources: dict[str, "Document"] = field(default_factory=dict)

@@ -411,10 +411,17 @@ def crash_finding(rule: Rule, path: str | None, exc: BaseException) -> Finding:
 
 
 def run_rule(rule: Rule, ctx: Context, path: str | None) -> tuple[list[Finding], bool]:
-    """(findings, crashed)."""
+    """(findings, crashed). A rule that asked for a concept whose value is known only at launch
+    (``RunModel.unknown``) reports nothing on that run: its answer would rest on a guess (the run's
+    CMP-9 note says what is unknown)."""
     try:
+        model = ctx.model
+        if model is not None and model.unknown:
+            model.touched = set()
         out = rule.check(ctx)
         found = [f.finish() for f in (out or ())]
+        if model is not None and model.unknown and model.touched and rule.id != "CMP-9":
+            return [], False
         return found, False
     except Exception as exc:
         return [crash_finding(rule, path, exc)], True

@@ -72,7 +72,11 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
     if not runs:
         return 1 if problems else 0
     for m in runs:
-        if len(runs) > 1:
+        script = m.doc.fmt == "shell"
+        if script:
+            cmd = m.doc.runs[m.index]
+            out.write(f"--- training command {m.index + 1}: {_t(cmd.what)} (line {cmd.program.location().line})\n")
+        elif len(runs) > 1:
             out.write(f"--- document {m.index + 1}\n")
         kind = "an RL run config" if m.is_rl else "not an RL run config (RL rules skip it)"
         given = any(v.location.path is None for v in m.values.values()) and m.version != "1.2"
@@ -84,7 +88,8 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
         width = max([len(c) for c in m.values] + [10])
         for name in sorted(m.values):
             v = m.values[name]
-            origin = f"{_t(v.location.label())}  {_t(v.key)}  [{_t(v.via)}]"
+            layer = m.roles.get(v.key)
+            origin = f"{_t(v.location.label())}  {_t(v.key)}  [{_t(v.via)}{'; ' + layer if layer else ''}]"
             if v.note:
                 origin += f"  ({_t(v.note)})"
             out.write(f"  {name:<{width}}  {_show(v.value):<16}  {origin}\n")
@@ -106,6 +111,10 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
             out.write("\nAmbiguous (set them in [tool.trimtab.keys]):\n")
             for name, locs in sorted(m.ambiguous.items()):
                 out.write(f"  {name}: " + "; ".join(f"{_t(l.key_path)} at {_t(l.label())}" for l in locs) + "\n")
-        missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous]
+        if m.unknown:
+            out.write("\nKnown only at launch (left out of the checks):\n")
+            for name, v in sorted(m.unknown.items()):
+                out.write(f"  {name}  {_t(v.location.label())}  {_t(v.key)}: {_t(v.note)}\n")
+        missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous and c not in m.unknown]
         out.write("\nNot found:\n" + _wrap(", ".join(missing)) + "\n")
     return 0

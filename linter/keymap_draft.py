@@ -415,10 +415,13 @@ def draft(runs, path: str) -> Draft:
                 d.placed.setdefault(concept, v.key)
                 taken.add(v.key)
     all_keys: dict[str, Node] = {}
+    from .shell import runs_of
+
     for m in runs:
-        if not m.doc.roots or m.index >= len(m.doc.roots):
+        roots = runs_of(m.doc)
+        if not roots or m.index >= len(roots):
             continue
-        root = m.doc.roots[m.index]
+        root = roots[m.index]
         for p, node in _keys(root):
             key = ".".join(p)
             if key in taken or any(key.startswith(t + ".") for t in taken):

@@ -77,6 +77,10 @@ class RunModel:
     settings: Any = None
     files: list[str] = field(default_factory=list)  # every file this run was composed from
     chains: dict[str, list[Location]] = field(default_factory=dict)  # key path -> origin chain (compose)
+    roles: dict[str, str] = field(default_factory=dict)  # key path -> the layer its value came from (compose)
+    notes: list = field(default_factory=list)  # values known only at launch (compose problems, note level)
+    unknown: dict[str, Value] = field(default_factory=dict)  # concepts whose value is known only at launch
+    touched: set = field(default_factory=set)  # unknown concepts a rule asked for (engine.run_rule)
 
     @property
     def path(self) -> str:
@@ -89,9 +93,13 @@ class RunModel:
 
     def get(self, concept: str) -> Value | None:
         v = self.values.get(concept)
+        if v is None and self.unknown and concept in self.unknown:
+            self.touched.add(concept)
         return v if v is not None else self.derived.get(concept)
 
     def stated(self, concept: str) -> Value | None:
+        if self.unknown and concept in self.unknown:
+            self.touched.add(concept)
         return self.values.get(concept)
 
     def value(self, concept: str, default=None):

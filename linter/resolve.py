@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from .compose import Unknown
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .arithmetic import Unit, settle
@@ -36,6 +37,8 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version)
     # A composed run's root carries, per dotted key path, the places a value passed through.
     model.chains = getattr(root, "chains", None) or {}
+    model.roles = getattr(root, "roles", None) or {}
+    model.notes = list(getattr(root, "notes", None) or [])
     leaves = list(_leaves(root))
     chains = {p: c for p, _n, c in reversed(leaves)}  # the first way each key path was reached
     taken: set[int] = set()
@@ -217,6 +220,9 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     if isinstance(node, (Mapping, Sequence)):
         if CONCEPTS[concept].type == "any":
             model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
+        return
+    if isinstance(node, Unknown):  # known only at launch: out of the run, never reasoned about
+        model.unknown[concept] = Value(concept, None, loc, node, via, key, chain, note=node.why)
         return
     value = node.value(model.version)
     v = Value(concept, value, loc, node, via, key, chain, raw=value)

@@ -17,7 +17,7 @@ def _tomllib():
         import tomli as tomllib
     return tomllib
 
-DEFAULT_INCLUDE = ["**/*.yaml", "**/*.yml", "**/*.json"]
+DEFAULT_INCLUDE = ["**/*.yaml", "**/*.yml", "**/*.json", "**/*.sh", "**/*.bash"]
 SCHEMA_PATH = Path(__file__).with_name("settings.schema.json")
 
 
@@ -55,6 +55,8 @@ class Settings:
     rules: dict[str, dict] = field(default_factory=dict)
     layers: list[dict] = field(default_factory=list)
     bases_key: str = ""
+    defaults_key: str = ""  # the key of a defaults list (composition of named files, config groups)
+    launch: dict = field(default_factory=dict)  # [launch]: how launch scripts are read (linter/shell.py)
     overrides: str = ""
     include_set: bool = False  # include was written in the settings file (not the default)
 
@@ -208,7 +210,7 @@ def _check_concepts(table: dict, path: Path, prefix: str) -> None:
 def build(table: dict, root: Path, path: Path | None = None, prefix: str = "") -> Settings:
     s = Settings(root=root, source=path, table=prefix)
     for name in ("include", "exclude", "gate", "yaml_version", "run_configs", "keymap", "search_roots",
-                 "import_depth", "accepted", "jobs", "rules", "layers", "bases_key", "overrides"):
+                 "import_depth", "accepted", "jobs", "rules", "layers", "bases_key", "overrides", "defaults_key", "launch"):
         if name in table:
             setattr(s, name, table[name])
     s.include_set = "include" in table

@@ -94,3 +94,34 @@ def composition_malformed(ctx):
 def override_adds_key(ctx):
     return _report(ctx, "compose-override-new")
 
+
+@rule(id="CMP-9", name="value-known-at-launch", level="note",
+      summary="A value of the run is known only when it launches (a launch script, a resolver).",
+      rationale=_LAYERS + "A launch script is read without running it: a command substitution, a variable the script "
+      "never sets (it comes from the caller's environment), the script's own arguments or a value set in a "
+      "loop cannot be known statically; nor can a resolver's value (`${name:args}`) other than an "
+      "environment lookup with a default, which reads as its default while the environment can change it. "
+      "Such a value is left out of the run, so no rule reasons about it (and none fires on a guess); this "
+      "note says where it is and what trimtab would need: write the number in the script or the config.",
+      rl_only=False)
+def value_known_at_launch(ctx):
+    seen = set()
+    for p in list(ctx.model.notes) + [p for p in ctx.doc.problems if p.kind == "compose-value-unknown"]:
+        key = (getattr(p, "path", None), p.line, p.col, p.message)
+        if key in seen:
+            continue
+        seen.add(key)
+        loc = Location(getattr(p, "path", None) or ctx.doc.path, p.line, p.col, getattr(p, "end_line", 0),
+                       getattr(p, "end_col", 0), key_path=getattr(p, "key_path", ""))
+        yield ctx.finding(p.message, loc, related=p.related, subject=getattr(p, "subject", "") or p.message)
+
+
+@rule(id="CMP-10", name="optional-default-missing", level="note",
+      summary="An optional entry of a defaults list names no file.",
+      rationale=_LAYERS + "A defaults list (setting defaults_key) composes the files it names in its order; an entry "
+      "marked optional may be absent, and the run is composed without it. The note says which file was "
+      "looked for, in case its absence is a typo rather than a choice.",
+      rl_only=False, scope="file")
+def optional_default_missing(ctx):
+    return _report(ctx, "compose-optional-missing")
+

@@ -90,6 +90,27 @@ def check():
     return check_json
 
 
+# Property tests (hypothesis): one settings profile for every property, selected here. In CI (CI=true)
+# the examples are derived from each test's name (derandomize: the same examples on every run, so a
+# failure is reproducible and nothing flakes) and each example has a deadline, generous against a slow
+# shared machine but short of a hang. Locally the examples are random (more coverage over many runs)
+# under the same deadline. A property that once caught a bug by chance keeps that case as an
+# @example beside it. Set HYPOTHESIS_PROFILE to choose a profile by hand.
+def _hypothesis_profiles() -> None:
+    from datetime import timedelta
+
+    from hypothesis import settings
+
+    deadline = timedelta(seconds=20)
+    settings.register_profile("ci", derandomize=True, deadline=deadline, print_blob=True)
+    settings.register_profile("dev", deadline=deadline)
+    ci = os.environ.get("CI", "").lower() in ("true", "1")
+    settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE") or ("ci" if ci else "dev"))
+
+
+_hypothesis_profiles()
+
+
 # Figures a test measures (counts, timings) for the terminal summary: ``MEASURED.append(text)``.
 MEASURED: list[str] = []
 

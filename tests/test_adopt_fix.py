@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import codecs
 import difflib
+import json
 from pathlib import Path
 
 import pytest
@@ -296,7 +297,7 @@ def exponent_numbers(draw):
     return f"{sign}{lead}{frac}{e}{esign}{exp}"
 
 
-@hsettings(max_examples=40, deadline=None)
+@hsettings(max_examples=40)
 @given(number=exponent_numbers(), pad=st.sampled_from(["", " ", "   "]),
        comment=st.sampled_from(["", "  # lr", " #: keep"]))
 def test_property_exponent_respelling_keeps_value_and_bytes(number, pad, comment):
@@ -367,3 +368,58 @@ def test_no_quoting_fix_where_the_boolean_may_be_meant(tmp_path):
     r = check_json(tmp_path / "run.yaml", args=["--only", "YML-3"], cwd=tmp_path)
     fixable = {f["location"]["line"]: f["fixable"] for f in r.findings}
     assert fixable == {3: True, 7: False}
+
+
+# --- every guard of the fixer, each on its own (a guard switched off must fail one of these) --------------
+def test_refuses_a_line_break_of_either_kind_in_the_new_text(tmp_path):
+    # A fix is one scalar on one line: a bare LF written into a CRLF file (or a CR into an LF file) would
+    # mix line endings and, for YAML, start a new line (YAML 1.2.2, section 5.4: CR and LF are line breaks).
+    crlf = "optim:\r\n  lr: 3e-6\r\n"
+    s, e = span(crlf, "3e-6")
+    for new in ("3.0e-6\n", "3.0e-6\r", "3.0e-6\r\n"):
+        [ff] = plan_for(tmp_path, crlf, [Edit("run.yaml", s, e, "3e-6", new)])
+        assert not ff.applied and "spans lines" in ff.refused[0][1], repr(new)
+    [ff] = plan_for(tmp_path, crlf, [Edit("run.yaml", s, e, "3e-6", "3.0e-6")])
+    assert ff.applied and b"\n" not in ff.after.replace(b"\r\n", b"")  # every line still ends CRLF
+
+
+def test_refuses_a_span_outside_the_file(tmp_path):
+    text = "optim:\n  lr: 3e-6\n"
+    for s, e in ((-1, 3), (len(text) - 1, len(text) + 4), (5, 5)):
+        [ff] = plan_for(tmp_path, text, [Edit("run.yaml", s, e, text[max(s, 0):e], "x")])
+        assert not ff.applied and "outside the file" in ff.refused[0][1], (s, e)
+
+
+def test_refuses_overlapping_and_conflicting_edits(tmp_path):
+    text = "optim:\n  lr: 3e-6\n"
+    s, e = span(text, "3e-6")
+    [ff] = plan_for(tmp_path, text, [Edit("run.yaml", s, e, "3e-6", "3.0e-6"),
+                                     Edit("run.yaml", s, e, "3e-6", "'3e-6'")])
+    assert len(ff.applied) == 1  # the first; the second is refused
+    assert [why for _f, why in ff.refused] == ["another fix edits the same scalar differently"]
+    # the same edit asked twice is one edit, applied for both findings
+    [ff] = plan_for(tmp_path, text, [Edit("run.yaml", s, e, "3e-6", "3.0e-6")] * 2)
+    assert len(ff.applied) == 2 and ff.refused == []
+
+
+@pytest.mark.parametrize("variant", ["as-is", "crlf"])
+def test_sarif_fix_replacements_applied_to_the_file_give_the_fixed_file(tmp_path, variant):
+    # SARIF 2.1.0, section 3.30 (region: charOffset / charLength, zero-based character offsets into the
+    # artifact) and 3.57 (replacement: deletedRegion, insertedContent; section numbers from memory).
+    # Applying the log's replacements to the file, as any SARIF consumer would, must give exactly what
+    # `--fix` writes.
+    original = ODD.read_text(encoding="utf-8")
+    if variant == "crlf":
+        original = original.replace("\n", "\r\n")
+    target = setup_repo(tmp_path, original.encode("utf-8"))
+    log = json.loads(run_cli("check", "--format", "sarif", "configs/wren-7b.yaml", cwd=tmp_path).out)
+    reps = [rep for res in log["runs"][0]["results"] for fx in res.get("fixes", ())
+            for change in fx["artifactChanges"] for rep in change["replacements"]]
+    assert len(reps) == len(EXPECTED)
+    text = target.read_bytes().decode("utf-8")  # newline="" semantics: every \r is a character
+    for rep in sorted(reps, key=lambda r: -r["deletedRegion"]["charOffset"]):
+        start = rep["deletedRegion"]["charOffset"]
+        text = text[:start] + rep["insertedContent"]["text"] + text[start + rep["deletedRegion"]["charLength"]:]
+    assert text == expected_text(original)
+    run_cli("check", "--fix", "configs/wren-7b.yaml", cwd=tmp_path)
+    assert target.read_bytes().decode("utf-8") == text

@@ -34,7 +34,7 @@ def test_critic_unused_points_at_the_estimator_too():
 _TEMPLATE = fx("ALG-2", "good.yaml").read_text()
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=25)
 @given(st.floats(min_value=-3, max_value=3, allow_nan=False))
 def test_gamma_outside_unit_interval_is_an_error(tmp_path_factory, x):
     text = f"{x:.6e}"  # a point and a signed exponent: the same float under YAML 1.1 and 1.2

@@ -92,7 +92,7 @@ def _bat(rows):
     return [f for f in res.findings if f.rule_id.startswith("BAT")], where, text
 
 
-_SETTINGS = settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+_SETTINGS = settings(max_examples=40, suppress_health_check=[HealthCheck.too_slow])
 
 
 @_SETTINGS

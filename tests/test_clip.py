@@ -1,6 +1,8 @@
 """CLP rules: ratio clipping and gradient-norm clipping."""
 from __future__ import annotations
 
+import re
+
 import pytest
 
 from support import check_json, run_cli
@@ -56,10 +58,16 @@ def test_lower_clip_of_one_is_acceptable_with_a_reason(tmp_path):
 def test_clip_rules_are_silent_without_their_inputs(tmp_path):
     # A REINFORCE run with no clip anywhere: no clipped objective, nothing to report.
     p = tmp_path / "r.yaml"
-    p.write_text(fx("CLP-1", "good.yaml").read_text().replace("grpo", "reinforce").replace(
-        "clip:\n  epsilon: 0.2\n", ""))
+    text = fx("CLP-1", "good.yaml").read_text().replace("grpo", "reinforce")
+    plain = re.sub(r"clip:\n  epsilon: 0\.2.*\n", "", text)
+    assert plain != text and "\nclip:" not in plain  # the clip section is gone
+    p.write_text(plain)
     r = check_json(p)
     assert [f for f in r.findings if f["rule"].startswith("CLP-")] == []
+    # ... but an upper or a dual clip written without the lower epsilon is a clipped objective
+    for extra in ("clip:\n  high: 0.28\n", "clip:\n  dual: 3.0\n"):
+        p.write_text(plain + extra)
+        assert [f["rule"] for f in check_json(p).findings if f["rule"] == "CLP-1"] == ["CLP-1"], extra
 
 
 @pytest.mark.parametrize("rule_id", [f"CLP-{n}" for n in range(1, 9)])

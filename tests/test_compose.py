@@ -363,7 +363,7 @@ def test_a_base_is_loaded_once_per_process(tmp_path):
 @given(st.lists(st.dictionaries(st.sampled_from("abc"), st.recursive(
     st.integers(0, 9), lambda kids: st.dictionaries(st.sampled_from("xyz"), kids, max_size=3), max_leaves=6),
     max_size=3), min_size=1, max_size=3))
-@hsettings(max_examples=40, deadline=None)
+@hsettings(max_examples=40)
 def test_merge_is_key_by_key_later_wins(layers):
     """Mappings merge key by key, later layers win, scalars replace whole (against a plain
     reference implementation of that merge)."""
@@ -434,7 +434,8 @@ def test_changed_overrides_file_rechecks_every_run():
 
 
 def test_two_keys_reaching_one_line_keep_their_own_chains(tmp_path):
-    # JSON is YAML 1.2 (YAML 1.2 of 2009, section 1.3 "Relation to JSON", from memory): the same composition applies to .json runs
+    # JSON is YAML 1.2 (YAML 1.2 of 2009, section 1.3 "Relation to JSON", from memory): the same
+    # composition applies to .json runs
     (tmp_path / "trimtab.toml").write_text('bases_key = "inherit"\n')
     (tmp_path / "base.json").write_text('{"algorithm": "grpo", "rollout": {"group_size": 8, "temperature": "warm"}}\n')
     (tmp_path / "exp.json").write_text('{"inherit": "base.json", "batch": {"prompts": 16},\n'
@@ -539,7 +540,7 @@ def _yaml(node, indent=0) -> str:
                 min_size=1, max_size=3),
        st.lists(st.tuples(st.sampled_from(["a", "b.x", "a.y.z", "rollout.n", "c.0"]), st.sampled_from(_TOKENS)),
                 max_size=2))
-@hsettings(max_examples=40, deadline=None)
+@hsettings(max_examples=40)
 def test_any_layering_composes_without_a_traceback(layers, sets):
     """Random layers with references (cycles, unknown targets, text), removal markers and --set values:
     composition and every rule finish; nothing crashes (a crash would be a TOOL-1 finding)."""

@@ -159,6 +159,16 @@ def test_acceptance_on_line_above(repo):
     assert check_json("run.yaml", cwd=repo).findings == []
 
 
+def test_acceptance_on_a_code_line_above_does_not_reach_the_next_line(repo):
+    # The line above counts only when it is a comment line; a trailing comment on a line of code belongs
+    # to that line (here it accepts nothing there, so it is reported unused and the finding stays).
+    write(repo, "run.yaml", RUN_CONFIG.replace("  coef: 0.04", "  coef: 0.04  # trimtab: accept YML-2 -- meant")
+          + "  coef: 0.05\n")
+    r = check_json("run.yaml", cwd=repo)
+    assert sorted(r.ids()) == ["ACC-2", "YML-2"]
+    assert r.of("YML-2")[0]["location"]["line"] == 10 and r.of("ACC-2")[0]["location"]["line"] == 9
+
+
 def test_acceptance_without_reason_is_a_finding_and_accepts_nothing(repo):
     write(repo, "run.yaml", RUN_CONFIG + "  coef: 0.05  # trimtab: accept YML-2\n")
     r = check_json("run.yaml", cwd=repo)

@@ -500,7 +500,7 @@ def mutated(draw):
 _FUZZ_DIR = None
 
 
-@hsettings(max_examples=300, deadline=None, suppress_health_check=list(HealthCheck), derandomize=True)
+@hsettings(max_examples=300, suppress_health_check=list(HealthCheck), derandomize=True)
 @given(data=mutated())
 def test_fuzzed_fixture_configs_never_crash(data):
     global _FUZZ_DIR

@@ -16,7 +16,7 @@ VALUES = ["0", "-1", "1", "0.5", "1.0e-6", "3e-6", "true", "false", "null", "non
           "out/a", "./out/a/"]
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=25)
 @given(st.dictionaries(st.sampled_from(CONCEPTS), st.sampled_from(VALUES), min_size=3, max_size=14))
 def test_no_rule_crashes(tmp_path_factory, chosen):
     body = "rollout:\n  group_size: 4\n  temperature: 1.0\n"

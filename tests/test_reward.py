@@ -202,7 +202,7 @@ _SOURCES = st.one_of(st.lists(_COMPONENT, max_size=4),
                      st.dictionaries(st.sampled_from(["a", "b", "c"]), _COMPONENT, max_size=3))
 
 
-@hsettings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@hsettings(max_examples=40, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(sources=_SOURCES)
 def test_any_reward_sources_shape_never_crashes(tmp_path, sources):
     import yaml
@@ -231,3 +231,41 @@ def test_parallel_jobs_give_the_same_findings():
     one = check_json(base, cwd=base)
     two = check_json(base, args=("--jobs", "2"), cwd=base)
     assert one.findings == two.findings and one.of("REW-1")
+
+
+# Loopback: "localhost" names (RFC 6761, section 6.3: localhost and names under .localhost resolve to the
+# loopback address; localhost.localdomain is common practice), 127.0.0.0/8 and ::1 (RFC 1122 section
+# 3.2.1.3; RFC 4291 section 2.5.3; section numbers from memory), as Python's ipaddress module reads them
+# (a general-purpose reference library). Everything else is a network host.
+@pytest.mark.parametrize("host, loopback", [
+    ("localhost", True), ("LOCALHOST", True), ("localhost.localdomain", True), ("grader.localhost", True),
+    ("127.0.0.1", True), ("127.1.2.3", True), ("127.255.255.254", True), ("[::1]", True),
+    ("[0:0:0:0:0:0:0:1]", True),
+    ("128.0.0.1", False), ("10.0.0.1", False), ("[::2]", False), ("localhost.evil.example", False),
+    ("notlocalhost", False), ("grader.lowfield.internal", False), ("126.255.255.255", False),
+])
+def test_rew3_loopback_host_forms(tmp_path, host, loopback):
+    text = (R / "REW-3" / "good.yaml").read_text()
+    assert "http://127.0.0.1:8080/score" in text
+    (tmp_path / "run.yaml").write_text(text.replace("http://127.0.0.1:8080/score", f"http://{host}:8080/score"))
+    found = check_json(tmp_path / "run.yaml").of("REW-3")
+    assert (found == []) is loopback, found
+
+
+def test_rew7_all_zero_needs_every_weight_numeric(tmp_path):
+    # "all weights are 0" only when every component has a numeric weight: a component without a weight, or
+    # with a text weight, may still pay out, so the zero weights are warnings, not the all-zero error.
+    base = (R / "REW-7" / "good.yaml").read_text()
+    assert "weight: 1.0" in base and "weight: 0.2" in base
+    cases = {
+        "no weight on the first": base.replace("    weight: 1.0\n", "").replace("weight: 0.2", "weight: 0"),
+        "text weight on the first": base.replace("weight: 1.0", "weight: high").replace("weight: 0.2", "weight: 0"),
+    }
+    for what, text in cases.items():
+        (tmp_path / "run.yaml").write_text(text)
+        res = check_json(tmp_path / "run.yaml").of("REW-7")
+        assert "all-zero" not in str(res) and not any("always 0" in f["message"] for f in res), what
+        assert any(f["level"] == "warning" and "weight 0 switches" in f["message"] for f in res), what
+    (tmp_path / "run.yaml").write_text(base.replace("weight: 1.0", "weight: 0").replace("weight: 0.2", "weight: 0.0"))
+    res = check_json(tmp_path / "run.yaml").of("REW-7")
+    assert [(f["level"], "always 0" in f["message"]) for f in res] == [("error", True)]

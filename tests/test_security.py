@@ -333,3 +333,32 @@ rewards:
     res = run_cli("explain", str(tmp_path / "run.yaml"), cwd=tmp_path)
     assert res.code == 0 and "grader.lowfield.internal/score" in res.out
     assert PLANTED[1] not in res.out + res.err
+
+
+def test_sarif_levels_are_the_rules_default_levels_and_the_findings_levels():
+    # SARIF 2.1.0, sections 3.49.14 (reportingDescriptor.defaultConfiguration) and 3.27.10 (result.level,
+    # one of none, note, warning, error; section numbers from memory). Each rule's default level is the
+    # one `trimtab rules` prints; each result's level is the finding's own (which may differ from the
+    # default, e.g. SMP-1's warning).
+    import re
+
+    R = FIXTURES / "rules"
+    paths = [R / "SMP-1" / "bad-small.yaml", R / "CLP-6" / "bad.yaml", R / "EXE-7" / "bad.yaml"]
+    log = _sarif(paths, FIXTURES.parent)
+    driver = log["runs"][0]["tool"]["driver"]["rules"]
+    assert len(driver) > 50
+    for d in driver:
+        printed = re.search(r"\(default level: (\w+)", run_cli("rules", d["id"]).out).group(1)
+        assert d["defaultConfiguration"]["level"] == printed, d["id"]
+        assert printed in ("note", "warning", "error")
+    as_json = check_json(*paths, cwd=FIXTURES.parent).findings
+    by_key = {(f["rule"], f["location"]["path"], f["location"]["line"], f["location"]["col"]): f["level"]
+              for f in as_json}
+    levels = []
+    for res in log["runs"][0]["results"]:
+        region = res["locations"][0]["physicalLocation"]["region"]
+        key = (res["ruleId"], res["locations"][0]["physicalLocation"]["artifactLocation"]["uri"],
+               region["startLine"], region["startColumn"])
+        assert res["level"] == by_key[key], key
+        levels.append((res["ruleId"], res["level"]))
+    assert ("SMP-1", "warning") in levels and ("CLP-6", "note") in levels and ("EXE-7", "error") in levels

@@ -183,3 +183,16 @@ def test_stated_units_give_the_same_findings_as_the_native_layout(run):
                        + f"  micro_batch_size: {written['batch.micro_per_gpu']}\n")
     assert mapped == n
     assert "BAT-9" not in {r for r, _l, _m in n + mapped}  # a stated unit is never in doubt
+
+
+def test_suggestions_are_in_the_keys_own_unit(tmp_path):
+    # a mini-batch counted in prompts (key map): 24 prompts x group size 8 = 192 completions, which do
+    # not divide 64 x 8 = 512 completions per step (512 = 2 x 192 + 128); the nearest mini-batches that
+    # divide the step in whole micro-batches on every rank are 128 and 256 completions: 16 and 32 prompts
+    (tmp_path / "trimtab.toml").write_text('[keys]\n"batch.mini" = { key = "train.mini_prompts", per = "prompt" }\n')
+    path = tmp_path / "run.yaml"
+    path.write_text("# invented run\nrun:\n  estimator: grpo\ncluster:\n  nodes: 1\n  gpus_per_node: 8\n"
+                    "batch:\n  prompts: 64\ntrain:\n  mini_prompts: 24\nrollout:\n  group_size: 8\n  temperature: 1.0\n")
+    (f,) = check_json(path, cwd=tmp_path).of("BAT-2")
+    assert "512 = 2 x 192 + 128" in f["message"]
+    assert "a mini-batch of 16 prompts (128 completions) or 32 prompts (256 completions)" in f["suggestion"]
