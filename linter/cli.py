@@ -174,6 +174,8 @@ def _given_paths_exist(args) -> None:
     for p in [paths] if isinstance(paths, str) else paths or []:
         if not os.path.lexists(p):
             raise SettingsError(f"{p}: no such file or folder")
+        if args.command in ("explain", "map") and os.path.isdir(p):
+            raise SettingsError(f"{p}: is a folder; {args.command} takes one run config file")
 
 
 def _settings(args):
@@ -337,10 +339,13 @@ def cmd_check(args) -> int:
     finally:
         if out is not sys.stdout:
             out.close()
-    skipped = f", {outcome.skipped} skipped as not run configs" if outcome.skipped else ""
+    total = len(outcome.files)
+    # the parts add up to the whole: "7 checked, 1 skipped as not run configs, of 8 file(s)"
+    files = (f"{total - outcome.skipped} checked, {outcome.skipped} skipped as not run configs, of {total} file(s)"
+             if outcome.skipped else f"{total} file(s) checked")
     extra = f"; {summary['hidden']} below {args.show} not shown" if args.show else ""
     extra += f"; {summary['accepted']} accepted" if summary["accepted"] else ""
-    print(f"trimtab: {len(outcome.files)} file(s) checked{skipped}; {counts['error']} error(s), "
+    print(f"trimtab: {files}; {counts['error']} error(s), "
           f"{counts['warning']} warning(s), {counts['note']} note(s){extra}", file=sys.stderr)
     return code
 

@@ -184,7 +184,8 @@ def other_entries(checker, checked, start: Path):
     files, _missing = discover([], root, settings.include, settings.exclude)
     limit = settings.limits.max_bytes
     stamp = _stamp(checker)
-    where = cache_file(start, hashlib.sha256((str(start) + stamp).encode("utf-8", "surrogateescape")).hexdigest()[:24])
+    # one cache per settings folder (the stamp inside it says what it was built for: a mismatch rebuilds it)
+    where = cache_file(start, hashlib.sha256(str(start).encode("utf-8", "surrogateescape")).hexdigest()[:24])
     cache = RunCache(where, stamp)
     hashes: dict[str, str | None] = {}
 
