@@ -155,9 +155,11 @@ class Checker:
                 if not model.is_rl:
                     # a document not read as a run: the rules about such documents (VOC-4), unless
                     # other files name it as a base (it is checked as part of the runs built on it)
-                    if self.rules("not-run") and not self.composer.named_as_base(shown):
-                        for r, opts, level in self.rules("not-run"):
-                            self._run(r, Context(r, model, doc, opts, level, settings=self.settings), shown, res)
+                    start = len(res.findings)
+                    for r, opts, level in self.rules("not-run"):
+                        self._run(r, Context(r, model, doc, opts, level, settings=self.settings), shown, res)
+                    if len(res.findings) > start and self.composer.named_as_base(shown):
+                        del res.findings[start:]  # a base: checked as part of the runs built on it
                     continue
                 res.runs += 1
                 is_rl_stage = model.stage == "rl"  # perf: once per run, not once per rule

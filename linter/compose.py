@@ -367,21 +367,11 @@ class Composer:
 
     def named_as_base(self, shown: str) -> bool:
         """Does some file of the repository build on this one (a base in the settings' layers, the
-        overrides file, or a file named under the bases key by another file)? Found once, lazily."""
+        overrides file, or a file another names as a base: under the bases key, in a defaults list,
+        in a launch script)? The search that finds a changed base's dependants (with_dependants)."""
         if shown in self.base_files:
             return True
-        if not self.bases_key:
-            return False
-        named = self.__dict__.get("_named")
-        if named is None:
-            from .discover import discover
-
-            named = set()
-            files, _missing = discover([], self.root, self.settings.include, self.settings.exclude)
-            for disk, _shown in files:
-                named |= {self._shown(b) for b in bases_named(Path(disk), self.bases_key, self.settings.limits)}
-            self.__dict__["_named"] = named
-        return shown in named
+        return any(s != shown for _p, s in with_dependants([], {shown}, self.settings))
 
     def _shown(self, path: Path) -> str:
         try:
@@ -1067,32 +1057,17 @@ class _Interp:
 
 
 # --- which files build on which: for pre-commit and CI ------------------------------------------
-def bases_named(real: Path, key: str, limits) -> list[Path]:
-    """The bases a file names under the settings' bases key (as paths beside it; not followed)."""
-    if not key:
-        return []
-    try:
-        data = real.read_bytes()[: limits.max_bytes]
-    except OSError:
-        return []
-    if key.encode("utf-8") not in data:
-        return []
-    root = real.parent
-    doc = load_source(real, real.as_posix(), limits)
-    out_paths = []
-    for r in doc.roots:
-        v = r.get(key) if isinstance(r, Mapping) else None
-        items = v.items if isinstance(v, Sequence) else [v] if v is not None else []
-        out_paths += [root / it.text.strip() for it in items if isinstance(it, Scalar)]
-    return out_paths
-
-
 def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> list[tuple[str, str]]:
     """``files`` plus every file of the repository whose bases (direct or through other bases)
     include one of ``seeds`` (shown paths, e.g. the files changed in a commit)."""
     layers = list(getattr(settings, "layers", []) or [])
     key = getattr(settings, "bases_key", "") or ""
-    if not seeds or (not layers and not key and not getattr(settings, "overrides", "")):
+    dkey = getattr(settings, "defaults_key", "") or ""
+    from .shell import SCRIPTS
+
+    scripts = (getattr(settings, "launch", None) or {}).get("scripts", SCRIPTS)
+    if not seeds or (not layers and not key and not dkey and not getattr(settings, "overrides", "") and not any(
+            s.lower().endswith((".yaml", ".yml", ".json")) for s in seeds)):
         return files
     from .discover import discover, matches
 
@@ -1115,7 +1090,50 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
             return None
 
     def named(real: Path) -> list[Path]:
-        return bases_named(real, key, settings.limits)
+        shown = shown_of(real)
+        if shown is not None and matches(shown, scripts):
+            return script_bases(real, shown)
+        if not key and not dkey:
+            return []
+        try:
+            data = real.read_bytes()[: settings.limits.max_bytes]
+        except OSError:
+            return []
+        if not any(k and k.encode("utf-8") in data for k in (key, dkey)):
+            return []
+        doc = load_source(real, shown or real.as_posix(), settings.limits)
+        out_paths = []
+        for r in doc.roots:
+            v = r.get(key) if key and isinstance(r, Mapping) else None
+            items = v.items if isinstance(v, Sequence) else [v] if v is not None else []
+            out_paths += [real.parent / it.text.strip() for it in items if isinstance(it, Scalar)]
+            d = r.get(dkey) if dkey and isinstance(r, Mapping) else None
+            for it in (d.items if isinstance(d, Sequence) else []):
+                e = _entry(it)
+                if isinstance(e, dict) and e["option"] is not None:
+                    rel = e["option"] if e["group"] is None else f"{e['group']}/{e['option']}"
+                    out_paths.append(real.parent / (rel if Path(rel).suffix else rel + ".yaml"))
+        return out_paths
+
+    def script_bases(real: Path, shown: str) -> list[Path]:
+        """The base configs a launch script's training commands name (read, never run)."""
+        from .shell import read
+
+        out_paths = []
+        for r in read(str(real), shown, settings).runs:
+            names = [w.text for w in r.bases if w.text is not None]
+            if r.config_name is not None and r.config_name.text is not None:
+                folder = r.config_dir.text if r.config_dir is not None and r.config_dir.text else ""
+                name = r.config_name.text if Path(r.config_name.text).suffix else r.config_name.text + ".yaml"
+                names.append(str(Path(folder) / name))
+            for text in names:
+                first = root / text
+                base = first if first.is_file() else real.parent / text
+                out_paths.append(base)
+                for _prefix, group, _pkg, value, _whole in r.choices:  # group=option: that group's file
+                    if value is not None and value.text:
+                        out_paths.append(base.parent / group / (value.text + ".yaml"))
+        return out_paths
 
     def closure(real: Path, shown: str, depth: int = 0) -> set[str]:
         if shown in memo:

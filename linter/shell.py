@@ -54,8 +54,9 @@ TOPOLOGY = {
     "cluster.world_size": ["num_processes", "nprocs", "np", "world_size"],
 }
 SOURCE_DEPTH = 4
-MAX_WORDS = 200_000  # words in one script, sourced scripts included
+MAX_WORDS = 50_000  # words in one script, sourced scripts included (a long launch script has ~2000)
 MAX_VALUE = 1 << 16  # characters of one variable's value
+MAX_SCRIPT = 1 << 19  # bytes of one launch script (a long one has a few kilobytes; shell words are costly)
 MAX_INT = (1 << 63) - 1  # shell arithmetic is 64-bit
 
 SHELLS = re.compile(r"^#!\s*\S*/(?:env\s+)?(?:ba|da|k|z)?sh\b")
@@ -65,6 +66,7 @@ _INTERP = re.compile(r"python[0-9.]*")
 _OVERRIDE = re.compile(r"(\+{0,2}|~)([A-Za-z_][\w\-]*(?:[./@][\w\-]+)*)(?:=(.*))?", re.S)
 _PARAM = re.compile(r"(#?)([A-Za-z_][A-Za-z0-9_]*|[0-9@*#?$!-])(?:(:?[-=+?])(.*))?", re.S)
 _PUNCT = ";&|<>()\n"
+_HEREDOC = re.compile(r"<<(-?)[ \t]*(['\"]?)([A-Za-z_0-9]+)\2")
 _PAD = "\U000F0000"  # placeholder filler (a private-use character)
 _BASE = 0xF0001  # placeholder k is chr(_BASE + k)
 _MAX_EXP = 0xFFFD - 1
@@ -248,7 +250,7 @@ def _mask(text: str) -> tuple[str, list[Exp]]:
             i = j
             continue
         elif c == "<" and text.startswith("<<", i) and not text.startswith("<<<", i):
-            m = re.match(r"<<(-?)\s*(['\"]?)([A-Za-z_0-9]+)\2", text[i:])
+            m = _HEREDOC.match(text, i)
             if m:
                 heredocs.append((m[3], bool(m[1])))
                 i += m.end()
@@ -558,6 +560,10 @@ class Reader:
                 if not why:
                     why, why_at = exc.why, exps[k].start
                 continue
+            except (RecursionError, MemoryError, ValueError, OverflowError):
+                if not why:
+                    why, why_at = f"{exps[k].raw[:40]} is too deep or too large to evaluate", exps[k].start
+                continue
             if len(value) > MAX_VALUE:
                 why, why_at = "the value is longer than trimtab reads", exps[k].start
                 continue
@@ -734,7 +740,7 @@ class Reader:
         if shown in self.sourced[-self.source_depth:] and shown == t.shown:
             return
         data, why = loader.read(str(real), self.limits)
-        if why or data is None or len(data) > self.limits.max_bytes:
+        if why or data is None or len(data) > min(self.limits.max_bytes, MAX_SCRIPT):
             self._note(w, t, f"the sourced script {w.text} {why or 'is too large'}; its variables are unknown")
             return
         self.sourced.append(shown)
@@ -995,15 +1001,16 @@ def _locate(node: Node, t: Text, start: int, end: int, path: tuple) -> Node:
 
 def _value_tree(w: Word, t: Text, path: tuple) -> Node:
     """The value the program reads from the text of an argument: YAML 1.2, as for --set."""
-    from . import loader
     from .compose import GivenScalar
 
     text = w.text or ""
-    doc = Document(path=t.shown)
-    if text.strip()[:1] in ("[", "{"):
+    if text.lstrip()[:1] in ("[", "{"):  # a flow list or mapping
+        from . import loader
+
+        doc = Document(path=t.shown)
         loader.parse_bytes(doc, text.encode("utf-8"), loader.Limits(max_bytes=1 << 16, max_depth=20))
-    if doc.roots and doc.readable and len(doc.roots) == 1 and not isinstance(doc.roots[0], Scalar):
-        return _relocate(doc.roots[0], w, t, path)
+        if doc.roots and doc.readable and len(doc.roots) == 1 and not isinstance(doc.roots[0], Scalar):
+            return _relocate(doc.roots[0], w, t, path)
     return _locate(GivenScalar(text, None, None), t, w.start, w.end, path)
 
 
@@ -1078,13 +1085,14 @@ def read(path: str, shown: str, settings, data: bytes | None = None) -> Document
         data, why = loader.read(path, limits)
         if why:
             return loader._fail(doc, "io", why)
-    if len(data) > limits.max_bytes:
-        return loader._fail(doc, "size", f"is larger than the size limit of {limits.max_bytes} bytes "
-                                         "(setting limits.max_bytes)")
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        return loader._fail(doc, "encoding", f"is not UTF-8 text (byte {exc.start})")
+    if len(data) > min(limits.max_bytes, MAX_SCRIPT):
+        return loader._fail(doc, "size", f"is larger than the size limit of {min(limits.max_bytes, MAX_SCRIPT)} "
+                                         "bytes for a launch script (setting limits.max_bytes, at most "
+                                         f"{MAX_SCRIPT} for scripts)")
+    # a script is read leniently: a stray byte in a comment does not make its commands unreadable
+    text = data.decode("utf-8", "replace")
+    if text.startswith("\ufeff"):
+        text = text[1:]
     doc.text = text
     root = Path(settings.root).resolve()
     reader = Reader(settings, root, limits)

@@ -13,8 +13,8 @@ from trimtab import arithmetic
 from trimtab.arithmetic import PARALLEL, either, judge, keymap_line, lcm, near_divisors, near_multiples, related, remainder
 
 _GROUP_RELATIVE_BASIS = ("Group-relative estimators sample a group of completions per prompt and use the "
-                         "group's statistics as the baseline (Shao et al. 2024, arXiv:2402.03300, section 4.2: 64 "
-                         "outputs per question and a training batch size of 1024; that the batch counts "
+                         "group's statistics as the baseline (Shao et al. 2024, arXiv:2402.03300, "
+                         "section 4.2, from memory: 64 outputs per question and a training batch size of 1024; that the batch counts "
                          "completions, 16 prompts of 64, is trimtab's reading, not the paper's words).")
 
 _NAMES = {

@@ -159,8 +159,8 @@ def kl_range(ctx):
 @rule(id="KL-6", name="kl-adaptive-no-horizon", level="warning", summary="An adaptive KL target is set without a horizon.",
       rationale="An adaptive KL controller moves the coefficient so that the measured KL approaches a target. Two "
       "published forms: the adaptive penalty of the clipped-objective paper (Schulman et al. 2017, "
-      "arXiv:1707.06347, section 4) halves or doubles the coefficient when the measured KL is below "
-      "target / 1.5 or above target x 1.5 (fixed thresholds, no horizon); the proportional controller "
+      "arXiv:1707.06347, section 4, from memory) halves or doubles the coefficient when the measured KL "
+      "is below target / 1.5 or above target x 1.5 (fixed thresholds, no horizon); the proportional controller "
       "of Ziegler et al. 2019 (arXiv:1909.08593, section 2.2, from memory) moves it by a gain times the "
       "clipped relative error; trainers commonly state that gain as a horizon, the number of samples "
       "over which the error is corrected (the horizon wording is common practice, from memory; the paper "

@@ -41,7 +41,8 @@ def test_bat3_micro_batch_remainder_suggests_mini_and_micro():
 
 def test_bat3_stated_accumulation_disagrees_with_the_implied_one():
     expect_one("BAT-3/bad-accum.yaml", "BAT-3", "error", 11, 15, "stated as 2",
-               "256 = 4 per GPU x 16 ranks x 4", suggestion="use 4 accumulation steps")
+               "256 = 4 per GPU x 16 ranks x 4",
+               suggestion="use 4 accumulation steps, or a mini-batch of 128")  # 4 x 16 x 2 as stated
 
 
 def test_bat3_in_generic_alias_layout():
@@ -88,6 +89,7 @@ def test_bat7_completions_cut_the_last_group():
 
 def test_bat7_group_split_across_ranks_and_mini_batches_are_warnings():
     expect_one("BAT-7/bad-ranks.yaml", "BAT-7", "warning", 8, 12, "8 per rank, not whole groups of 16",
+               "8 completions short on each",  # 16 - 8 % 16
                suggestion="16 prompts per step")
     expect_one("BAT-7/bad-mini.yaml", "BAT-7", "warning", 9, 9, "256 = 21 x 12 + 4", "8 completions short",
                suggestion="192 or 384")

@@ -199,3 +199,18 @@ rewards:
     assert at(res, "EXE-1") == [(18, 10)]  # only the component without its own sandbox
     assert "bare_tests" in res.of("EXE-1")[0]["message"]
     assert [f for f in res.findings if f["rule"].startswith("EXE") and f["rule"] != "EXE-1"] == []
+
+
+@pytest.mark.parametrize("n", [2, 3, 4])
+def test_sandbox_findings_name_up_to_three_code_rewards(tmp_path, n):
+    # Each sandbox finding points back at the code-executing rewards it concerns: all of them up to three,
+    # then the first three (the list stays short however many rewards share the sandbox).
+    rewards = "".join(f"  - name: tests_{i}\n    kind: code\n    ref: tidepool_unit_tests_{i}\n    weight: 1.0\n"
+                      for i in range(n))
+    (tmp_path / "run.yaml").write_text(
+        "run:\n  estimator: grpo\n  seed: 17\nrollout:\n  group_size: 8\n  temperature: 1.0\nkl_coef: 0.001\n"
+        f"rewards:\n{rewards}sandbox:\n  kind: container\n  network: false\n  memory_mb: 1024\n  processes: 16\n"
+        "  filesystem: read-only\n  user: sandbox\n  privileged: false\n")
+    (f,) = check_json(tmp_path / "run.yaml").of("EXE-3")
+    named = [r["message"] for r in f["related"] if r["message"].startswith("the code-executing reward")]
+    assert named == [f"the code-executing reward: reward 'tests_{i}'" for i in range(min(n, 3))]

@@ -299,3 +299,44 @@ def test_readme_launch_example_is_real():
     block = re.search(r"```console\n\$ trimtab check launch.sh --only BAT-2\n(.*?)```", section, re.S).group(1)
     out = run_cli("check", "launch.sh", "--only", "BAT-2", cwd=LAUNCH / "overrides").out
     assert block.splitlines() == out.splitlines()
+
+
+def test_a_changed_base_rechecks_the_scripts_that_launch_it(tmp_path):
+    """pre-commit passes the changed files: a staged base brings the launch scripts that name it,
+    and a defaults list brings the configs whose list names a changed entry."""
+    repo = tmp_path / "repo"
+    shutil.copytree(LAUNCH / "overrides", repo)
+    (repo / ".git").mkdir()
+    res = check_json("configs/base.yaml", cwd=repo)
+    assert res.json["summary"]["files"] == 2  # the base and launch.sh
+    assert [f["location"]["line"] for f in res.of("BAT-2") if f["location"]["path"] == "launch.sh"] == [22]
+    repo = tmp_path / "defaults"
+    shutil.copytree(LAUNCH / "defaults", repo)
+    (repo / ".git").mkdir()
+    res = check_json("configs/optim/sgd.yaml", cwd=repo)
+    assert res.json["summary"]["files"] == 2  # the entry and launch.sh, which chooses it
+    res = check_json("configs/sampler/wide.yaml", cwd=repo)
+    # the entry, the two configs whose lists name it, and launch.sh built on one of them (its own group
+    # choice replaces the entry, but the dependants are found without composing: one check too many)
+    assert res.json["summary"]["files"] == 4
+
+
+@pytest.mark.parametrize("text", [
+    "cat <<A\n" * 20000,  # here-documents that never end
+    "echo " + "$(" * 20000,  # command substitutions that never close
+    "X=a\n" + "X=$X$X\n" * 40 + "python t.py a.b=$X\n",  # a value that doubles forty times
+    "python t.py a=$((" + "(" * 900 + "1" + ")" * 900 + "))\n",  # arithmetic nested past the parser
+    "python t.py a=$((" + "1+" * 3000 + "1))\n",
+    "python t.py a=" + "${X:-" * 2000 + "1" + "}" * 2000 + "\n",  # defaults nested 2000 deep
+    "python t.py " + "a=1 " * 60000 + "\n",  # more words than trimtab reads
+    "x" * ((1 << 19) + 1),  # larger than a launch script may be
+])
+def test_hostile_scripts_are_read_in_bounded_time(tmp_path, text):
+    """Hostile scripts end with a value left unknown or a located problem, never a hang or a crash
+    (time is bounded by the word and size limits; measured, not asserted: tests/perf/bench.py)."""
+    from support import bounded
+
+    (tmp_path / "h.sh").write_text(text)
+    with bounded(60, "a hostile launch script"):
+        res = check_json(tmp_path / "h.sh", cwd=tmp_path)
+    assert res.code in (0, 1, 2) and "TOOL-1" not in res.ids()

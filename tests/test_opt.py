@@ -189,3 +189,18 @@ def test_shared_dir_of_many_runs_lists_a_bounded_number_of_them(tmp_path):
     assert all(f["message"].endswith("and 4 more; the runs overwrite each other's checkpoints and outputs")
                for f in found)
     assert all(f["location"]["line"] == 5 for f in found)
+
+
+@pytest.mark.parametrize("runs, tail", [(11, "run10.yaml; the runs"), (12, "and 1 more; the runs")])
+def test_shared_dir_listing_at_its_bound(tmp_path, runs, tail):
+    """At the bound (ten others to name) every partner is listed and no "and 0 more" follows; one
+    past it, the count of the rest appears."""
+    (tmp_path / ".git").mkdir()
+    for i in range(runs):
+        (tmp_path / f"run{i:02d}.yaml").write_text(
+            f"run: {{estimator: grpo, name: r{i}, seed: 1}}\nrollout: {{group_size: 8, temperature: 1.0}}\n"
+            "batch: {prompts: 64}\ncheckpoint:\n  dir: /ckpt/shared\n")
+    found = check_json(tmp_path, args=("--only", "OPT-4"), cwd=tmp_path).of("OPT-4")
+    assert len(found) == runs
+    first = next(f for f in found if f["location"]["path"] == "run00.yaml")
+    assert tail in first["message"] and "and 0 more" not in first["message"]

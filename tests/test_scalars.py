@@ -8,7 +8,7 @@ import pytest
 import yaml
 from ruamel.yaml import YAML
 
-from trimtab.scalars import same_value, type11, type12
+from trimtab.scalars import same_value, type11, type12, typed
 
 SCALARS = [
     # numbers as run configs write them
@@ -82,3 +82,29 @@ def test_sexagesimal_is_yaml11_only():
 def test_known_disagreements(text, disagree):
     # The design's examples: 3e-6, on/no, 010, 1:30 read differently; the others agree.
     assert (not same_value(type11(text), type12(text))) is disagree
+
+
+# Explicitly tagged scalars (YAML 1.2.2 section 6.9.1 node tags; the standard tags of the YAML type
+# repository): the tag, not the text's look, decides the type, quoted or not.
+TAGGED = [("!!int", '"12"'), ("!!int", "12"), ("!!float", "1"), ("!!float", '"1.5"'), ("!!float", "2"),
+          ("!!bool", '"true"'), ("!!null", '""'), ("!!null", "~"), ("!!str", "12"), ("!!str", "true"),
+          ("!!int", "0x1F")]
+
+
+def _node(text: str):
+    node = yaml.compose(f"v: {text}\n").value[0][1]
+    return node.value, node.style is None, node.tag
+
+
+@pytest.mark.parametrize("tag, text", TAGGED)
+def test_explicit_tags_match_pyyaml(tag, text):
+    raw, plain, full_tag = _node(f"{tag} {text}")
+    ours = typed(raw, plain, full_tag, "1.1")
+    assert _agree(ours, _pyyaml(f"{tag} {text}")), (tag, text, ours)
+
+
+@pytest.mark.parametrize("tag, text", [t for t in TAGGED if t[1] not in ("0x1F",)])
+def test_explicit_tags_match_ruamel(tag, text):
+    raw, plain, full_tag = _node(f"{tag} {text}")
+    ours = typed(raw, plain, full_tag, "1.2")
+    assert _agree(ours, _ruamel(f"{tag} {text}")), (tag, text, ours)

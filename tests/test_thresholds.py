@@ -146,6 +146,8 @@ CASES = [
     ("OPT-1", {"optim.lr": num(1e-4)}, None, LR),
     ("OPT-1", {"optim.lr": num(above(1e-4))}, "warning", LR),
     ("OPT-1", {"optim.lr": "0.0"}, "error", LR + "; 0 learns nothing"),
+    ("OPT-1", {"optim.lr": num(below(0.0))}, "error", LR + "; a negative rate climbs the loss"),
+    ("OPT-1", {"optim.lr": "-1.0e-6"}, "error", LR + "; a negative rate climbs the loss"),
     ("OPT-2", {"optim.warmup_steps": "99"}, None, WARM),
     ("OPT-2", {"optim.warmup_steps": "100"}, "warning", WARM),
     ("OPT-2", {"optim.warmup_steps": "101"}, "warning", WARM),
