@@ -371,7 +371,14 @@ class Composer:
         in a launch script)? The search that finds a changed base's dependants (with_dependants)."""
         if shown in self.base_files:
             return True
-        return any(s != shown for _p, s in with_dependants([], {shown}, self.settings))
+        # Only where the settings say how a file names its bases (else no file can name one), once per
+        # file: the search walks the repository as a changed base's check does.
+        if not (self.bases_key or self.layers or getattr(self.settings, "defaults_key", "")):
+            return False
+        memo = self.__dict__.setdefault("_named_as_base", {})
+        if shown not in memo:
+            memo[shown] = any(s != shown for _p, s in with_dependants([], {shown}, self.settings))
+        return memo[shown]
 
     def _shown(self, path: Path) -> str:
         try:

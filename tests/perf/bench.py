@@ -502,7 +502,8 @@ def hook_figures(table, tt, py, root: Path, n: int, repeat: int, clock: str) -> 
                GIT_COMMITTER_NAME="bench", GIT_COMMITTER_EMAIL="bench@example.invalid")
     for cmd in (["git", "init", "-q"], ["git", "add", "-A"], ["git", "commit", "-q", "-m", "corpus"]):
         subprocess.run(cmd, cwd=repo, env=env, check=True, capture_output=True)
-    one = sorted((repo / "configs").rglob("run-*.yaml"))[n // 2]
+    runs = sorted((repo / "configs").rglob("run-*.yaml"))
+    one = runs[len(runs) // 2]
     one.write_text(one.read_text(encoding="utf-8") + "# retuned\n", encoding="utf-8")
     rel = str(one.relative_to(repo))
     cache = repo / ".git" / "trimtab"
