@@ -404,8 +404,16 @@ def _summarise(real: Path, rel: str) -> ModuleInfo:
     except (ValueError, UnicodeDecodeError) as exc:
         info.error = f"is not Python source ({type(exc).__name__})"
         return info
+    except (RecursionError, MemoryError) as exc:
+        # 200,000 chained attributes, a sum of 300,000 terms: Python's parser gives up
+        info.error = f"nests too deeply for Python's parser to read ({type(exc).__name__}); not scanned"
+        return info
     lines = data.decode("utf-8", "replace").splitlines()
-    _Visitor(info, lines).run(tree)
+    try:
+        _Visitor(info, lines).run(tree)
+    except RecursionError:
+        info.error = "nests too deeply to scan (RecursionError); not scanned"
+        info.hits.clear()
     return info
 
 
@@ -474,20 +482,25 @@ class _Visitor:
                         self._top_level(s)
 
     def qualname(self, expr) -> str:
-        if isinstance(expr, ast.Name):
-            if expr.id in self.aliases:
-                return self.aliases[expr.id]
-            if expr.id in self.info.names:
-                return "<local>." + expr.id
-            for star in self.stars:
-                q = f"{star}.{expr.id}"
-                if q in CODE_RUNNERS or q in DESERIALISERS:
-                    return q
-            return expr.id
-        if isinstance(expr, ast.Attribute):
-            base = self.qualname(expr.value)
-            return f"{base}.{expr.attr}" if base else ""
-        return ""
+        attrs = []  # a chain of attributes is walked, not recursed into (it can be very long)
+        while isinstance(expr, ast.Attribute):
+            attrs.append(expr.attr)
+            expr = expr.value
+        if not isinstance(expr, ast.Name):
+            return ""
+        base = self._name(expr.id)
+        return ".".join([base, *reversed(attrs)]) if base else ""
+
+    def _name(self, name: str) -> str:
+        if name in self.aliases:
+            return self.aliases[name]
+        if name in self.info.names:
+            return "<local>." + name
+        for star in self.stars:
+            q = f"{star}.{name}"
+            if q in CODE_RUNNERS or q in DESERIALISERS:
+                return q
+        return name
 
     def _runner(self, call: ast.Call) -> str:
         q = self.qualname(call.func)

@@ -42,6 +42,7 @@ BASE_OUTSIDE = "compose-base-outside"
 OVERRIDE = "compose-override"
 MALFORMED = "compose-malformed"
 OVERRIDE_NEW = "compose-override-new"
+EXPANSION = "compose-expansion"
 OPTIONAL_MISSING = "compose-optional-missing"
 VALUE_UNKNOWN = "compose-value-unknown"  # a value known only at launch (a script, a resolver)
 
@@ -51,6 +52,12 @@ _PATH = re.compile(r"[A-Za-z0-9_\-]+(?:\.[A-Za-z0-9_\-]+)*")
 _RESOLVER = re.compile(r"([A-Za-z_][\w.\-]*)\s*:(.*)", re.S)  # ${name:args}
 _ENV = re.compile(r"[A-Z_][A-Z0-9_]*")  # ${HOME}: an environment variable, not a key of the run
 _MAX_DEPTH = 64
+# Bounds on what references may build in one run (a file of a few lines can otherwise ask for an
+# exponential amount: ``a: ${b}${b}``, ``b: ${c}${c}`` ... doubles the text at each level, and
+# sections that refer to sections double the tree). Past a bound the reference stays unresolved
+# and CMP-9 reports it.
+MAX_EXPANDED_TEXT = 1_000_000  # characters of text written by references, in all
+MAX_COPIED_VALUES = 10_000  # keys and items copied from sections reached through references
 
 
 @dataclass
@@ -460,6 +467,7 @@ class Composer:
     # --- bases -----------------------------------------------------------------------------------
     def _layers(self, doc: Document, root: Node, path: str) -> list[tuple[str, Document, Mapping]]:
         out: list[tuple[str, Document, Mapping]] = []
+        self._blocks: dict[Path, list] = {}  # base -> the layers it gave, for this run (see _add_base)
         from .shell import LaunchRoot
 
         if isinstance(root, LaunchRoot):
@@ -523,6 +531,18 @@ class Composer:
 
     def _add_base(self, real: Path, name: str, naming: Location, related: list, stack: list, out: list,
                   choices=None) -> None:
+        # A base named again (not through a cycle) is not expanded again: the layers it gave the first
+        # time move to the end, as applying it again would leave them (a later application overwrites
+        # everything an earlier one set). Bases that each name the same base twice then cost one
+        # visit per base, not two to the power of the depth.
+        key = self._where(real)[0]
+        block = self._blocks.get(key) if choices is None else None
+        if block is not None and all(r != key for r, _s in stack):
+            moved = {id(layer) for layer in block}
+            out[:] = [layer for layer in out if id(layer) not in moved]
+            out.extend(block)
+            return
+        start = len(out)
         opened = self._open(real, name, naming, related, stack)
         if opened is None:
             return
@@ -532,6 +552,8 @@ class Composer:
             self._add_base(real.parent / sub, sub, node.location(), [], stack, out)
         self._with_defaults(bdoc, broot, shown_real, "base", stack, out, choices)
         stack.pop()
+        if choices is None:
+            self._blocks[key] = out[start:]
 
     def _open(self, real: Path, name: str, naming: Location, related: list, stack: list, optional: bool = False):
         """(document, root mapping, resolved path, shown path) of a file a run is composed from, or None
@@ -852,6 +874,10 @@ class _Interp:
         self.cyclic: set[tuple] = set()
         self.chains: dict[str, list[Location]] = {}
         self._paths: list[str] | None = None
+        self.text_left = MAX_EXPANDED_TEXT
+        self.copies_left = MAX_COPIED_VALUES
+        self.expanding: dict[tuple, tuple] = {}  # source path of each section being copied -> its path
+        self.over: set[str] = set()  # the limits already reported
 
     def at(self, parts: tuple):
         """(resolved node, path where its history lives, extra chain hops), or None."""
@@ -907,6 +933,9 @@ class _Interp:
             if p == parts:
                 self._cycle(i, parts, raw)
                 return _CYCLIC
+        if len(self.active) >= _MAX_DEPTH:
+            self._over(raw, parts, f"references lead through more than {_MAX_DEPTH} other references")
+            return plain
         text = raw.text
         dotted = ".".join(parts)
         whole = _WHOLE.fullmatch(text.strip())
@@ -955,6 +984,8 @@ class _Interp:
                 pieces.append(m[0])
                 continue
             (tn, _tsrc, _thops), tparts = found
+            if isinstance(tn, Unresolved):
+                return plain  # the target has no value (a cycle, a limit): neither has this text
             if not isinstance(tn, Scalar):
                 self.c._problem(MALFORMED, f"{dotted}: ${{{target}}} inside text refers to {_show(tn)}, which "
                                            "cannot be written into text", raw.location(), subject=target)
@@ -965,6 +996,11 @@ class _Interp:
         if not changed:
             return (raw, src, inherited)  # nothing of ours in it (${HOME}, ${{ ci.syntax }}): as written
         pieces.append(text[pos:])
+        size = sum(map(len, pieces))
+        if size > self.text_left:
+            self._over(raw, parts, f"references expand to more than {MAX_EXPANDED_TEXT} characters of text")
+            return plain
+        self.text_left -= size
         new = _place(Scalar("".join(pieces), '"', None), raw, raw.path)
         return (new, src, inherited + hops)
 
@@ -1018,6 +1054,14 @@ class _Interp:
         self.c._problem(CYCLE, f"interpolation cycle: {shown}", members[0][1].location(), related,
                         subject=shown)
 
+    def _over(self, raw: Node, parts: tuple, what: str) -> None:
+        if what in self.over:
+            return  # each limit is reported once per run, where it was first passed
+        self.over.add(what)
+        key = ".".join(raw.path or parts)  # the key that holds the reference, as written
+        self.c._problem(EXPANSION, f"{key}: {what} (trimtab's limit); the value is left unresolved",
+                        raw.location(), subject=key)
+
     def paths(self) -> list[str]:
         if self._paths is None:
             out, stack = [], [((), self.root)]
@@ -1030,7 +1074,7 @@ class _Interp:
             self._paths = out
         return self._paths
 
-    def rebuild(self, parts: tuple, depth: int) -> Node:
+    def rebuild(self, parts: tuple, depth: int, copying: bool = False) -> Node:
         r = self.at(parts)
         if r is None:  # cannot happen for a path taken from the tree; keep the raw node
             return _child(self.at(parts[:-1])[0], parts[-1])
@@ -1042,25 +1086,59 @@ class _Interp:
             self.chains[".".join(parts)] = chain
         if depth > _MAX_DEPTH:
             return node
-        if isinstance(node, Mapping):
-            pairs, changed = [], bool(node.merged)
-            for name, k, v, _via in node.entries():
-                c = self.rebuild(parts + (name,), depth + 1)
-                pairs.append((k, c))
-                changed = changed or c is not v
-            if not changed:
-                return node
-            out = _place(Mapping(), node, parts)
-            out.pairs = pairs
-            return out
-        if isinstance(node, Sequence):
-            items = [self.rebuild(parts + (str(i),), depth + 1) for i in range(len(node.items))]
+        copying = copying or src != parts
+        if copying:
+            self.copies_left -= 1
+            if self.copies_left < 0:
+                if self.copies_left == -1:
+                    self._over(self._referring(parts, node), parts,
+                               f"references copy more than {MAX_COPIED_VALUES} keys and items from sections")
+                return _place(Unresolved(_show(node), None, None), node, parts)
+        if not isinstance(node, (Mapping, Sequence)):
+            return node
+        if src in self.expanding:
+            # the section at src is being copied already, further up this path: a cycle through sections
+            self._section_cycle(parts, src, node)
+            return _place(Unresolved(_show(node), None, None), node, parts)
+        self.expanding[src] = parts
+        try:
+            if isinstance(node, Mapping):
+                pairs, changed = [], bool(node.merged)
+                for name, k, v, _via in node.entries():
+                    c = self.rebuild(parts + (name,), depth + 1, copying)
+                    pairs.append((k, c))
+                    changed = changed or c is not v
+                if not changed:
+                    return node
+                out = _place(Mapping(), node, parts)
+                out.pairs = pairs
+                return out
+            items = [self.rebuild(parts + (str(i),), depth + 1, copying) for i in range(len(node.items))]
             if all(a is b for a, b in zip(items, node.items)):
                 return node
             out = _place(Sequence(), node, parts)
             out.items = items
             return out
+        finally:
+            del self.expanding[src]
+
+    def _referring(self, parts: tuple, node: Node) -> Node:
+        """The written ``${...}`` nearest above the value at ``parts`` (the one that brought it), else
+        the value."""
+        for k in range(len(parts), 0, -1):
+            parent = self.at(parts[:k - 1])
+            raw = _child(parent[0], parts[k - 1]) if parent is not None else None
+            if isinstance(raw, Scalar) and "${" in raw.text:
+                return raw
         return node
+
+    def _section_cycle(self, parts: tuple, src: tuple, node: Node) -> None:
+        order = list(self.expanding)
+        members = [".".join(p) or "the top level" for p in order[order.index(src):]] + [".".join(src)]
+        shown = " -> ".join(members)
+        self.c._problem(CYCLE, f"interpolation cycle through sections: {shown} (a section reached through "
+                               f"references refers back to itself, so it never ends)",
+                        self._referring(parts, node).location(), subject=shown)
 
 
 # --- which files build on which: for pre-commit and CI ------------------------------------------

@@ -14,13 +14,14 @@ import stat
 import warnings
 from dataclasses import dataclass
 
+from . import scalars
 from .document import Document, Mapping, Node, Problem, Scalar, Sequence, key_text
 from .findings import Location
 
 
 @dataclass(frozen=True)
 class Limits:
-    max_bytes: int = 10 * 1024 * 1024
+    max_bytes: int = 4 * 1024 * 1024  # 4 MiB: a file costs time per value it holds (docs/hostile-input.md)
     max_depth: int = 200
     max_aliases: int = 1000
 
@@ -402,6 +403,9 @@ def _tag(raw_tag) -> str:
     return getattr(raw_tag, "value", raw_tag) or ""
 
 
+MAX_NUMBER_PROBLEMS = 10  # integers past the limit reported per document
+
+
 class _Builder:
     """Turns a parser node graph into located trimtab nodes, each parser node once.
 
@@ -416,6 +420,7 @@ class _Builder:
         self.engine = engine
         self.memo: dict[int, Node] = {}
         self.aliases = 0
+        self.numbers = 0
         self.failed = False
         # empty plain scalars inside flow mappings: (node, "key" | "value")
         self.empties: list[tuple[Scalar, str]] = []
@@ -492,6 +497,8 @@ class _Builder:
                     tag = "!" if m.group(1) == "!" else _tag(raw.tag)
             node: Node = Scalar(raw.value, raw.style or None, tag)
             self._place(node, raw, path)
+            if len(raw.value) > scalars.MAX_INT_TEXT and node.plain and tag is None and scalars.oversized(raw.value):
+                self._oversized(node)
             if node.anchor is not None:  # only an anchored scalar can be met again (an alias)
                 self.memo[id(raw)] = node
             if role and not raw.value and node.plain and node.start == node.end and not node.anchor:
@@ -538,6 +545,16 @@ class _Builder:
                 else:
                     first[name] = k
         return node
+
+    def _oversized(self, node: Scalar) -> None:
+        self.numbers += 1
+        if self.numbers > MAX_NUMBER_PROBLEMS:
+            return  # a file of thousands of them: the first few are reported
+        text = node.text
+        shown = text if len(text) <= 24 else f"{text[:12]}...{text[-6:]}"
+        self.doc.problems.append(Problem(
+            "number", f"the integer {shown} ({len(text)} characters) is past trimtab's limit (10^30): it is "
+            "read as text, and nothing that depends on it is checked", node.line, node.col))
 
     def _merge(self, node: Mapping, key: Scalar, value: Node) -> None:
         sources = value.items if isinstance(value, Sequence) else [value]

@@ -44,7 +44,7 @@ _NOT_CRED_TEXT = (r"(^|_)(max|min|num|n|pad|eos|bos|unk|sep|cls|mask|start|end|s
                   r"image|vision|audio|chat|tokens?_id|id)_token(s)?$|_tokens?_(id|ids|count|limit)$|"
                   r"^tokens?$|tokenizer|_length$|_len$|_file$|_path$|_env$|_var$|_name$", 0)
 
-_ENV_REF_TEXT = (r"\$\{[^}]*\}|^\$[A-Za-z_]\w*$|^%\(?[A-Za-z_]\w*\)?s?%?$|^env:|^\{\{.*\}\}$|"
+_ENV_REF_TEXT = (r"^\$[A-Za-z_]\w*$|^%\(?[A-Za-z_]\w*\)?s?%?$|^env:|^\{\{.*\}\}$|"
                  r"os\.environ|^oc\.env|^secret:|^vault:|^file:|^@", re.I)
 _PLACEHOLDER_TEXT = (r"^(x+|\*+|\.+|-+|_+|#+|<[^>]*>|\[[^\]]*\]|changeme|change[_-]?me|replace[_-]?me|"
                      r"todo|tbd|fixme|none|null|nil|redacted|placeholder|dummy|example\w*|your[_-].*|"
@@ -128,7 +128,15 @@ def literal(text: str) -> bool:
     """A value written out, not an environment reference, a placeholder or a path."""
     t = text.strip()
     _n, env, placeholder, _s, _w = _patterns()
-    return bool(t) and not env.search(t) and not placeholder.match(t) and not t.startswith(("/", "./", "~"))
+    return bool(t) and not _refers(t, env) and not placeholder.match(t) and not t.startswith(("/", "./", "~"))
+
+
+def _refers(text: str, env) -> bool:
+    """A reference to the environment or a secret store (``${NAME}``, ``$NAME``, ``env:``...). A
+    ``${`` with a ``}`` somewhere after it is found with two string searches: the pattern
+    ``\\$\\{[^}]*\\}``, tried at every ``${`` of a long line, was quadratic."""
+    start = text.find("${")
+    return start >= 0 and text.find("}", start + 2) >= 0 or bool(env.search(text))
 
 
 def reason(key: str, node, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> str:

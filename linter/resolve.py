@@ -56,11 +56,12 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     # once per section, and each key word once per file
     words: dict[str, str] = {}
     sections: dict[tuple, list[str]] = {}
+    inside: dict[tuple, bool] = {}
     for path, node, _chain in leaves:
         if id(node) in taken:
             continue
         # keys inside one reward component are its fields, not concepts of the run
-        if _inside_sources(path, sources_key):
+        if _inside_sources(path, sources_key, inside):
             continue
         leaf = words.get(path[-1])
         if leaf is None:
@@ -124,17 +125,37 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
 REVISIT_BUDGET = 500
 
 
-def _inside_sources(path: tuple, sources_key: tuple | None) -> bool:
-    """A key inside one reward component (a field of reward.sources, not a concept of the run)."""
-    for i in range(len(path) - 1):
-        if sources_key is not None and path[:i + 1] == sources_key:
+def _inside_sources(path: tuple, sources_key: tuple | None, memo: dict) -> bool:
+    """A key inside one reward component (a field of reward.sources, not a concept of the run).
+    ``memo`` holds the answer per section (key path) of one run: linear in the depth of nesting."""
+    return _sources_section(path[:-1], sources_key, memo) if path else False
+
+
+def _sources_section(section: tuple, sources_key: tuple | None, memo: dict) -> bool:
+    """Is ``section``, or a section above it, a reward-sources list (each answer memoised)?"""
+    todo = []
+    while section and section not in memo:
+        todo.append(section)
+        section = section[:-1]
+    found = memo.get(section, False)
+    for s in reversed(todo):  # the shallowest first
+        if not found:
+            found = sources_key is not None and s == sources_key or _names_sources(s)
+        memo[s] = found
+    return found
+
+
+def _names_sources(section: tuple) -> bool:
+    """Does the last key of ``section`` name the reward sources, given the sections above it?"""
+    aliases = [a for a in ALIASES.get(normalise_key(section[-1]), ()) if a.concept == "reward.sources"]
+    if not aliases:
+        return False
+    parents = [normalise_key(p) for p in section[:-1] if not p.isdigit()]
+    for alias in aliases:
+        if alias.not_under and any(p in alias.not_under for p in parents):
+            continue
+        if not alias.under or parents and parents[-1] in alias.under:
             return True
-        parents = [normalise_key(p) for p in path[:i] if not p.isdigit()]
-        for alias in ALIASES.get(normalise_key(path[i]), ()):
-            if alias.concept != "reward.sources" or alias.not_under and any(p in alias.not_under for p in parents):
-                continue
-            if not alias.under or parents and parents[-1] in alias.under:
-                return True
     return False
 
 

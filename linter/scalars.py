@@ -10,6 +10,32 @@ from __future__ import annotations
 import math
 import re
 
+# Integers at or past this magnitude are not read as numbers (they stay text, and the loader
+# reports them: YML-5). Python cannot print an integer of more than 4300 digits, converting a long
+# literal costs time quadratic in its length, and no count, size or seed of a run comes near it.
+MAX_INT = 10 ** 30
+MAX_INT_TEXT = 26  # a plain scalar of at most this many characters never reads as an integer past MAX_INT
+_MAX_DIGITS = 120  # longer digit strings (leading zeros and '_' aside) are past MAX_INT in any base
+
+
+def _whole(digits: str, base: int):
+    """int(digits, base) when below MAX_INT, else None (never converts a long literal)."""
+    digits = digits.lstrip("0") or "0"
+    if len(digits) > _MAX_DIGITS:
+        return None
+    value = int(digits, base)
+    return value if value < MAX_INT else None
+
+
+def oversized(text: str) -> bool:
+    """Does a plain scalar read, under YAML 1.1 or 1.2, as an integer too large for trimtab?"""
+    if len(text) <= MAX_INT_TEXT:
+        return False
+    return (bool(_N11_INT.fullmatch(text)) and isinstance(type11(text), str)) or (
+        bool(_N12_INT10.fullmatch(text) or _N12_INT8.fullmatch(text) or _N12_INT16.fullmatch(text))
+        and isinstance(type12(text), str))
+
+
 # --- YAML 1.2 core schema ---------------------------------------------------------------
 _N12_NULL = re.compile(r"null|Null|NULL|~|")
 _N12_TRUE = re.compile(r"true|True|TRUE")
@@ -31,11 +57,14 @@ def type12(text: str):
     if _N12_FALSE.fullmatch(text):
         return False
     if _N12_INT10.fullmatch(text):
-        return int(text)
+        v = _whole(text.lstrip("+-"), 10)
+        return text if v is None else -v if text[0] == "-" else v
     if _N12_INT8.fullmatch(text):
-        return int(text[2:], 8)
+        v = _whole(text[2:], 8)
+        return text if v is None else v
     if _N12_INT16.fullmatch(text):
-        return int(text[2:], 16)
+        v = _whole(text[2:], 16)
+        return text if v is None else v
     if _N12_FLOAT.fullmatch(text):
         return float(text)
     if _N12_INF.fullmatch(text):
@@ -67,9 +96,13 @@ _N11_TIMESTAMP = re.compile(
 def _sexagesimal(text: str, cast):
     sign = -1 if text[0] == "-" else 1
     parts = text.lstrip("+-").split(":")
+    if cast is int and len(parts) > 20:  # 60 ** 17 > MAX_INT already
+        return None
     value = 0
     for part in parts:
         value = value * 60 + cast(part)
+    if cast is int and value >= MAX_INT:
+        return None
     return sign * value
 
 
@@ -86,14 +119,16 @@ def type11(text: str):
         sign = -1 if clean[0] == "-" else 1
         body = clean.lstrip("+-")
         if ":" in body:
-            return sign * _sexagesimal(body, int)
-        if body.startswith("0b"):
-            return sign * int(body[2:], 2)
-        if body.startswith("0x"):
-            return sign * int(body[2:], 16)
-        if len(body) > 1 and body[0] == "0":
-            return sign * int(body, 8)
-        return sign * int(body)
+            v = _sexagesimal(body, int)
+        elif body.startswith("0b"):
+            v = _whole(body[2:], 2)
+        elif body.startswith("0x"):
+            v = _whole(body[2:], 16)
+        elif len(body) > 1 and body[0] == "0":
+            v = _whole(body, 8)
+        else:
+            v = _whole(body, 10)
+        return text if v is None else sign * v
     if _N11_FLOAT.fullmatch(text):
         clean = text.replace("_", "").lower()
         if clean.endswith(".inf"):
@@ -144,8 +179,8 @@ _EXPLICIT = {
 
 def typed(text: str, plain: bool, tag: str | None, version: str):
     """Type a scalar. Quoted and block scalars are strings unless explicitly tagged;
-    an explicit standard tag types the text as that tag. An integer too long for the
-    interpreter to convert (over 4300 digits) stays text rather than stopping the check."""
+    an explicit standard tag types the text as that tag. An integer of MAX_INT or more stays text
+    (the loader reports it) rather than stopping the check."""
     try:
         return _typed(text, plain, tag, version)
     except ValueError:

@@ -1106,6 +1106,9 @@ def read(path: str, shown: str, settings, data: bytes | None = None) -> Document
             continue
         doc.problems.append(CompositionProblem(kind, message, where.line, where.col, [], where.path, where.end_line,
                                                where.end_col, where.key_path, subject))
+    from .redact import learn  # every output masks the credentials of every file read (trimtab.redact)
+
+    learn(doc)
     return doc
 
 

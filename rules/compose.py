@@ -125,3 +125,15 @@ def value_known_at_launch(ctx):
 def optional_default_missing(ctx):
     return _report(ctx, "compose-optional-missing")
 
+
+@rule(id="CMP-11", name="reference-expansion-over-limit", level="error",
+      summary="`${...}` references expand past trimtab's limit.",
+      rationale=_LAYERS + "A few lines of references can ask for an exponential amount of text or values "
+      "(`a: ${b}${b}`, `b: ${c}${c}`, ... doubles the text at each level; sections that refer to sections double "
+      "the tree). trimtab stops at its limits (a million characters of text written by references in one run, "
+      "ten thousand keys and items copied from sections, references leading through 64 others) and leaves the "
+      "value unresolved, so the rules that need it stay silent; the launcher's own resolver would build the "
+      "same amount, or stop. The finding points at the reference where the limit was passed.",
+      rl_only=False, scope="file")
+def expansion_over_limit(ctx):
+    return _report(ctx, "compose-expansion")

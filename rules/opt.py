@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 import posixpath
-from itertools import groupby
+from itertools import groupby, islice
 from operator import itemgetter
 
 from trimtab import Location, rule
@@ -144,18 +144,21 @@ def _clashes(ctx, claims):
             entry, concept = members[0]
             v = entry.values[concept]
             here = {id(e) for e, _c in members}
-            others = [(e, c) for e, c in group if id(e) not in here]
-            # Bounded: a directory shared by many runs lists the first few of them, so the report
-            # stays linear in the number of runs.
+            # Bounded: a directory shared by many runs lists the first few of them, and each place
+            # looks only at its own runs and the first few others, so the rule stays linear in the
+            # number of runs even when every run writes the directory at a line of its own.
+            others = list(islice(((e, c) for e, c in group if id(e) not in here), MAX_LISTED))
+            n_others = len(group) - len(members)
             related = [e.values[c].location.with_message(f"the same directory ({c}{_doc(e)})")
-                       for e, c in others[:MAX_LISTED]]
+                       for e, c in others]
             related += [Location(e.path, 0, 0, message=f"in the run composed from {_label(e)}")
                         for e, _c in members[:MAX_LISTED] if e.path != v.location.path]
             if len(members) == 1:
-                text = f"{concept} = {v.value}: also written to by {_listing([_label(e) for e, _c in others])}"
+                text = (f"{concept} = {v.value}: also written to by "
+                        f"{_listing([_label(e) for e, _c in others], n_others)}")
             else:
-                runs = [_label(e) for e, _c in members] + [_label(e) for e, _c in others]
-                text = f"{concept} = {v.value} is written to by {len(runs)} runs ({_listing(runs)})"
+                runs = [_label(e) for e, _c in members[:MAX_LISTED]] + [_label(e) for e, _c in others]
+                text = f"{concept} = {v.value} is written to by {len(group)} runs ({_listing(runs, len(group))})"
             yield ctx.finding(text + "; the runs overwrite each other's checkpoints and outputs", v.location,
                               related=related, subject=d)
 
@@ -163,9 +166,11 @@ def _clashes(ctx, claims):
 MAX_LISTED = 10
 
 
-def _listing(labels: list[str]) -> str:
+def _listing(labels: list[str], total: int | None = None) -> str:
+    """The first labels, and how many more of ``total`` (default: all of them are given)."""
+    total = len(labels) if total is None else total
     shown = ", ".join(labels[:MAX_LISTED])
-    return shown + (f" and {len(labels) - MAX_LISTED} more" if len(labels) > MAX_LISTED else "")
+    return shown + (f" and {total - MAX_LISTED} more" if total > MAX_LISTED else "")
 
 
 def _doc(entry) -> str:

@@ -2,11 +2,13 @@
 reward comes from, how a remote reward is reached, the weights, and the answer-format pattern."""
 from __future__ import annotations
 
+import functools
 import os
 import re
+from dataclasses import dataclass
 from pathlib import Path
 
-from trimtab import Location, Scalar, rule
+from trimtab import Location, Scalar, budget, rule
 
 from ._safety import kind_of, label, safe_url, scanner
 
@@ -305,36 +307,89 @@ def duplicate(ctx):
             seen[key] = comp
 
 
-# --- REW-9, REW-10 ---------------------------------------------------------------------------------
+# --- REW-9, REW-10, REW-11 -------------------------------------------------------------------------
+# The pattern comes from the checked repository, so compiling it and matching it are bounded: at most
+# this much CPU time for one pattern (compiled under three flag sets, tried on each sample answer).
+PATTERN_BUDGET_S = 1.0
+_FLAGS = (0, re.DOTALL, re.DOTALL | re.MULTILINE)
+
+
+@dataclass(frozen=True)
+class Trial:
+    """What testing one pattern against the sample answers found (one computation for REW-9/10/11)."""
+
+    invalid: str = ""  # why the pattern does not compile ("" when it does)
+    matched: bool | None = None  # some sample matched (None: not tested)
+    costly: int = 0  # > 0: the budget ran out on a sample this many characters long (0: the compile)
+    over: bool = False  # the budget ran out
+    untested: str = ""  # why it could not be tested in bounded time
+
+
+@functools.lru_cache(maxsize=64)
+def trial(pattern: str, samples: tuple[str, ...]) -> Trial:
+    try:
+        with budget.cpu_budget(PATTERN_BUDGET_S):
+            try:
+                pats = [re.compile(pattern, f) for f in _FLAGS]
+            except re.error as exc:
+                where = f" at position {exc.pos}" if exc.pos is not None else ""
+                return Trial(invalid=f"{exc.msg}{where}")
+            except RecursionError:
+                return Trial(invalid="it nests too deeply for Python's compiler (RecursionError)")
+            except (OverflowError, ValueError, MemoryError) as exc:
+                return Trial(invalid=f"{exc} ({type(exc).__name__})")
+            for s in samples:
+                try:
+                    if any(p.search(s) for p in pats):
+                        return Trial(matched=True)
+                except budget.OverBudget:
+                    return Trial(costly=len(s), over=True)
+            return Trial(matched=False if samples else None)
+    except budget.OverBudget:
+        return Trial(over=True)
+    except budget.NoBudget as exc:
+        return Trial(untested=str(exc))
+
+
+def _samples(ctx) -> tuple[str, ...]:
+    t = ctx.model.get("template.text")
+    if t is not None and isinstance(t.value, str):
+        return tuple(sample_answers(t.value))
+    return ()
+
+
 @rule(id="REW-9", name="format-pattern-invalid", level="error",
       summary="The answer-format regular expression does not compile.",
       rationale="A format reward whose pattern does not compile (Python `re`) fails at the first reward call or, "
-      "where errors are caught, gives every sample the same score.",
+      "where errors are caught, gives every sample the same score. A pattern that nests too deeply or "
+      "repeats too many times for the compiler is reported here too.",
       needs=("reward.format_pattern",))
 def pattern_invalid(ctx):
     v = ctx.model.get("reward.format_pattern")
     if not isinstance(v.value, str):
         return
-    try:
-        re.compile(v.value)
-    except re.error as exc:
-        where = f" at position {exc.pos}" if exc.pos is not None else ""
-        yield ctx.finding(f"reward.format_pattern does not compile: {exc.msg}{where}", v.location,
-                          subject=v.value)
+    found = trial(v.value, _samples(ctx))
+    if found.invalid:
+        yield ctx.finding(f"reward.format_pattern does not compile: {found.invalid}", v.location, subject=v.value)
 
 
 _TAG = re.compile(r"<([A-Za-z][\w-]*)>")
+_CLOSING = re.compile(r"</([A-Za-z][\w-]*)>")
+_MAX_TAGS = 16
 _CONTENT = {"answer": "42", "final": "42", "result": "42", "solution": "42"}
 _REASONING = "First 6 times 7 is 42, so the result is 42."
 
 
 def sample_answers(template: str) -> list[str]:
     """Well-formed answers built from the template's own tag pairs, in the order they appear."""
-    tags = []
+    closed = set(_CLOSING.findall(template))
+    tags: list[str] = []
     for m in _TAG.finditer(template):
         name = m.group(1)
-        if f"</{name}>" in template and name not in tags:
+        if name in closed and name not in tags:
             tags.append(name)
+            if len(tags) > _MAX_TAGS:
+                return []  # not a template of a few answer blocks: no sample trimtab could stand by
     if not tags:
         return []
     out = []
@@ -358,15 +413,42 @@ def pattern_rejects(ctx):
     t = ctx.model.get("template.text")
     if not isinstance(v.value, str) or not isinstance(t.value, str):
         return
-    try:
-        pats = [re.compile(v.value, f) for f in (0, re.DOTALL, re.DOTALL | re.MULTILINE)]
-    except re.error:
-        return  # REW-9
-    samples = sample_answers(t.value)
-    if not samples or any(p.search(s) for p in pats for s in samples):
-        return
+    samples = _samples(ctx)
+    if trial(v.value, samples).matched is not False:
+        return  # it matches, it does not compile (REW-9), or testing it ran out of time (REW-11)
     yield ctx.finding(f"reward.format_pattern matches no well-formed answer built from the template's tags; "
                       f"for example it rejects {samples[0]!r}", v.location,
                       related=[t.location.with_message("the template whose tags the sample uses")],
                       subject=v.value)
+
+
+@rule(id="REW-11", name="format-pattern-too-costly", level="error",
+      summary="Testing the answer-format pattern runs out of trimtab's time budget.",
+      rationale="A regular expression with nested or overlapping repeats, such as `(.+)+!` or `(a|a)*b`, can take "
+      "time exponential in the length of the text it fails to match (catastrophic backtracking; the "
+      "weakness catalogue's CWE-1333, from memory). A format reward with such a pattern can stall on one "
+      "sampled completion and hold up the whole training step. trimtab compiles the pattern and tries it "
+      "on the answers REW-10 builds from the template, with at most one second of CPU time in all; when "
+      "that runs out it stops and reports the pattern. Compiling is bounded the same way (a pattern of "
+      "a million characters). Review the pattern under your own security policy: prefer a pattern "
+      "without a repeat inside a repeat, or bound the text the reward function matches.",
+      needs=("reward.format_pattern",))
+def pattern_too_costly(ctx):
+    v = ctx.model.get("reward.format_pattern")
+    if not isinstance(v.value, str):
+        return
+    found = trial(v.value, _samples(ctx))
+    if found.over:
+        if found.costly:
+            what = (f"matching a {found.costly}-character answer built from the template takes more than "
+                    f"{PATTERN_BUDGET_S:g} s of CPU time (trimtab's budget), so trimtab stopped; a reward function "
+                    "using it can stall the same way on a sampled completion")
+        else:
+            what = (f"compiling it takes more than {PATTERN_BUDGET_S:g} s of CPU time (trimtab's budget), so "
+                    "trimtab stopped and did not test it; the reward function pays that cost too")
+        yield ctx.finding(f"reward.format_pattern: {what}", v.location, subject=v.value)
+    elif found.untested:
+        yield ctx.finding(f"reward.format_pattern was not tested: {found.untested}; trimtab tests a pattern "
+                          "only with a CPU-time bound (run the check in the main thread of a POSIX system)",
+                          v.location, subject=v.value, level="note")
 

@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab.scalars import same_value
+from trimtab.scalars import oversized, same_value
 from trimtab.vocabulary import CONCEPTS, RL_MARKERS, RL_MIN_MARKERS
 
 # Enumerations whose unknown values a rule of their own area reports with its own reasoning.
@@ -35,6 +35,8 @@ def wrong_type(ctx):
         node = v.node
         if node is not None and getattr(node, "plain", False) and not same_value(node.value11, node.value12):
             continue  # YML-3 reports it with the reason (the two YAML versions disagree)
+        if node is not None and getattr(node, "plain", False) and oversized(node.text):
+            continue  # YML-5 reports it: an integer past trimtab's limit, read as text
         shown = v.node.text if hasattr(v.node, "text") else v.value
         yield ctx.finding(f"{v.concept} = {shown!s}: expected {_type_name(expected)} "
                           f"(read under YAML {ctx.model.version})", v.location, subject=shown)

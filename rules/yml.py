@@ -44,13 +44,15 @@ def encoding(ctx):
     yield from _problems(ctx, {"encoding-other"}, level=Level.NOTE)
 
 
-@rule(id="YML-5", name="limit-exceeded", level="error", summary="The file exceeds a size, nesting or alias limit.",
+@rule(id="YML-5", name="limit-exceeded", level="error", summary="The file exceeds a size, nesting, alias or number limit.",
       rationale="Limits keep the check bounded in time and memory on crafted input (a nested-alias document "
       "expands exponentially in a loader that builds objects). The limits are settings "
-      "(limits.max_bytes, limits.max_depth, limits.max_aliases).",
+      "(limits.max_bytes, limits.max_depth, limits.max_aliases), and an integer of 10^30 or more (a "
+      "literal of thousands of digits costs time to convert and cannot be printed) is read as text "
+      "and reported, the first ten of a document.",
       rl_only=False, scope="file")
 def limits(ctx):
-    return _problems(ctx, {"size", "depth", "aliases"})
+    return _problems(ctx, {"size", "depth", "aliases", "number"})
 
 
 @rule(id="YML-6", name="unreadable", level="error", summary="The file cannot be read.",

@@ -239,6 +239,22 @@ def test_command_line_location_validates_as_sarif():
     assert "CMP-6" in results
 
 
+def test_sarif_location_of_a_command_line_value_and_of_a_region():
+    # SARIF 2.1.0, section 3.28 (a location with only logical locations and a message) and 3.30 (a region's
+    # endLine is not before its startLine; section numbers from memory).
+    from trimtab.findings import Location
+    from trimtab.sarif import _location
+
+    loc = _location(Location(None, message="prompts per step", key_path="batch.prompts"))
+    assert loc == {"logicalLocations": [{"fullyQualifiedName": "batch.prompts", "kind": "property"}],
+                   "message": {"text": "prompts per step (set on the command line)"}}
+    assert _location(Location(None))["message"] == {"text": "(set on the command line)"}
+    region = _location(Location("a.yaml", 5, 3, 4, 2))["physicalLocation"]["region"]
+    assert region == {"startLine": 5, "startColumn": 3}  # an end before the start is left out
+    region = _location(Location("a.yaml", 5, 3, 6, 1))["physicalLocation"]["region"]
+    assert region == {"startLine": 5, "startColumn": 3, "endLine": 6, "endColumn": 1}
+
+
 def test_bad_override_value_is_a_clear_error():
     res = run_cli("check", "experiments/tidepool.yaml", "--set", "rollout.temperature=[1,", cwd=COMPOSE / "after")
     assert res.code == 2 and "--set rollout.temperature=[1," in res.err and "Traceback" not in res.err

@@ -340,3 +340,25 @@ def test_hostile_scripts_are_read_in_bounded_time(tmp_path, text):
     with bounded(60, "a hostile launch script"):
         res = check_json(tmp_path / "h.sh", cwd=tmp_path)
     assert res.code in (0, 1, 2) and "TOOL-1" not in res.ids()
+
+
+def test_references_read_as_a_general_purpose_config_library_reads_them(tmp_path, monkeypatch):
+    """Relative references, references inside text and an environment lookup with a default, as
+    trimtab reads them and as OmegaConf (a general-purpose config library that implements this
+    reference dialect; test extra) resolves them. OmegaConf returns environment values as text, so
+    the environment default is compared as text; everything else by value."""
+    omegaconf = pytest.importorskip("omegaconf")
+    import yaml
+
+    monkeypatch.delenv("TT_GROUP", raising=False)
+    text = ("algorithm: grpo\nseed: 1\nrollout:\n  group_size: ${oc.env:TT_GROUP,8}\n  temperature: 1.0\n"
+            "  top_p: ${.temperature}\nbatch:\n  prompts: 64\n  mini: ${..batch.prompts}\n"
+            "  micro_batch_size: ${.prompts}\nrun_name: g${rollout.group_size}-p${batch.prompts}\n")
+    (tmp_path / "r.yaml").write_text(text)
+    (run,) = _models(tmp_path / "r.yaml")
+    ref = omegaconf.OmegaConf.to_container(omegaconf.OmegaConf.create(yaml.safe_load(text)), resolve=True)
+    assert str(run.values["rollout.group_size"].value) == ref["rollout"]["group_size"] == "8"
+    assert run.values["rollout.top_p"].value == ref["rollout"]["top_p"] == 1.0
+    assert run.values["batch.mini"].value == ref["batch"]["mini"] == 64
+    assert run.values["batch.micro_per_gpu"].value == ref["batch"]["micro_batch_size"] == 64
+    assert run.values["run.name"].value == ref["run_name"] == "g8-p64"

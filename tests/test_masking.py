@@ -258,3 +258,17 @@ def test_rules_text_shows_a_plugin_s_control_characters():
     from trimtab.redact import visible
 
     assert visible("summary\x1b[2J\nnext") == "summary\u27e8U+001B\u27e9[2J\u27e8U+000A\u27e9next"
+
+
+def test_worker_processes_mask_before_findings_travel(repo):
+    # --jobs 2: findings are finished (and masked) in the worker that read the file; the parent,
+    # which never read it, writes the report
+    for name in ("a.yaml", "b.yaml"):
+        (repo / name).write_text(RUN + f"kl:\n  estimator: {SK}\nrewards:\n  - name: {RANDOM}\n    kind: remote\n"
+                                       "    endpoint: http://grader.lowfield.internal/score\n")
+    for fmt in ("text", "json", "sarif"):
+        res = run_cli("check", "--jobs", "2", "--format", fmt, "a.yaml", "b.yaml", cwd=repo)
+        assert res.code == 1, res.err
+        assert "KL-4" in res.out
+        for secret in (SK, RANDOM):
+            assert secret not in res.out + res.err and secret[:12] not in res.out + res.err, (fmt, secret)

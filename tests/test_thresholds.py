@@ -103,6 +103,9 @@ GROUP = "group of 2 or more for a group baseline (arXiv:2402.03300); min_group 4
 TEMP = "min_temperature 0.3: common practice (published recipes sample near 1)"
 WARM = "warm-up shorter than the run: common practice"
 TIMEOUT = "max_timeout_s 60: common practice"
+LONG = "long_run_steps 1000 for a run without checkpoints: common practice"
+CKPT = "a checkpoint before the last step (every < total steps): common practice"
+FIT = "prompt + response <= the context window: common practice of rollout engines"
 
 CASES = [
     ("ALG-3", {"gae.gamma": num(below(0.0))}, "error", GAMMA),
@@ -151,6 +154,16 @@ CASES = [
     ("OPT-2", {"optim.warmup_steps": "99"}, None, WARM),
     ("OPT-2", {"optim.warmup_steps": "100"}, "warning", WARM),
     ("OPT-2", {"optim.warmup_steps": "101"}, "warning", WARM),
+    ("OPT-3", {"checkpoint.every": "0", "optim.total_steps": "1000", "optim.warmup_steps": "10"}, None, LONG),
+    ("OPT-3", {"checkpoint.every": "0", "optim.total_steps": "1001", "optim.warmup_steps": "10"}, "warning", LONG),
+    ("OPT-3", {"checkpoint.every": "99"}, None, CKPT),
+    ("OPT-3", {"checkpoint.every": "100"}, "warning", CKPT),
+    ("OPT-3", {"checkpoint.every": "101"}, "warning", CKPT),
+    ("LEN-2", {"length.prompt_max": "1024", "length.response_max": "3071", "model.context_max": "4096"}, None, FIT),
+    ("LEN-2", {"length.prompt_max": "1024", "length.response_max": "3072", "model.context_max": "4096"}, None, FIT),
+    ("LEN-2", {"length.prompt_max": "1024", "length.response_max": "3073", "model.context_max": "4096"}, "error", FIT),
+    ("LEN-2", {"length.response_max": "4095", "model.context_max": "4096"}, None, FIT),
+    ("LEN-2", {"length.response_max": "4096", "model.context_max": "4096"}, "error", FIT),
     ("SMP-1", {"rollout.group_size": "1"}, "error", GROUP),
     ("SMP-1", {"rollout.group_size": "2"}, "warning", GROUP),
     ("SMP-1", {"rollout.group_size": "3"}, "warning", GROUP),
@@ -199,3 +212,26 @@ SANDBOX_CASES = [
 def test_sandbox_threshold(tmp_path, rule_id, values, level, source):
     got = findings(tmp_path, values, rule_id, SANDBOX)
     assert [f["level"] for f in got] == ([level] if level else []), source
+
+
+def test_random_looking_value_thresholds():
+    # SEC-1's min_length 24 and min_entropy_bits 4.0 (common practice; Shannon entropy per character,
+    # log2 of 16 equally frequent characters is exactly 4.0). Values built so that only the tested measure
+    # changes: letters beyond f (not hexadecimal), three classes, a class switch at every character.
+    from trimtab.redact import MIN_BITS, MIN_LENGTH, high_entropy
+
+    opts = {k: v for k, v in (line.strip().split(" = ") for line in
+                                  run_options("SEC-1"))}
+    assert (int(opts["min_length"]), float(opts["min_entropy_bits"])) == (MIN_LENGTH, MIN_BITS) == (24, 4.0)
+    varied = "gG0hH1iI2jJ3kK4mnN5pP6qQ7rR8"
+    assert not high_entropy(varied[:23]) and high_entropy(varied[:24]) and high_entropy(varied[:25])
+    exactly_four = "gG0hH1iI2jJ3kK4m" * 2  # 16 characters, each twice: 4.0 bits
+    assert high_entropy(exactly_four)
+    assert not high_entropy(exactly_four[:-1] + "g")  # one character repeated once more: below 4.0 bits
+
+
+def run_options(rule_id):
+    from support import run_cli
+
+    out = run_cli("rules", rule_id).out
+    return [line for line in out.splitlines() if line.startswith("  ") and " = " in line]

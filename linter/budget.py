@@ -1,0 +1,47 @@
+"""A CPU-time budget for work whose cost the checked repository controls (a regular expression it
+supplies, run against a text): the work is interrupted, not waited for.
+
+The budget is a one-shot CPU timer of the process (``ITIMER_VIRTUAL``, user-mode CPU time, so a
+busy machine does not shorten it) whose signal raises ``OverBudget`` in the main thread. Python's
+regular-expression engine checks for signals while it matches, so a match that backtracks without
+end is stopped too. Where no such timer exists (a platform without ``setitimer``, a thread other
+than the main one) ``NoBudget`` is raised before any work starts: callers report that they could
+not test, and never run the work unbounded.
+"""
+from __future__ import annotations
+
+import signal
+import threading
+from contextlib import contextmanager
+
+
+class OverBudget(Exception):
+    """The work used up its CPU-time budget and was interrupted."""
+
+
+class NoBudget(Exception):
+    """No CPU timer is available here: the work was not started."""
+
+
+def available() -> bool:
+    return hasattr(signal, "setitimer") and threading.current_thread() is threading.main_thread()
+
+
+@contextmanager
+def cpu_budget(seconds: float):
+    """Run the block with at most ``seconds`` of CPU time; ``OverBudget`` when it is used up."""
+    if not available():
+        raise NoBudget("no CPU timer in this thread or on this platform")
+
+    def expire(_sig, _frame):
+        raise OverBudget(seconds)
+
+    old = signal.signal(signal.SIGVTALRM, expire)
+    try:
+        signal.setitimer(signal.ITIMER_VIRTUAL, seconds)
+        yield
+    finally:
+        try:
+            signal.setitimer(signal.ITIMER_VIRTUAL, 0)
+        finally:
+            signal.signal(signal.SIGVTALRM, old)
