@@ -1,5 +1,41 @@
+"""``python -m trimtab`` and the ``trimtab`` command.
+
+trimtab runs inside the repository it checks, and anything there may be hostile: a committed
+``yaml.py`` or ``jsonschema/`` must never be imported instead of the real library. ``python -m``
+puts the working directory first on the import path, so before anything else is imported it is
+taken off (with any other entry that names the working directory, such as an empty entry from
+``PYTHONPATH``). A planted ``trimtab/`` package itself cannot be guarded against from inside:
+start Python with ``-P`` (or ``-I``), or use the ``trimtab`` command, as the installed hooks do.
+"""
+import os
 import sys
 
-from .cli import main
 
-sys.exit(main())
+def _off_the_import_path() -> None:
+    """Drop the working directory (and '' and '.') from ``sys.path``."""
+    try:
+        here = os.path.realpath(os.getcwd())
+    except OSError:
+        here = None
+    keep = []
+    for entry in sys.path:
+        if not entry or entry == ".":
+            continue
+        try:
+            if here is not None and os.path.realpath(entry) == here:
+                continue
+        except (OSError, ValueError):
+            pass
+        keep.append(entry)
+    sys.path[:] = keep
+
+
+def main() -> int:
+    _off_the_import_path()
+    from .cli import main as cli_main
+
+    return cli_main()
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -521,7 +521,9 @@ class Arithmetic:
         n = written if isinstance(written, (int, float)) and not isinstance(written, bool) else None
         if n is None or read_as is None or read_as == own:
             return
-        top, bottom, notes, missing = 1, 1, [], []
+        top, bottom = 1, 1
+        notes: list = []
+        missing: list = []
         for differs, factor, needed, label, up in (
                 (read_as.per != own.per, G, "the group size", f"group size {G}", own.per == "completion"),
                 (read_as.scope != own.scope, D, "the data-parallel ranks", f"{D} data-parallel ranks",
@@ -624,8 +626,16 @@ class Verdict:
         return f" (the same under every reading of {', '.join(named)})"
 
 
+def breaks(a: Arithmetic) -> list[str]:
+    """What breaks under this reading, in words: a converted count that is no whole number, and every
+    step that depends on an unstated unit and does not divide or disagrees with a stated value."""
+    out = [f"{t.shown()} is no whole count" for t in a.terms.values()
+           if t.ambiguous and t.converted and t.value is not None and t.whole is None]
+    return out + [f"{s.title} {s.text()}" for s in a.steps.values() if s.broken and s.ambiguous]
+
+
 def _status(a: Arithmetic) -> str:
-    if any(s.broken for s in a.steps.values() if s.ambiguous):
+    if breaks(a):
         return "broken"
     if any(t.missing for t in a.terms.values() if t.ambiguous):
         return "unknown"
@@ -815,11 +825,10 @@ def reading_lines(model: RunModel) -> list[str]:
         units = " or ".join(f"[{u.words()}]" for u in admissible(v))
         out.append(f"  {v.key} = {num(v.raw if v.raw is not None else v.value)} ({c}): read as {units}")
     for a, status in verdict.considered:
-        broken = [s for s in a.steps.values() if s.broken and s.ambiguous]
         why = {"consistent": "consistent",
                "unknown": "cannot tell: " + "; ".join(f"{t.concept} needs {t.missing}" for t in a.terms.values()
                                                       if t.missing and t.ambiguous),
-               "broken": "breaks: " + "; ".join(f"{s.title} {s.text()}" for s in broken)}[status]
+               "broken": "breaks: " + "; ".join(breaks(a))}[status]
         out.append(f"  - {a.label()}: {why}")
     supported = verdict.supported()
     if len(supported) == 1 and len(verdict.considered) > 1:
@@ -829,6 +838,8 @@ def reading_lines(model: RunModel) -> list[str]:
             out.append("    " + keymap_line(model.values[c], u))
     elif not supported:
         out.append("  No reading is consistent.")
+    elif verdict.considered[0][1] == "consistent":
+        out.append(f"  {len(supported)} readings are consistent, the usual one among them: the run is read as usual.")
     else:
         out.append(f"  {len(supported)} readings are consistent; the file's numbers do not decide between them.")
     return out

@@ -14,11 +14,10 @@ import hashlib
 import html
 import re
 from dataclasses import dataclass, field
-from pathlib import Path
 
 from . import __version__, arithmetic
 from .findings import Finding, Level, Location
-from .model import RunModel, Value
+from .model import RunModel
 from .redact import for_text, mask_source
 
 LEVELS = (Level.ERROR, Level.WARNING, Level.NOTE)
@@ -641,7 +640,7 @@ def _label(page: Page, x, y, title: str, items: list[tuple[str, Quantity]]) -> l
 def _segments(x, y, w, h, count: int, cls: str, unit_label: str = "", limit: int = 128,
               many: str = "") -> list[str]:
     """A bar split into ``count`` equal boxes (one box with the count written in it when too many)."""
-    out = []
+    out: list = []
     if count <= 0:
         return out
     many = many or f"{count} \u00d7 {unit_label}"
@@ -1019,4 +1018,6 @@ def write(page: str, target: str) -> None:
             sys.stdout.write(data.decode("utf-8"))
         sys.stdout.flush()
         return
-    Path(target).write_bytes(data)
+    from .paths import write_atomic
+
+    write_atomic(target, data)

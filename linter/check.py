@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 from itertools import groupby
 from typing import Any
 
-from . import filtering, loader, spill
+from . import filtering, spill
 from .compose import Composer
 from .engine import Context, Registry, Rule, run_rule
 from .findings import Finding, Level, Location
@@ -55,7 +55,7 @@ class FileResult:
 class CheckOptions:
     only: set[str] = field(default_factory=set)
     skip: set[str] = field(default_factory=set)
-    overrides: list[tuple[str, str]] = field(default_factory=list)  # (key path, text) from --set
+    overrides: list[tuple] = field(default_factory=list)  # (key path, text, added) from --set / --add
 
 
 class Checker:
@@ -471,14 +471,15 @@ def _reported(findings: spill.Spill, accepted_at: set) -> Iterator[Finding]:
     """The spilled findings in report order: sorted (stably), an unused-acceptance finding dropped
     where a run built on that base used the acceptance, and duplicates merged. Duplicates share a
     sort key, so merging within each run of equal keys is merging over the whole stream."""
-    for _key, group in groupby(findings, key=Finding.sort_key):
+    for _key, found in groupby(findings, key=Finding.sort_key):
+        group: Iterable[Finding] = found
         if accepted_at:
             group = [f for f in group if not (f.rule_id == filtering.ACC_UNUSED and (
                 {(f.location.path, f.location.line), (f.location.path, f.location.line + 1)} & accepted_at))]
         yield from _merge_duplicates(group)
 
 
-def summary_counts(findings: list[Finding]) -> dict[str, int]:
+def summary_counts(findings: Iterable[Finding]) -> dict[str, int]:
     counts = {str(l): 0 for l in (Level.ERROR, Level.WARNING, Level.NOTE)}
     for f in findings:
         counts[str(f.level)] += 1

@@ -193,7 +193,7 @@ def _registry():
     return reg
 
 
-def _overrides(items: list[str]) -> list[tuple[str, str]]:
+def _overrides(items: list[str]) -> list[tuple[str, str, bool]]:
     from .settings import SettingsError
 
     out = []
@@ -298,7 +298,8 @@ def cmd_check(args) -> int:
 
     req = _request(args, paths=args.paths, accepted=args.accepted, since=args.since, jobs=args.jobs,
                    own_outputs=tuple(p for p in (args.write_accepted,) if p),
-                   staged_files=getattr(args, "staged_files", None), guard=guard, progress=_progress(args),
+                   staged_files=getattr(args, "staged_files", None),
+                   staged_missing=list(getattr(args, "staged_missing", [])), guard=guard, progress=_progress(args),
                    changed=getattr(args, "staged_changed", None), cross_run=True)
     req.apply_accepted = not args.write_accepted  # record what is found, not what an older file accepts
     outcome = Pipeline(settings, registry).run(req)
@@ -322,8 +323,12 @@ def cmd_check(args) -> int:
     # --show LEVEL: the report lists what is at or above it; the gate and the counts still see all
     findings, code, counts = outcome.at_least(args.show), outcome.status, outcome.counts()
     summary = {**outcome.summary(), "hidden": outcome.below(args.show), "accepted": outcome.accepted}
-    out = open(args.output, "w", encoding="utf-8") if args.output else sys.stdout
-    try:
+    from contextlib import nullcontext
+
+    from .paths import atomic_open
+
+    # a report file appears whole or not at all (written beside it, then renamed)
+    with atomic_open(args.output) if args.output else nullcontext(sys.stdout) as out:
         if args.format == "json":
             from .reports import json_report
 
@@ -336,9 +341,6 @@ def cmd_check(args) -> int:
             from .reports import text
 
             text(findings, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
-    finally:
-        if out is not sys.stdout:
-            out.close()
     total = len(outcome.files)
     # the parts add up to the whole: "7 checked, 1 skipped as not run configs, of 8 file(s)"
     files = (f"{total - outcome.skipped} checked, {outcome.skipped} skipped as not run configs, of {total} file(s)"
@@ -448,7 +450,10 @@ def _accepted_elsewhere(path: Path, checked: set[str], root: Path) -> list[dict]
         rows = filtering.read_accepted(path)
     except filtering.AcceptedFileError:
         return []
-    return [r for r in rows if r.get("file") not in checked and (root / str(r.get("file"))).is_file()]
+    from .paths import confined
+
+    return [r for r in rows if r.get("file") not in checked
+            and (real := confined(root / str(r.get("file")), root)) is not None and real.is_file()]
 
 
 def _fix(args, settings, findings, files) -> int | None:
@@ -461,8 +466,10 @@ def _fix(args, settings, findings, files) -> int | None:
     def locate(shown: str):
         if shown in on_disk:
             return on_disk[shown]
-        candidate = settings.root / shown
-        return candidate if candidate.is_file() else None
+        from .paths import confined
+
+        candidate = confined(settings.root / shown, settings.root)  # never a file outside
+        return candidate if candidate is not None and candidate.is_file() else None
 
     plans = fix.plan(findings, locate)
     told = set()

@@ -17,6 +17,8 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from .paths import confined
+
 MAX_BYTES = 2_000_000  # a reward module larger than this is not read
 
 # --- detectors -------------------------------------------------------------------------------
@@ -181,8 +183,8 @@ class Scanner:
             if reason:
                 self.bad_roots.append((text, reason))
                 continue
-            real = Path(os.path.realpath(self.root / text))
-            if not _inside(real, self.root):
+            real = confined(self.root / text, self.root)
+            if real is None:
                 self.bad_roots.append((text, "resolves outside the repository (through a symbolic link)"))
                 continue
             self.roots.append(real)
@@ -223,8 +225,8 @@ class Scanner:
         tried = []
         for lexical, shown in candidates:
             tried.append(shown)
-            real = Path(os.path.realpath(lexical))
-            if not _inside(real, self.root):
+            real = confined(lexical, self.root)
+            if real is None:
                 if os.path.lexists(lexical) or _has_link(lexical, self.root):
                     return "escapes", None, shown, tried
                 continue
@@ -294,7 +296,7 @@ class Scanner:
             return cached[1]
         out = Scan()
         seen = {located.real}
-        queue = [(located.real, 0, ())]
+        queue: list[tuple[Path, int, tuple]] = [(located.real, 0, ())]
         while queue:
             real, depth, chain = queue.pop(0)
             info = self.module(real)
@@ -325,7 +327,7 @@ class Scanner:
             base = real.parent
             for _ in range(level - 1):
                 base = base.parent
-            if not _inside(Path(os.path.realpath(base)), self.root):
+            if confined(base, self.root) is None:
                 yield ("refused", None, "a relative import above the repository root", []), text
                 return
             bases = [base]
@@ -366,10 +368,6 @@ def _signature(real: Path) -> tuple:
     except OSError:
         return ()
     return (st.st_size, st.st_mtime_ns, st.st_ino)
-
-
-def _inside(real: Path, root: Path) -> bool:
-    return real == root or root in real.parents
 
 
 def _has_link(lexical: Path, root: Path) -> bool:
@@ -431,8 +429,8 @@ class _Visitor:
         return len(line.encode("utf-8")[:node.col_offset].decode("utf-8", "ignore")) + 1
 
     def run(self, tree: ast.Module) -> None:
-        for node in tree.body:
-            self._top_level(node)
+        for stmt in tree.body:
+            self._top_level(stmt)
         for node in ast.walk(tree):
             if isinstance(node, ast.Import):
                 for a in node.names:

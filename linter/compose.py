@@ -23,15 +23,19 @@ Document as ``CompositionProblem``s; the CMP rules report them. The composer kno
 """
 from __future__ import annotations
 
+import os
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Any, TypeVar, cast
 
 from . import loader
-from .document import Document, Mapping, Node, Problem, Scalar, Sequence
+from .composed import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, GivenScalar,  # noqa: F401
+                       Unknown, Unresolved)
+from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
+from .paths import confined
 
-REMOVE_TAG = "!trimtab/remove"
 
 # problem kinds (the CMP rules read them)
 CYCLE = "compose-cycle"
@@ -46,6 +50,7 @@ EXPANSION = "compose-expansion"
 OPTIONAL_MISSING = "compose-optional-missing"
 VALUE_UNKNOWN = "compose-value-unknown"  # a value known only at launch (a script, a resolver)
 
+
 _REF = re.compile(r"\$\$\{|\$\{([^{}$]*)\}")
 _WHOLE = re.compile(r"\$\{([^{}$]*)\}")
 _PATH = re.compile(r"[A-Za-z0-9_\-]+(?:\.[A-Za-z0-9_\-]+)*")
@@ -58,72 +63,6 @@ _MAX_DEPTH = 64
 # and CMP-9 reports it.
 MAX_EXPANDED_TEXT = 1_000_000  # characters of text written by references, in all
 MAX_COPIED_VALUES = 10_000  # keys and items copied from sections reached through references
-
-
-@dataclass
-class CompositionProblem(Problem):
-    """A problem of composition, located in the file that holds the offending line."""
-
-    path: str | None = None
-    end_line: int = 0
-    end_col: int = 0
-    key_path: str = ""
-    subject: str = ""
-
-    def location(self) -> Location:
-        return Location(self.path, self.line, self.col, self.end_line, self.end_col, "", self.key_path)
-
-
-@dataclass
-class Composed:
-    root: Node
-    problems: list[CompositionProblem] = field(default_factory=list)
-    files: list[str] = field(default_factory=list)  # every file the run was composed from
-
-
-class ComposedMapping(Mapping):
-    """The root of a composed run: a mapping that also carries the origin chains."""
-
-    __slots__ = ("chains", "roles", "notes")
-
-    def __init__(self):
-        super().__init__()
-        self.chains: dict[str, list[Location]] = {}
-        self.roles: dict[str, str] = {}  # dotted key path -> the layer its value came from
-        self.notes: list = []  # values known only at launch (CompositionProblems of this run)
-
-
-class Unresolved(Scalar):
-    """A reference that could not be resolved (a cycle, an unknown target): it stays in the run as
-    written, with no value, so no rule reasons about the text of the reference itself."""
-
-    __slots__ = ()
-
-    @property
-    def value11(self):
-        return None
-
-    @property
-    def value12(self):
-        return None
-
-
-class Unknown(Unresolved):
-    """A value known only at launch (a launch script's command substitution, a resolver): no value,
-    and the reason (``why``). The resolver leaves its concept out of the run, so no rule reasons
-    about it; the run's notes say what trimtab would need."""
-
-    __slots__ = ("why",)
-
-
-class GivenScalar(Scalar):
-    """A value given on the command line: typed as YAML 1.2 types it, whatever the file version."""
-
-    __slots__ = ()
-
-    @property
-    def value11(self):
-        return self.value12
 
 
 # --- base files: loaded once per process -------------------------------------------------------
@@ -149,7 +88,10 @@ def load_source(real: Path, shown: str, limits=loader.Limits()) -> Document:
     return doc
 
 
-def _place(dst: Node, src: Node | None, path: tuple) -> Node:
+_N = TypeVar("_N", bound=Node)
+
+
+def _place(dst: _N, src: Node | None, path: tuple) -> _N:
     if src is None:
         dst.line = dst.col = dst.end_line = dst.end_col = dst.start = dst.end = 0
         dst.anchor, dst.file = None, None
@@ -273,7 +215,8 @@ class _M:
 
 def _paths_of(top: "_M", limit: int = 5000) -> list[str]:
     """The key paths some layer of the run has (not those a --set has just opened or added)."""
-    out, stack = [], [((), top)]
+    out: list[str] = []
+    stack: list[tuple[tuple, Any]] = [((), top)]
     while stack and len(out) < limit:
         p, m = stack.pop()
         if isinstance(m, _M):
@@ -344,11 +287,11 @@ class Composer:
         if isinstance(node, Scalar):
             return _place(GivenScalar(node.text, node.style, node.tag), None, path)
         if isinstance(node, Sequence):
-            out = _place(Sequence(), None, path)
-            out.items = [self._given_tree(it, path + (str(i),)) for i, it in enumerate(node.items)]
-            return out
+            seq = _place(Sequence(), None, path)
+            seq.items = [self._given_tree(it, path + (str(i),)) for i, it in enumerate(node.items)]
+            return seq
         out = _place(Mapping(), None, path)
-        for name, k, v, _via in node.entries():
+        for name, _k, v, _via in cast(Mapping, node).entries():
             out.pairs.append((_place(GivenScalar(name, None, None), None, path),
                               self._given_tree(v, path + (name,))))
         return out
@@ -360,7 +303,7 @@ class Composer:
         if not name:
             return None
         where = f"{self.settings.source}: setting {self.settings.name('overrides')}"
-        path = (self.root / name).resolve()
+        path = self.settings.path("overrides", self.root)  # refused when it leaves the repository
         if not path.is_file():
             raise SettingsError(f"{where}: expected an overrides file, found no file {name!r}")
         doc = load_source(path, self._shown(path), self.settings.limits)
@@ -417,7 +360,7 @@ class Composer:
         self.hist: dict[tuple, list[tuple[Node, str, str]]] = {}
         self.refs: set[tuple] = set()  # every path on the way to a value that holds a ${...}
         top = _M(root)
-        for role, d, r in layers:
+        for role, _d, r in layers:
             self._merge(top, r, role, (), True)
         for g in self.given:
             self._apply_given(top, g)
@@ -430,12 +373,12 @@ class Composer:
             if chain:
                 chains[".".join(p)] = chain
         if interpolate and self.refs:
-            interp = _Interp(self, built)
+            interp = _Interp(self, cast(Mapping, built))
             new = interp.rebuild((), 0)
             out.pairs = [(k, v) for _n, k, v, _via in new.entries()] if isinstance(new, Mapping) else []
             chains.update(interp.chains)
         else:
-            out.pairs = list(built.pairs)
+            out.pairs = list(cast(Mapping, built).pairs)
         for p, hops in (getattr(root, "hops", None) or {}).items():  # a launch script's variables
             key = ".".join(p)
             chains[key] = chains.get(key, []) + [h for h in hops if h not in chains.get(key, [])]
@@ -475,7 +418,7 @@ class Composer:
         if not isinstance(root, Mapping) or not (self.layers or self.overrides_doc is not None or (
                 self.bases_key and root.get(self.bases_key) is not None) or (
                 self.defaults_key and root.get(self.defaults_key) is not None)):
-            return [("experiment", doc, root)]
+            return [("experiment", doc, cast(Mapping, root))]
         top = self._where(Path(path))[0]
         stack = [(top, doc.path)]
         from .discover import matches
@@ -521,12 +464,10 @@ class Composer:
         key = str(real)
         hit = self._places.get(key)
         if hit is None:
-            resolved = real.resolve()
-            try:
-                shown = resolved.relative_to(self.root).as_posix()
-            except ValueError:
-                shown = None
-            hit = self._places[key] = (resolved, shown, resolved.is_file())
+            resolved = confined(real, self.root)
+            shown = resolved.relative_to(self.root).as_posix() if resolved is not None else None
+            resolved = resolved if resolved is not None else Path(os.path.realpath(real))
+            hit = self._places[key] = (resolved, shown, shown is not None and resolved.is_file())
         return hit
 
     def _add_base(self, real: Path, name: str, naming: Location, related: list, stack: list, out: list,
@@ -646,7 +587,8 @@ class Composer:
                                      f"list, found {_show(dl)}", dl.location(), subject=self.defaults_key)
             out.append((role, doc, _under(own, package)))
             return
-        entries, self_at = [], None
+        entries: list = []
+        self_at = None
         for item in dl.items:
             entry = _entry(item)
             if entry is None:
@@ -797,7 +739,7 @@ class Composer:
                 self._problem(OVERRIDE, f"--set {g.key}: {'.'.join(p[:-1])} is a list of {len(cur.items)} "
                                         f"item(s); there is no item {last}", cmd, subject=g.key)
                 return
-            old = cur.items[int(last)]
+            old: Any = cur.items[int(last)]
             role = self._role_of(p[:-1])
             self.hist.setdefault(p, [(old, role, "set")])
             if _removes(g.node):
@@ -854,9 +796,9 @@ class Composer:
                 out.pairs.append((k, self._build(c, path + (name,))))
             return out
         if isinstance(m, _S):
-            out = _place(Sequence(), m.node, path)
-            out.items = [self._build(c, path + (str(i),)) for i, c in enumerate(m.items)]
-            return out
+            seq = _place(Sequence(), m.node, path)
+            seq.items = [self._build(c, path + (str(i),)) for i, c in enumerate(m.items)]
+            return seq
         return m
 
 
@@ -885,7 +827,7 @@ class _Interp:
         if hit is not None:
             return hit
         if not parts:
-            r = (self.root, (), [])
+            r: Any = (self.root, (), [])
             self.memo[parts] = r
             return r
         parent = self.at(parts[:-1])
@@ -1019,14 +961,14 @@ class _Interp:
                 self.c._problem(VALUE_UNKNOWN, f"{dotted}: ${{{target}}} reads the environment variable {var}: "
                                                f"checked with its default {default!r}, which the environment can "
                                                "change at launch", raw.location(), subject=f"{dotted}|{target}")
-                node = _place(GivenScalar(default, None, None), raw, raw.path)
+                node: Any = _place(GivenScalar(default, None, None), raw, raw.path)
                 hop = raw.location(f"{dotted} = ${{{target}}}: the default of environment variable {var}")
                 return (node, src, inherited + [hop])
             why = f"${{{target}}} reads the environment variable {var}, known only at launch"
         else:
             why = f"${{{target}}} is computed by the resolver {name!r} of the launcher's config library at launch"
         self.c._problem(VALUE_UNKNOWN, f"{dotted}: {why}", raw.location(), subject=f"{dotted}|{target}")
-        node = _place(Unknown(raw.text, raw.style, None), raw, raw.path)
+        node = _place(Unknown(cast(Scalar, raw).text, cast(Scalar, raw).style, None), raw, raw.path)
         node.why = why
         return (node, src, inherited)
 
@@ -1064,7 +1006,8 @@ class _Interp:
 
     def paths(self) -> list[str]:
         if self._paths is None:
-            out, stack = [], [((), self.root)]
+            out: list[str] = []
+            stack: list[tuple[tuple, Node]] = [((), self.root)]
             while stack and len(out) < 5000:
                 p, node = stack.pop()
                 if isinstance(node, Mapping):
@@ -1116,9 +1059,9 @@ class _Interp:
             items = [self.rebuild(parts + (str(i),), depth + 1, copying) for i in range(len(node.items))]
             if all(a is b for a, b in zip(items, node.items)):
                 return node
-            out = _place(Sequence(), node, parts)
-            out.items = items
-            return out
+            seq = _place(Sequence(), node, parts)
+            seq.items = items
+            return seq
         finally:
             del self.expanding[src]
 
@@ -1161,7 +1104,7 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
     have = {shown for _p, shown in files}
     out = list(files)
     overrides = getattr(settings, "overrides", "") or ""
-    if overrides and (root / overrides).resolve().relative_to(root).as_posix() in seeds:
+    if overrides and settings.path("overrides", root).relative_to(root).as_posix() in seeds:
         # the overrides file applies to every run: all of them are checked again
         by_shown = {shown: disk for disk, shown in candidates}
         by_shown.update({shown: disk for disk, shown in files})
@@ -1169,10 +1112,8 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
     memo: dict[str, set[str]] = {}
 
     def shown_of(p: Path) -> str | None:
-        try:
-            return p.resolve().relative_to(root).as_posix()
-        except ValueError:
-            return None
+        real = confined(p, root)
+        return real.relative_to(root).as_posix() if real is not None else None
 
     def named(real: Path) -> list[Path]:
         shown = shown_of(real)
@@ -1180,9 +1121,9 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
             return script_bases(real, shown)
         if not key and not dkey:
             return []
-        try:
-            data = real.read_bytes()[: settings.limits.max_bytes]
-        except OSError:
+        # a regular file within the size limit only: a named pipe or a huge file is no base
+        data, _why = loader.read(str(real), settings.limits)
+        if not data or len(data) > settings.limits.max_bytes:
             return []
         if not any(k and k.encode("utf-8") in data for k in (key, dkey)):
             return []

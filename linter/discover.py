@@ -7,6 +7,8 @@ import subprocess
 from functools import lru_cache
 from pathlib import Path
 
+from .paths import confined, lexically_inside
+
 SKIP_DIRS = frozenset({".git", ".hg", ".svn", "__pycache__", "node_modules", ".venv", "venv", ".tox",
                        ".mypy_cache", ".pytest_cache", ".hypothesis", "build", "dist", ".eggs"})
 
@@ -42,7 +44,8 @@ def _glob_re(pattern: str) -> re.Pattern:
         else:
             out.append(re.escape(c))
         i += 1
-    return re.compile("".join(out) + r"\Z")
+    # DOTALL: a newline in a file name is a character like any other (it must not hide the file)
+    return re.compile("".join(out) + r"\Z", re.DOTALL)
 
 
 def matches(rel: str, patterns) -> bool:
@@ -74,21 +77,27 @@ class Refused(str):
 
 
 def inside(path: Path, root: Path) -> bool:
-    """Does ``path``, with every symbolic link followed, lie inside ``root``?"""
-    try:
-        path.resolve().relative_to(root)
-        return True
-    except (ValueError, OSError, RuntimeError):
+    """Does ``path``, with every symbolic link followed, lie inside ``root``? (``paths.confined``)"""
+    return confined(path, root) is not None
+
+
+def _refused(path: Path, root: Path, confine: bool) -> bool:
+    """Is a path given on the command line refused? With ``confine``, when it leaves the
+    repository; without, when it is written as a place in the repository but a symbolic link on
+    the way (the file itself or a folder above it) leads out."""
+    if inside(path, root):
         return False
+    return confine or path.is_symlink() or lexically_inside(path, root)
 
 
-def _outside(path: Path, root: Path) -> Refused:
+def _outside(path: Path, root: Path, shown: str | None = None) -> Refused:
     try:
         target = path.resolve()
     except (OSError, RuntimeError):
         target = path
-    how = f" (a link to {target.as_posix()})" if path.is_symlink() else ""
-    return Refused(path.as_posix(), f"is outside the repository {root.as_posix()}{how}; not read")
+    how = (f" (a link to {target.as_posix()})" if path.is_symlink() else
+           f" (through a symbolic link, to {target.as_posix()})" if lexically_inside(path, root) else "")
+    return Refused(shown or path.as_posix(), f"is outside the repository {root.as_posix()}{how}; not read")
 
 
 def discover(paths: list[str], root: Path, include: list[str], exclude: list[str],
@@ -111,12 +120,12 @@ def discover(paths: list[str], root: Path, include: list[str], exclude: list[str
     for p in paths:
         path = Path(p)
         if path.is_dir():
-            if (confine or path.is_symlink()) and not inside(path, root):
+            if _refused(path, root, confine):
                 missing.append(_outside(path, root))
                 continue
             _walk(path, root, include, exclude, found, missing, used)
         elif path.exists() or path.is_symlink():
-            if path.exists() and (confine or path.is_symlink()) and not inside(path, root):
+            if path.exists() and _refused(path, root, confine):
                 missing.append(_outside(path, root))
                 continue
             shown = relpath(path, root) if path.exists() else path.as_posix()
@@ -146,7 +155,7 @@ def _walk(top: Path, root: Path, include, exclude, found: dict, missing: list | 
             # can lead out of the repository (and only it costs a resolve)
             if os.path.islink(full) and full.exists() and not inside(full, root):
                 if missing is not None:
-                    missing.append(_outside(full, root))
+                    missing.append(_outside(full, root, shown))
                 continue
             disk = str(full)
             found.setdefault(disk, disk if disk == shown else shown)  # perf: one string when equal
@@ -154,18 +163,26 @@ def _walk(top: Path, root: Path, include, exclude, found: dict, missing: list | 
 
 def changed_since(ref: str, root: Path) -> list[str]:
     """Files changed between ``ref`` and the working tree (plus untracked ones), relative to root.
-    Raises ValueError with git's own message when the ref cannot be used."""
+    Raises ValueError with git's own message when the ref cannot be used. Names are read
+    NUL-separated (any byte of a file name survives: no quoting), and the ref can never reach
+    git as an option."""
     def git(*args):
-        return subprocess.run(["git", *args], cwd=root, capture_output=True, text=True)
+        return subprocess.run(["git", *args], cwd=root, capture_output=True)
 
+    def text(data: bytes) -> str:
+        return data.decode("utf-8", "replace").strip()
+
+    if not ref or ref.startswith("-"):
+        raise ValueError(f"--since {ref!r}: expected a git revision (a commit, branch or tag), "
+                         "found something that would read as an option")
     top = git("rev-parse", "--show-toplevel")
     if top.returncode:
-        raise ValueError(f"--since needs a git repository: {top.stderr.strip()}")
-    diff = git("diff", "--name-only", "--diff-filter=ACMR", "--relative", ref)
+        raise ValueError(f"--since needs a git repository: {text(top.stderr)}")
+    diff = git("diff", "--name-only", "--diff-filter=ACMR", "--relative", "-z", ref, "--")
     if diff.returncode:
-        raise ValueError(f"--since {ref}: {diff.stderr.strip() or 'git diff failed'}")
-    untracked = git("ls-files", "--others", "--exclude-standard")
+        raise ValueError(f"--since {ref}: {text(diff.stderr) or 'git diff failed'}")
+    untracked = git("ls-files", "--others", "--exclude-standard", "-z", "--")
     # deleted files and the old names of renamed ones: the configs that named them are checked again
-    gone = git("diff", "--name-only", "--diff-filter=D", "--no-renames", "--relative", ref)
-    names = diff.stdout.splitlines() + untracked.stdout.splitlines() + gone.stdout.splitlines()
+    gone = git("diff", "--name-only", "--diff-filter=D", "--no-renames", "--relative", "-z", ref, "--")
+    names = (diff.stdout + b"\0" + untracked.stdout + b"\0" + gone.stdout).decode("utf-8", "surrogateescape").split("\0")
     return sorted(set(n for n in names if n))

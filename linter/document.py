@@ -16,6 +16,16 @@ from .findings import Location
 
 class Node:
     __slots__ = ("line", "col", "end_line", "end_col", "start", "end", "path", "anchor", "file")
+    kind: str  # scalar, mapping, sequence (a class attribute of each kind)
+    line: int
+    col: int
+    end_line: int
+    end_col: int
+    start: int  # character offsets in Document.text
+    end: int
+    path: tuple[str, ...]  # key path from the document's root
+    anchor: str | None
+    file: str | None  # the shown path of the file the node was written in
 
     def location(self, message: str = "") -> Location:
         """Where this node was written: its own file (a composed run mixes files)."""

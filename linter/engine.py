@@ -215,9 +215,10 @@ class Context:
         out = list(related)
         if self.model is None or not (self.model.chains or any(v.chain for v in self.model.values.values())):
             return out  # no value of this run came through a layer, reference, merge or alias
-        index = getattr(self, "_by_place", None)
+        index: dict[tuple, list] | None = getattr(self, "_by_place", None)
         if index is None:
-            index = self._by_place = {}
+            index = {}
+            self._by_place = index
             values = list(self.model.values.values())
             for comp in self.model.components:
                 values.extend(comp.fields.values())

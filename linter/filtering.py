@@ -37,7 +37,7 @@ class Acceptance:
 
 
 def acceptances(text: str) -> list[Acceptance]:
-    out = []
+    out: list[Acceptance] = []
     if "trimtab:" not in text:
         return out
     for n, line in enumerate(text.splitlines(), 1):
@@ -119,7 +119,7 @@ def select(findings: list[Finding], only: set[str], skip: set[str]) -> list[Find
 ACCEPTED_VERSION = 1
 
 
-def write_accepted(path: Path, findings: list[Finding], keep: list[dict] = ()) -> int:
+def write_accepted(path: Path, findings: list[Finding], keep: Iterable[dict] = ()) -> int:
     """Write the accepted-findings file: one entry per fingerprint (with a count when one
     fingerprint stands for several findings), sorted by file, rule and fingerprint so that the
     file is stable and diffs well. ``keep``: entries of files this run did not check."""
@@ -142,7 +142,9 @@ def write_accepted(path: Path, findings: list[Finding], keep: list[dict] = ()) -
     doc = {"trimtab_accepted": ACCEPTED_VERSION, "findings": rows}
     import json  # here, not at the top: start-up (perf)
 
-    path.write_text(json.dumps(doc, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
+    from .paths import write_atomic
+
+    write_atomic(path, json.dumps(doc, indent=2, ensure_ascii=False) + "\n")
     return len(rows)
 
 
@@ -154,21 +156,30 @@ class AcceptedFileError(Exception):
     pass
 
 
+ACCEPTED_MAX_BYTES = 64 * 1024 * 1024
+
+
 def read_accepted(path: Path) -> list[dict]:
     import json
 
+    from .loader import Limits, read
+
+    # a regular file only, of bounded size: a device or named pipe named here never hangs the check
+    raw, why = read(str(path), Limits(max_bytes=ACCEPTED_MAX_BYTES))
+    if raw is None:
+        raise AcceptedFileError(f"{path}: {why}")
+    if len(raw) > ACCEPTED_MAX_BYTES:
+        raise AcceptedFileError(f"{path}: is larger than {ACCEPTED_MAX_BYTES} bytes; not read")
     try:
-        text = path.read_text(encoding="utf-8")
+        text = raw.decode("utf-8")
         data = json.loads(text)
-    except OSError as exc:
-        raise AcceptedFileError(f"{path}: cannot be read: {exc.strerror}") from None
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise AcceptedFileError(f"{path}: is not an accepted-findings file (invalid JSON: {exc})") from None
     if not isinstance(data, dict) or not isinstance(data.get("findings"), list):
         raise AcceptedFileError(f"{path}: is not an accepted-findings file (expected a 'findings' list)")
     rows = [r for r in data["findings"] if isinstance(r, dict) and isinstance(r.get("fingerprint"), str)]
     # where each entry is written, so that a stale one can be pointed at (never written back)
-    where = {}
+    where: dict[str, tuple[int, int]] = {}
     for n, line in enumerate(text.splitlines(), 1):
         for m in _FINGERPRINT.finditer(line):
             where.setdefault(m.group(1), (n, m.start() + 1))

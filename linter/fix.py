@@ -19,6 +19,7 @@ from __future__ import annotations
 import codecs
 import difflib
 import math
+import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -68,7 +69,10 @@ class FileFix:
 
     def write(self) -> None:
         if self.changed:
-            self.disk.write_bytes(self.after)
+            from .paths import write_atomic
+
+            # through a link (inside the repository) to the file itself: the link stays a link
+            write_atomic(os.path.realpath(self.disk), self.after)
 
 
 def plan(findings: Iterable[Finding], locate: Callable[[str], Path | None]) -> list[FileFix]:
@@ -175,11 +179,11 @@ def _prove(doc, text: str, chosen: list, fmt: str) -> str:
     return new_text
 
 
-def _value_scalars(doc) -> dict[int, object]:
+def _value_scalars(doc) -> dict[int, tuple]:
     """Scalar nodes that are mapping values or sequence items (never keys), by end offset."""
     from .document import Mapping, Scalar, Sequence, walk
 
-    out = {}
+    out: dict[int, tuple] = {}
     for root in doc.roots:
         for node in walk(root):
             if isinstance(node, Mapping):

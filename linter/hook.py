@@ -20,6 +20,11 @@ import tempfile
 from pathlib import Path
 from typing import TextIO
 
+from .filtering import ACCEPTED_MAX_BYTES
+from .loader import Limits, read
+from .paths import confined, write_atomic
+from .settings import SettingsError
+
 MARK = "written by `trimtab install-hook`"
 EXPORTED = (".yaml", ".yml", ".json", ".py", ".toml")  # read from the index in --staged mode
 
@@ -53,8 +58,8 @@ def staged_gone(top: Path) -> list[str]:
 
 def with_staged(args, check) -> int:
     """Run ``check(args)`` over the staged versions of the staged config files."""
-    from .discover import matches
-    from .settings import SettingsError, load
+    from .discover import Refused, matches
+    from .settings import load
 
     if args.paths or args.since or args.fix:
         raise SettingsError("--staged checks the staged config files: give no paths, --since or --fix")
@@ -95,12 +100,19 @@ def with_staged(args, check) -> int:
         mirror = tmp / rel_root
         mirror.mkdir(parents=True, exist_ok=True)
         if settings.accepted:  # an accepted-findings file that is not in the index: the working tree's
-            src, dst = root / settings.accepted, mirror / settings.accepted
-            if src.is_file() and not dst.exists():
-                dst.parent.mkdir(parents=True, exist_ok=True)
-                shutil.copyfile(src, dst)
+            _copy_accepted(settings, root, mirror)
+        # a staged symbolic link is checked out as a link: one that leads out of the mirror is
+        # refused, exactly as a plain check refuses a link out of the working tree
+        files, refused = [], []
+        for rel in check_these:
+            disk, name = tmp / rel, shown(rel)
+            if confined(disk, mirror) is None:
+                refused.append(Refused(name, "is a symbolic link that leads outside the repository; not read"))
+            else:
+                files.append((str(disk), name))
         args.staged_root = mirror
-        args.staged_files = [(str(tmp / rel), shown(rel)) for rel in check_these]
+        args.staged_files = files
+        args.staged_missing = refused
         # a deleted or renamed base: the configs that named it are checked again (and report it)
         args.staged_changed = [s for s in (shown(rel) for rel in [*staged, *gone]) if s is not None]
         args.no_progress = True
@@ -111,9 +123,33 @@ def with_staged(args, check) -> int:
         shutil.rmtree(tmp, ignore_errors=True)
 
 
-def hook_script(python: str, folder: str = "") -> str:
+def _copy_accepted(settings, root: Path, mirror: Path) -> None:
+    """Copy the working tree's accepted-findings file into the mirror when the index has none.
+    Both ends are confined (the setting is written by the repository): a path that leaves the
+    working tree is refused, and nothing is written that would land outside the mirror."""
+    src = settings.path("accepted")  # SettingsError when it leaves the working tree
+    dst = mirror / src.relative_to(root)
+    if os.path.lexists(dst) or not src.is_file():
+        return
+    if confined(dst.parent, mirror) is None:  # a staged folder link on the way out of the mirror
+        raise SettingsError(f"{settings.source}: setting {settings.name('accepted')}: {settings.accepted!r} "
+                            "leads outside the repository through a staged symbolic link; not copied")
+    dst.parent.mkdir(parents=True, exist_ok=True)
+    if confined(dst.parent, mirror) is None:
+        return
+    data, _why = read(str(src), Limits(max_bytes=ACCEPTED_MAX_BYTES))
+    if data is not None and len(data) <= ACCEPTED_MAX_BYTES:
+        write_atomic(dst, data)
+
+
+def hook_script(python: str, folder: str = "", safe: str = "") -> str:
     """The hook. ``folder``: where the settings live, relative to the top of the working tree
-    (git runs hooks from the top; a settings file in a sub-folder is found from there)."""
+    (git runs hooks from the top; a settings file in a sub-folder is found from there).
+
+    The hook runs in the checked repository, whose files may be hostile: Python is started so
+    that the working directory is never on the import path (``-P``; ``-I`` before Python 3.11),
+    or a committed ``yaml.py`` or ``trimtab/`` would be imported instead of the real one."""
+    safe = safe or ("-P" if sys.version_info >= (3, 11) else "-I")
     python = shlex.quote(python)
     cd = f'cd "$(git rev-parse --show-toplevel)"/{shlex.quote(folder)} || exit 1\n' if folder else ""
     return f"""#!/bin/sh
@@ -121,7 +157,7 @@ def hook_script(python: str, folder: str = "") -> str:
 # Checks the staged version of the staged run configs; a finding at or above the gate level
 # stops the commit. `git commit --no-verify` skips it once; delete this file to remove it.
 {cd}if [ -x {python} ]; then
-  exec {python} -m trimtab check --staged
+  exec {python} {safe} -m trimtab check --staged
 fi
 if command -v trimtab >/dev/null 2>&1; then
   exec trimtab check --staged
@@ -157,7 +193,7 @@ def install(cwd: Path, force: bool, err: TextIO) -> int:
             folder = root.resolve().relative_to(top.resolve()).as_posix()
         except ValueError:
             folder = ""
-    target.write_text(hook_script(sys.executable, "" if folder == "." else folder), encoding="utf-8")
+    write_atomic(target, hook_script(sys.executable, "" if folder == "." else folder))
     mode = target.stat().st_mode
     target.chmod(mode | stat.S_IXUSR | stat.S_IXGRP | stat.S_IXOTH)
     print(f"trimtab: wrote {target}: commits now check the staged version of staged run configs", file=err)

@@ -24,7 +24,6 @@ import json
 import re
 import textwrap
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import TextIO
 
 from .redact import for_text, mask
@@ -369,12 +368,12 @@ def score(concept: str, path: tuple[str, ...], node: Node, version: str) -> Cand
         return None
     words = len((leaf_words & which.words) - WEAK) if which is not None else 0
     strong = enum or (name >= 0.5 and (section or words >= 2))
-    unit = _unit_hint(c, leaf_words)
-    if unit:
+    hint = _unit_hint(c, leaf_words)
+    if hint:
         # the key's name says it counts in another unit: offered with that unit, for confirmation
-        reasons.append("the name says " + ", ".join(f"{k} = {v}" for k, v in unit) + " (confirm)")
+        reasons.append("the name says " + ", ".join(f"{k} = {v}" for k, v in hint) + " (confirm)")
         strong = False
-    return Candidate(concept, ".".join(path), node, total, reasons, name, enum, strong, unit)
+    return Candidate(concept, ".".join(path), node, total, reasons, name, enum, bool(strong), hint)
 
 
 def _unit_hint(c, words: frozenset) -> tuple:
@@ -492,6 +491,8 @@ def draft_command(outcome, output: str | None, out: TextIO, err: TextIO) -> int:
         return 2
     d = draft(runs, shown)
     if output:
-        Path(output).write_text(d.toml(), encoding="utf-8")
+        from .paths import write_atomic
+
+        write_atomic(output, d.toml())
     d.report(out, output)
     return 0

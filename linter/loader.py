@@ -12,6 +12,7 @@ import os
 import re
 import stat
 import warnings
+from typing import Any
 from dataclasses import dataclass
 
 from . import scalars
@@ -433,7 +434,7 @@ class _Builder:
             return
         import yaml
 
-        after: dict[tuple[int, type], object] = {}
+        after: dict[tuple[int, type], Any] = {}
         prev = None
         try:
             for tok in yaml.scan(self.doc.text, Loader=yaml.CSafeLoader):
@@ -495,14 +496,15 @@ class _Builder:
                     # the non-specific tag '!' means "a string" (YAML 1.2.2, section 6.9.1);
                     # some readers resolve it like a plain scalar
                     tag = "!" if m.group(1) == "!" else _tag(raw.tag)
-            node: Node = Scalar(raw.value, raw.style or None, tag)
+            scalar = Scalar(raw.value, raw.style or None, tag)
+            node: Node = scalar
             self._place(node, raw, path)
-            if len(raw.value) > scalars.MAX_INT_TEXT and node.plain and tag is None and scalars.oversized(raw.value):
-                self._oversized(node)
+            if len(raw.value) > scalars.MAX_INT_TEXT and scalar.plain and tag is None and scalars.oversized(raw.value):
+                self._oversized(scalar)
             if node.anchor is not None:  # only an anchored scalar can be met again (an alias)
                 self.memo[id(raw)] = node
-            if role and not raw.value and node.plain and node.start == node.end and not node.anchor:
-                self.empties.append((node, role))
+            if role and not raw.value and scalar.plain and node.start == node.end and not node.anchor:
+                self.empties.append((scalar, role))
             return node
         if kind == "SequenceNode":
             node = Sequence()

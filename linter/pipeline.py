@@ -34,7 +34,7 @@ class Request:
     paths: list[str] = field(default_factory=list)  # none: the settings' include globs
     only: set[str] = field(default_factory=set)
     skip: set[str] = field(default_factory=set)
-    overrides: list[tuple[str, str]] = field(default_factory=list)  # (key path, text) from --set
+    overrides: list[tuple] = field(default_factory=list)  # (key path, text, added) from --set / --add
     gate: str | None = None  # default: the settings' gate
     accepted: str | None = None  # --accepted FILE (else the settings' accepted file)
     apply_accepted: bool = True  # False: the accepted-findings file is not read (--write-accepted)
@@ -44,6 +44,7 @@ class Request:
     confine: bool = True  # paths given must lie inside the repository (a one-off audit may look outside)
     dependants: bool = True  # a base among the files brings the runs built on it
     staged_files: list[tuple[str, str]] | None = None  # check --staged: the files, exported from the index
+    staged_missing: list[str] = field(default_factory=list)  # check --staged: staged files refused (discover.Refused)
     keep_models: bool = False  # keep each file's Document and run models (audit, explain, map)
     guard: Callable[[list[tuple[str, str]]], None] | None = None  # sees the files found, may refuse the run
     progress: Callable[[int], Any] | None = None  # progress(number of files) -> a progress callback or None
@@ -143,7 +144,7 @@ class Pipeline:
 
         settings = self.settings
         if req.staged_files is not None:
-            files, missing = list(req.staged_files), []
+            files, missing = list(req.staged_files), list(req.staged_missing)
         else:
             used: set[str] = set()
             files, missing = discover(req.paths, settings.root, settings.include, settings.exclude, used,
@@ -151,8 +152,7 @@ class Pipeline:
             for idle in settings.check_include(used, bool(req.paths)):
                 if req.notes:
                     req.notes(f"setting {idle} matches no file")
-        if req.guard is not None:
-            req.guard(files)
+        found = list(files)  # every file found, before --since narrows them: none is ever written to
         files = self._not_own_outputs(files, req)
         changed = set(req.changed) if req.changed is not None else None
         if req.since:
@@ -163,13 +163,17 @@ class Pipeline:
             files = [(p, s) for p, s in files if s in changed]
         if req.dependants:
             files = self._with_dependants(req, files, changed)
+        if req.guard is not None:
+            # after every file to check is known (the runs built on a base among them): a report
+            # or accepted-findings file never overwrites a checked config
+            req.guard(found + files)
         return files, missing
 
     def _not_own_outputs(self, files, req: Request):
         """The accepted-findings file and the reports are trimtab's own output, not configs."""
         own = [p for p in (req.accepted, *req.own_outputs) if p]
         if self.settings.accepted:
-            own.append(str(self.settings.root / self.settings.accepted))
+            own.append(str(self.settings.path("accepted")))
         if not own:
             return files
         skip = {Path(p).resolve() for p in own}
@@ -192,7 +196,9 @@ class Pipeline:
         settings = self.settings
         files_, missing = files if files is not None else self.discover(req)
         checker = Checker(settings, self.registry, CheckOptions(req.only, req.skip, list(req.overrides)))
-        jobs = req.jobs if req.jobs is not None else settings.jobs
+        # a number of workers from the settings (which the repository writes) is capped at the
+        # machine's processors; one given on the command line is the user's own choice
+        jobs = req.jobs if req.jobs is not None else min(settings.jobs, _cores())
         if jobs < 1:
             raise SettingsError(f"--jobs {jobs}: expected a number of at least 1")
         if req.keep_models:
@@ -232,17 +238,30 @@ class Pipeline:
         accepted_path = req.accepted or settings.accepted
         if not accepted_path or not req.apply_accepted:
             return findings
-        path = Path(accepted_path)
-        if not path.is_absolute() and not req.accepted:
-            path = settings.root / path
+        # from the command line: the user's own file; from the settings: confined to the repository
+        path = Path(req.accepted) if req.accepted else settings.path("accepted")
         try:
             rows = filtering.read_accepted(path)
         except filtering.AcceptedFileError as exc:
             raise SettingsError(str(exc)) from None
-        gone = {str(r.get("file")) for r in rows if not (settings.root / str(r.get("file"))).exists()}
+        from .paths import confined
+
+        # an entry naming a file outside the repository is gone: nothing outside is even looked at
+        gone = {str(r.get("file")) for r in rows
+                if (real := confined(settings.root / str(r.get("file")), settings.root)) is None or not real.exists()}
         known = checked | gone
 
         def accepted() -> Iterator[Finding]:
             return filtering.apply_accepted(findings, rows, str(accepted_path), known, tally)
 
         return Stream(accepted)
+
+
+def _cores() -> int:
+    """The processors this process may run on."""
+    import os
+
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)

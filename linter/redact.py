@@ -22,6 +22,7 @@ import functools
 import math
 import re
 from collections import Counter
+from typing import Any
 
 MASK = "*" * 8
 MIN_LENGTH = 24  # SEC-1's default min_length
@@ -157,8 +158,7 @@ def reason(key: str, node, min_length: int = MIN_LENGTH, min_bits: float = MIN_B
 
 def _entries(root):
     """(key text, value node) for every mapping entry (and sequence item under a key), each once."""
-    from .document import Mapping, Sequence, Scalar
-
+    # nodes are told by their kind (redact sits below the located tree: findings mask their text)
     seen = set()
     stack = [("", root)]
     while stack:
@@ -166,23 +166,22 @@ def _entries(root):
         if id(node) in seen:
             continue
         seen.add(id(node))
-        if isinstance(node, Mapping):
+        kind = getattr(node, "kind", "")
+        if kind == "mapping":
             for k, _kn, v, _via in node.entries():
                 yield k, v
                 stack.append((k, v))
-        elif isinstance(node, Sequence):
+        elif kind == "sequence":
             for item in node.items:
-                if isinstance(item, Scalar):
+                if getattr(item, "kind", "") == "scalar":
                     yield key, item
                 else:
                     stack.append((key, item))
 
 
-def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> list[tuple[str, object, str]]:
+def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> list[tuple[str, Any, str]]:
     """(key, scalar node, why) of every literal credential of a document, each node once. Kept on
     the document for the default thresholds (the loader's ``learn`` and SEC-1 share one walk)."""
-    from .document import Scalar
-
     default = (min_length, min_bits) == (MIN_LENGTH, MIN_BITS)
     if default:
         memo = vars(doc).get("_credentials")
@@ -191,7 +190,7 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
     out, seen = [], set()
     for root in doc.roots:
         for key, node in _entries(root):
-            if not isinstance(node, Scalar) or id(node) in seen:
+            if getattr(node, "kind", "") != "scalar" or id(node) in seen:
                 continue
             why = reason(key, node, min_length, min_bits)
             if why:

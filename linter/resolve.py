@@ -3,8 +3,9 @@ layout, then derive the run arithmetic. Knows concepts, never rules."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import cast
 
-from .compose import Unknown
+from .composed import Unknown
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .arithmetic import Unit, settle
@@ -166,7 +167,7 @@ def _leaves(root: Node):
     path it is reached by, within REVISIT_BUDGET; cycles are never followed."""
     seen: set[int] = set()
     budget = REVISIT_BUDGET
-    stack = [((), root, (), frozenset())]
+    stack: list[tuple[tuple, Node, tuple, frozenset]] = [((), root, (), frozenset())]
     while stack:
         path, node, chain, above = stack.pop()
         if id(node) in seen:
@@ -178,7 +179,7 @@ def _leaves(root: Node):
             inner = above | {id(node)}
             for name, k, v, via in node.entries():
                 p = path + (name,)
-                hops = chain
+                hops: tuple = chain
                 if via is not None:
                     hops = hops + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
                 elif v.anchor and v.path != p and isinstance(k, Scalar) and k.path == path:
@@ -246,7 +247,7 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     if isinstance(node, Unknown):  # known only at launch: out of the run, never reasoned about
         model.unknown[concept] = Value(concept, None, loc, node, via, key, chain, note=node.why)
         return
-    value = node.value(model.version)
+    value = cast(Scalar, node).value(model.version)
     v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
@@ -275,7 +276,8 @@ def _fits(value, expected: str) -> bool:
 def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:
     doc = model.doc
     names = dict(spec.fields) if spec and spec.fields else {}
-    out = []
+    out: list[Component] = []
+    items: list[tuple[Node | None, Node]]
     if isinstance(node, Sequence):
         items = [(None, it) for it in node.items]
     elif isinstance(node, Mapping):

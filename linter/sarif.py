@@ -56,7 +56,7 @@ def _location(loc: Location, ident: int | None = None) -> dict:
 
 
 def _descriptor(rule: Rule) -> dict:
-    d = {
+    d: dict[str, object] = {
         "id": rule.id,
         "name": rule.name,
         "shortDescription": {"text": rule.summary},

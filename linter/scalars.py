@@ -194,7 +194,7 @@ def _typed(text: str, plain: bool, tag: str | None, version: str):
         if kind is str:
             return text
         value = reader(text)
-        want = {"int": int, "float": float, "bool": bool, "null": type(None)}[kind]
+        want = {"int": int, "float": float, "bool": bool, "null": type(None)}[str(kind)]
         if kind == "float" and isinstance(value, int) and not isinstance(value, bool):
             return float(value)
         return value if isinstance(value, want) and not (kind == "int" and isinstance(value, bool)) else text

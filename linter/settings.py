@@ -73,6 +73,22 @@ class Settings:
                                 f"least one file under {self.root}, found {', '.join(idle)}, which match none")
         return idle
 
+    def path(self, key: str, root: Path | None = None) -> Path:
+        """The file a path setting (``accepted``, ``overrides``) names, relative to the root, with
+        every link followed; refused (SettingsError) when that leaves the repository, as a base
+        is. ``root``: where it is looked for instead (the staged mirror of ``check --staged``).
+        Nothing is opened here."""
+        from .paths import confined
+
+        value = getattr(self, key)
+        top = Path(root if root is not None else self.root)
+        real = confined(top / value, top)
+        if real is None:
+            raise SettingsError(f"{self.source}: setting {self.name(key)}: expected a path inside the repository "
+                                f"{top}, found {value!r}, which leads outside the repository (through '..', an absolute "
+                                "path or a symbolic link); it is not read or written")
+        return real
+
     def name(self, key: str) -> str:
         """How a setting is spelled in the user's file, for messages."""
         prefix = "tool.trimtab." if self.table else ""

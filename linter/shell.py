@@ -653,7 +653,7 @@ class Reader:
             return
         name = rest[0].text
         if name in ("export", "readonly", "declare", "typeset", "local"):
-            for w, (tok, s, e) in zip(rest[1:], cmd[i + 1:]):
+            for w, (tok, _s, _e) in zip(rest[1:], cmd[i + 1:]):
                 if tok.startswith("-"):
                     continue
                 if _ASSIGN.match(tok):
@@ -704,7 +704,7 @@ class Reader:
                                   self._scalar(w.text, w.file, w.start, w.end, t)))
 
     def _scalar(self, text: str, file: str, start: int, end: int, t: Text, cls=None) -> Scalar:
-        from .compose import GivenScalar
+        from .composed import GivenScalar
 
         node = (cls or GivenScalar)(text, None, None)
         _locate(node, self.texts.get(file, t), start, end, ())
@@ -748,7 +748,7 @@ class Reader:
 
     def _note(self, w: Word, t: Text, message: str, key: str = "", run=None) -> None:
         """A value known only at launch: a note of the run it belongs to (of the script without one)."""
-        from .compose import CompositionProblem
+        from .composed import CompositionProblem
 
         at = w.why_at if w.why_at >= 0 else w.start
         loc = (w.t or t).loc(at, w.end if w.why_at < 0 else at, key=key)
@@ -815,7 +815,7 @@ class Reader:
             if name.endswith("VISIBLE_DEVICES"):
                 visible = (name, w)
         topo: dict[str, tuple[Word, str]] = {}
-        for flag, value, fw in _flags(launcher):
+        for flag, value, _fw in _flags(launcher):
             concept = self.topology.get(flag.lstrip("-").lower().replace("-", "_"))
             if concept is not None and value is not None:
                 topo[concept] = (value, flag)
@@ -920,7 +920,7 @@ class Reader:
             return
         parts = tuple(key.split("."))
         if prefix == "~":
-            from .compose import REMOVE_TAG
+            from .composed import REMOVE_TAG
 
             node = self._scalar("", w.file, w.start, w.end, t)
             node.tag = REMOVE_TAG
@@ -936,7 +936,7 @@ class Reader:
     def _put(self, run: LaunchRoot, top: Mapping, parts: tuple, value: Word, t: Text, key: str,
              whole: Word | None = None) -> None:
         if value.text is None:
-            from .compose import Unknown
+            from .composed import Unknown
 
             node = self._scalar("", value.file, value.start, value.end, self.texts.get(value.file, t), Unknown)
             node.why = value.why
@@ -1001,7 +1001,7 @@ def _locate(node: Node, t: Text, start: int, end: int, path: tuple) -> Node:
 
 def _value_tree(w: Word, t: Text, path: tuple) -> Node:
     """The value the program reads from the text of an argument: YAML 1.2, as for --set."""
-    from .compose import GivenScalar
+    from .composed import GivenScalar
 
     text = w.text or ""
     if text.lstrip()[:1] in ("[", "{"):  # a flow list or mapping
@@ -1015,7 +1015,7 @@ def _value_tree(w: Word, t: Text, path: tuple) -> Node:
 
 
 def _relocate(node: Node, w: Word, t: Text, path: tuple) -> Node:
-    from .compose import GivenScalar
+    from .composed import GivenScalar
 
     if isinstance(node, Scalar):
         return _locate(GivenScalar(node.text, node.style, node.tag), t, w.start, w.end, path)
@@ -1032,7 +1032,7 @@ def _relocate(node: Node, w: Word, t: Text, path: tuple) -> Node:
 
 def _insert(top: Mapping, parts: tuple, node: Node, t: Text, w: Word) -> None:
     """Put ``node`` at the dotted path under ``top`` (later arguments win)."""
-    from .compose import GivenScalar
+    from .composed import GivenScalar
 
     cur = top
     for i, part in enumerate(parts[:-1]):
@@ -1076,7 +1076,7 @@ def read(path: str, shown: str, settings, data: bytes | None = None) -> Document
     """A launch script as a Document: ``runs`` (one LaunchRoot per training command) and ``roots``
     (one mapping of every value the script writes). Never raises for what the script contains."""
     from . import loader
-    from .compose import CompositionProblem
+    from .composed import CompositionProblem
 
     limits = settings.limits
     doc = Document(path=shown, fmt="shell")

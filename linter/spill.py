@@ -29,7 +29,7 @@ class Spill:
             raise ValueError("a Spill needs a buffer of at least one item")
         self._items: list = []
         self._runs: list[tuple[int, int]] = []  # (offset, count) of each run written, in arrival order
-        self._file = None
+        self._file: Any = None
         self._count = 0
 
     def append(self, item) -> None:

@@ -6,7 +6,7 @@ import hashlib
 import re
 from dataclasses import dataclass
 
-from trimtab import Location
+from trimtab import Component, Location
 
 CAUTIONS = (
     "Usual cautions: treat model-written code and remote code as untrusted; run it isolated from the "
@@ -70,7 +70,7 @@ def scanner(ctx):
 
 @dataclass
 class CodeReward:
-    comp: object
+    comp: Component  # the reward component
     declared: bool  # kind: code
     calls: list  # codescan Hits of category exec (may be empty when declared)
 

@@ -17,7 +17,8 @@ def _critic(m):
     return "unstated", None
 
 
-@rule(id="ALG-1", name="critic-unused", level="warning", summary="A critic-free estimator is configured with a value model.",
+@rule(id="ALG-1", name="critic-unused", level="warning",
+      summary="A critic-free estimator is configured with a value model.",
       rationale="Group-relative estimators take the baseline from the other completions of the same prompt "
       "(arXiv:2402.03300: the group baseline replaces the value model; leave-one-out, arXiv:2402.14740, "
       "from memory), and REINFORCE-style estimators with a greedy or batch baseline need none either. A "
@@ -61,7 +62,8 @@ def gae_without_critic(ctx):
                           suggestion="configure the value model (critic.source), or use a critic-free estimator")
 
 
-@rule(id="ALG-3", name="gae-constant-range", level="error", summary="The discount gamma or the GAE lambda is outside [0, 1].",
+@rule(id="ALG-3", name="gae-constant-range", level="error",
+      summary="The discount gamma or the GAE lambda is outside [0, 1].",
       rationale="The discount gamma and the GAE parameter lambda are weights of a geometric sum "
       "(arXiv:1506.02438): outside [0, 1] the advantage estimate diverges or changes sign. PPO's "
       "published defaults are gamma = 0.99 and lambda = 0.95 (arXiv:1707.06347, from memory); "

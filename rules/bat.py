@@ -8,7 +8,6 @@ disagreement and the rules downstream stay silent instead of repeating it.
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab.model import whole
 from trimtab import arithmetic
 from trimtab.arithmetic import PARALLEL, either, judge, keymap_line, lcm, near_divisors, near_multiples, related, remainder
 
@@ -416,8 +415,7 @@ def unit_unsettled(ctx):
         shown = ", ".join(a.term(c).shown() for c, _u in a.reading if a.term(c).converted)
         return f" ({shown})" if shown else ""
 
-    breaks = "; ".join(f"{s.title} {s.text()}" for s in usual.broken if s.ambiguous)
-    parts = [f"read as {usual.label()} (the usual reading): {breaks}"]
+    parts = [f"read as {usual.label()} (the usual reading): {'; '.join(arithmetic.breaks(usual))}"]
     fine = [a for a, status in verdict.considered if status == "consistent"]
     unknown = [a for a, status in verdict.considered if status == "unknown"]
     if fine:

@@ -12,7 +12,8 @@ from trimtab import rule
 from ._common import CLIPPED, anchor, clipped, estimator, num, shown, unresolved
 
 
-@rule(id="CLP-1", name="clip-unstated", level="warning", summary="A clipped objective does not state its clip range epsilon.",
+@rule(id="CLP-1", name="clip-unstated", level="warning",
+      summary="A clipped objective does not state its clip range epsilon.",
       rationale="PPO and the group-relative estimators clip the probability ratio to [1 - eps, 1 + eps] "
       "(arXiv:1707.06347; arXiv:2402.03300). Left out, eps is the trainer's default, which differs "
       "between trainers and versions (0.2 is the published value, arXiv:1707.06347, from memory). "
@@ -50,7 +51,8 @@ def clip_not_positive(ctx):
             yield ctx.finding(f"{c} = {shown(v)}: the clip epsilon must be positive", v.location, subject=v.number)
 
 
-@rule(id="CLP-3", name="clip-lower-inactive", level="warning", summary="The lower clip epsilon is 1 or more, so it never acts.",
+@rule(id="CLP-3", name="clip-lower-inactive", level="warning",
+      summary="The lower clip epsilon is 1 or more, so it never acts.",
       rationale="The ratio r = pi / pi_old is positive, so with eps >= 1 the lower bound 1 - eps <= 0 can never be "
       "reached: tokens with negative advantage are not clipped at all (arXiv:1707.06347). Some recipes "
       "do this on purpose; then accept it with a reason: `# trimtab: accept CLP-3 -- reason`.")
@@ -61,7 +63,8 @@ def clip_lower_inactive(ctx):
                           "above 0, so the lower clip never acts", v.location, subject=v.number)
 
 
-@rule(id="CLP-4", name="clip-high-below-low", level="warning", summary="The upper clip epsilon_high is smaller than the lower epsilon.",
+@rule(id="CLP-4", name="clip-high-below-low", level="warning",
+      summary="The upper clip epsilon_high is smaller than the lower epsilon.",
       rationale="Decoupled clipping (arXiv:2503.14476) raises the upper bound above the lower one to leave room "
       "for low-probability tokens to grow (published: eps_low 0.2, eps_high 0.28). An upper bound "
       "below the lower one does the opposite of what the setting is for, and is usually two values "
@@ -89,7 +92,8 @@ def dual_clip(ctx):
                           v.location, subject=v.number)
 
 
-@rule(id="CLP-6", name="clip-never-acts", level="note", summary="One optimiser update per rollout batch: the ratio clip never acts.",
+@rule(id="CLP-6", name="clip-never-acts", level="note",
+      summary="One optimiser update per rollout batch: the ratio clip never acts.",
       rationale="With exactly one optimiser update per rollout batch, the update is computed with the weights that "
       "sampled the batch, so the probability ratio pi / pi_old is 1 for every token (up to numerical "
       "differences between the sampler and the trainer) and the clip (arXiv:1707.06347) has nothing to "
@@ -136,7 +140,8 @@ def clip_never_acts(ctx):
                       key_path="optim.updates_per_step")
 
 
-@rule(id="CLP-7", name="grad-clip-not-positive", level="error", summary="The maximum gradient norm is zero or negative.",
+@rule(id="CLP-7", name="grad-clip-not-positive", level="error",
+      summary="The maximum gradient norm is zero or negative.",
       rationale="Gradient-norm clipping rescales the gradient to at most the given norm. A maximum of 0 scales "
       "every update to nothing (or, in trainers that read 0 as off, silently disables the clip); a "
       "negative maximum is refused or undefined. Write a positive norm (1.0 is common practice), or "

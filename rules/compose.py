@@ -31,7 +31,8 @@ def reference_cycle(ctx):
     return _report(ctx, "compose-cycle")
 
 
-@rule(id="CMP-2", name="reference-unknown", level="warning", summary="A `${...}` reference names a key the composed run does not have.",
+@rule(id="CMP-2", name="reference-unknown", level="warning",
+      summary="A `${...}` reference names a key the composed run does not have.",
       rationale=_LAYERS + "The reference resolves against the whole composed run (bases, file, overrides); a target "
       "that none of them has is usually a typo or a key a base renamed. The finding points at the line that "
       "refers. A warning, not an error: a launcher may supply variables of its own that no file shows. An "
@@ -76,7 +77,8 @@ def override_not_applied(ctx):
     return _report(ctx, "compose-override")
 
 
-@rule(id="CMP-7", name="composition-malformed", level="error", summary="A bases entry or a reference cannot be used as written.",
+@rule(id="CMP-7", name="composition-malformed", level="error",
+      summary="A bases entry or a reference cannot be used as written.",
       rationale=_LAYERS + "The bases key takes a path or a list of paths; a base holds a mapping of keys; a "
       "reference written inside text must name a single value, not a section or a list.",
       rl_only=False, scope="file")
@@ -84,7 +86,8 @@ def composition_malformed(ctx):
     return _report(ctx, "compose-malformed")
 
 
-@rule(id="CMP-8", name="override-adds-key", level="error", summary="A --set override adds a key that no layer of the run has.",
+@rule(id="CMP-8", name="override-adds-key", level="error",
+      summary="A --set override adds a key that no layer of the run has.",
       rationale=_LAYERS + "An override usually changes a value the run already has; one that adds a new key is often "
       "a misspelt key path (`--set rollout.group_sise=8`), which a trainer silently ignores, so the run "
       "checked is not the run launched. An error, so that a typo does not pass the gate: to add a key on "

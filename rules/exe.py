@@ -83,7 +83,7 @@ def _limit_missing(v) -> bool:
       "runpy, ctypes loading, multiprocessing with a code-running target); it never imports or runs them.",
       needs=SOURCES, cwe=653, help=CAUTIONS)
 def unsandboxed(ctx):
-    for rewards, kind, active, get in _sandbox(ctx):
+    for rewards, kind, active, _get in _sandbox(ctx):
         if not active:
             yield from _unsandboxed(ctx, rewards, kind)
 
@@ -110,7 +110,7 @@ def _unsandboxed(ctx, rewards, kind):
       "and the metadata endpoints of the cluster (common practice: no network in code sandboxes).",
       needs=SOURCES, help=CAUTIONS)
 def network(ctx):
-    for rewards, kind, active, get in _sandbox(ctx):
+    for rewards, _kind, active, get in _sandbox(ctx):
         v = get("sandbox.network")
         if active and v is not None and _text(v) in _ON:
             yield ctx.finding(f"sandbox.network is {_text(v)}: generated code can reach the network",
@@ -133,7 +133,8 @@ def no_timeout(ctx):
                               related=_related(rewards), subject=shown, suggestion="timeout_s: 10")
 
 
-@rule(id="EXE-4", name="sandbox-long-timeout", level="warning", summary="The code sandbox's timeout is longer than the option allows.",
+@rule(id="EXE-4", name="sandbox-long-timeout", level="warning",
+      summary="The code sandbox's timeout is longer than the option allows.",
       rationale="Reward programs for reasoning and coding tasks normally finish in seconds; a long limit lets a "
       "stuck or hostile program hold a worker for that long on every sample: a limit far above any need "
       "throttles nothing (CWE-770, Allocation of Resources Without Limits or Throttling, rather than the "
@@ -142,14 +143,15 @@ def no_timeout(ctx):
       needs=SOURCES, cwe=770, options={"max_timeout_s": 60.0}, help=CAUTIONS)
 def long_timeout(ctx):
     limit = ctx.options["max_timeout_s"]
-    for rewards, kind, active, get in _sandbox(ctx):
+    for rewards, _kind, active, get in _sandbox(ctx):
         v = get("sandbox.timeout_s")
         if active and v is not None and v.number is not None and v.number > limit:
             yield ctx.finding(f"sandbox.timeout_s = {v.number:g} s is over the {limit:g} s limit (option "
                               "max_timeout_s)", v.location, related=_related(rewards), subject=v.number)
 
 
-@rule(id="EXE-5", name="sandbox-no-limits", level="warning", summary="The code sandbox has no memory limit or no process limit.",
+@rule(id="EXE-5", name="sandbox-no-limits", level="warning",
+      summary="The code sandbox has no memory limit or no process limit.",
       rationale="Without a memory limit one program can exhaust the host's memory; without a process limit a fork "
       "bomb takes the machine down (CWE-770, Allocation of Resources Without Limits or Throttling).",
       needs=SOURCES, cwe=770, help=CAUTIONS)
@@ -170,12 +172,13 @@ def _no_limits(ctx, rewards, kind, get):
                               subject=concept, suggestion=fix)
 
 
-@rule(id="EXE-6", name="sandbox-writable-fs", level="warning", summary="The code sandbox can write to the host file system.",
+@rule(id="EXE-6", name="sandbox-writable-fs", level="warning",
+      summary="The code sandbox can write to the host file system.",
       rationale="Generated code that can write host files can overwrite checkpoints, data and the reward code "
       "itself (common practice: a read-only or no host mount, with a scratch tmpfs).",
       needs=SOURCES, help=CAUTIONS)
 def writable(ctx):
-    for rewards, kind, active, get in _sandbox(ctx):
+    for rewards, _kind, active, get in _sandbox(ctx):
         v = get("sandbox.filesystem")
         if active and v is not None and _text(v) in _WRITABLE:
             yield ctx.finding(f"sandbox.filesystem is {_text(v)}: generated code can write host files",
@@ -183,12 +186,13 @@ def writable(ctx):
                               suggestion="filesystem: read-only")
 
 
-@rule(id="EXE-7", name="sandbox-privileged", level="error", summary="Generated code runs as root or in a privileged sandbox.",
+@rule(id="EXE-7", name="sandbox-privileged", level="error",
+      summary="Generated code runs as root or in a privileged sandbox.",
       rationale="Root inside a privileged or weakly isolated sandbox is close to root on the host; generated code "
       "needs no privileges (CWE-250, execution with unnecessary privileges).",
       needs=SOURCES, cwe=250, help=CAUTIONS)
 def privileged(ctx):
-    for rewards, kind, active, get in _sandbox(ctx):
+    for rewards, _kind, active, get in _sandbox(ctx):
         if active:
             yield from _privileged(ctx, rewards, get)
 
@@ -212,7 +216,7 @@ def _privileged(ctx, rewards, get):
       "model-written code.",
       needs=SOURCES, help=CAUTIONS)
 def process_kind(ctx):
-    for rewards, kind, active, get in _sandbox(ctx):
+    for rewards, kind, active, _get in _sandbox(ctx):
         if active and _text(kind) in ("process", "subprocess", "local"):
             yield ctx.finding(f"sandbox.kind is {_text(kind)}: generated code runs as a plain subprocess on the "
                               "training host, which isolates nothing", kind.location, related=_related(rewards),

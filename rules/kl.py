@@ -95,7 +95,8 @@ def kl_reference(ctx):
             subject="reference-unused")
 
 
-@rule(id="KL-3", name="kl-counted-twice", level="warning", summary="The KL penalty is applied both in the reward and in the loss.",
+@rule(id="KL-3", name="kl-counted-twice", level="warning",
+      summary="The KL penalty is applied both in the reward and in the loss.",
       rationale="A KL penalty can be subtracted from the reward (a per-token penalty before the advantages, "
       "arXiv:2203.02155, from memory) or added to the loss as a separate term (arXiv:2402.03300). "
       "Doing both regularises twice with two coefficients that were tuned for one place: the "
@@ -156,7 +157,8 @@ def kl_range(ctx):
                           "(published: 0.001, 0.02, 0.04)", v.location, subject=x)
 
 
-@rule(id="KL-6", name="kl-adaptive-no-horizon", level="warning", summary="An adaptive KL target is set without a horizon.",
+@rule(id="KL-6", name="kl-adaptive-no-horizon", level="warning",
+      summary="An adaptive KL target is set without a horizon.",
       rationale="An adaptive KL controller moves the coefficient so that the measured KL approaches a target. Two "
       "published forms: the adaptive penalty of the clipped-objective paper (Schulman et al. 2017, "
       "arXiv:1707.06347, section 4, from memory) halves or doubles the coefficient when the measured KL "

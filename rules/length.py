@@ -15,7 +15,8 @@ def _len(model, concept):
     return v.whole if v is not None else None
 
 
-@rule(id="LEN-1", name="length-not-positive", level="error", summary="A token budget or context window is not a positive whole number.",
+@rule(id="LEN-1", name="length-not-positive", level="error",
+      summary="A token budget or context window is not a positive whole number.",
       rationale="Prompt and response budgets and context windows count tokens: zero or a negative number makes the "
       "engine refuse the request or generate nothing, and a fraction is not a token count. (Text and other "
       "non-numbers are reported by VOC-2.)")

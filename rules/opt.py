@@ -11,7 +11,8 @@ from trimtab.spill import Spill
 from ._common import anchor, num, shown, unresolved
 
 
-@rule(id="OPT-1", name="lr-range", level="warning", summary="The policy learning rate is outside the range used for RL fine-tuning.",
+@rule(id="OPT-1", name="lr-range", level="warning",
+      summary="The policy learning rate is outside the range used for RL fine-tuning.",
       rationale="Full-weight RL fine-tuning of language models uses small learning rates: 1e-6 (arXiv:2402.03300) "
       "and 3e-6 (arXiv:2501.12948v2, from memory: the revised version; v1 states no training "
       "hyperparameters) are published values. A rate far above collapses the "
@@ -38,7 +39,8 @@ def lr_range(ctx):
                           level="error", subject=c.number)
 
 
-@rule(id="OPT-2", name="warmup-not-shorter", level="warning", summary="The learning-rate warm-up is not shorter than the run.",
+@rule(id="OPT-2", name="warmup-not-shorter", level="warning",
+      summary="The learning-rate warm-up is not shorter than the run.",
       rationale="A warm-up raises the learning rate linearly to its peak over the warm-up steps (common practice). "
       "With warm-up steps >= the run's total steps the peak rate is never reached, and every step "
       "trains at a fraction of the rate the config states.", rl_only=False)
@@ -57,7 +59,8 @@ def _off(v) -> bool:
     return v.value is False or (v.number is not None and v.number <= 0)
 
 
-@rule(id="OPT-3", name="checkpoint-durability", level="warning", summary="A crash would lose the whole run: no checkpoint before the end.",
+@rule(id="OPT-3", name="checkpoint-durability", level="warning",
+      summary="A crash would lose the whole run: no checkpoint before the end.",
       rationale="A long run that writes no checkpoint before its last step loses everything to one node failure, "
       "and failures are routine at cluster scale (common practice). Reported when the checkpoint "
       "interval is not shorter than the run (the first checkpoint would be the last step), or when "
@@ -102,7 +105,8 @@ def _label(entry) -> str:
     return entry.path if entry.index == 0 else f"{entry.path} (document {entry.index + 1})"
 
 
-@rule(id="OPT-4", name="shared-output-dir", level="warning", summary="Two run configs write to the same checkpoint or output directory.",
+@rule(id="OPT-4", name="shared-output-dir", level="warning",
+      summary="Two run configs write to the same checkpoint or output directory.",
       rationale="Two runs that share a checkpoint or output directory overwrite each other's checkpoints, and a "
       "resumed run may load the other run's weights (common practice: one directory per run). This rule "
       "sees every run config of one invocation: each run of a clash is reported, pointing at the others. "

@@ -287,7 +287,8 @@ def _norm_ref(text: str) -> str:
     return t
 
 
-@rule(id="REW-8", name="duplicate-reward-reference", level="warning", summary="The same reward reference is listed twice.",
+@rule(id="REW-8", name="duplicate-reward-reference", level="warning",
+      summary="The same reward reference is listed twice.",
       rationale="Listing one reward twice doubles its weight in a way the weights do not show, and usually means "
       "one entry was meant to be a different function (common practice).",
       needs=SOURCES)

@@ -17,7 +17,8 @@ def _problems(ctx, kinds, level=None):
                               subject=p.kind)
 
 
-@rule(id="YML-1", name="parse-error", level="error", summary="The file is not valid YAML (or, for .json, not valid JSON).",
+@rule(id="YML-1", name="parse-error", level="error",
+      summary="The file is not valid YAML (or, for .json, not valid JSON).",
       rationale=_PARSE_WHY, rl_only=False, scope="file")
 def parse_error(ctx):
     return _problems(ctx, {"parse", "json"})

@@ -226,7 +226,8 @@ def test_refuses_quoting_in_json(tmp_path):
 
 
 # --- a rule that corrects a value it can prove: the mechanism for "stated product disagrees" ------
-@rule(id="TST-9", name="stated-product-test", level="warning", summary="test only: a stated product that disagrees with its factors",
+@rule(id="TST-9", name="stated-product-test", level="warning",
+      summary="test only: a stated product that disagrees with its factors",
       rationale="Test rule: batch.rollouts = batch.prompts x rollout.group_size (the identity trimtab derives).",
       needs=("batch.rollouts", "batch.prompts", "rollout.group_size"))
 def _product_rule(ctx):

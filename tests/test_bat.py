@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import pytest
 
-from _arith import expect_clean, expect_one
+from support import expect_clean, expect_one
 
 GOOD = ["BAT-1/good.yaml", "BAT-2/good.yaml", "BAT-3/good.yaml", "BAT-3/good-alias.yaml", "BAT-4/good.yaml",
         "BAT-5/good.yaml", "BAT-6/good.yaml", "BAT-7/good.yaml", "BAT-8/good.yaml", "BAT-8/convert/good.yaml"]
@@ -113,7 +113,7 @@ def test_bat8_key_map_conversion_leaves_a_fraction():
 
 
 def test_bat8_unconvertible_value_is_a_note_and_no_arithmetic_runs_on_it():
-    from _arith import arith
+    from support import arith
     from support import FIXTURES, check_json
 
     expect_one("BAT-8/convert/bad-unconverted.yaml", "BAT-8", "note", 8, 23, "group size unknown")

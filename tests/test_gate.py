@@ -3,10 +3,8 @@ subset of files or a deleted base never turns the gate off, and the output is re
 from __future__ import annotations
 
 import argparse
-import os
 import subprocess
 import tomllib
-from pathlib import Path
 
 import pytest
 

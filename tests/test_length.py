@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import pytest
 
-from _arith import expect_clean, expect_one
+from support import expect_clean, expect_one
 
 
 @pytest.mark.parametrize("rel", ["LEN-1/good.yaml", "LEN-2/good.yaml", "LEN-3/good.yaml"])

@@ -146,7 +146,7 @@ def _plain(text: str) -> str:
     return text.replace("\u00d7", "x")
 
 
-@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=60, suppress_health_check=[HealthCheck.too_slow])
 @given(runs())
 def test_explain_audit_and_findings_state_the_same_numbers(rows):
     path = _write(rows)

@@ -8,7 +8,7 @@ import re
 import pytest
 
 from support import FIXTURES, check_json
-from optim_support import noisy, places
+from support import noisy, places
 
 PUBLISHED = FIXTURES / "rules" / "published"
 RECIPES = sorted(p.name for p in PUBLISHED.glob("*.yaml"))

@@ -7,7 +7,6 @@ import gc
 import io
 import json
 import sys
-from pathlib import Path
 
 import pytest
 import yaml
@@ -236,7 +235,6 @@ def test_one_shape_pattern_matches_where_a_shape_does():
 def test_high_entropy_whitespace_test_is_the_per_character_one():
     import random
 
-    from trimtab_rules import secrets
 
     rng = random.Random(6)
     for _ in range(3000):

@@ -62,12 +62,24 @@ def test_commit_refused_with_located_finding_then_clean_commit_passes(tmp_path):
         f"repos:\n  - repo: {REPO.as_posix()}\n    rev: {rev}\n    hooks:\n      - id: trimtab\n")
     sh("git", "add", ".pre-commit-config.yaml")
     sh(sys.executable, "-m", "pre_commit", "install")
+    # modules the repository plants in the hope that the hook imports them instead of the real
+    # ones (issue 14): each writes a marker and exits 0, which would also let the bad commit through.
+    # (Only modules the framework's own launcher does not import itself: it starts from the
+    # repository's top with the folder on its import path; that is the framework's matter.)
+    markers = tmp_path / "markers"
+    markers.mkdir()
+    for rel in ("jsonschema/__init__.py", "pluggy.py", "ruamel/__init__.py", "trimtab/__init__.py",
+                "trimtab/__main__.py", "trimtab_rules/__init__.py", "tomllib.py"):
+        (work / rel).parent.mkdir(parents=True, exist_ok=True)
+        (work / rel).write_text(f"open({str(markers / rel.replace('/', '_'))!r}, 'w').write('imported')\n"
+                                "raise SystemExit(0)\n")
     (work / "run.yaml").write_text(BAD)
     sh("git", "add", "run.yaml")
     refused = sh("git", "commit", "-qm", "bad config", check=False)
     output = refused.stdout + refused.stderr
     assert refused.returncode != 0, output
     assert "run.yaml:10:3: warning YML-2 key 'coef' is written twice" in output, output
+    assert sorted(p.name for p in markers.iterdir()) == [], "the hook imported the repository's own code"
     (work / "run.yaml").write_text(GOOD)
     sh("git", "add", "run.yaml")
     passed = sh("git", "commit", "-qm", "clean config", check=False)

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import pytest
 
-from _arith import arith
+from support import arith
 from support import FIXTURES, check_json
 
 RECIPES = FIXTURES / "recipes"

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import pytest
 
-from _arith import expect_clean, expect_one
+from support import expect_clean, expect_one
 
 
 @pytest.mark.parametrize("rel", ["SMP-1/good.yaml", "SMP-1/good-ppo.yaml", "SMP-2/good.yaml", "SMP-3/good.yaml"])

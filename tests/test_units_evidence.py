@@ -15,7 +15,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from support import FIXTURES, check_json, run_cli
+from support import FIXTURES, check_json, expectations, run_cli
 
 from trimtab import arithmetic
 from trimtab.check import Checker
@@ -28,10 +28,9 @@ ARITH = ("BAT", "SMP", "LEN")
 
 
 def _expected(path: Path) -> list[tuple[str, str, int, int]]:
-    """(rule, level, line, col) from the fixture's '# expect: RULE level line N col M' comments."""
-    text = path.read_text(encoding="utf-8")
-    return [(r, lvl, int(line), int(col)) for r, lvl, line, col in
-            re.findall(r"^# expect: ([A-Z]+-\d+) (error|warning|note) line (\d+) col (\d+)", text, re.M)]
+    """(rule, level, line, col) from the fixture's '# expect: RULE LINE:COL LEVEL' comments (the
+    fixture harness's reading, support.expectations)."""
+    return [(r, lvl, line, col) for r, _path, line, col, lvl in expectations(path)[0]]
 
 
 @pytest.mark.parametrize("rel", ["bad.yaml", "good.yaml", "bad-every-reading.yaml", "settled/run.yaml"])
@@ -162,7 +161,7 @@ def _findings(folder: Path, text: str):
             if f.rule_id.split("-")[0] in ARITH or f.rule_id == "CLP-6"]
 
 
-@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=30, suppress_health_check=[HealthCheck.too_slow])
 @given(stated_runs())
 def test_stated_units_give_the_same_findings_as_the_native_layout(run):
     gpus, group, units, written, epochs = run
@@ -196,3 +195,18 @@ def test_suggestions_are_in_the_keys_own_unit(tmp_path):
     (f,) = check_json(path, cwd=tmp_path).of("BAT-2")
     assert "512 = 2 x 192 + 128" in f["message"]
     assert "a mini-batch of 16 prompts (128 completions) or 32 prompts (256 completions)" in f["suggestion"]
+
+
+def test_a_reading_that_makes_a_fraction_is_no_way_out(tmp_path):
+    # micro_batch_size 3 does not say per GPU or global. Per GPU: 256 / 8 ranks = 32 per rank, which
+    # does not split into micro-batches of 3 (32 = 10 x 3 + 2). Global: 3 / 8 ranks = 0.375 per GPU,
+    # no whole count. No reading is consistent, so the error stands (and says so).
+    path = tmp_path / "run.yaml"
+    path.write_text("# invented run\nrun:\n  estimator: grpo\ncluster:\n  nodes: 1\n  gpus_per_node: 8\n"
+                    "batch:\n  prompts: 16\n  mini: 256\ntrainer:\n  micro_batch_size: 3\n"
+                    "rollout:\n  group_size: 16\n  temperature: 1.0\n")
+    res = check_json(path, cwd=tmp_path)
+    (f,) = res.of("BAT-3")
+    assert f["level"] == "error" and "32 = 10 x 3 + 2" in f["message"]
+    assert "the same under every reading of trainer.micro_batch_size" in f["message"]
+    assert not res.of("BAT-9")

@@ -75,7 +75,7 @@ def test_invalid_inputs_rejected_with_a_line_or_listed(results):
     invalid = {cid: v for cid, v in results.items() if (v[0] / "error").exists()}
     assert len(invalid) == 94
     accepted = set()
-    for cid, (folder, doc, res, _t) in invalid.items():
+    for cid, (_folder, doc, res, _t) in invalid.items():
         parse = [f for f in res.findings if f.rule_id in ("YML-1", "YML-5")]
         if doc.readable:
             accepted.add(cid)

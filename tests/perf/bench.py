@@ -177,7 +177,7 @@ def _padding(rng: random.Random, target: int, have: int) -> list[str]:
     out += ["tokenizer:", "  padding_side: left", "  truncation: right", "  add_bos: true",
             "  chat_format: |", "    <|user|>", "    {prompt}", "    <|assistant|>"]
     out += ["callbacks:"]
-    for c in range(rng.randint(2, 6)):
+    for _c in range(rng.randint(2, 6)):
         out += [f"  - type: {rng.choice(('early_stop', 'lr_monitor', 'gpu_stats', 'sample_dump'))}",
                 f"    every: {rng.choice((10, 50, 100))}", f"    enabled: {rng.choice(('true', 'false'))}"]
     out.append("data:")
