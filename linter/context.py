@@ -48,8 +48,13 @@ def cache_file(start: Path, key: str) -> Path | None:
 
 def digest(path: Path, limit: int) -> str | None:
     """The content hash of a file (its first ``limit`` bytes and its size), or None when unreadable."""
+    import stat
+
     try:
-        with open(path, "rb") as fh:
+        if not stat.S_ISREG(os.stat(path).st_mode):  # a named pipe or a device: never opened
+            return None
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        with os.fdopen(fd, "rb") as fh:
             data = fh.read(limit + 1)
     except OSError:
         return None
