@@ -1,8 +1,8 @@
 """A CPU-time budget for work whose cost the checked repository controls (a regular expression it
 supplies, run against a text): the work is interrupted, not waited for.
 
-The budget is a one-shot CPU timer of the process (``ITIMER_VIRTUAL``, user-mode CPU time, so a
-busy machine does not shorten it) whose signal raises ``OverBudget`` in the main thread. Python's
+The budget is a one-shot CPU timer of the process (``ITIMER_PROF``: CPU time in user and system
+mode, so a busy machine does not shorten it, and memory-heavy work counts in full) whose signal raises ``OverBudget`` in the main thread. Python's
 regular-expression engine checks for signals while it matches, so a match that backtracks without
 end is stopped too. Where no such timer exists (a platform without ``setitimer``, a thread other
 than the main one) ``NoBudget`` is raised before any work starts: callers report that they could
@@ -36,12 +36,12 @@ def cpu_budget(seconds: float):
     def expire(_sig, _frame):
         raise OverBudget(seconds)
 
-    old = signal.signal(signal.SIGVTALRM, expire)
+    old = signal.signal(signal.SIGPROF, expire)
     try:
-        signal.setitimer(signal.ITIMER_VIRTUAL, seconds)
+        signal.setitimer(signal.ITIMER_PROF, seconds)
         yield
     finally:
         try:
-            signal.setitimer(signal.ITIMER_VIRTUAL, 0)
+            signal.setitimer(signal.ITIMER_PROF, 0)
         finally:
-            signal.signal(signal.SIGVTALRM, old)
+            signal.signal(signal.SIGPROF, old)
