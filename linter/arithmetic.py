@@ -705,10 +705,35 @@ def _origin(model: RunModel, a: Arithmetic, concept: str) -> str:
     return f"= {d.formula}; from {inputs}"
 
 
-def _row(model: RunModel, a: Arithmetic, label: str, concept: str, needs: str = "") -> tuple[str, str, str]:
+def world_conflict(a: Arithmetic) -> str:
+    """'' or, when the stated world size disagrees with nodes x GPUs per node, that conflict in words
+    (the data-parallel ranks then follow from whichever is right, so they are not known)."""
+    t, d = a.term("cluster.world_size"), a.derived("cluster.world_size")
+    if t is None or t.source is None or d is None or t.value is None or num(d.value) == num(t.value):
+        return ""
+    return (f"conflict: the world size is stated as {num(t.value)} at {where(t.source)}, but "
+            f"{d.formula} = {num(d.value)}")
+
+
+def missing(a: Arithmetic, *alternatives: tuple[str, ...]) -> str:
+    """Exactly what is missing for a quantity that any one of ``alternatives`` (each a tuple of
+    concepts) would give: per alternative, its concepts that were not found."""
+    out = []
+    for alt in alternatives:
+        found = [c for c in alt if a.term(c) is not None or a.derived(c) is not None]
+        lacking = [c for c in alt if c not in found]
+        if "train.data_parallel" in lacking and world_conflict(a):
+            lacking[lacking.index("train.data_parallel")] = f"train.data_parallel ({world_conflict(a)})"
+        if lacking:
+            out.append(", ".join(lacking) + (f" (found: {', '.join(found)})" if found else ""))
+    return "; or ".join(out)
+
+
+def _row(model: RunModel, a: Arithmetic, label: str, concept: str, *alternatives: tuple[str, ...]
+         ) -> tuple[str, str, str]:
     t, d = a.term(concept), a.derived(concept)
     if t is None and d is None:
-        return (label, "?", f"not found ({needs or concept})")
+        return (label, "?", f"not found: {missing(a, (concept,), *alternatives)}")
     shown = t.shown() if t is not None else num(d.value)
     return (label, shown, _origin(model, a, concept))
 
@@ -725,8 +750,7 @@ def rows(model: RunModel, a: Arithmetic | None = None) -> list[tuple[str, str, s
     """(quantity, value, how it was derived or where its inputs came from) for the run's
     arithmetic; a quantity that does not divide shows the remainder."""
     a = a or of(model)
-    out = [_row(model, a, "GPUs (world size)", "cluster.world_size",
-                "cluster.world_size, or cluster.nodes and cluster.gpus_per_node")]
+    out = [_row(model, a, "GPUs (world size)", "cluster.world_size", ("cluster.nodes", "cluster.gpus_per_node"))]
     rep = a.step("replica")
     if rep is not None:
         named = ", ".join(f"{t.concept} {where(t.source)}" for t in rep.terms)
@@ -734,13 +758,14 @@ def rows(model: RunModel, a: Arithmetic | None = None) -> list[tuple[str, str, s
     ranks = a.step("ranks")
     if ranks is not None and ranks.divides is False:
         out.append(("data-parallel ranks", "-", f"does not divide: {ranks.formula}"))
+    elif world_conflict(a) and a.term("train.data_parallel") is None and a.derived("train.data_parallel") is None:
+        out.append(("data-parallel ranks", "-", world_conflict(a)))
     else:
-        out.append(_row(model, a, "data-parallel ranks", "train.data_parallel", "the world size"))
+        out.append(_row(model, a, "data-parallel ranks", "train.data_parallel", ("cluster.world_size",)))
     row = _division("prompts per step", a.step("prompts"))
     out.append(row if row and row[1] == "-" else _row(model, a, "prompts per step", "batch.prompts"))
     out.append(_row(model, a, "group size (completions per prompt)", "rollout.group_size"))
-    out.append(_row(model, a, "completions per step", "batch.rollouts",
-                    "batch.rollouts, or batch.prompts and rollout.group_size"))
+    out.append(_row(model, a, "completions per step", "batch.rollouts", ("batch.prompts", "rollout.group_size")))
     out.append(_row(model, a, "mini-batch (completions per update)", "batch.mini"))
     row = _division("mini-batches per step", a.step("mini"))
     if row:
@@ -753,7 +778,7 @@ def rows(model: RunModel, a: Arithmetic | None = None) -> list[tuple[str, str, s
         out.append(("updates per step", fmt(upd.value), f"= {upd.formula}, from the stated completions per step "
                                                           "(which prompts x group size do not give)"))
     else:
-        out.append(_row(model, a, "updates per step", "optim.updates_per_step", "batch.rollouts and batch.mini"))
+        out.append(_row(model, a, "updates per step", "optim.updates_per_step", ("batch.rollouts", "batch.mini")))
     out.append(_row(model, a, "micro-batch per GPU", "batch.micro_per_gpu"))
     row = _division("micro-batches per rank per step", a.step("micro"))
     if row:
@@ -765,7 +790,7 @@ def rows(model: RunModel, a: Arithmetic | None = None) -> list[tuple[str, str, s
         out.append(("accumulation steps (implied)", "-", f"does not divide: {acc.formula}"))
     else:
         out.append(_row(model, a, "accumulation steps", "batch.grad_accum",
-                        "batch.mini, batch.micro_per_gpu and the data-parallel ranks"))
+                        ("batch.mini", "batch.micro_per_gpu", "train.data_parallel")))
     out.append(_row(model, a, "response budget (tokens)", "length.response_max"))
     for key in ("fit_engine", "fit_model"):
         s = a.step(key)
@@ -784,7 +809,7 @@ def rows(model: RunModel, a: Arithmetic | None = None) -> list[tuple[str, str, s
             out.append((run.title, f"{run.value:,}",
                         f"= {run.formula}; schedule.total_steps {where(model.values['schedule.total_steps'])}"))
         else:
-            out.append(("tokens generated over the run (at the budget)", "?", "not found (schedule.total_steps)"))
+            out.append(("tokens generated over the run (at the budget)", "?", "not found: schedule.total_steps"))
     return out
 
 

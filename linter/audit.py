@@ -115,6 +115,8 @@ def quantity(a: arithmetic.Arithmetic, concept: str) -> Quantity:
         return Quantity(concept, n, f"{loc.path}:{loc.line}", loc, shown=t.shown() if t.converted else "")
     if d is not None:
         return Quantity(concept, _int(d.value), f"derived ({d.formula})" if d.formula else "derived")
+    if concept == "train.data_parallel" and arithmetic.world_conflict(a):
+        return Quantity(concept, None, arithmetic.world_conflict(a))  # stated, but in conflict: not "not found"
     return Quantity(concept, None, "not found")
 
 
@@ -232,6 +234,18 @@ class Budget:
     engine: Quantity
     model: Quantity
     broken: list[tuple[str, str, int]] = field(default_factory=list)  # (key, why, excess)
+
+
+def budget_words(b: Budget) -> str:
+    """What a budget with nothing broken says: what was compared with what, or what is missing."""
+    lengths = [x.concept for x in (b.prompt, b.response) if x.value is None]
+    windows = [x for x in (b.engine, b.model) if x.value is not None]
+    if lengths:
+        return f"not found: {', '.join(lengths)}; nothing to compare"
+    if not windows:
+        return (f"no context window found ({b.engine.concept}, {b.model.concept}): prompt + response "
+                "is compared with nothing")
+    return "prompt + response fit " + " and ".join(f"{x.concept} {_num(x.value)}" for x in windows)
 
 
 def token_budget(model: RunModel) -> Budget:
@@ -451,8 +465,7 @@ class Page:
             out.append(f'<li data-step="{key}" data-broken="1"><strong class="broken-text">\u2716 BROKEN: '
                        f"{_e(why)}</strong></li>")
         if not budget.broken:
-            known = all(x.value is not None for x in (budget.prompt, budget.response))
-            out.append(f"<li>{'prompt + response fit the context windows that were found' if known else 'prompt or response length not found: nothing to compare'}</li>")
+            out.append(f"<li>{_e(budget_words(budget))}</li>")
         out.append("</ul></section>")
         return "\n".join(out)
 
@@ -531,7 +544,7 @@ class Page:
             cmd = m.doc.runs[m.index]
             head = f"Training command {m.index + 1} ({_e(cmd.what)}, line {cmd.program.location().line}): "
         out = [f"<h3>{head}Concepts found</h3>",
-               '<table class="concepts"><thead><tr><th scope="col">concept</th><th scope="col">value</th>'
+               '<div class="scroll"><table class="concepts"><thead><tr><th scope="col">concept</th><th scope="col">value</th>'
                '<th scope="col">written at</th><th scope="col">key</th><th scope="col">read by</th></tr></thead><tbody>']
         for name in sorted(m.values):
             v = m.values[name]
@@ -543,7 +556,7 @@ class Page:
             out.append(f'<tr data-concept="{_e(name)}"><td><code>{_e(name)}</code></td><td><code>'
                        f"{_e(_show(v.value))}</code></td><td>{self.link(v.location)}{chain}</td>"
                        f"<td><code>{_e(v.key)}</code></td><td>{_e(v.via)}{note}</td></tr>")
-        out.append("</tbody></table>")
+        out.append("</tbody></table></div>")
         if m.unknown:
             out.append("<h4>Known only at launch (left out of the checks)</h4><ul>")
             for name, v in sorted(m.unknown.items()):
@@ -555,7 +568,7 @@ class Page:
             out.append(f"<p>reward component {c.index + 1}: <code>{fields}</code> at {self.link(c.location)}</p>")
         if m.derived:
             out.append(f"<h3>{head}Derived</h3>")
-            out.append('<table class="concepts"><thead><tr><th scope="col">concept</th><th scope="col">value</th>'
+            out.append('<div class="scroll"><table class="concepts"><thead><tr><th scope="col">concept</th><th scope="col">value</th>'
                        '<th scope="col">arithmetic</th><th scope="col">from</th></tr></thead><tbody>')
             for name in sorted(m.derived):
                 v = m.derived[name]
@@ -564,7 +577,7 @@ class Page:
                 out.append(f'<tr data-derived="{_e(name)}"><td><code>{_e(name)}</code></td><td><code>'
                            f"{_e(_show(v.value))}</code>{extra}</td><td>{_e(v.note)}</td>"
                            f"<td>{_e(', '.join(v.inputs))}</td></tr>")
-            out.append("</tbody></table>")
+            out.append("</tbody></table></div>")
         if m.ambiguous:
             out.append(f"<h3>{head}Ambiguous</h3><ul>")
             for name, locs in sorted(m.ambiguous.items()):
@@ -617,7 +630,7 @@ def _label(page: Page, x, y, title: str, items: list[tuple[str, Quantity]]) -> l
     out = [_svg_text(x, y, title, "step-title")]
     for k, (name, qn) in enumerate(items):
         yy = y + 17 + k * 30
-        shown = "not found" if qn.value is None else (qn.shown or _num(qn.value))
+        shown = ("not found" if qn.origin == "not found" else "?") if qn.value is None else (qn.shown or _num(qn.value))
         out.append(f'<text x="{x:.1f}" y="{yy:.1f}" class="qty"><tspan>{_e(name)} = </tspan>'
                    f'<tspan class="num" data-concept="{_e(qn.concept)}">{_e(shown)}</tspan></text>')
         out.append(_origin(page, qn, x + 10, yy + 13))
@@ -862,7 +875,7 @@ def budget_svg(page: Page, rid: str, b: Budget) -> str:
             body += _broken_box(rid, BAR_X + b.model.value * scale, rows_y["engine"], excess * scale, bar_h,
                                 f"over the model context by {_num(excess)}", key, why)
     height = y + 48
-    desc = "; ".join(w for _k, w, _x in b.broken) or "the sequence fits the context windows that were found"
+    desc = "; ".join(w for _k, w, _x in b.broken) or budget_words(b)
     return "\n".join([
         f'<svg class="budget" role="img" aria-labelledby="{rid}-t {rid}-d" viewBox="0 0 {W} {height}" width="{W}" '
         f'height="{height}" xmlns="http://www.w3.org/2000/svg" data-broken-steps="{len(b.broken)}">',
@@ -877,7 +890,7 @@ CSS = """
 body{font:15px/1.45 system-ui,-apple-system,"Segoe UI",Roboto,"Liberation Sans",Arial,sans-serif;color:var(--ink);
 background:#fff;margin:0 auto;max-width:1040px;padding:16px 24px 48px}
 h1{font-size:26px;margin:4px 0 8px}h2{font-size:21px;margin:28px 0 6px;border-top:3px solid var(--ink);
-padding-top:12px;word-break:break-all}h3{font-size:17px;margin:18px 0 6px}
+padding-top:12px;overflow-wrap:anywhere}h3{font-size:17px;margin:18px 0 6px}
 code{font:13px/1.4 ui-monospace,"DejaVu Sans Mono","Liberation Mono",Menlo,Consolas,monospace}
 a{color:#0b4f8a}.muted{color:var(--muted)}
 .verdict{font-size:17px;padding:8px 12px;border:3px solid var(--ink);display:inline-block;margin:4px 0 10px}
@@ -913,7 +926,8 @@ font-size:14px;white-space:normal}
 .broken-text{color:#a50f15}.ok-text{color:#2e6b2e}
 .concepts{width:100%;font-size:13px;margin:4px 0 10px}
 .concepts th,.concepts td{border-bottom:1px solid var(--rule);padding:3px 6px;text-align:left;vertical-align:top;
-word-break:break-word}
+overflow-wrap:break-word}
+.scroll{overflow-x:auto}
 svg{max-width:100%;height:auto;display:block;margin:6px 0 4px;border:1px solid var(--rule);background:#fff}
 svg text{font:12px system-ui,"Liberation Sans",Arial,sans-serif;fill:#1b1b1b}
 svg .step-title{font-weight:700;font-size:13px}
@@ -947,6 +961,7 @@ h2{break-before:page}section.config:first-of-type h2{break-before:auto}
 .finding{background:none !important}
 .src tr:target{outline:none;background:none}
 nav,.back{display:none}
+.scroll{overflow:visible}
 svg{border:none}
 }
 """
@@ -973,6 +988,8 @@ def audit(outcome) -> str:
         configs.append(Config(shown, mask_source(doc.text, doc) if doc else "", outcome.models(shown),
                               list(doc.problems) if doc else [], by_path.get(shown, [])))
         shown_paths.add(shown)
+    # the configs that fail the gate first (stable otherwise): a clean one never pushes them below the fold
+    configs.sort(key=lambda c: not any(f.level >= outcome.gate for f in c.findings))
     # base files the runs were composed from (RunModel.files): shown too, so that findings and
     # related locations in them have a line to point at
     bases: dict[str, list[str]] = {}

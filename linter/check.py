@@ -124,8 +124,6 @@ class Checker:
     def check_file(self, path: str, shown: str, keep: bool = False) -> FileResult:
         """Load, compose, resolve and run the rules on one file. ``keep``: keep its Document and
         run models in the result (for the views that show them)."""
-        from .discover import matches
-
         from .shell import load, runs_of
 
         res = FileResult(shown)
@@ -149,18 +147,19 @@ class Checker:
                 if r.sources:
                     self._run(r, Context(r, None, src, opts, level, settings=self.settings), src.path, res)
         if as_run:
-            force = matches(shown, self.settings.run_configs) if self.settings.run_configs else False
-            opts_r = self.resolve_opts
-            if force:
-                opts_r = ResolveOptions(opts_r.keys, opts_r.version, True)
             set_rules = self.rules("set")
             for index, comp in enumerate(composed):
-                model = resolve(doc, comp.root, opts_r, index)
-                model.settings = self.settings
-                model.files = comp.files
+                model = self._resolve(doc, comp, shown, index)
                 if keep:
                     res.kept.models.append(model)
                 if not model.is_rl:
+                    # a document not read as a run: the rules about such documents (VOC-4), unless
+                    # other files name it as a base (it is checked as part of the runs built on it)
+                    start = len(res.findings)
+                    for r, opts, level in self.rules("not-run"):
+                        self._run(r, Context(r, model, doc, opts, level, settings=self.settings), shown, res)
+                    if len(res.findings) > start and self.composer.named_as_base(shown):
+                        del res.findings[start:]  # a base: checked as part of the runs built on it
                     continue
                 res.runs += 1
                 is_rl_stage = model.stage == "rl"  # perf: once per run, not once per rule
@@ -174,9 +173,7 @@ class Checker:
                 if len(comp.files) > 1:
                     _name_run(res.findings[start:], shown)
                 if set_rules:
-                    wanted = {c for r, _o, _l in set_rules for c in r.needs}
-                    values = {c: _light(model.get(c)) for c in wanted if model.get(c) is not None}
-                    res.entries.append(SetEntry(shown, index, values))
+                    res.entries.append(SetEntry(shown, index, self.set_values(model)))
         if doc.readable:
             res.skipped = res.runs == 0
         # Acceptances of set-scope rules are applied once the whole set has been checked (accept_set).
@@ -194,6 +191,43 @@ class Checker:
             res.accepted_at |= {(f.location.path, f.location.line) for f in before if id(f) not in kept}
             res.accepted += _dropped(before, res.findings)
         return res
+
+    def _resolve(self, doc, comp, shown: str, index: int):
+        """The RunModel of one composed document (a file named in the settings' run_configs is a run)."""
+        from .discover import matches
+
+        opts_r = self.resolve_opts
+        if self.settings.run_configs and matches(shown, self.settings.run_configs):
+            opts_r = ResolveOptions(opts_r.keys, opts_r.version, True)
+        model = resolve(doc, comp.root, opts_r, index)
+        model.settings = self.settings
+        model.files = comp.files
+        return model
+
+    def set_values(self, model) -> dict[str, Value]:
+        """What the rules over several runs need of one run: their concepts' values, without nodes."""
+        wanted = {c for r, _o, _l in self.rules("set") for c in r.needs}
+        return {c: _light(model.get(c)) for c in wanted if model.get(c) is not None}
+
+    def other_runs(self, path: str, shown: str) -> tuple[list[tuple[int, dict[str, Value]]], list[str], bool]:
+        """What the rules over several runs need of a file that is not checked itself (another run
+        of the repository, linter/context.py): (index, values) of each of its runs, the other files
+        they were composed from, and whether that is uncertain (the file could not be read, or a
+        base is missing: not to be kept in a cache)."""
+        from .shell import load, runs_of
+
+        doc = load(path, shown, self.settings)
+        if not doc.readable or shown in self.composer.base_files:
+            return [], [], not doc.readable
+        runs, files = [], set()
+        for index, root in enumerate(runs_of(doc)):
+            comp = self.composer.compose(doc, root, path)
+            files.update(comp.files)
+            model = self._resolve(doc, comp, shown, index)
+            if model.is_rl:
+                runs.append((index, self.set_values(model)))
+        unsure = any(str(getattr(p, "kind", "")).startswith("compose-") for p in doc.problems)
+        return runs, sorted(files - {shown}), unsure
 
     def _run(self, r: Rule, ctx: Context, path: str, res: FileResult) -> None:
         found, crashed = run_rule(r, ctx, path)
@@ -381,9 +415,12 @@ class _Totals:
 
 
 def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=None,
-        keep: bool = False) -> RunResult:
+        keep: bool = False, others=None) -> RunResult:
     """Check the files. The result's findings are in report order, read again from a Spill on
-    each pass over them. ``keep``: keep each file's Document and run models (one process)."""
+    each pass over them. ``keep``: keep each file's Document and run models (one process).
+    ``others(checked)``: the SetEntries of the repository's other runs, for a check of some files
+    only; the rules over several runs then judge the files against them, and only their findings
+    about a checked file are reported."""
     global _WORKER
     results = _Totals(progress)
     if jobs > 1 and len(files) > 1 and not keep:
@@ -408,14 +445,26 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
     else:
         for path, shown in files:
             results.append(checker.check_file(path, shown, keep))
+    if others is not None and checker.rules("set"):
+        results.entries.extend(others(results.checked))
     set_findings, set_crashed = checker.check_set(results.entries)
     results.entries.close()
+    if others is not None:
+        set_findings = [f for f in set_findings if _involves(f, results.checked)]
     # set findings arrive after every file's, as before: ties in the sorted stream keep that order
     set_kept = checker.accept_set(set_findings, results.checked, results.set_accepts, files)
     results.findings.extend(set_kept)
     stream = spill.Stream(lambda: _reported(results.findings, results.accepted_at))
     return RunResult(stream, results.files, results.runs, results.skipped, results.crashed or set_crashed,
                      results.checked, results.kept, results.accepted + _dropped(set_findings, set_kept))
+
+
+def _involves(f: Finding, checked) -> bool:
+    """Is a finding of a rule over several runs about a checked file (written there, or about a
+    run composed from it)? A crashed rule always is."""
+    if f.rule_id.startswith("TOOL-") or f.location.path in checked:
+        return True
+    return any(not r.line and r.path in checked for r in f.related)
 
 
 def _reported(findings: spill.Spill, accepted_at: set) -> Iterator[Finding]:

@@ -174,6 +174,8 @@ def _given_paths_exist(args) -> None:
     for p in [paths] if isinstance(paths, str) else paths or []:
         if not os.path.lexists(p):
             raise SettingsError(f"{p}: no such file or folder")
+        if args.command in ("explain", "map") and os.path.isdir(p):
+            raise SettingsError(f"{p}: is a folder; {args.command} takes one run config file")
 
 
 def _settings(args):
@@ -297,7 +299,8 @@ def cmd_check(args) -> int:
     req = _request(args, paths=args.paths, accepted=args.accepted, since=args.since, jobs=args.jobs,
                    own_outputs=tuple(p for p in (args.write_accepted,) if p),
                    staged_files=getattr(args, "staged_files", None),
-                   staged_missing=list(getattr(args, "staged_missing", [])), guard=guard, progress=_progress(args))
+                   staged_missing=list(getattr(args, "staged_missing", [])), guard=guard, progress=_progress(args),
+                   changed=getattr(args, "staged_changed", None), cross_run=True)
     req.apply_accepted = not args.write_accepted  # record what is found, not what an older file accepts
     outcome = Pipeline(settings, registry).run(req)
     if args.write_accepted:
@@ -338,10 +341,13 @@ def cmd_check(args) -> int:
             from .reports import text
 
             text(findings, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
-    skipped = f", {outcome.skipped} skipped as not run configs" if outcome.skipped else ""
+    total = len(outcome.files)
+    # the parts add up to the whole: "7 checked, 1 skipped as not run configs, of 8 file(s)"
+    files = (f"{total - outcome.skipped} checked, {outcome.skipped} skipped as not run configs, of {total} file(s)"
+             if outcome.skipped else f"{total} file(s) checked")
     extra = f"; {summary['hidden']} below {args.show} not shown" if args.show else ""
     extra += f"; {summary['accepted']} accepted" if summary["accepted"] else ""
-    print(f"trimtab: {len(outcome.files)} file(s) checked{skipped}; {counts['error']} error(s), "
+    print(f"trimtab: {files}; {counts['error']} error(s), "
           f"{counts['warning']} warning(s), {counts['note']} note(s){extra}", file=sys.stderr)
     return code
 

@@ -315,6 +315,21 @@ class Composer:
             raise SettingsError(f"{where}: expected {doc.path} to hold a mapping of keys to values")
         return doc
 
+    def named_as_base(self, shown: str) -> bool:
+        """Does some file of the repository build on this one (a base in the settings' layers, the
+        overrides file, or a file another names as a base: under the bases key, in a defaults list,
+        in a launch script)? The search that finds a changed base's dependants (with_dependants)."""
+        if shown in self.base_files:
+            return True
+        # Only where the settings say how a file names its bases (else no file can name one), once per
+        # file: the search walks the repository as a changed base's check does.
+        if not (self.bases_key or self.layers or getattr(self.settings, "defaults_key", "")):
+            return False
+        memo = self.__dict__.setdefault("_named_as_base", {})
+        if shown not in memo:
+            memo[shown] = any(s != shown for _p, s in with_dependants([], {shown}, self.settings))
+        return memo[shown]
+
     def _shown(self, path: Path) -> str:
         try:
             return path.resolve().relative_to(self.root).as_posix()

@@ -182,5 +182,7 @@ def changed_since(ref: str, root: Path) -> list[str]:
     if diff.returncode:
         raise ValueError(f"--since {ref}: {text(diff.stderr) or 'git diff failed'}")
     untracked = git("ls-files", "--others", "--exclude-standard", "-z", "--")
-    names = (diff.stdout + b"\0" + untracked.stdout).decode("utf-8", "surrogateescape").split("\0")
+    # deleted files and the old names of renamed ones: the configs that named them are checked again
+    gone = git("diff", "--name-only", "--diff-filter=D", "--no-renames", "--relative", "-z", ref, "--")
+    names = (diff.stdout + b"\0" + untracked.stdout + b"\0" + gone.stdout).decode("utf-8", "surrogateescape").split("\0")
     return sorted(set(n for n in names if n))

@@ -102,7 +102,7 @@ def collect(where: str | ModuleType) -> list[Rule]:
 # --- what registration checks ----------------------------------------------------------------------
 RULE_ID = re.compile(r"[A-Z]{2,6}-[1-9][0-9]{0,3}")
 RULE_NAME = re.compile(r"[a-z0-9]+(?:-[a-z0-9]+)*")
-SCOPES = ("run", "file", "set")
+SCOPES = ("run", "file", "set", "not-run")
 CONCEPT_NAME = re.compile(r"[a-z][a-z0-9_]*(?:\.[a-z][a-z0-9_]*)+")
 CONCEPT_TYPES = ("int", "number", "bool", "str", "list", "any")
 _OPTION_TYPES = (bool, int, float, str)  # what a TOML setting can hold (and lists of them)

@@ -70,6 +70,8 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
     for p in problems:
         out.write(_t(p) + "\n")
     if not runs:
+        if not problems:
+            out.write(f"{_t(shown)}: empty: it holds no YAML document, so there is nothing to explain\n")
         return 1 if problems else 0
     for m in runs:
         script = m.doc.fmt == "shell"
@@ -81,7 +83,8 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
         kind = "an RL run config" if m.is_rl else "not an RL run config (RL rules skip it)"
         given = any(v.location.path is None for v in m.values.values()) and m.version != "1.2"
         given = "; --set values as YAML 1.2" if given else ""
-        out.write(f"{_t(m.path)}: {kind}; stage {_t(m.stage)}; values read as YAML {m.version}{given}\n\n")
+        stage = f"stage {_t(m.stage)}" if "run.stage" in m.values else f"stage not stated (checked as {_t(m.stage)})"
+        out.write(f"{_t(m.path)}: {kind}; {stage}; values read as YAML {m.version}{given}\n\n")
         if len(m.files) > 1:
             out.write(f"composed from (first to last): {', '.join(map(_t, m.files))}\n\n")
         out.write("Concepts found:\n")

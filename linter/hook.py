@@ -50,6 +50,12 @@ def staged_paths(root: Path) -> tuple[Path, list[str]]:
     return top, [n for n in names.decode("utf-8", "surrogateescape").split("\0") if n]
 
 
+def staged_gone(top: Path) -> list[str]:
+    """Paths the commit deletes, and the old names of the files it renames (relative to the top)."""
+    names = _git(["diff", "--cached", "--name-only", "--diff-filter=D", "--no-renames", "-z"], top)
+    return [n for n in names.decode("utf-8", "surrogateescape").split("\0") if n]
+
+
 def with_staged(args, check) -> int:
     """Run ``check(args)`` over the staged versions of the staged config files."""
     from .discover import Refused, matches
@@ -61,6 +67,7 @@ def with_staged(args, check) -> int:
     root = settings.root.resolve()
     try:
         top, staged = staged_paths(root)
+        gone = staged_gone(top)
         indexed = _git(["ls-files", "-z"], top).decode("utf-8", "surrogateescape").split("\0")
     except GitError as exc:
         raise SettingsError(f"--staged needs a git repository: {exc}") from None
@@ -106,6 +113,8 @@ def with_staged(args, check) -> int:
         args.staged_root = mirror
         args.staged_files = files
         args.staged_missing = refused
+        # a deleted or renamed base: the configs that named it are checked again (and report it)
+        args.staged_changed = [s for s in (shown(rel) for rel in [*staged, *gone]) if s is not None]
         args.no_progress = True
         return check(args)
     except GitError as exc:

@@ -49,6 +49,8 @@ class Request:
     guard: Callable[[list[tuple[str, str]]], None] | None = None  # sees the files found, may refuse the run
     progress: Callable[[int], Any] | None = None  # progress(number of files) -> a progress callback or None
     notes: Callable[[str], None] | None = None  # where notes about the settings go (stderr)
+    cross_run: bool = False  # a check of some files judges them against every run of the repository
+    changed: list[str] | None = None  # check --staged: the staged files, deleted and renamed-away ones too
 
 
 @dataclass
@@ -152,7 +154,7 @@ class Pipeline:
                     req.notes(f"setting {idle} matches no file")
         found = list(files)  # every file found, before --since narrows them: none is ever written to
         files = self._not_own_outputs(files, req)
-        changed = None
+        changed = set(req.changed) if req.changed is not None else None
         if req.since:
             try:
                 changed = set(changed_since(req.since, settings.root))
@@ -203,7 +205,7 @@ class Pipeline:
             jobs = 1  # Documents and models stay in this process
         progress = req.progress(len(files_)) if req.progress else None
         try:
-            result = run(checker, files_, jobs, progress, keep=req.keep_models)
+            result = run(checker, files_, jobs, progress, keep=req.keep_models, others=self._others(req, checker))
         finally:
             if progress is not None:
                 progress.close()
@@ -218,6 +220,18 @@ class Pipeline:
         return Outcome(settings, self.registry, files_, missing, result.checked, recorded, findings,
                        Level.parse(req.gate or settings.gate), result.crashed, result.runs, result.skipped,
                        result.kept, result.accepted, tally)
+
+    def _others(self, req: Request, checker):
+        """For a check of some files only (paths given, --since, --staged): the other runs of the
+        repository, for the rules over several runs (linter/context.py)."""
+        partial = bool(req.paths) or req.since is not None or req.staged_files is not None
+        if not (req.cross_run and partial and checker.rules("set")):
+            return None
+        from .context import other_entries
+
+        source = self.settings.source
+        start = Path(source).resolve().parent if source else Path.cwd()
+        return lambda checked: other_entries(checker, checked, start)
 
     def _accepted_filter(self, req: Request, findings: Iterable[Finding], checked, tally: dict) -> Iterable[Finding]:
         settings = self.settings

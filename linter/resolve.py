@@ -109,7 +109,8 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             path, node = next(iter(distinct.values()))
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
-            _store(model, concept, node, "alias", ".".join(path), chain=chains.get(path))
+            via = "native" if ".".join(path) == concept else "alias"  # the concept's own path is the native layout
+            _store(model, concept, node, via, ".".join(path), chain=chains.get(path))
             continue
         hit = native.get(concept)
         if hit is not None:

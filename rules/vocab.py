@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from trimtab import rule
 from trimtab.scalars import oversized, same_value
-from trimtab.vocabulary import CONCEPTS
+from trimtab.vocabulary import CONCEPTS, RL_MARKERS, RL_MIN_MARKERS
 
 # Enumerations whose unknown values a rule of their own area reports with its own reasoning.
 OWNED_ELSEWHERE = frozenset({"kl.estimator"})
@@ -55,3 +55,40 @@ def unknown_value(ctx):
             yield ctx.finding(f"{name} = {v.value!r} is not one of {', '.join(c.values)}", v.location,
                               subject=v.value)
 
+
+
+# Clear signs that a document is an RL run: an estimator trimtab knows, a group size, a KL or a clip key.
+EVIDENCE = ("run.estimator", "rollout.group_size", "kl.coef", "kl.enabled", "kl.estimator", "clip.low", "clip.high")
+
+
+@rule(id="VOC-4", name="not-checked-as-run", level="warning",
+      summary="A file with clear signs of an RL run is not checked as a run.",
+      rationale="trimtab checks a document as an RL run when it resolves enough of the run's core concepts "
+      f"(at least {RL_MIN_MARKERS} of them, or an estimator and one more); other YAML (CI workflows, data "
+      "manifests) is skipped silently. A document that states an estimator trimtab knows, a group size, or a KL "
+      "or clip key, but resolves too few concepts, is most likely a run whose keys trimtab cannot place, and no "
+      "rule about runs has looked at it; under a pre-commit hook the output of a passing check is hidden, so "
+      "nobody would learn that it was skipped. Describe the layout in [tool.trimtab.keys] (`trimtab map FILE` "
+      "drafts the block), or name the file in the settings' run_configs. A file that other files name as a "
+      "base, and a document whose stated stage is not rl, are not reported.",
+      rl_only=False, scope="not-run")
+def not_checked_as_run(ctx):
+    m = ctx.model
+    if "run.stage" in m.values and m.stage != "rl":
+        return
+    evidence = [m.values[c] for c in EVIDENCE if c in m.values]
+    known = CONCEPTS["run.estimator"].values
+    evidence = [v for v in evidence if v.concept != "run.estimator" or str(v.value).strip().lower() in known]
+    own = [v for v in evidence if v.location.path == ctx.doc.path] or evidence
+    if not own:
+        return
+    first = min(own, key=lambda v: (v.location.path is None, v.location.line, v.location.col))
+    found = sorted(c for c in RL_MARKERS if c in m.values)
+    missing = sorted(c for c in RL_MARKERS if c not in m.values)
+    need = RL_MIN_MARKERS - len(found)
+    if "run.estimator" in m.values:
+        need = min(need, 2 - len(found))
+    shown = ", ".join(f"{c} ({m.values[c].key})" for c in found)
+    yield ctx.finding(f"not checked as a run: found {shown}, missing {need} more of {', '.join(missing)}; "
+                      "describe the layout with `trimtab map`", first.location, subject=",".join(found),
+                      suggestion=f"trimtab map {ctx.doc.path}")

@@ -77,4 +77,4 @@ def test_summary_line(tmp_path, monkeypatch):
     err = io.StringIO()
     assert run_with(err, tmp_path) == 1
     assert err.getvalue().strip().splitlines()[-1] == (
-        "trimtab: 5 file(s) checked, 3 skipped as not run configs; 0 error(s), 1 warning(s), 0 note(s)")
+        "trimtab: 2 checked, 3 skipped as not run configs, of 5 file(s); 0 error(s), 1 warning(s), 0 note(s)")

@@ -33,7 +33,7 @@ def test_explain_shows_the_table_on_a_recipe():
                                                 f"cluster.gpus_per_node {shown}:17")
     # 1024 completions x 1024 tokens at the budget
     assert rows["tokens generated per step (at the budget)"][0] == "1,048,576"
-    assert rows["tokens generated over the run (at the budget)"] == ("?", "not found (schedule.total_steps)")
+    assert rows["tokens generated over the run (at the budget)"] == ("?", "not found: schedule.total_steps")
 
 
 def test_explain_tokens_over_the_run_and_remainders(tmp_path):

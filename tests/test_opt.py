@@ -37,8 +37,22 @@ def test_checkpoint_option_long_run_steps(tmp_path):
 
 # --- the cross-file rule ----------------------------------------------------------------------
 def _shared(*names, jobs=None):
+    """The named OPT-4 fixtures, alone in a repository of their own: a check of some files judges
+    them against every run of the repository (issue 19), so the set of runs is the repository."""
+    import shutil
+    import tempfile
+
+    repo = Path(tempfile.mkdtemp(prefix="trimtab-opt4-"))
+    (repo / ".git").mkdir()
+    for n in names:
+        shutil.copyfile(fx("OPT-4", n), repo / n)
     args = ("--jobs", str(jobs)) if jobs else ()
-    return check("OPT-4", *names, args=args)
+    try:
+        r = check_json(*[repo / n for n in names], args=args, cwd=repo)
+        assert r.code in (0, 1), r.err
+        return r
+    finally:
+        shutil.rmtree(repo, ignore_errors=True)
 
 
 def _summary(result):
@@ -143,7 +157,8 @@ def test_runs_inheriting_one_directory_from_a_base_get_one_finding_at_the_base_l
     assert places(r, "OPT-4") == [("grpo.yaml", 18, 8, "warning")]
     f = r.of("OPT-4")[0]
     assert f["location"]["path"] == "bases/grpo.yaml"
-    assert "written to by 2 runs (experiments/one.yaml, experiments/two.yaml)" in f["message"]
+    # the base is a run config of the repository too (as in a full check, which names the same three runs)
+    assert "written to by 3 runs (experiments/one.yaml, experiments/two.yaml, bases/grpo.yaml)" in f["message"]
     assert [(x["path"], x["line"]) for x in f["related"]] == [("experiments/one.yaml", 0), ("experiments/two.yaml", 0)]
 
 

@@ -21,6 +21,7 @@ CASES = [
     ("VOC-1", "bad.yaml", 8, 16, "rollout.temperature is ambiguous"),
     ("VOC-2", "bad.yaml", 4, 15, "rollout.group_size = eight: expected an integer"),
     ("VOC-3", "bad.yaml", 3, 10, "run.stage = 'pretrain' is not one of rl, sft, distill"),
+    ("VOC-4", "bad.yaml", 6, 14, "not checked as a run: found run.estimator (recipe.algorithm), missing 1 more of"),
 ]
 
 

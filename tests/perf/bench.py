@@ -21,6 +21,10 @@ interleaved with it so that the load of the machine falls on both alike:
                and its growth from N to 4N files                                      target < 10%
   pathological a nested-alias bomb and a 100,000-line file (time and peak memory against composing
                them with libyaml), and the time of 100,000 lines against 25,000 lines target <= 4.5x
+  hook         a commit that touches one config in a git repository of N run configs: `trimtab check
+               ONE_FILE` (as the pre-commit framework calls it) and `check --since HEAD`, which judge the
+               file against every run of the repository (rules over several runs), with the cache of
+               the other runs warm and cold; against start-up           reported, guide about 1 s
 
 Peak resident memory is the child's own high-water mark, taken from os.wait4's resource usage of
 exactly that child (ru_maxrss; with --jobs it is the largest of the process and its workers).
@@ -489,6 +493,32 @@ def findings_of(report: Path) -> list:
     return data["findings"]
 
 
+def hook_figures(table, tt, py, root: Path, n: int, repeat: int, clock: str) -> None:
+    """One changed config in a git repository of ``n`` run configs, checked as a hook checks it."""
+    repo = root / "hook"
+    make_corpus(repo, n, seed=3)
+    shutil.rmtree(repo / ".git")
+    env = dict(os.environ, GIT_AUTHOR_NAME="bench", GIT_AUTHOR_EMAIL="bench@example.invalid",
+               GIT_COMMITTER_NAME="bench", GIT_COMMITTER_EMAIL="bench@example.invalid")
+    for cmd in (["git", "init", "-q"], ["git", "add", "-A"], ["git", "commit", "-q", "-m", "corpus"]):
+        subprocess.run(cmd, cwd=repo, env=env, check=True, capture_output=True)
+    runs = sorted((repo / "configs").rglob("run-*.yaml"))
+    one = runs[len(runs) // 2]
+    one.write_text(one.read_text(encoding="utf-8") + "# retuned\n", encoding="utf-8")
+    rel = str(one.relative_to(repo))
+    cache = repo / ".git" / "trimtab"
+    shutil.rmtree(cache, ignore_errors=True)
+    cold = measure(tt + ["check", rel], repo)
+    a, b = paired(tt + ["check", rel], [py, "-c", REF_ONE, rel], repo, repeat)
+    m, r = median(a, clock), median(b, clock)
+    table.add(f"hook: 1 changed of {n} configs, cache cold", getattr(cold, clock), r, getattr(cold, clock) / r,
+              "(reported)", True, counted=False)
+    table.add(f"hook: 1 changed of {n} configs, cache warm", m, r, m / r, "about 1 s", m <= 1.0, counted=False)
+    a, _b = paired(tt + ["check", "--since", "HEAD"], [py, "-c", REF_ONE, rel], repo, repeat)
+    m = median(a, clock)
+    table.add(f"hook: --since HEAD, {n} configs, cache warm", m, r, m / r, "about 1 s", m <= 1.0, counted=False)
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0],
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -497,7 +527,8 @@ def main(argv=None) -> int:
                                                                 "--files (default 4: 2,000 and 8,000)")
     ap.add_argument("--big-lines", type=int, default=100_000, help="lines of the large file")
     ap.add_argument("--repeat", type=int, default=5, help="runs per figure (the median is reported)")
-    ap.add_argument("--only", default="", help="comma-separated: startup,throughput,parallel,memory,pathological")
+    ap.add_argument("--only", default="", help="comma-separated: startup,throughput,parallel,memory,pathological,"
+                                               "hook")
     ap.add_argument("--clock", choices=("wall", "cpu"), default="wall",
                     help="time of start-up, throughput and pathological figures: wall clock (default) or "
                          "CPU time (steadier on a loaded machine); parallel is always wall clock")
@@ -508,7 +539,7 @@ def main(argv=None) -> int:
     if args.quick:
         args.files, args.repeat, args.big_lines = min(args.files, 300), 3, min(args.big_lines, 20_000)
     wanted = {w.strip() for w in args.only.split(",") if w.strip()} or {
-        "startup", "throughput", "parallel", "memory", "pathological"}
+        "startup", "throughput", "parallel", "memory", "pathological", "hook"}
     tt = trimtab_cmd(args)
     py = sys.executable
     clock = args.clock
@@ -603,6 +634,8 @@ def main(argv=None) -> int:
             mq = median(q, clock)
             table.add(f"pathological: {args.big_lines // 4} -> {args.big_lines} lines", m, mq, m / mq,
                       "<= 4.5x", m / mq <= 4.5)
+        if "hook" in wanted:
+            hook_figures(table, tt, py, root, n, args.repeat, clock)
         missed = [name for name, ok in table.rows if not ok]
         print(f"{len(table.rows) - len(missed)} of {len(table.rows)} targets met"
               + (f"; not met: {', '.join(missed)}" if missed else ""))
