@@ -30,7 +30,7 @@ from pathlib import Path
 from typing import Any, TypeVar, cast
 
 from . import loader
-from .composed import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, GivenScalar,  # noqa: F401
+from .composed import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, GivenScalar,
                        Unknown, Unresolved)
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location

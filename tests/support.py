@@ -157,8 +157,8 @@ def bounded(seconds: int, what: str = "the check"):
 # A fixture that cannot hold a comment (JSON, a link, a parse error at the end of the text, which a
 # line after it would move) has the same lines in ``<name>.expect`` beside it. The findings of every rule named in the expectations, and of the fixture's own rule, must be
 # exactly those expected; a good fixture's own rule must be silent.
-import re as _re  # noqa: E402
-import shutil as _shutil  # noqa: E402
+import re as _re
+import shutil as _shutil
 
 RULE_FIXTURES = FIXTURES / "rules"
 _EXPECT = _re.compile(r"^#\s*expect:\s*(?P<rule>[A-Z]+-\d+)(?:\s+(?:(?P<path>\S+?):)?(?P<line>\d+):(?P<col>\d+))?"

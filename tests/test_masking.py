@@ -157,7 +157,7 @@ def test_accepted_file_keeps_no_credential_and_fingerprints_hold(repo):
     assert res.json["findings"] == [] and res.code == 0
 
 
-# --- values in bases and overrides files got no SEC-1 ----------------------------------------------
+# --- values in bases and overrides files were never read by SEC-1 ----------------------------------------------
 def test_sec1_covers_a_base_reporting_at_its_line(repo):
     (repo / "trimtab.toml").write_text('bases_key = "inherit"\n')
     (repo / "bases").mkdir()
