@@ -53,6 +53,27 @@ class Result:
         return [f for f in self.findings if f["rule"] == rule_id]
 
 
+
+# A small run config that every rule passes: the starting point of tests that break one thing.
+RUN_CONFIG = """\
+run: {estimator: grpo, seed: 1, ref_model: ./weights/base}
+optim: {max_grad_norm: 1.0, clip_ratio: 0.2}
+rollout:
+  group_size: 8
+  temperature: 0.9
+batch:
+  prompts: 64
+kl:
+  coef: 0.04
+"""
+
+
+def run_repo(tmp_path: Path) -> Path:
+    """A repository (a bare ``.git`` folder) holding ``run.yaml`` = ``RUN_CONFIG``."""
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "run.yaml").write_text(RUN_CONFIG, encoding="utf-8")
+    return tmp_path
+
 def run_cli(*args: str, cwd: Path | str | None = None) -> Result:
     """Run the trimtab command line in this process (fast), capturing its output."""
     from trimtab.cli import main

@@ -12,23 +12,11 @@ from pathlib import Path
 import pytest
 import yaml
 
-from support import FIXTURES, REPO, check_json, run_cli, shared_path
+from support import FIXTURES, REPO, RUN_CONFIG, check_json, run_cli, shared_path
 from trimtab import hookimpl, rule
 
 DEMO = FIXTURES / "demo"
 CLEAN = DEMO / "configs" / "heron-3b-ledger-grpo.yaml"
-
-RUN_CONFIG = """\
-run: {estimator: grpo, seed: 1, ref_model: ./weights/base}
-optim: {max_grad_norm: 1.0, clip_ratio: 0.2}
-rollout:
-  group_size: 8
-  temperature: 0.9
-batch:
-  prompts: 64
-kl:
-  coef: 0.04
-"""
 
 
 def write(tmp: Path, name: str, text: str) -> Path:

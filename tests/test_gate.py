@@ -8,27 +8,15 @@ import tomllib
 
 import pytest
 
-from support import FIXTURES, REPO, check_json, run_cli
+from support import FIXTURES, REPO, RUN_CONFIG, check_json, run_cli, run_repo
 
 DEMO = FIXTURES / "demo"
-RUN = """\
-run: {estimator: grpo, seed: 1, ref_model: ./weights/base}
-optim: {max_grad_norm: 1.0, clip_ratio: 0.2}
-rollout:
-  group_size: 8
-  temperature: 0.9
-batch:
-  prompts: 64
-kl:
-  coef: 0.04
-"""
+RUN = RUN_CONFIG
 
 
 @pytest.fixture
 def repo(tmp_path):
-    (tmp_path / ".git").mkdir()
-    (tmp_path / "run.yaml").write_text(RUN, encoding="utf-8")
-    return tmp_path
+    return run_repo(tmp_path)
 
 
 # --- 3. unknown rule ids in --only / --skip ----------------------------------------------------
