@@ -39,6 +39,10 @@ def cache_file(start: Path, key: str) -> Path | None:
             git_dir = Path(res.stdout.strip())
             if not git_dir.is_absolute():
                 git_dir = start / git_dir
+            # a checked folder may ship its own `.git` (an archive, not a clone): a link there, or at
+            # the cache folder, would lead the write elsewhere, so no cache is kept at all
+            if (start / ".git").is_symlink() or (git_dir / "trimtab").is_symlink():
+                return None
             return git_dir / "trimtab" / name
     except (OSError, subprocess.SubprocessError):
         pass
@@ -131,6 +135,8 @@ class RunCache:
         import tempfile
 
         try:
+            if self.path.parent.is_symlink():  # made a link since it was chosen: never written through
+                return
             self.path.parent.mkdir(parents=True, exist_ok=True)
             fd, tmp = tempfile.mkstemp(prefix=".runs-", suffix=".tmp", dir=self.path.parent)
             try:

@@ -205,3 +205,15 @@ def test_voc4_silent_on_a_base_other_files_name(tmp_path):
     (tmp_path / "exp.yaml").unlink()
     r = check_json(cwd=tmp_path)
     assert [f["location"]["path"] for f in r.of("VOC-4")] == ["bases/algo.yaml"]
+
+
+def test_a_linked_cache_folder_is_never_written_through(repo, tmp_path):
+    # threat model: a checked folder may ship its own `.git` contents (an archive rather than a
+    # clone); a link at the cache folder must not carry the cache file outside the repository
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    shutil.rmtree(repo / ".git" / "trimtab", ignore_errors=True)
+    (repo / ".git" / "trimtab").symlink_to(outside, target_is_directory=True)
+    res = check_json("configs/sweep-c.yaml", cwd=repo)
+    assert opt4(res) == ["configs/sweep-c.yaml"]  # the verdict holds without a cache
+    assert list(outside.iterdir()) == []
