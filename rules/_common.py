@@ -104,3 +104,22 @@ def kl_state(model):
         if coef.number > 0:
             return "on", coef
     return "unstated", None
+
+
+def misread(model, v) -> tuple[str, list[str], bool]:
+    """(the reader of the file a concept's value was written in, the YAML readers that misread it
+    (trimtab.scalars.misreaders), whether the settings name that reader). A quoted, tagged or
+    structured value, and any value of a JSON file (JSON's own grammar), is misread by none."""
+    from trimtab import Scalar
+    from trimtab.scalars import misreaders
+    from trimtab.vocabulary import CONCEPTS, fits
+
+    node = v.node
+    if not isinstance(node, Scalar) or not node.plain or node.tag:
+        return "", [], False
+    reader, stated = model.reader(node)
+    if reader == "json":
+        return reader, [], stated
+    c = CONCEPTS.get(v.concept)
+    kind = c.type if c is not None else "any"
+    return reader, misreaders(node.value, reader if stated else None, lambda x: fits(x, kind)), stated

@@ -2,7 +2,9 @@
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab.scalars import oversized, same_value
+from trimtab.scalars import READER_NAMES, oversized
+
+from ._common import misread
 from trimtab.vocabulary import CONCEPTS, RL_MARKERS, RL_MIN_MARKERS
 
 # Enumerations whose unknown values a rule of their own area reports with its own reasoning.
@@ -28,18 +30,20 @@ def _type_name(t: str) -> str:
 
 @rule(id="VOC-2", name="wrong-type", level="error", summary="A concept's value has the wrong type.",
       rationale="A count that is text, a rate that is a boolean: the trainer either refuses the value or "
-      "converts it in a way the author did not intend. Values are typed as the settings' yaml_version "
-      "reads them.", rl_only=False)
+      "converts it in a way the author did not intend. Values are typed as the reader the settings name "
+      "for the file reads them (yaml_version, readers; JSON files under JSON's grammar).", rl_only=False)
 def wrong_type(ctx):
     for v, expected in ctx.model.mistyped:
         node = v.node
-        if node is not None and getattr(node, "plain", False) and not same_value(node.value11, node.value12):
-            continue  # YML-3 reports it with the reason (the two YAML versions disagree)
+        reader, misreaders, _stated = misread(ctx.model, v)
+        if misreaders:
+            continue  # YML-3 reports it with the reason (the readers disagree)
         if node is not None and getattr(node, "plain", False) and oversized(node.text):
             continue  # YML-5 reports it: an integer past trimtab's limit, read as text
         shown = v.node.text if hasattr(v.node, "text") else v.value
         yield ctx.finding(f"{v.concept} = {shown!s}: expected {_type_name(expected)} "
-                          f"(read under YAML {ctx.model.version})", v.location, subject=shown)
+                          f"(read under {READER_NAMES.get(reader or ctx.model.version, 'YAML ' + ctx.model.version)})",
+                          v.location, subject=shown)
 
 
 @rule(id="VOC-3", name="unknown-value", level="warning", summary="A concept's value is not one trimtab knows.",
