@@ -122,4 +122,13 @@ def misread(model, v) -> tuple[str, list[str], bool]:
         return reader, [], stated
     c = CONCEPTS.get(v.concept)
     kind = c.type if c is not None else "any"
-    return reader, misreaders(node.value, reader if stated else None, lambda x: fits(x, kind)), stated
+    if kind in ("int", "number", "bool", "str"):
+        def fit(x):
+            return fits(x, kind)
+    else:
+        # a concept that takes a name or a switch (a path, or false for none): where one reader reads a
+        # word as a boolean, null or number and another as text, the text is the misreading (no weights
+        # are named 'off'); a date fits neither
+        def fit(x):
+            return not isinstance(x, str) and fits(x, kind)
+    return reader, misreaders(node.value, reader if stated else None, fit), stated
