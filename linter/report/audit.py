@@ -15,10 +15,11 @@ import html
 import re
 from dataclasses import dataclass, field
 
-from . import __version__, arithmetic
-from .findings import Finding, Level, Location
-from .model import RunModel
-from .redact import for_text, mask_source
+from .. import __version__
+from ..resolve import arithmetic
+from ..common.findings import Finding, Level, Location
+from ..resolve.model import RunModel
+from ..common.redact import for_text, mask_source
 
 LEVELS = (Level.ERROR, Level.WARNING, Level.NOTE)
 # Told by text and by shape as well as by colour (the shapes also print in black and white).
@@ -36,7 +37,7 @@ _LINE_BREAK = re.compile("\r\n|[\r\n\x85\u2028\u2029]")
 
 def _e(value) -> str:
     """Escape any text for an HTML text node or a quoted attribute: masked (no credential is shown,
-    ``trimtab.redact``), control and bidirectional-override characters shown, never obeyed (they
+    ``trimtab.common.redact``), control and bidirectional-override characters shown, never obeyed (they
     could make the source read differently from what the loader reads), then HTML-escaped."""
     return html.escape(for_text(value), quote=True)
 
@@ -121,7 +122,7 @@ def quantity(a: arithmetic.Arithmetic, concept: str) -> Quantity:
 
 
 def batch_steps(model: RunModel) -> Picture:
-    """The batch arithmetic of one run, step by step, as ``trimtab.arithmetic`` computed it (the
+    """The batch arithmetic of one run, step by step, as ``trimtab.resolve.arithmetic`` computed it (the
     same steps the BAT rules and ``explain`` read). A step whose inputs are missing is shown as
     unknown, never as broken."""
     a = arithmetic.of(model)
@@ -249,7 +250,7 @@ def budget_words(b: Budget) -> str:
 
 
 def token_budget(model: RunModel) -> Budget:
-    """The token budget against each context window, as ``trimtab.arithmetic`` computed it (the
+    """The token budget against each context window, as ``trimtab.resolve.arithmetic`` computed it (the
     steps LEN-2 and LEN-3 read)."""
     a = arithmetic.of(model)
     b = Budget(quantity(a, "length.prompt_max"), quantity(a, "length.response_max"),
@@ -537,7 +538,7 @@ class Page:
         return "\n".join(out)
 
     def _concepts(self, m: RunModel, several: bool) -> str:
-        from .vocabulary import CONCEPTS
+        from ..common.vocabulary import CONCEPTS
 
         head = f"Document {m.index + 1}: " if several else ""
         if m.doc.fmt == "shell":
@@ -591,7 +592,7 @@ class Page:
 
 
 def _show(value) -> str:
-    from .document import Node
+    from ..load.document import Node
 
     if isinstance(value, Node):
         return f"<{value.kind}>"
@@ -1018,6 +1019,6 @@ def write(page: str, target: str) -> None:
             sys.stdout.write(data.decode("utf-8"))
         sys.stdout.flush()
         return
-    from .paths import write_atomic
+    from ..common.paths import write_atomic
 
     write_atomic(target, data)

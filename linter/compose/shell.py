@@ -36,8 +36,8 @@ import shlex
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .document import Document, Mapping, Node, Scalar, Sequence
-from .findings import Location
+from ..load.document import Document, Mapping, Node, Scalar, Sequence
+from ..common.findings import Location
 
 # Generic defaults (settings: [tool.trimtab.launch]). Topology words are the trade's own words for
 # machines and processes; the settings can add more.
@@ -78,7 +78,7 @@ UNKNOWN_VALUE = "compose-value-unknown"
 
 
 def is_script(shown: str, settings, data: bytes | None = None) -> bool:
-    from .discover import matches
+    from ..load.discover import matches
 
     launch = getattr(settings, "launch", None) or {}
     if matches(shown, launch.get("scripts", SCRIPTS)):
@@ -704,14 +704,14 @@ class Reader:
                                   self._scalar(w.text, w.file, w.start, w.end, t)))
 
     def _scalar(self, text: str, file: str, start: int, end: int, t: Text, cls=None) -> Scalar:
-        from .composed import GivenScalar
+        from .nodes import GivenScalar
 
         node = (cls or GivenScalar)(text, None, None)
         _locate(node, self.texts.get(file, t), start, end, ())
         return node
 
     def _source(self, w: Word, t: Text, path: Path, depth: int) -> None:
-        from .discover import inside
+        from ..load.discover import inside
 
         if w.text is None:
             self._note(w, t, f"a sourced script is not read: {w.why}")
@@ -733,7 +733,7 @@ class Reader:
                                   f"sourced script {w.text!r} is outside the repository; trimtab reads no file "
                                   "outside the repository root", w.text))
             return
-        from . import loader
+        from ..load import loader
 
         real = found.resolve()
         shown = real.relative_to(self.root).as_posix()
@@ -748,7 +748,7 @@ class Reader:
 
     def _note(self, w: Word, t: Text, message: str, key: str = "", run=None) -> None:
         """A value known only at launch: a note of the run it belongs to (of the script without one)."""
-        from .composed import CompositionProblem
+        from .nodes import CompositionProblem
 
         at = w.why_at if w.why_at >= 0 else w.start
         loc = (w.t or t).loc(at, w.end if w.why_at < 0 else at, key=key)
@@ -920,7 +920,7 @@ class Reader:
             return
         parts = tuple(key.split("."))
         if prefix == "~":
-            from .composed import REMOVE_TAG
+            from .nodes import REMOVE_TAG
 
             node = self._scalar("", w.file, w.start, w.end, t)
             node.tag = REMOVE_TAG
@@ -936,7 +936,7 @@ class Reader:
     def _put(self, run: LaunchRoot, top: Mapping, parts: tuple, value: Word, t: Text, key: str,
              whole: Word | None = None) -> None:
         if value.text is None:
-            from .composed import Unknown
+            from .nodes import Unknown
 
             node = self._scalar("", value.file, value.start, value.end, self.texts.get(value.file, t), Unknown)
             node.why = value.why
@@ -1001,11 +1001,11 @@ def _locate(node: Node, t: Text, start: int, end: int, path: tuple) -> Node:
 
 def _value_tree(w: Word, t: Text, path: tuple) -> Node:
     """The value the program reads from the text of an argument: YAML 1.2, as for --set."""
-    from .composed import GivenScalar
+    from .nodes import GivenScalar
 
     text = w.text or ""
     if text.lstrip()[:1] in ("[", "{"):  # a flow list or mapping
-        from . import loader
+        from ..load import loader
 
         doc = Document(path=t.shown)
         loader.parse_bytes(doc, text.encode("utf-8"), loader.Limits(max_bytes=1 << 16, max_depth=20))
@@ -1015,7 +1015,7 @@ def _value_tree(w: Word, t: Text, path: tuple) -> Node:
 
 
 def _relocate(node: Node, w: Word, t: Text, path: tuple) -> Node:
-    from .composed import GivenScalar
+    from .nodes import GivenScalar
 
     if isinstance(node, Scalar):
         return _locate(GivenScalar(node.text, node.style, node.tag), t, w.start, w.end, path)
@@ -1032,7 +1032,7 @@ def _relocate(node: Node, w: Word, t: Text, path: tuple) -> Node:
 
 def _insert(top: Mapping, parts: tuple, node: Node, t: Text, w: Word) -> None:
     """Put ``node`` at the dotted path under ``top`` (later arguments win)."""
-    from .composed import GivenScalar
+    from .nodes import GivenScalar
 
     cur = top
     for i, part in enumerate(parts[:-1]):
@@ -1075,8 +1075,8 @@ class LaunchRoot(Mapping):
 def read(path: str, shown: str, settings, data: bytes | None = None) -> Document:
     """A launch script as a Document: ``runs`` (one LaunchRoot per training command) and ``roots``
     (one mapping of every value the script writes). Never raises for what the script contains."""
-    from . import loader
-    from .composed import CompositionProblem
+    from ..load import loader
+    from .nodes import CompositionProblem
 
     limits = settings.limits
     doc = Document(path=shown, fmt="shell")
@@ -1106,7 +1106,7 @@ def read(path: str, shown: str, settings, data: bytes | None = None) -> Document
             continue
         doc.problems.append(CompositionProblem(kind, message, where.line, where.col, [], where.path, where.end_line,
                                                where.end_col, where.key_path, subject))
-    from .redact import learn  # every output masks the credentials of every file read (trimtab.redact)
+    from ..common.redact import learn  # every output masks the credentials of every file read (trimtab.common.redact)
 
     learn(doc)
     return doc
@@ -1115,7 +1115,7 @@ def read(path: str, shown: str, settings, data: bytes | None = None) -> Document
 def load(path: str, shown: str, settings) -> Document:
     """Any file trimtab checks: a launch script (by the settings' globs, or a shell's ``#!`` line
     when the name is not a config's), else a YAML or JSON config."""
-    from . import loader
+    from ..load import loader
 
     if is_script(shown, settings):
         return read(path, shown, settings)
@@ -1136,7 +1136,7 @@ def runs_of(doc: Document) -> list:
 def is_config(path: str, shown: str, settings) -> bool:
     """Is a file named on the command line one trimtab checks: YAML, JSON (by name, or by the
     settings' include globs) or a launch script (by the settings' globs or a shell's ``#!`` line)?"""
-    from .discover import matches
+    from ..load.discover import matches
 
     if shown.lower().endswith((".yaml", ".yml", ".json")) or matches(shown, settings.include):
         return True
