@@ -35,6 +35,7 @@ import re
 import shlex
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TypeVar
 
 from ..load.document import Document, Mapping, Node, Scalar, Sequence
 from ..common.findings import Location
@@ -111,7 +112,7 @@ class Word:
     why_at: int = -1  # offset of the expansion that makes it unknown
     hops: list = field(default_factory=list)  # (message, file, offset): where substituted values came from
     raw: str = ""
-    t: object = None  # the Text it was read from
+    t: "Text | None" = None  # the Text it was read from
 
     def location(self, message: str = "") -> Location:
         if self.t is None:
@@ -259,11 +260,11 @@ def _mask(text: str) -> tuple[str, list[Exp]]:
             j = i + 1
             for word, strip in heredocs:
                 while j < n:
-                    e = text.find("\n", j)
-                    e = n if e < 0 else e
-                    line = text[j:e]
-                    blank(j, e)
-                    j = e + 1
+                    stop = text.find("\n", j)
+                    stop = n if stop < 0 else stop
+                    line = text[j:stop]
+                    blank(j, stop)
+                    j = stop + 1
                     if (line.lstrip("\t") if strip else line) == word:
                         break
             heredocs = []
@@ -938,8 +939,10 @@ class Reader:
         if value.text is None:
             from .nodes import Unknown
 
-            node = self._scalar("", value.file, value.start, value.end, self.texts.get(value.file, t), Unknown)
-            node.why = value.why
+            unknown = self._scalar("", value.file, value.start, value.end, self.texts.get(value.file, t), Unknown)
+            assert isinstance(unknown, Unknown)
+            unknown.why = value.why
+            node: Node = unknown
             self._note(value, self.texts.get(value.file, t), f"{key}: {value.why}; trimtab reads the script without "
                                                              "running it", key, run)
         else:
@@ -956,7 +959,7 @@ def _short(text: str) -> str:
     return text if len(text) <= 30 else text[:27] + "..."
 
 
-def _offset(v: Var, t: Text) -> tuple:
+def _offset(v: Var, t: Text) -> tuple[int, int, str]:
     return (v.at[1], v.at[1], v.at[0]) if v.at else (0, 0, t.shown)
 
 
@@ -991,7 +994,10 @@ def _tail(w: Word, prefix: str) -> Word:
     return Word(text, start, w.end, w.file, w.why, w.why_at, w.hops, w.raw[eq + 1:] if eq >= 0 else w.raw, w.t)
 
 
-def _locate(node: Node, t: Text, start: int, end: int, path: tuple) -> Node:
+N = TypeVar("N", bound=Node)
+
+
+def _locate(node: N, t: Text, start: int, end: int, path: tuple) -> N:
     node.line, node.col = t.pos(start)
     node.end_line, node.end_col = t.pos(end)
     node.start, node.end = start, end
@@ -1020,9 +1026,10 @@ def _relocate(node: Node, w: Word, t: Text, path: tuple) -> Node:
     if isinstance(node, Scalar):
         return _locate(GivenScalar(node.text, node.style, node.tag), t, w.start, w.end, path)
     if isinstance(node, Sequence):
-        out = _locate(Sequence(), t, w.start, w.end, path)
-        out.items = [_relocate(it, w, t, path + (str(i),)) for i, it in enumerate(node.items)]
-        return out
+        seq = _locate(Sequence(), t, w.start, w.end, path)
+        seq.items = [_relocate(it, w, t, path + (str(i),)) for i, it in enumerate(node.items)]
+        return seq
+    assert isinstance(node, Mapping)
     out = _locate(Mapping(), t, w.start, w.end, path)
     for name, _k, v, _via in node.entries():
         out.pairs.append((_locate(GivenScalar(name, None, None), t, w.start, w.end, path),
