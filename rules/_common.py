@@ -108,11 +108,11 @@ def kl_state(model):
 
 def misread(model, v) -> tuple[str, list[str], bool]:
     """(the reader of the file a concept's value was written in, the YAML readers that misread it
-    (trimtab.scalars.misreaders), whether the settings name that reader). A quoted, tagged or
+    (trimtab.common.scalars.misreaders), whether the settings name that reader). A quoted, tagged or
     structured value, and any value of a JSON file (JSON's own grammar), is misread by none."""
     from trimtab import Scalar
-    from trimtab.scalars import misreaders
-    from trimtab.vocabulary import CONCEPTS, fits
+    from trimtab.common.scalars import misreaders
+    from trimtab.common.vocabulary import CONCEPTS, fits
 
     node = v.node
     if not isinstance(node, Scalar) or not node.plain or node.tag:

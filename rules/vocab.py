@@ -2,10 +2,10 @@
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab.scalars import READER_NAMES, oversized
+from trimtab.common.scalars import READER_NAMES, oversized
+from trimtab.common.vocabulary import CONCEPTS, RL_MARKERS, RL_MIN_MARKERS
 
 from ._common import misread
-from trimtab.vocabulary import CONCEPTS, RL_MARKERS, RL_MIN_MARKERS
 
 # Enumerations whose unknown values a rule of their own area reports with its own reasoning.
 OWNED_ELSEWHERE = frozenset({"kl.estimator"})

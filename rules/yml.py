@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 from trimtab import Level, Location, rule
-from trimtab.scalars import READER_NAMES, YAML_READERS, same_value, type11, type12
+from trimtab.common.scalars import READER_NAMES, YAML_READERS, same_value, type11, type12
 
 from ._common import misread
 
@@ -162,7 +162,7 @@ def version_disagreement(ctx):
 
 
 def _expects_text(concept: str) -> bool:
-    from trimtab.vocabulary import CONCEPTS
+    from trimtab.common.vocabulary import CONCEPTS
 
     c = CONCEPTS.get(concept)
     return c is not None and c.type == "str"  # "any" concepts (reference.source) give false a meaning

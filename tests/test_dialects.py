@@ -17,7 +17,7 @@ import pytest
 
 from support import FIXTURES, check_json, run_cli
 from test_scalars import SCALARS
-from trimtab.scalars import misreaders, same_value, type11, type11f, type12, typejson
+from trimtab.common.scalars import misreaders, same_value, type11, type11f, type12, typejson
 
 omegaconf = pytest.importorskip("omegaconf")  # the test extra
 
