@@ -9,9 +9,9 @@ from support import run_cli
 
 
 def _resolved(tmp_path: Path, text: str):
-    from trimtab.engine import Registry
-    from trimtab.explain import models
-    from trimtab.settings import load
+    from trimtab.engine.registry import Registry
+    from trimtab.report.explain import models
+    from trimtab.common.settings import load
 
     (tmp_path / ".git").mkdir(exist_ok=True)
     cfg = tmp_path / "run.yaml"
