@@ -9,9 +9,10 @@ from .composed import Unknown
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .arithmetic import Unit, settle
-from .model import Component, RunModel, Value
+from .model import Component, RunModel, Unused, Value
 from .settings import KeySpec
-from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, normalise_key
+from .vocabulary import (ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, evaluation_section,
+                         normalise_key)
 
 
 @dataclass
@@ -58,6 +59,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     words: dict[str, str] = {}
     sections: dict[tuple, list[str]] = {}
     inside: dict[tuple, bool] = {}
+    evals: dict[tuple, str | None] = {}
     for path, node, _chain in leaves:
         if id(node) in taken:
             continue
@@ -73,17 +75,30 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         parents = sections.get(path[:-1])
         if parents is None:
             parents = sections[path[:-1]] = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
+        section = path[:-1]
+        if section not in evals:
+            evals[section] = evaluation_section(section)
+        in_eval = evals[section]
         for alias in aliases:
             if alias.concept in mapped:
                 continue
-            if alias.not_under and any(p in alias.not_under for p in parents):
+            if alias.under and (not parents or parents[-1] not in alias.under):
                 continue
-            if alias.under:
-                if not parents or parents[-1] not in alias.under:
+            if in_eval is not None:
+                # an evaluation, validation or test block samples for another loop: its keys never
+                # compete with the training run's. Only a sandbox (where generated code runs, in
+                # any loop) is taken from one, and only when the training run states none.
+                if not alias.concept.startswith("sandbox."):
+                    if isinstance(node, Mapping) and CONCEPTS[alias.concept].type not in ("list", "any"):
+                        continue  # a section of the block, not a value
+                    model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
+                                               f"in the evaluation section '{in_eval}'", "evaluation"))
                     continue
-                strength = 2
+                strength = 0
+            elif alias.not_under and any(p in alias.not_under for p in parents):
+                continue
             else:
-                strength = 1
+                strength = 2 if alias.under else 1
             if alias.concept == "reward.sources" and isinstance(node, Scalar):
                 continue
             if isinstance(node, (Mapping, Sequence)) and CONCEPTS[alias.concept].type not in ("list", "any"):
@@ -110,11 +125,11 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
             via = "native" if ".".join(path) == concept else "alias"  # the concept's own path is the native layout
-            _store(model, concept, node, via, ".".join(path), chain=chains.get(path))
+            _store(model, concept, node, via, ".".join(path), chain=chains.get(path), synonyms=opts.keys.get(concept))
             continue
         hit = native.get(concept)
         if hit is not None:
-            _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]))
+            _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]), synonyms=opts.keys.get(concept))
     settle(model)  # the run's arithmetic: counts in their concepts' units, derived quantities
     markers = sum(1 for c in RL_MARKERS if c in model.values)
     model.is_rl = opts.force_rl or markers >= RL_MIN_MARKERS or "run.estimator" in model.values and markers >= 2
@@ -216,8 +231,10 @@ def scalar_value(node: Node, version: str):
 
 
 def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None,
-           chain: list | None = None):
-    _store_value(model, concept, node, via, key, spec)
+           chain: list | None = None, synonyms: KeySpec | None = None):
+    """Store one concept's value. ``synonyms``: the key map's entry for the concept when the value
+    was found elsewhere than its mapped key (its ``values`` table still says what a value means)."""
+    _store_value(model, concept, node, via, key, spec, synonyms or spec)
     v = model.values.get(concept)
     if chain and v is not None and v.node is node:
         # a value written elsewhere (at an anchor) and reached through merges or aliases points
@@ -229,7 +246,8 @@ def _chain(model: RunModel, key: str) -> list[Location]:
     return list(model.chains.get(key, ())) if model.chains else []
 
 
-def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None):
+def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None,
+                 synonyms: KeySpec | None = None):
     doc = model.doc
     loc = doc.loc(node)
     if model.chains and key and loc.key_path != key:
@@ -251,12 +269,18 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
+    meant = synonyms.meaning(value) if synonyms is not None else None
+    if meant is not None:
+        # a value synonym of the key map: the concept takes the value it stands for; the node (and so
+        # every location and the raw value) still shows what is written
+        v.value = meant
+        v.note = f"key map: {cast(Scalar, node).text.strip()} means {meant}"
     c = CONCEPTS[concept]
     if spec is not None and c.per:
         v.unit = Unit(spec.per or c.per, spec.scope or c.scope)  # the key map states the unit
     model.values[concept] = v
     expected = CONCEPTS[concept].type
-    if value is not None and not _fits(value, expected):
+    if v.value is not None and not _fits(v.value, expected):
         model.mistyped.append((v, expected))
 
 
