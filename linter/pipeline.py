@@ -17,12 +17,12 @@ from itertools import chain
 from pathlib import Path
 from typing import Any
 
-from . import filtering
-from .check import CheckOptions, Checker, Kept, run, summary_counts
-from .engine import Registry
-from .findings import Finding, Level, Location
-from .settings import Settings, SettingsError
-from .spill import Stream
+from .gate import filtering
+from .gate.runner import CheckOptions, Checker, Kept, run, summary_counts
+from .engine.registry import Registry
+from .common.findings import Finding, Level, Location
+from .common.settings import Settings, SettingsError
+from .common.spill import Stream
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
 
@@ -127,7 +127,7 @@ class Outcome:
             if shown in k.doc.sources:
                 return k.doc.sources[shown]
         # a file a run names that the composer did not read: through the composer's cache of bases
-        from .compose import load_source
+        from .compose.layers import load_source
 
         disk = Path(shown) if Path(shown).is_absolute() else self.settings.root / shown
         return load_source(disk, shown, self.settings.limits)
@@ -142,7 +142,7 @@ class Pipeline:
 
     # --- discover --------------------------------------------------------------------------------
     def discover(self, req: Request) -> tuple[list[tuple[str, str]], list[str]]:
-        from .discover import changed_since, discover
+        from .load.discover import changed_since, discover
 
         settings = self.settings
         if req.staged_files is not None:
@@ -185,7 +185,7 @@ class Pipeline:
         """Every file of the repository discovery finds under the settings (once per pipeline): the
         search for a changed base's dependants and the other runs of a check of some files read it."""
         if self._repository_files is None:
-            from .discover import discover
+            from .load.discover import discover
 
             self._repository_files, _missing = discover([], self.settings.root, self.settings.include,
                                                         self.settings.exclude)
@@ -194,7 +194,7 @@ class Pipeline:
     def base_graph(self):
         """Which files of the repository build on which (compose.BaseGraph), once per pipeline."""
         if self._graph is None:
-            from .compose import BaseGraph
+            from .compose.layers import BaseGraph
 
             self._graph = BaseGraph(self.settings, self.repository_files())
         return self._graph
@@ -203,7 +203,7 @@ class Pipeline:
         """A base among the files to check (given, or changed since a ref) brings the files built on it."""
         if not (req.paths or changed is not None):
             return files  # the whole repository is checked anyway
-        from .discover import relpath
+        from .load.discover import relpath
 
         seeds = set(changed or ()) | {s for _p, s in files}
         seeds |= {relpath(Path(p), self.settings.root.resolve()) for p in req.paths if Path(p).is_file()}
@@ -219,7 +219,7 @@ class Pipeline:
         settings = self.settings
         files_, missing = files if files is not None else self.discover(req)
         checker = Checker(settings, self.registry, CheckOptions(req.only, req.skip, list(req.overrides)))
-        if self._graph is not None:  # the dependant search's, shared (compose.Composer.named_as_base)
+        if self._graph is not None:  # the dependant search's, shared (compose.layers.Composer.named_as_base)
             checker.composer.graph = self._graph
         # a number of workers from the settings (which the repository writes) is capped at the
         # machine's processors; one given on the command line is the user's own choice
@@ -250,11 +250,11 @@ class Pipeline:
 
     def _others(self, req: Request, checker):
         """For a check of some files only (paths given, --since, --staged): the other runs of the
-        repository, for the rules over several runs (linter/context.py)."""
+        repository, for the rules over several runs (linter/gate/context.py)."""
         partial = bool(req.paths) or req.since is not None or req.staged_files is not None
         if not (req.cross_run and partial and checker.rules("set")):
             return None
-        from .context import other_entries
+        from .gate.context import other_entries
 
         source = self.settings.source
         start = Path(source).resolve().parent if source else Path.cwd()
@@ -271,7 +271,7 @@ class Pipeline:
             rows = filtering.read_accepted(path)
         except filtering.AcceptedFileError as exc:
             raise SettingsError(str(exc)) from None
-        from .paths import confined
+        from .common.paths import confined
 
         # an entry naming a file outside the repository is gone: nothing outside is even looked at
         gone = {str(r.get("file")) for r in rows

@@ -29,13 +29,13 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, TypeVar, cast
 
-from . import loader
-from .composed import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, GivenScalar,
+from ..load import loader
+from .nodes import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, GivenScalar,
                        Unknown, Unresolved)
-from .document import Document, Mapping, Node, Scalar, Sequence
-from .discover import matches
-from .findings import Location
-from .paths import confined
+from ..load.document import Document, Mapping, Node, Scalar, Sequence
+from ..common.findings import Location
+from ..common.paths import confined
+from ..load.discover import matches
 
 
 # problem kinds (the CMP rules read them)
@@ -190,7 +190,7 @@ def _holds_ref(node: Node) -> bool:
     if isinstance(node, Scalar):
         return "${" in node.text
     if isinstance(node, (Mapping, Sequence)):
-        from .document import walk
+        from ..load.document import walk
 
         return any(isinstance(n, Scalar) and "${" in n.text for n in walk(node))
     return False
@@ -273,7 +273,7 @@ class Composer:
 
     # --- settings-level inputs: parsed once ----------------------------------------------------
     def _parse_given(self, key: str, text: str, added: bool = False) -> _Given:
-        from .settings import SettingsError
+        from ..common.settings import SettingsError
 
         parts = tuple(key.split("."))
         if not all(parts):
@@ -300,7 +300,7 @@ class Composer:
         return out
 
     def _load_overrides_file(self):
-        from .settings import SettingsError
+        from ..common.settings import SettingsError
 
         name = getattr(self.settings, "overrides", "") or ""
         if not name:
@@ -426,7 +426,7 @@ class Composer:
             return [("experiment", doc, cast(Mapping, root))]
         top = self._where(Path(path))[0]
         stack = [(top, doc.path)]
-        from .discover import matches
+        from ..load.discover import matches
 
         source = self._source_shown
         for i, entry in enumerate(self.layers):
@@ -1121,7 +1121,7 @@ class BaseGraph:
     @property
     def candidates(self) -> list[tuple[str, str]]:
         if self._candidates is None:
-            from .discover import discover
+            from ..load.discover import discover
 
             self._candidates, _missing = discover([], self.root, self.settings.include, self.settings.exclude)
         return self._candidates
@@ -1131,11 +1131,11 @@ class BaseGraph:
         import hashlib
         import json
 
-        from . import __version__
+        from .. import __version__
 
-        here = Path(__file__).parent
+        here = Path(__file__).parents[1]
         code = []
-        for name in ("compose.py", "shell.py", "loader.py", "document.py"):
+        for name in ("compose/layers.py", "compose/shell.py", "load/loader.py", "load/document.py"):
             try:
                 st = (here / name).stat()
                 code.append([name, st.st_mtime_ns, st.st_size])
@@ -1149,7 +1149,7 @@ class BaseGraph:
 
     def _known(self) -> dict:
         if self._cache is None:
-            from .paths import cache_file, read_cache
+            from ..common.paths import cache_file, read_cache
 
             source = getattr(self.settings, "source", None)
             start = Path(source).resolve().parent if source else self.root
@@ -1163,7 +1163,7 @@ class BaseGraph:
     def save(self) -> None:
         """Keep what was learnt for the next process (a cache that cannot be written is not kept)."""
         if self._dirty and self._cache is not None:
-            from .paths import write_cache
+            from ..common.paths import write_cache
 
             write_cache(self._cache_path, NAMES_VERSION, self._stamp(), self._cache)
             self._dirty = False
@@ -1184,7 +1184,7 @@ class BaseGraph:
             return None
         if not script and not any(k and k.encode("utf-8") in data for k in (self.key, self.dkey)):
             return []
-        from .paths import content_hash
+        from ..common.paths import content_hash
 
         known = self._known()
         h = content_hash(data)

@@ -21,9 +21,9 @@ import os
 import time
 from pathlib import Path
 
-from . import paths
-from .findings import Location
-from .model import Value
+from ..common import paths
+from ..common.findings import Location
+from ..resolve.model import Value
 
 CACHE_VERSION = 1
 RACY_NS = 3_000_000_000  # a status newer than this before the read is not trusted (coarse file system clocks)
@@ -37,7 +37,7 @@ def cache_file(start: Path, key: str) -> Path | None:
 def digest(path: Path, limit: int) -> str | None:
     """The content hash of a file (its first ``limit`` + 1 bytes and their count), or None when it
     cannot be read (a named pipe or a device is never opened: ``loader.read``)."""
-    from .loader import Limits, read
+    from ..load.loader import Limits, read
 
     data, why = read(str(path), Limits(max_bytes=limit))
     return None if why or data is None else paths.content_hash(data)
@@ -136,13 +136,13 @@ def row_entries(row: dict) -> list[tuple[int, dict[str, Value]]]:
 def _stamp(checker) -> str:
     """What the cached values depend on besides the files: trimtab's code, the settings that
     shape a run, the --set values and the concepts the rules over several runs need."""
-    from . import __version__
+    from .. import __version__
 
     s = checker.settings
-    here = Path(__file__).parent
+    here = Path(__file__).parents[1]
     code = []
-    for name in ("check.py", "compose.py", "resolve.py", "vocabulary.py", "loader.py", "scalars.py", "context.py",
-                 "shell.py"):
+    for name in ("gate/runner.py", "compose/layers.py", "resolve/concepts.py", "common/vocabulary.py",
+                 "load/loader.py", "common/scalars.py", "gate/context.py", "compose/shell.py"):
         try:
             st = (here / name).stat()
             code.append([name, st.st_mtime_ns, st.st_size])
@@ -160,12 +160,12 @@ def other_entries(checker, checked, start: Path, files=None):
     through the same discovery and limits (``files``: that discovery's result, when it was made
     already), from the cache where each file (and every file its runs were composed from) is
     unchanged. A generator; the cache is written when it ends."""
-    from .check import SetEntry
+    from .runner import SetEntry
 
     settings = checker.settings
     root = Path(settings.root).resolve()
     if files is None:
-        from .discover import discover
+        from ..load.discover import discover
 
         files, _missing = discover([], root, settings.include, settings.exclude)
     limit = settings.limits.max_bytes
