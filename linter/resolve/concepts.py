@@ -12,7 +12,7 @@ from .arithmetic import Unit, settle
 from .model import Component, RunModel, Unused, Value
 from ..common.settings import KeySpec
 from ..common.vocabulary import (ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, SECTION_WORDS,
-                                 Concept, evaluation_section, fits, normalise_key)
+                                 Concept, evaluation_section, fits, normalise_key, share_of_run)
 
 
 @dataclass
@@ -428,7 +428,9 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
         v.unit = Unit(spec.per or c.per, spec.scope or c.scope)  # the key map states the unit
     model.values[concept] = v
     expected = CONCEPTS[concept].type
-    if v.value is not None and not _fits(v.value, expected):
+    if share_of_run(concept, v.value):
+        v.note = f"a share of the run: {v.value:g} of the total steps"
+    elif v.value is not None and not _fits(v.value, expected):
         model.mistyped.append((v, expected))
 
 
