@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 from itertools import groupby
 from typing import Any
 
-from . import filtering, spill
+from . import arithmetic, filtering, spill
 from .compose import Composer
 from .engine import Context, Registry, Rule, run_rule
 from .findings import Finding, Level, Location
@@ -163,8 +163,10 @@ class Checker:
                     self._run(r, Context(r, None, src, opts, level, settings=self.settings), src.path, res)
         if as_run:
             set_rules = self.rules("set")
+            models = []
             for index, comp in enumerate(composed):
                 model = self._resolve(doc, comp, shown, index)
+                models.append(model)
                 if keep:
                     res.kept.models.append(model)
                 if not model.is_rl:
@@ -189,6 +191,9 @@ class Checker:
                     _name_run(res.findings[start:], shown)
                 if set_rules:
                     res.entries.append(SetEntry(shown, index, self.set_values(model)))
+            if not keep:
+                for model in models:
+                    arithmetic.release(model)  # perf: no cycle left for the collector to find
         if doc.readable:
             res.skipped = res.runs == 0
         # Acceptances of set-scope rules are applied once the whole set has been checked (accept_set).
