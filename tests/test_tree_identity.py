@@ -14,8 +14,8 @@ from pathlib import Path
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from trimtab import loader
-from trimtab.document import Document, Mapping, Scalar, Sequence, walk
+from trimtab.load import loader
+from trimtab.load.document import Document, Mapping, Scalar, Sequence, walk
 
 from support import REPO
 

@@ -1,0 +1,286 @@
+"""Settings: ``[tool.trimtab]`` in pyproject.toml or a ``trimtab.toml``, found by walking up
+from the working directory, validated against the schema shipped in the package."""
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .limits import Limits
+
+
+def _tomllib():
+    """The TOML reader, imported only when a settings file is read (start-up, see docs/perf.md)."""
+    if sys.version_info >= (3, 11):
+        import tomllib
+    else:  # pragma: no cover
+        import tomli as tomllib
+    return tomllib
+
+DEFAULT_INCLUDE = ["**/*.yaml", "**/*.yml", "**/*.json", "**/*.sh", "**/*.bash"]
+SCHEMA_PATH = Path(__file__).with_name("settings.schema.json")
+
+
+@dataclass(frozen=True)
+class KeySpec:
+    """Where the user's file keeps one concept, and in what unit (the settings' key map)."""
+
+    key: str
+    per: str = ""  # prompt | completion
+    scope: str = ""  # global | gpu
+    fields: tuple = ()  # for reward.sources: ((field, key in component), ...)
+    values: tuple = ()  # value synonyms of an enumerated concept: ((as written, meaning), ...)
+
+    def meaning(self, written):
+        """The concept value a value written in the user's file stands for under this key map's
+        ``values`` table (compared as text, case and surrounding blanks aside), or None."""
+        if not self.values or isinstance(written, (dict, list)) or written is None:
+            return None
+        text = (str(written).lower() if isinstance(written, bool) else str(written)).strip().lower()
+        for said, meant in self.values:
+            if said.strip().lower() == text:
+                return meant
+        return None
+
+
+class SettingsError(Exception):
+    """A setting is wrong; the message names the setting, what was expected and what was found."""
+
+
+@dataclass
+class Settings:
+    root: Path
+    source: Path | None = None
+    table: str = ""  # "[tool.trimtab]" or "" for a trimtab.toml
+    include: list[str] = field(default_factory=lambda: list(DEFAULT_INCLUDE))
+    exclude: list[str] = field(default_factory=list)
+    gate: str = "warning"
+    yaml_version: str = "1.1"
+    run_configs: list[str] = field(default_factory=list)
+    keymap: str = ""
+    keys: dict[str, KeySpec] = field(default_factory=dict)
+    search_roots: list[str] = field(default_factory=lambda: ["."])
+    import_depth: int = 2
+    accepted: str = ""
+    jobs: int = 1
+    limits: Limits = field(default_factory=Limits)
+    rules: dict[str, dict] = field(default_factory=dict)
+    layers: list[dict] = field(default_factory=list)
+    bases_key: str = ""
+    defaults_key: str = ""  # the key of a defaults list (composition of named files, config groups)
+    launch: dict = field(default_factory=dict)  # [launch]: how launch scripts are read (linter/compose/shell.py)
+    overrides: str = ""
+    include_set: bool = False  # include was written in the settings file (not the default)
+
+    def check_include(self, used: set, paths_given: bool) -> list[str]:
+        """The include globs written in the settings, when trimtab finds the files itself: if
+        none matches a file, the settings are wrong (a typo, or the wrong root) and a gate that
+        checks nothing would pass everything, so that is an error naming the setting. Globs
+        that match nothing beside others that match are returned, for a note."""
+        if paths_given or not self.include_set or not self.include:
+            return []
+        idle = [f"{self.name('include')}[{i}] {p!r}" for i, p in enumerate(self.include) if p not in used]
+        if len(idle) == len(self.include):
+            raise SettingsError(f"{self.source}: setting {self.name('include')}: expected globs that match at "
+                                f"least one file under {self.root}, found {', '.join(idle)}, which match none")
+        return idle
+
+    def path(self, key: str, root: Path | None = None) -> Path:
+        """The file a path setting (``accepted``, ``overrides``) names, relative to the root, with
+        every link followed; refused (SettingsError) when that leaves the repository, as a base
+        is. ``root``: where it is looked for instead (the staged mirror of ``check --staged``).
+        Nothing is opened here."""
+        from .paths import confined
+
+        value = getattr(self, key)
+        top = Path(root if root is not None else self.root)
+        real = confined(top / value, top)
+        if real is None:
+            raise SettingsError(f"{self.source}: setting {self.name(key)}: expected a path inside the repository "
+                                f"{top}, found {value!r}, which leads outside the repository (through '..', an absolute "
+                                "path or a symbolic link); it is not read or written")
+        return real
+
+    def name(self, key: str) -> str:
+        """How a setting is spelled in the user's file, for messages."""
+        prefix = "tool.trimtab." if self.table else ""
+        return f"{prefix}{key}"
+
+
+def find(start: Path | None = None) -> tuple[Path | None, Path]:
+    """(settings file or None, repository root). Walks up from ``start``; stops at the first
+    trimtab.toml, pyproject.toml with a [tool.trimtab] table, or a git repository's top."""
+    here = (start or Path.cwd()).resolve()
+    for folder in (here, *here.parents):
+        candidate = folder / "trimtab.toml"
+        if candidate.is_file():
+            return candidate, folder
+        candidate = folder / "pyproject.toml"
+        if candidate.is_file():
+            try:
+                text = candidate.read_text(encoding="utf-8")
+            except (OSError, UnicodeDecodeError):
+                text = ""
+            if "[tool.trimtab" in text or "tool.trimtab" in text:
+                return candidate, folder
+        if (folder / ".git").exists():
+            return None, folder
+    return None, here
+
+
+def load(path: Path | None = None, start: Path | None = None) -> Settings:
+    if path is None:
+        path, root = find(start)
+    else:
+        path = Path(path)
+        root = path.resolve().parent
+    if path is None:
+        return Settings(root=root)
+    tomllib = _tomllib()
+    try:
+        with open(path, "rb") as fh:
+            data = tomllib.load(fh)
+    except OSError as exc:
+        raise SettingsError(f"{path}: cannot be read: {exc.strerror}") from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise SettingsError(f"{path}: is not valid TOML: {exc}") from None
+    if path.name == "pyproject.toml":
+        table = data.get("tool", {}).get("trimtab")
+        if table is None:
+            return Settings(root=root)
+        prefix = "tool.trimtab"
+    else:
+        table, prefix = data, ""
+    if not isinstance(table, dict):
+        raise SettingsError(f"{path}: setting {prefix or '(top level)'}: expected a table, found {_kind(table)}")
+    validate(table, path, prefix)
+    return build(table, root, path, prefix)
+
+
+def _kind(value) -> str:
+    return {dict: "a table", list: "an array", str: "a string", bool: "a boolean", int: "an integer",
+            float: "a number"}.get(type(value), type(value).__name__)
+
+
+_VALIDATOR = None
+
+
+def validate(table: dict, path: Path, prefix: str) -> None:
+    import json
+
+    import jsonschema
+
+    global _VALIDATOR
+    if _VALIDATOR is None:  # built once per process
+        schema = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))
+        _VALIDATOR = jsonschema.Draft7Validator(schema)
+    validator = _VALIDATOR
+    errors = sorted(validator.iter_errors(table), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))
+    if not errors:
+        _check_concepts(table, path, prefix)
+        return
+    err = errors[0]
+    where = ".".join([prefix] + [str(p) for p in err.absolute_path] if prefix else [str(p) for p in err.absolute_path])
+    if err.validator == "additionalProperties":
+        allowed = sorted(err.schema.get("properties", {}))
+        extra = sorted(set(err.instance) - set(allowed))
+        key = ".".join(filter(None, [where, extra[0] if extra else ""]))
+        raise SettingsError(f"{path}: setting {key}: unknown setting (expected one of: {', '.join(allowed)})")
+    expected = _expected(err)
+    raise SettingsError(f"{path}: setting {where or '(top level)'}: expected {expected}, "
+                        f"found {_show(err.instance)}")
+
+
+def _expected(err) -> str:
+    import json
+
+    v, val = err.validator, err.validator_value
+    if v == "type":
+        names = {"array": "an array", "object": "a table", "string": "a string", "integer": "an integer",
+                 "boolean": "true or false", "number": "a number"}
+        return " or ".join(names.get(t, t) for t in ([val] if isinstance(val, str) else val))
+    if v == "enum":
+        return "one of " + ", ".join(json.dumps(x) if isinstance(x, str) else str(x) for x in val)
+    if v == "minimum":
+        return f"a number of at least {val}"
+    if v == "maximum":
+        return f"a number of at most {val}"
+    if v == "required":
+        return "the keys " + ", ".join(val)
+    if v == "minLength":
+        return "a non-empty string"
+    if v == "anyOf":
+        return "a key path string, or a table with key (and per, scope, fields, values)"
+    return err.message
+
+
+def _show(value) -> str:
+    import json
+
+    text = json.dumps(value) if not isinstance(value, str) else repr(value)
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        text += " (a number, not a string)" if isinstance(value, float) else ""
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _check_concepts(table: dict, path: Path, prefix: str) -> None:
+    from .vocabulary import CONCEPTS
+
+    dot = f"{prefix}." if prefix else ""
+    for concept, spec in table.get("keys", {}).items():
+        if concept not in CONCEPTS:
+            near = [c for c in CONCEPTS if c.split(".")[-1] == concept.split(".")[-1]]
+            hint = f" (did you mean {', '.join(near)}?)" if near else ""
+            raise SettingsError(f"{path}: setting {dot}keys.{concept}: expected a concept name, "
+                                f"found unknown concept {concept!r}{hint}; `trimtab explain` lists them")
+        allowed = CONCEPTS[concept].values
+        for said, meant in (spec.get("values", {}) if isinstance(spec, dict) else {}).items():
+            if not allowed:
+                raise SettingsError(f"{path}: setting {dot}keys.{concept}.values: expected value synonyms only for an "
+                                    f"enumerated concept, found them for {concept}, which takes any value")
+            if str(meant).strip().lower() not in allowed:
+                raise SettingsError(f"{path}: setting {dot}keys.{concept}.values.{said}: expected one of "
+                                    f"{', '.join(allowed)}, found {_show(meant)}")
+
+
+def build(table: dict, root: Path, path: Path | None = None, prefix: str = "") -> Settings:
+    s = Settings(root=root, source=path, table=prefix)
+    for name in ("include", "exclude", "gate", "yaml_version", "run_configs", "keymap", "search_roots",
+                 "import_depth", "accepted", "jobs", "rules", "layers", "bases_key", "overrides", "defaults_key", "launch"):
+        if name in table:
+            setattr(s, name, table[name])
+    s.include_set = "include" in table
+    if "limits" in table:
+        s.limits = Limits(**{**Limits().__dict__, **table["limits"]})
+    s.keys = parse_keys(table.get("keys", {}))
+    return s
+
+
+def check_published(name: str, table) -> None:
+    """A key map a plugin publishes is validated like the user's own [keys] table."""
+    where = f"key map {name!r} (from a plugin, chosen by setting keymap)"
+    if not isinstance(table, dict):
+        raise SettingsError(f"{where}: expected a table of concept -> key path, found {_kind(table)}")
+    import json
+
+    import jsonschema
+
+    schema = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))["properties"]["keys"]
+    for err in jsonschema.Draft7Validator(schema).iter_errors(table):
+        path = ".".join(str(p) for p in err.absolute_path)
+        raise SettingsError(f"{where}: entry {path or '(top level)'}: expected {_expected(err)}, "
+                            f"found {_show(err.instance)}")
+    _check_concepts({"keys": table}, Path(where), "")
+
+
+def parse_keys(table: dict) -> dict[str, KeySpec]:
+    out = {}
+    for concept, spec in table.items():
+        if isinstance(spec, str):
+            out[concept] = KeySpec(spec)
+        else:
+            out[concept] = KeySpec(spec["key"], spec.get("per", ""), spec.get("scope", ""),
+                                   tuple(sorted(spec.get("fields", {}).items())),
+                                   tuple(spec.get("values", {}).items()))
+    return out
+

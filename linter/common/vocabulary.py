@@ -1,0 +1,331 @@
+"""The concepts trimtab reasons about, each declared once, and the built-in alias table.
+
+Rules speak only in concepts. A file's keys reach a concept through the user's key map, through
+the alias table below (generic words of the trade, matched on the leaf key with its parent
+sections as context), or through the native layout (the concept's own dotted name).
+"""
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from functools import lru_cache
+
+
+@dataclass(frozen=True)
+class Concept:
+    name: str
+    type: str  # int, number, bool, str, list, any
+    unit: str = ""
+    meaning: str = ""
+    per: str = ""  # "prompt" or "completion" for batch quantities
+    scope: str = ""  # "global" or "gpu" for batch quantities
+    values: tuple = ()  # allowed values of an enumeration, lower case
+
+
+_C = Concept
+CONCEPTS: dict[str, Concept] = {c.name: c for c in (
+    _C("run.estimator", "str", "", "advantage estimator / algorithm family",
+       values=("grpo", "ppo", "rloo", "reinforce", "reinforce++", "remax", "gae", "dr_grpo", "dapo")),
+    _C("run.stage", "str", "", "what the config trains", values=("rl", "sft", "distill")),
+    _C("run.seed", "int", "", "random seed"),
+    _C("run.name", "str", "", "run identity"),
+    _C("cluster.nodes", "int", "nodes", "machines in the job"),
+    _C("cluster.gpus_per_node", "int", "GPUs", "GPUs on each machine"),
+    _C("cluster.world_size", "int", "GPUs", "training GPUs in all"),
+    _C("train.tensor_parallel", "int", "", "tensor-parallel degree of training"),
+    _C("train.pipeline_parallel", "int", "", "pipeline-parallel degree of training"),
+    _C("train.context_parallel", "int", "", "context-parallel degree of training"),
+    _C("train.data_parallel", "int", "ranks", "data-parallel ranks: world / (tp x pp x cp)"),
+    _C("rollout.tensor_parallel", "int", "", "tensor-parallel degree of the rollout engine"),
+    _C("rollout.gpus", "int", "GPUs", "GPUs the rollout engine runs on (default: the world)"),
+    _C("batch.prompts", "int", "prompts", "unique prompts per training step", per="prompt", scope="global"),
+    _C("rollout.group_size", "int", "completions", "completions sampled per prompt"),
+    _C("batch.rollouts", "int", "completions", "completions per training step", per="completion",
+       scope="global"),
+    _C("batch.mini", "int", "completions", "completions per optimiser update", per="completion",
+       scope="global"),
+    _C("batch.micro_per_gpu", "int", "completions", "completions per forward/backward on one GPU",
+       per="completion", scope="gpu"),
+    _C("batch.grad_accum", "int", "", "micro-batches accumulated per optimiser update"),
+    _C("optim.epochs", "int", "", "passes over each rollout batch"),
+    _C("optim.updates_per_step", "int", "", "optimiser updates per step: rollouts / mini x epochs"),
+    _C("rollout.temperature", "number", "", "sampling temperature"),
+    _C("rollout.top_p", "number", "", "nucleus sampling mass"),
+    _C("rollout.top_k", "int", "", "top-k sampling cut-off"),
+    _C("rollout.sampling", "bool", "", "sampling on (false: greedy decoding)"),
+    _C("length.prompt_max", "int", "tokens", "longest prompt"),
+    _C("length.response_max", "int", "tokens", "longest response"),
+    _C("rollout.context_max", "int", "tokens", "context window of the rollout engine"),
+    _C("model.context_max", "int", "tokens", "context window of the model"),
+    _C("kl.enabled", "bool", "", "KL regularisation switched on"),
+    _C("kl.coef", "number", "", "KL coefficient (beta)"),
+    _C("kl.estimator", "str", "", "KL estimator", values=("k1", "k2", "k3")),
+    _C("kl.placement", "str", "", "where the KL term goes", values=("loss", "reward", "both", "none")),
+    _C("kl.target", "number", "", "target KL of an adaptive controller"),
+    _C("kl.horizon", "int", "steps", "horizon of an adaptive KL controller"),
+    _C("reference.source", "any", "", "reference policy weights (false/none: no reference)"),
+    _C("reference.refresh_every", "int", "steps", "reference refresh interval"),
+    _C("clip.low", "number", "", "ratio clip epsilon (lower, or both)"),
+    _C("clip.high", "number", "", "upper ratio clip epsilon_high"),
+    _C("clip.dual", "number", "", "dual-clip constant c"),
+    _C("clip.value", "number", "", "value-function clip range"),
+    _C("optim.lr", "number", "", "policy learning rate"),
+    _C("optim.grad_clip", "number", "", "maximum gradient norm"),
+    _C("optim.warmup_steps", "int", "steps", "learning-rate warm-up"),
+    _C("schedule.total_steps", "int", "steps", "training steps in the run"),
+    _C("critic.source", "any", "", "value model weights (false/none: no critic)"),
+    _C("critic.lr", "number", "", "value model learning rate"),
+    _C("gae.gamma", "number", "", "discount factor"),
+    _C("gae.lambda", "number", "", "GAE lambda"),
+    _C("reward.sources", "list", "", "reward components"),
+    _C("reward.format_pattern", "str", "", "regular expression a well-formed answer matches"),
+    _C("template.text", "str", "", "prompt template"),
+    _C("sandbox.kind", "str", "", "where generated code runs",
+       values=("none", "process", "container", "vm", "remote")),
+    _C("sandbox.network", "bool", "", "network reachable from the sandbox"),
+    _C("sandbox.timeout_s", "number", "seconds", "wall-clock limit per execution"),
+    _C("sandbox.memory_mb", "number", "MB", "memory limit per execution"),
+    _C("sandbox.processes", "int", "", "process limit per execution"),
+    _C("sandbox.filesystem", "str", "", "host file system access",
+       values=("none", "read-only", "readonly", "ro", "tmpfs", "writable", "rw", "read-write")),
+    _C("sandbox.user", "str", "", "user the code runs as"),
+    _C("sandbox.privileged", "bool", "", "privileged sandbox"),
+    _C("model.source", "str", "", "policy weights"),
+    _C("model.revision", "str", "", "pinned revision of the policy weights"),
+    _C("model.trust_remote_code", "bool", "", "run code shipped with the weights"),
+    _C("checkpoint.every", "int", "steps", "checkpoint interval (0 or false: off)"),
+    _C("checkpoint.dir", "str", "", "checkpoint directory"),
+    _C("output.dir", "str", "", "output directory"),
+)}
+
+# Fields of one reward component (reward.sources items).
+def declare(concept: Concept) -> Concept:
+    """Add a plugin's concept to the vocabulary (validated by the plugin registry)."""
+    CONCEPTS.setdefault(concept.name, concept)
+    return concept
+
+
+REWARD_FIELDS = ("kind", "ref", "weight", "revision", "endpoint", "timeout_s", "name")
+REWARD_KINDS = ("rule", "model", "judge", "code", "remote")
+
+# Concepts whose presence marks a file as an RL run configuration.
+RL_MARKERS = frozenset({
+    "run.estimator", "rollout.group_size", "kl.coef", "kl.enabled", "kl.estimator", "clip.low",
+    "clip.high", "reward.sources", "reference.source", "critic.source", "gae.lambda", "sandbox.kind",
+    "rollout.temperature", "batch.rollouts", "batch.prompts", "length.response_max", "batch.mini",
+})
+RL_MIN_MARKERS = 3
+
+# Section words that mean "the rollout / inference engine", "the value model", and sections whose
+# sampling or batch keys describe something other than training (evaluation, judges).
+ROLLOUT = ("rollout", "rollouts", "generation", "generate", "inference", "sampling", "sampler", "actor_rollout")
+CRITIC = ("critic", "value", "value_model", "value_head")
+REF = ("reference", "ref", "ref_model", "reference_model")
+ELSEWHERE = ("eval", "evaluation", "validation", "val", "test", "judge", "reward_model", "rm")
+SANDBOX = ("sandbox", "sandbox_config", "code_execution", "execution", "executor", "code_exec")
+MODEL = ("model", "policy", "actor", "policy_model")
+CKPT = ("checkpoint", "checkpoints", "checkpointing", "ckpt", "save")
+
+
+@dataclass(frozen=True)
+class Alias:
+    concept: str
+    under: tuple = ()  # parent sections that must hold the key (empty: anywhere)
+    not_under: tuple = ()  # sections in which the word means something else
+
+
+def _aliases() -> dict[str, tuple[Alias, ...]]:
+    table: dict[str, list[Alias]] = {}
+
+    def add(words: str, concept: str, under=(), not_under=()):
+        for w in words.split():
+            table.setdefault(w, []).append(Alias(concept, tuple(under), tuple(not_under)))
+
+    away = ELSEWHERE + CRITIC
+    add("advantage_estimator adv_estimator estimator algorithm algo", "run.estimator", not_under=("kl",) + ELSEWHERE)
+    add("stage training_stage", "run.stage")
+    add("seed random_seed", "run.seed", not_under=ELSEWHERE)
+    add("run_name experiment_name", "run.name")
+    add("name", "run.name", under=("run", "experiment"))
+    add("nodes num_nodes nnodes", "cluster.nodes", not_under=ROLLOUT)
+    add("gpus_per_node n_gpus_per_node num_gpus_per_node devices_per_node", "cluster.gpus_per_node",
+        not_under=ROLLOUT)
+    add("world_size num_gpus total_gpus", "cluster.world_size", not_under=ROLLOUT)
+    add("gpus num_gpus n_gpus", "rollout.gpus", under=ROLLOUT)
+    add("tensor_parallel_size tensor_model_parallel_size tp_size tensor_parallel", "train.tensor_parallel",
+        not_under=ROLLOUT + ELSEWHERE + REF)
+    add("tensor_parallel_size tensor_model_parallel_size tp_size tensor_parallel", "rollout.tensor_parallel",
+        under=ROLLOUT)
+    add("pipeline_parallel_size pipeline_model_parallel_size pp_size pipeline_parallel",
+        "train.pipeline_parallel", not_under=ROLLOUT + ELSEWHERE)
+    add("context_parallel_size cp_size context_parallel", "train.context_parallel", not_under=ROLLOUT)
+    add("data_parallel_size dp_size data_parallel", "train.data_parallel", not_under=ROLLOUT)
+    add("prompts_per_step prompt_batch_size num_prompts_per_step prompts_per_batch", "batch.prompts",
+        not_under=ELSEWHERE)
+    add("prompts", "batch.prompts", under=("batch",))
+    add("group_size samples_per_prompt completions_per_prompt num_samples_per_prompt "
+        "n_samples_per_prompt rollouts_per_prompt num_completions", "rollout.group_size", not_under=ELSEWHERE)
+    add("n", "rollout.group_size", under=ROLLOUT)
+    add("rollouts_per_step completions_per_step rollout_batch_size samples_per_step", "batch.rollouts",
+        not_under=ELSEWHERE)
+    add("rollouts completions", "batch.rollouts", under=("batch",))
+    add("mini_batch_size minibatch_size mini_batch", "batch.mini", not_under=away + ROLLOUT)
+    add("mini", "batch.mini", under=("batch",))
+    add("micro_batch_size micro_batch_size_per_gpu micro_batch_per_gpu micro_batch", "batch.micro_per_gpu",
+        not_under=away + ROLLOUT + REF)
+    add("micro_per_gpu", "batch.micro_per_gpu", under=("batch",))
+    add("gradient_accumulation_steps grad_accum_steps grad_accum accumulation_steps", "batch.grad_accum",
+        not_under=away)
+    add("ppo_epochs update_epochs policy_epochs inner_epochs epochs_per_step", "optim.epochs", not_under=away)
+    add("temperature", "rollout.temperature", not_under=ELSEWHERE)
+    add("top_p", "rollout.top_p", not_under=ELSEWHERE)
+    add("top_k", "rollout.top_k", not_under=ELSEWHERE)
+    add("do_sample sampling", "rollout.sampling", not_under=ELSEWHERE)
+    add("max_prompt_length max_prompt_len prompt_max_length max_prompt_tokens", "length.prompt_max",
+        not_under=ELSEWHERE)
+    add("max_response_length max_response_len response_max_length max_new_tokens max_completion_length "
+        "max_generation_length", "length.response_max", not_under=ELSEWHERE)
+    add("max_tokens", "length.response_max", under=ROLLOUT)
+    add("context_length max_context_length context_window max_seq_len max_sequence_length",
+        "rollout.context_max", under=ROLLOUT)
+    add("context_length max_context_length context_window max_seq_len max_sequence_length "
+        "max_position_embeddings", "model.context_max", under=MODEL)
+    add("use_kl kl_enabled", "kl.enabled")
+    add("enabled", "kl.enabled", under=("kl",))
+    add("kl_coef kl_coeff kl_beta kl_penalty_coef kl_weight init_kl_coef", "kl.coef")
+    add("coef coeff beta weight", "kl.coef", under=("kl",))
+    add("kl_estimator kl_approx", "kl.estimator")
+    add("estimator approx type", "kl.estimator", under=("kl",))
+    add("kl_placement", "kl.placement")
+    add("placement", "kl.placement", under=("kl",))
+    add("kl_target target_kl", "kl.target")
+    add("target", "kl.target", under=("kl",))
+    add("kl_horizon", "kl.horizon")
+    add("horizon", "kl.horizon", under=("kl",))
+    add("ref_model reference_model ref_model_path reference_model_path", "reference.source")
+    add("path source model model_path name", "reference.source", under=REF)
+    add("refresh_every ref_refresh_every sync_every", "reference.refresh_every", under=REF)
+    add("ref_refresh_every reference_refresh_every", "reference.refresh_every")
+    add("clip_ratio clip_range clip_eps clip_epsilon eps_clip clip_ratio_low clip_low cliprange",
+        "clip.low", not_under=CRITIC)
+    add("epsilon eps low", "clip.low", under=("clip",))
+    add("clip_ratio_high clip_high", "clip.high", not_under=CRITIC)
+    add("epsilon_high eps_high high", "clip.high", under=("clip",))
+    add("dual_clip dual_clip_c clip_ratio_c", "clip.dual")
+    add("dual", "clip.dual", under=("clip",))
+    add("value_clip clip_range_vf cliprange_value value_clip_range", "clip.value")
+    add("learning_rate lr", "optim.lr", not_under=CRITIC + ELSEWHERE)
+    add("learning_rate lr", "critic.lr", under=CRITIC)
+    add("critic_lr critic_learning_rate value_lr", "critic.lr")
+    add("grad_clip max_grad_norm gradient_clipping clip_grad_norm max_norm", "optim.grad_clip",
+        not_under=CRITIC)
+    add("warmup_steps lr_warmup_steps num_warmup_steps", "optim.warmup_steps", not_under=CRITIC)
+    add("total_steps max_steps total_training_steps train_steps num_train_steps training_steps",
+        "schedule.total_steps")
+    add("critic_model value_model critic_model_path value_model_path", "critic.source")
+    add("path source model model_path", "critic.source", under=CRITIC)
+    add("gamma discount discount_factor", "gae.gamma")
+    add("lam gae_lambda lambda", "gae.lambda")
+    add("reward_functions reward_fns reward_funcs reward_sources rewards reward_components",
+        "reward.sources", not_under=ELSEWHERE)
+    add("sources components functions", "reward.sources", under=("reward",))
+    add("format_pattern format_regex answer_pattern", "reward.format_pattern")
+    add("prompt_template chat_template", "template.text")
+    add("template", "template.text", under=("prompt", "data", "dataset"))
+    add("sandbox", "sandbox.kind")
+    add("kind type backend", "sandbox.kind", under=SANDBOX)
+    add("network allow_network network_access internet", "sandbox.network", under=SANDBOX)
+    add("timeout timeout_s timeout_seconds time_limit time_limit_s wall_time_s", "sandbox.timeout_s",
+        under=SANDBOX)
+    add("memory_mb memory_limit_mb mem_limit_mb memory_limit", "sandbox.memory_mb", under=SANDBOX)
+    add("max_processes processes pids_limit process_limit nproc", "sandbox.processes", under=SANDBOX)
+    add("filesystem fs file_system", "sandbox.filesystem", under=SANDBOX)
+    add("user run_as", "sandbox.user", under=SANDBOX)
+    add("privileged", "sandbox.privileged", under=SANDBOX)
+    add("model_path model_name pretrained_model base_model policy_model model_name_or_path", "model.source",
+        not_under=ELSEWHERE + CRITIC + REF)
+    add("path name source", "model.source", under=MODEL)
+    add("revision model_revision", "model.revision", not_under=ELSEWHERE + CRITIC + REF + ("reward",))
+    add("trust_remote_code", "model.trust_remote_code", not_under=ELSEWHERE)
+    add("save_steps save_every checkpoint_every save_interval save_freq checkpoint_interval", "checkpoint.every")
+    add("every interval steps", "checkpoint.every", under=CKPT)
+    add("checkpoint_dir save_dir ckpt_dir checkpoint_path", "checkpoint.dir")
+    add("dir path", "checkpoint.dir", under=CKPT)
+    add("output_dir out_dir output_path", "output.dir")
+    return {k: tuple(v) for k, v in table.items()}
+
+
+ALIASES = _aliases()
+
+
+def normalise_key(key: str) -> str:
+    return key.strip().lower().replace("-", "_")
+
+
+# --- Evaluation sections --------------------------------------------------------------------------
+# A run config often holds, beside the training rollout, a block that samples for evaluation,
+# validation or testing, with its own temperature, top-p, response length and number of samples.
+# Those keys describe another loop: they must not compete with the training rollout's keys, and
+# rules about training must not read them. ``evaluation_section`` is the one place that decides
+# whether a key sits in such a block (resolve, explain and the key-map draft all ask it).
+
+# Words that name an evaluation block wherever they appear in a section's name
+# (``eval``, ``evaluation``, ``eval_sampling``, ``validation_config``, ``benchmarkSettings``).
+EVAL_WORDS = frozenset({
+    "eval", "evals", "evaluation", "evaluations", "evaluate", "evaluator", "evaluating",
+    "validation", "validations", "validate", "validating", "benchmark", "benchmarks", "benchmarking",
+    "holdout", "heldout",
+})
+# Words that name an evaluation block only when nothing around them speaks of code being tested:
+# ``test``, ``test_sampling`` and ``val_kwargs`` are evaluation blocks; ``test_cases`` or
+# ``unit_tests`` inside a reward or a sandbox are what a code reward runs, not an evaluation.
+EVAL_WEAK_WORDS = frozenset({"val", "test", "tests", "testing"})
+# Words that, said with a weak word, make it about code under test ...
+CODE_TEST_WORDS = frozenset({
+    "case", "cases", "suite", "suites", "harness", "command", "commands", "cmd", "runner", "unit", "units",
+    "script", "scripts", "code", "input", "inputs", "output", "outputs", "assert", "asserts", "assertion",
+    "assertions", "timeout", "coverage", "fixture", "fixtures", "program", "programs", "solution",
+    "solutions", "hidden", "public", "private", "pass", "fail",
+})
+# ... and sections inside which a weak word is about code under test, whatever it is said with.
+CODE_SECTION_WORDS = frozenset({
+    "reward", "rewards", "verifier", "verifiers", "verify", "verification", "grader", "graders", "checker",
+    "sandbox", "execution", "executor", "exec", "judge",
+})
+
+
+def key_words(key: str) -> tuple[str, ...]:
+    """The words of one key, lower case: ``evalSampling`` and ``eval-sampling`` give (eval, sampling)."""
+    return _key_words(key)
+
+
+@lru_cache(maxsize=4096)
+def _key_words(key: str) -> tuple[str, ...]:
+    key = re.sub(r"([a-z0-9])([A-Z])", r"\1_\2", key.strip())
+    return tuple(w for w in re.split(r"[^a-z0-9]+", key.lower()) if w and not w.isdigit())
+
+
+def evaluation_section(sections) -> str | None:
+    """The section name that makes a key path's sections an evaluation, validation or test block,
+    or None for a training (or neutral) one. ``sections`` are the names of the sections that hold
+    the key, outermost first, without the key itself (list indices are skipped).
+
+    A section is an evaluation block when one of its name's words is an evaluation word
+    (EVAL_WORDS), or a weak word (EVAL_WEAK_WORDS) that is not said with a code-test word. Nothing
+    inside a reward, verifier or sandbox section (CODE_SECTION_WORDS) marks one: there ``test_cases``
+    are what the reward runs and an ``evaluator`` is how it grades."""
+    code = False
+    for name in sections:
+        if not isinstance(name, str) or name.isdigit():
+            continue
+        words = _key_words(name)
+        if any(w in CODE_SECTION_WORDS for w in words):
+            code = True  # a reward's evaluator, a verifier's tests: how the reward grades, not a block
+            continue
+        if code:
+            continue
+        if any(w in EVAL_WORDS for w in words):
+            return name
+        if any(w in EVAL_WEAK_WORDS for w in words) and not any(w in CODE_TEST_WORDS for w in words):
+            return name
+    return None

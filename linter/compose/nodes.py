@@ -1,0 +1,80 @@
+"""What composition produces, below both its readers (compose: config files; shell: launch
+scripts): the node kinds a composed tree adds (a value given on the command line, a reference that
+could not be resolved, a value known only at launch), the composed root, and the composition
+problems. Imported by the composer, the launch-script reader and the resolver; imports only the
+located tree."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from ..load.document import Mapping, Node, Problem, Scalar
+from ..common.findings import Location
+
+REMOVE_TAG = "!trimtab/remove"
+
+
+@dataclass
+class CompositionProblem(Problem):
+    """A problem of composition, located in the file that holds the offending line."""
+
+    path: str | None = None
+    end_line: int = 0
+    end_col: int = 0
+    key_path: str = ""
+    subject: str = ""
+
+    def location(self) -> Location:
+        return Location(self.path, self.line, self.col, self.end_line, self.end_col, "", self.key_path)
+
+
+@dataclass
+class Composed:
+    root: Node
+    problems: list[CompositionProblem] = field(default_factory=list)
+    files: list[str] = field(default_factory=list)  # every file the run was composed from
+
+
+class ComposedMapping(Mapping):
+    """The root of a composed run: a mapping that also carries the origin chains."""
+
+    __slots__ = ("chains", "roles", "notes")
+
+    def __init__(self):
+        super().__init__()
+        self.chains: dict[str, list[Location]] = {}
+        self.roles: dict[str, str] = {}  # dotted key path -> the layer its value came from
+        self.notes: list = []  # values known only at launch (CompositionProblems of this run)
+
+
+class Unresolved(Scalar):
+    """A reference that could not be resolved (a cycle, an unknown target): it stays in the run as
+    written, with no value, so no rule reasons about the text of the reference itself."""
+
+    __slots__ = ()
+
+    @property
+    def value11(self):
+        return None
+
+    @property
+    def value12(self):
+        return None
+
+
+class Unknown(Unresolved):
+    """A value known only at launch (a launch script's command substitution, a resolver): no value,
+    and the reason (``why``). The resolver leaves its concept out of the run, so no rule reasons
+    about it; the run's notes say what trimtab would need."""
+
+    __slots__ = ("why",)
+    why: str  # what trimtab would need to know the value
+
+
+class GivenScalar(Scalar):
+    """A value given on the command line: typed as YAML 1.2 types it, whatever the file version."""
+
+    __slots__ = ()
+
+    @property
+    def value11(self):
+        return self.value12

@@ -1,0 +1,226 @@
+"""The other runs of the repository, for the rules over several runs.
+
+A check of some files only (paths given, ``--since``, ``--staged``, the pre-commit framework's
+parallel batches) judges those files against every run config of the repository: the rules over
+several runs (``scope="set"``) see one entry per run of the whole repository, found through the
+same discovery, settings and limits, read-only; only their findings about a checked file are
+reported.
+
+What those rules need of each other run (a few resolved values) is kept in a cache keyed by the
+content of each file and of every file its runs were composed from. The cache lives in git's own
+directory (``git rev-parse --git-common-dir``, folder ``trimtab``) or, outside a git repository,
+in the user's cache folder; never in the working tree. It holds JSON only, is read with a size
+bound, and a cache that cannot be read (missing, damaged, written by another version or for
+other settings) is treated as absent.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import subprocess
+from pathlib import Path
+
+from ..common.findings import Location
+from ..resolve.model import Value
+
+CACHE_VERSION = 1
+MAX_CACHE_BYTES = 256 * 1024 * 1024
+
+
+def cache_file(start: Path, key: str) -> Path | None:
+    """Where the cache ``key`` is kept: git's own directory (found from ``start``, the working
+    tree), else the user's cache folder; None when neither can be used."""
+    name = f"runs-{key}.json"
+    try:
+        res = subprocess.run(["git", "rev-parse", "--git-common-dir"], cwd=start, capture_output=True,
+                             text=True, timeout=10)
+        if res.returncode == 0 and res.stdout.strip():
+            git_dir = Path(res.stdout.strip())
+            if not git_dir.is_absolute():
+                git_dir = start / git_dir
+            # a checked folder may ship its own `.git` (an archive, not a clone): a link there, or at
+            # the cache folder, would lead the write elsewhere, so no cache is kept at all
+            if (start / ".git").is_symlink() or (git_dir / "trimtab").is_symlink():
+                return None
+            return git_dir / "trimtab" / name
+    except (OSError, subprocess.SubprocessError):
+        pass
+    base = os.environ.get("XDG_CACHE_HOME") or (str(Path.home() / ".cache") if Path.home() != Path("/") else "")
+    return Path(base) / "trimtab" / name if base else None
+
+
+def digest(path: Path, limit: int) -> str | None:
+    """The content hash of a file (its first ``limit`` bytes and its size), or None when unreadable."""
+    import stat
+
+    try:
+        if not stat.S_ISREG(os.stat(path).st_mode):  # a named pipe or a device: never opened
+            return None
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        with os.fdopen(fd, "rb") as fh:
+            data = fh.read(limit + 1)
+    except OSError:
+        return None
+    return hashlib.sha256(data).hexdigest() + f":{len(data)}"
+
+
+# --- values <-> JSON ------------------------------------------------------------------------
+def _loc(loc: Location) -> list:
+    return [loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, loc.key_path]
+
+
+def _unloc(row) -> Location:
+    path, line, col, end_line, end_col, message, key_path = row
+    return Location(path if path is None else str(path), int(line), int(col), int(end_line), int(end_col),
+                    str(message), str(key_path))
+
+
+def _value(v: Value) -> dict:
+    return {"concept": v.concept, "value": v.value, "at": _loc(v.location), "via": v.via, "key": v.key,
+            "chain": [_loc(c) for c in v.chain], "inputs": list(v.inputs), "note": v.note}
+
+
+def _unvalue(d: dict) -> Value:
+    value = d["value"]
+    if not isinstance(value, (str, int, float, bool, type(None))):
+        raise ValueError("not a scalar")
+    return Value(str(d["concept"]), value, _unloc(d["at"]), None, str(d["via"]), str(d["key"]),
+                 [_unloc(c) for c in d["chain"]], tuple(str(i) for i in d["inputs"]), str(d["note"]))
+
+
+class RunCache:
+    """Per file (shown path): its content hash, the hashes of the files its runs were composed
+    from, and the values the rules over several runs need of each of its runs."""
+
+    def __init__(self, path: Path | None, stamp: str):
+        self.path, self.stamp = path, stamp
+        self.rows: dict[str, dict] = {}
+        self.dirty = False
+        if path is not None:
+            self.rows = self._read(path, stamp)
+
+    @staticmethod
+    def _read(path: Path, stamp: str) -> dict:
+        try:
+            if path.stat().st_size > MAX_CACHE_BYTES:
+                return {}
+            data = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, ValueError, RecursionError):
+            return {}
+        if not isinstance(data, dict) or data.get("version") != CACHE_VERSION or data.get("stamp") != stamp:
+            return {}
+        rows = data.get("files")
+        return rows if isinstance(rows, dict) else {}
+
+    def get(self, shown: str, own: str, hashes) -> dict | None:
+        """The row of a file whose content (``own``) and composed-from files (``hashes(shown)``
+        gives each one's hash now) are unchanged, else None."""
+        row = self.rows.get(shown)
+        if not isinstance(row, dict) or row.get("hash") != own:
+            return None
+        deps = row.get("deps")
+        if not isinstance(deps, dict) or any(hashes(d) != h for d, h in deps.items()):
+            return None
+        return row
+
+    def put(self, shown: str, row: dict) -> None:
+        self.rows[shown] = row
+        self.dirty = True
+
+    def save(self) -> None:
+        """Write the cache (atomically); a cache that cannot be written is simply not kept."""
+        if self.path is None or not self.dirty:
+            return
+        import tempfile
+
+        try:
+            if self.path.parent.is_symlink():  # made a link since it was chosen: never written through
+                return
+            self.path.parent.mkdir(parents=True, exist_ok=True)
+            fd, tmp = tempfile.mkstemp(prefix=".runs-", suffix=".tmp", dir=self.path.parent)
+            try:
+                with os.fdopen(fd, "w", encoding="utf-8") as fh:
+                    json.dump({"version": CACHE_VERSION, "stamp": self.stamp, "files": self.rows}, fh)
+                os.replace(tmp, self.path)
+            except BaseException:
+                try:
+                    os.unlink(tmp)
+                except OSError:
+                    pass
+                raise
+        except OSError:
+            pass
+
+
+def entries_row(own: str, deps: dict, runs: list[tuple[int, dict[str, Value]]]) -> dict:
+    return {"hash": own, "deps": deps,
+            "runs": [{"index": i, "values": {c: _value(v) for c, v in values.items()}} for i, values in runs]}
+
+
+def row_entries(row: dict) -> list[tuple[int, dict[str, Value]]]:
+    """The runs of a cached row; raises ValueError (or KeyError, TypeError) when it is damaged."""
+    return [(int(r["index"]), {str(c): _unvalue(v) for c, v in r["values"].items()}) for r in row["runs"]]
+
+
+def _stamp(checker) -> str:
+    """What the cached values depend on besides the files: trimtab's code, the settings that
+    shape a run, the --set values and the concepts the rules over several runs need."""
+    from .. import __version__
+
+    s = checker.settings
+    here = Path(__file__).parents[1]
+    code = []
+    for name in ("gate/runner.py", "compose/layers.py", "resolve/concepts.py", "common/vocabulary.py",
+                 "load/loader.py", "common/scalars.py", "gate/context.py"):
+        try:
+            st = (here / name).stat()
+            code.append([name, st.st_mtime_ns, st.st_size])
+        except OSError:
+            code.append([name])
+    parts = [CACHE_VERSION, __version__, code, sorted({c for r, _o, _l in checker.rules("set") for c in r.needs}),
+             [list(o) for o in checker.options.overrides], repr(checker.resolve_opts), list(s.run_configs),
+             s.layers, s.bases_key, s.overrides, repr(s.limits), list(s.include), list(s.exclude)]
+    return hashlib.sha256(json.dumps(parts, default=repr, sort_keys=True).encode("utf-8", "surrogateescape")).hexdigest()
+
+
+def other_entries(checker, checked, start: Path):
+    """The SetEntries of every run config of the repository that was not checked itself, found
+    through the same discovery and limits, from the cache where each file (and every file its
+    runs were composed from) is unchanged. A generator; the cache is written when it ends."""
+    from .runner import SetEntry
+    from ..load.discover import discover
+
+    settings = checker.settings
+    root = Path(settings.root).resolve()
+    files, _missing = discover([], root, settings.include, settings.exclude)
+    limit = settings.limits.max_bytes
+    stamp = _stamp(checker)
+    # one cache per settings folder (the stamp inside it says what it was built for: a mismatch rebuilds it)
+    where = cache_file(start, hashlib.sha256(str(start).encode("utf-8", "surrogateescape")).hexdigest()[:24])
+    cache = RunCache(where, stamp)
+    hashes: dict[str, str | None] = {}
+
+    def hash_of(shown: str) -> str | None:
+        if shown not in hashes:
+            hashes[shown] = digest(root / shown, limit)
+        return hashes[shown]
+
+    for disk, shown in files:
+        if shown in checked:
+            continue
+        own = hashes[shown] = digest(Path(disk), limit)
+        runs = None
+        row = cache.get(shown, own, hash_of) if own else None
+        if row is not None:
+            try:
+                runs = row_entries(row)
+            except (KeyError, TypeError, ValueError, AttributeError):
+                runs = None
+        if runs is None:
+            runs, deps, unsure = checker.other_runs(disk, shown)
+            if own and not unsure:
+                cache.put(shown, entries_row(own, {d: hash_of(d) for d in deps}, runs))
+        for index, values in runs:
+            yield SetEntry(shown, index, values)
+    cache.save()

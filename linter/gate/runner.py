@@ -1,0 +1,512 @@
+"""The check pipeline: files -> load -> compose -> resolve -> rules -> filter -> findings.
+
+Each stage is a function of the stage before it. Workers (``--jobs``) return findings and the
+few values the cross-file rules need, never documents.
+"""
+from __future__ import annotations
+
+import gc
+from collections.abc import Iterable, Iterator
+from collections.abc import Set as AbcSet
+from dataclasses import dataclass, field
+from itertools import groupby
+from typing import Any
+
+from . import filtering
+from ..common import spill
+from ..compose.layers import Composer
+from ..engine.registry import Context, Registry, Rule, run_rule
+from ..common.findings import Finding, Level, Location
+from ..resolve import arithmetic
+from ..resolve.model import Value
+from ..resolve.concepts import ResolveOptions, resolve
+from ..common.settings import Settings, SettingsError
+
+
+@dataclass
+class SetEntry:
+    """What one run contributes to the cross-file rules: the values they need, without nodes."""
+
+    path: str
+    index: int
+    values: dict[str, Value]
+
+
+@dataclass
+class Kept:
+    """A checked file's Document and every run model of it (RL or not), kept on request."""
+
+    doc: Any
+    models: list = field(default_factory=list)
+
+
+@dataclass
+class FileResult:
+    path: str
+    findings: list[Finding] = field(default_factory=list)
+    runs: int = 0  # RL run configs found in the file
+    skipped: bool = False  # read, but not an RL run config
+    entries: list[SetEntry] = field(default_factory=list)
+    crashed: bool = False
+    set_accepts: str | None = None  # the file's text, when it has acceptance comments naming a set-scope rule
+    accepted_at: set = field(default_factory=set)  # (path, line) of findings accepted in a base's text
+    accepted: int = 0  # findings dropped by acceptance comments
+    kept: Kept | None = None  # on request: the Document and its run models
+
+
+@dataclass
+class CheckOptions:
+    only: set[str] = field(default_factory=set)
+    skip: set[str] = field(default_factory=set)
+    overrides: list[tuple] = field(default_factory=list)  # (key path, text, added) from --set / --add
+
+
+class Checker:
+    def __init__(self, settings: Settings, registry: Registry, options: CheckOptions | None = None):
+        self.settings = settings
+        self.registry = registry
+        self.options = options or CheckOptions()
+        self.active: list[tuple[Rule, dict, Level]] = []
+        _known_ids(registry, self.options)
+        configured = settings.rules
+        for rid in configured:
+            if rid not in registry.rules:
+                raise SettingsError(f"{settings.source}: setting {settings.name('rules.' + rid)}: expected a rule id, "
+                                    f"found unknown rule {rid!r}; `trimtab rules` lists them")
+        for r in registry.ordered():
+            conf = dict(configured.get(r.id, {}))
+            if conf.pop("off", False) or not self._wanted(r.id):
+                continue
+            level = Level.parse(conf.pop("level", r.level))
+            unknown = sorted(set(conf) - set(r.options))
+            if unknown:
+                raise SettingsError(
+                    f"{settings.source}: setting {settings.name('rules.' + r.id + '.' + unknown[0])}: "
+                    f"expected an option of {r.id} ({', '.join(sorted(r.options)) or 'it has none'}), "
+                    f"found {unknown[0]!r}")
+            opts = {**r.options, **conf}
+            for k, v in conf.items():
+                default = r.options[k]
+                if type(default) is not type(v) and not (isinstance(default, float) and isinstance(v, int)
+                                                         and not isinstance(v, bool)):
+                    raise SettingsError(
+                        f"{settings.source}: setting {settings.name('rules.' + r.id + '.' + k)}: expected "
+                        f"{type(default).__name__} like {default!r}, found {v!r}")
+            self.active.append((r, opts, level))
+        self.active_ids = {r.id for r, _o, _l in self.active}
+        keys = dict(settings.keys)
+        if settings.keymap:
+            published = registry.key_maps.get(settings.keymap)
+            if published is None:
+                raise SettingsError(f"{settings.source}: setting {settings.name('keymap')}: expected the name of a "
+                                    f"published key map ({', '.join(sorted(registry.key_maps)) or 'none installed'}), "
+                                    f"found {settings.keymap!r}")
+            from ..common.settings import check_published, parse_keys
+
+            check_published(settings.keymap, published)
+            keys = {**parse_keys(published), **keys}
+        self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version)
+        self.composer = Composer(settings, self.options.overrides)
+
+    def _wanted(self, rule_id: str) -> bool:
+        area = rule_id.split("-")[0]
+        only, skip = self.options.only, self.options.skip
+        if only and rule_id not in only and area not in only:
+            return False
+        return rule_id not in skip and area not in skip
+
+    def rules(self, scope: str):
+        # perf: computed once per scope, not once per file (the rule list is fixed after __init__;
+        # a changed self.active is noticed by its length)
+        cache = self.__dict__.setdefault("_by_scope", {})
+        hit = cache.get(scope)
+        if hit is None or hit[0] != len(self.active):
+            hit = cache[scope] = (len(self.active), [(r, o, l) for r, o, l in self.active if r.scope == scope])
+        return hit[1]
+
+    def check_file(self, path: str, shown: str, keep: bool = False) -> FileResult:
+        """Load, compose, resolve and run the rules on one file. ``keep``: keep its Document and
+        run models in the result (for the views that show them).
+
+        perf: the cyclic collector is paused for the whole file. A file's check makes thousands of
+        objects that live as long as the check (its tree, its run models): each collection while it
+        runs would scan them all again for nothing. What a check leaves for the collector (no cycle of
+        its own: see arithmetic.release) is collected by the first collection after it."""
+        paused = gc.isenabled()
+        gc.disable()
+        try:
+            return self._check_file(path, shown, keep)
+        finally:
+            if paused:
+                gc.enable()
+
+    def _check_file(self, path: str, shown: str, keep: bool) -> FileResult:
+        from ..compose.shell import load, runs_of
+
+        res = FileResult(shown)
+        doc = load(path, shown, self.settings)
+        if keep:
+            res.kept = Kept(doc)
+        # A file other files build on (a base declared in the settings' layers, the overrides file) is
+        # checked as a file here and as part of every run built on it, not as a run of its own.
+        as_run = doc.readable and shown not in self.composer.base_files
+        # Compose first: composition problems are recorded on the document for the file rules.
+        composed = [self.composer.compose(doc, root, path) for root in runs_of(doc)] if as_run else []
+        for r, opts, level in self.rules("file"):
+            self._run(r, Context(r, None, doc, opts, level, settings=self.settings), shown, res)
+        # File rules that cover every file a run is composed from (SEC-1): its bases, the overrides
+        # file and the settings' layers, each once, reporting in that file (a finding there that the
+        # file's own check also gives is merged with it, see _merge_duplicates).
+        for src in list(doc.sources.values()) if as_run else ():
+            if src.path == shown:
+                continue
+            for r, opts, level in self.rules("file"):
+                if r.sources:
+                    self._run(r, Context(r, None, src, opts, level, settings=self.settings), src.path, res)
+        if as_run:
+            set_rules = self.rules("set")
+            models = []
+            for index, comp in enumerate(composed):
+                model = self._resolve(doc, comp, shown, index)
+                models.append(model)
+                if keep:
+                    res.kept.models.append(model)
+                if not model.is_rl:
+                    # a document not read as a run: the rules about such documents (VOC-4), unless
+                    # other files name it as a base (it is checked as part of the runs built on it)
+                    start = len(res.findings)
+                    for r, opts, level in self.rules("not-run"):
+                        self._run(r, Context(r, model, doc, opts, level, settings=self.settings), shown, res)
+                    if len(res.findings) > start and self.composer.named_as_base(shown):
+                        del res.findings[start:]  # a base: checked as part of the runs built on it
+                    continue
+                res.runs += 1
+                is_rl_stage = model.stage == "rl"  # perf: once per run, not once per rule
+                start = len(res.findings)
+                for r, opts, level in self.rules("run"):
+                    if r.rl_only and not is_rl_stage:
+                        continue
+                    if r.needs and not all(model.get(c) is not None for c in r.needs):
+                        continue
+                    self._run(r, Context(r, model, doc, opts, level, settings=self.settings), shown, res)
+                if len(comp.files) > 1:
+                    _name_run(res.findings[start:], shown)
+                if set_rules:
+                    res.entries.append(SetEntry(shown, index, self.set_values(model)))
+            if not keep:
+                for model in models:
+                    arithmetic.release(model)  # perf: no cycle left for the collector to find
+        if doc.readable:
+            res.skipped = res.runs == 0
+        # Acceptances of set-scope rules are applied once the whole set has been checked (accept_set).
+        set_ids = {r.id for r, _o, _l in self.rules("set")}
+        before = res.findings
+        res.findings = filtering.apply_acceptances(before, doc.text, shown, self.active_ids - set_ids)
+        res.accepted += _dropped(before, res.findings)
+        if set_ids and any(set_ids & set(a.ids) for a in filtering.acceptances(doc.text)):
+            res.set_accepts = doc.text
+        for extra_path, extra_text in self.composer.texts(doc):
+            before = res.findings
+            res.findings = filtering.apply_acceptances(before, extra_text, extra_path, self.active_ids,
+                                                       report_unused=False)
+            kept = {id(f) for f in res.findings}
+            res.accepted_at |= {(f.location.path, f.location.line) for f in before if id(f) not in kept}
+            res.accepted += _dropped(before, res.findings)
+        return res
+
+    def _resolve(self, doc, comp, shown: str, index: int):
+        """The RunModel of one composed document (a file named in the settings' run_configs is a run)."""
+        from ..load.discover import matches
+
+        opts_r = self.resolve_opts
+        if self.settings.run_configs and matches(shown, self.settings.run_configs):
+            opts_r = ResolveOptions(opts_r.keys, opts_r.version, True)
+        model = resolve(doc, comp.root, opts_r, index)
+        model.settings = self.settings
+        model.files = comp.files
+        return model
+
+    def set_values(self, model) -> dict[str, Value]:
+        """What the rules over several runs need of one run: their concepts' values, without nodes."""
+        wanted = {c for r, _o, _l in self.rules("set") for c in r.needs}
+        return {c: _light(model.get(c)) for c in wanted if model.get(c) is not None}
+
+    def other_runs(self, path: str, shown: str) -> tuple[list[tuple[int, dict[str, Value]]], list[str], bool]:
+        """What the rules over several runs need of a file that is not checked itself (another run
+        of the repository, linter/gate/context.py): (index, values) of each of its runs, the other files
+        they were composed from, and whether that is uncertain (the file could not be read, or a
+        base is missing: not to be kept in a cache)."""
+        from ..compose.shell import load, runs_of
+
+        doc = load(path, shown, self.settings)
+        if not doc.readable or shown in self.composer.base_files:
+            return [], [], not doc.readable
+        runs, files = [], set()
+        for index, root in enumerate(runs_of(doc)):
+            comp = self.composer.compose(doc, root, path)
+            files.update(comp.files)
+            model = self._resolve(doc, comp, shown, index)
+            if model.is_rl:
+                runs.append((index, self.set_values(model)))
+        unsure = any(str(getattr(p, "kind", "")).startswith("compose-") for p in doc.problems)
+        return runs, sorted(files - {shown}), unsure
+
+    def _run(self, r: Rule, ctx: Context, path: str, res: FileResult) -> None:
+        found, crashed = run_rule(r, ctx, path)
+        res.findings.extend(found)
+        res.crashed = res.crashed or crashed
+
+    def accept_set(self, found: list[Finding], checked, set_accepts: dict[str, str], files: list[tuple[str, str]]):
+        """Apply the files' acceptance comments to the set-scope findings. ``checked``: the paths
+        checked; ``set_accepts``: the text of those holding acceptances of set rules, by path."""
+        from ..compose.layers import load_source
+
+        real = {shown: path for path, shown in files}
+        set_ids = {r.id for r, _o, _l in self.rules("set")}
+        by_path: dict[str, list[Finding]] = {}
+        for f in found:
+            by_path.setdefault(f.location.path, []).append(f)
+        # files with acceptances of set rules, and files that were not checked themselves (the bases a
+        # composed run inherits its values from)
+        commented = list(set_accepts) + sorted(p for p in by_path if p and p not in checked)
+        out = [f for p, fs in by_path.items() if p not in commented for f in fs]
+        for path in commented:
+            # the text kept by the check of the file; a base's from the composer's cache
+            text = set_accepts.get(path)
+            if text is None:
+                from pathlib import Path
+
+                text = load_source(Path(real.get(path, str(self.settings.root / path))), path,
+                                   self.settings.limits).text
+            # Unused ones are not reported: whether a set rule fires depends on which files were
+            # checked together (a pre-commit run sees only the changed ones).
+            out.extend(filtering.apply_acceptances(by_path.get(path, []), text, path, set_ids,
+                                                   report_unused=False))
+        return out
+
+    def check_set(self, entries: Iterable[SetEntry]) -> tuple[list[Finding], bool]:
+        out, crashed = [], False
+        for r, opts, level in self.rules("set"):
+            ctx = Context(r, None, None, opts, level, runs=entries, settings=self.settings)
+            found, c = run_rule(r, ctx, None)
+            out.extend(found)
+            crashed = crashed or c
+        return out, crashed
+
+
+def _known_ids(registry: Registry, options: CheckOptions) -> None:
+    """--only and --skip name rule ids or areas that exist: a typo would check nothing (or skip
+    nothing) and pass the gate, so it stops the check with the nearest known ids."""
+    import difflib
+
+    from ..engine.registry import TOOL_RULES
+
+    ids = set(registry.rules) | set(TOOL_RULES)
+    known = ids | {i.split("-")[0] for i in ids}
+    for option, given in (("--only", options.only), ("--skip", options.skip)):
+        for name in sorted(set(given) - known):
+            near = difflib.get_close_matches(name, sorted(known), n=3, cutoff=0.5)
+            hint = f" (did you mean {', '.join(near)}?)" if near else ""
+            raise SettingsError(f"{option} {name}: expected a rule id or area, found unknown {name!r}{hint}; "
+                                "`trimtab rules` lists them")
+
+
+def _dropped(before: list[Finding], after: list[Finding]) -> int:
+    """How many findings of ``before`` an acceptance removed (``after`` may add ACC findings)."""
+    kept = {id(f) for f in after}
+    return sum(1 for f in before if id(f) not in kept)
+
+
+def _name_run(findings: list[Finding], shown: str) -> None:
+    """A finding of a composed run located in another file (a base) names the run it was found in."""
+    for f in findings:
+        if f.location.path != shown and not any(r.path == shown and not r.line for r in f.related):
+            f.related.append(Location(shown, 0, 0, message=f"in the run composed from {shown}"))
+
+
+def _merge_duplicates(findings: Iterable[Finding]) -> list[Finding]:
+    """One finding per rule, place and message: a base line found through two runs is reported once,
+    with the related locations of both."""
+    seen: dict[tuple, Finding] = {}
+    out = []
+    for f in findings:
+        loc = f.location
+        key = (f.rule_id, loc.path, loc.line, loc.col, loc.key_path, f.message, f.fingerprint)
+        first = seen.get(key)
+        if first is None:
+            seen[key] = f
+            out.append(f)
+            continue
+        for r in f.related:
+            if r not in first.related:
+                first.related.append(r)
+    return out
+
+
+def _light(v: Value | None) -> Value | None:
+    if v is None:
+        return None
+    value = v.value if isinstance(v.value, (str, int, float, bool, type(None))) else str(v.value)
+    return Value(v.concept, value, v.location, None, v.via, v.key, list(v.chain), v.inputs, v.note)
+
+
+# --- running over many files ------------------------------------------------------------------
+_WORKER: Checker | None = None
+
+
+def _work(item: tuple[str, str]) -> FileResult:
+    return _WORKER.check_file(*item)
+
+
+@dataclass
+class RunResult:
+    findings: Iterable[Finding]  # re-iterable, in report order (read back from a Spill on each pass)
+    files: int
+    runs: int
+    skipped: int
+    crashed: bool
+    checked: set[str]
+    kept: dict = field(default_factory=dict)  # shown path -> Kept (on request)
+    accepted: int = 0  # findings accepted by comments in the files
+
+
+class _Checked(AbcSet):
+    """The shown paths of the checked files: a set, built only when it is first asked (perf: a
+    set of thousands of paths costs several times their list; most runs never ask)."""
+
+    def __init__(self):
+        self.paths: list[str] = []
+        self._set: set[str] | None = None
+
+    def add(self, path: str) -> None:
+        self.paths.append(path)
+        self._set = None
+
+    def _as_set(self) -> set[str]:
+        if self._set is None:
+            self._set = set(self.paths)
+        return self._set
+
+    def __contains__(self, path) -> bool:
+        return path in self._as_set()
+
+    def __iter__(self):
+        return iter(self._as_set())
+
+    def __len__(self) -> int:
+        return len(self._as_set())
+
+    @classmethod
+    def _from_iterable(cls, it):  # the result of |, &, -: a plain set
+        return set(it)
+
+
+class _Totals:
+    """What run() keeps of each file's result (perf: the FileResults are dropped as they arrive,
+    and their findings and set-rule values go to Spills, so memory does not grow with the number
+    of files or findings)."""
+
+    def __init__(self, progress=None):
+        self.findings = spill.Spill(key=Finding.sort_key)  # Finding, in report order
+        self.entries = spill.Spill()  # SetEntry, in arrival order
+        self.files = self.runs = self.skipped = 0
+        self.crashed = False
+        self.checked = _Checked()
+        self.accepted_at: set = set()
+        self.set_accepts: dict[str, str] = {}  # text of the files with acceptance comments of set rules
+        self.kept: dict[str, Kept] = {}
+        self.accepted = 0
+        self.progress = progress
+
+    def append(self, res: FileResult) -> None:
+        self.findings.extend(res.findings)
+        self.entries.extend(res.entries)
+        self.files += 1
+        self.runs += res.runs
+        self.skipped += res.skipped
+        self.crashed = self.crashed or res.crashed
+        self.checked.add(res.path)
+        self.accepted_at |= res.accepted_at
+        self.accepted += res.accepted
+        if res.set_accepts is not None:
+            self.set_accepts[res.path] = res.set_accepts
+        if res.kept is not None:
+            self.kept[res.path] = res.kept
+        if self.progress:
+            self.progress(res)
+
+
+def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=None,
+        keep: bool = False, others=None) -> RunResult:
+    """Check the files. The result's findings are in report order, read again from a Spill on
+    each pass over them. ``keep``: keep each file's Document and run models (one process).
+    ``others(checked)``: the SetEntries of the repository's other runs, for a check of some files
+    only; the rules over several runs then judge the files against them, and only their findings
+    about a checked file are reported."""
+    global _WORKER
+    results = _Totals(progress)
+    if jobs > 1 and len(files) > 1 and not keep:
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor
+
+        _WORKER = checker
+        ctx = multiprocessing.get_context("fork")
+        chunk = max(1, min(64, len(files) // (jobs * 8) or 1))
+        # perf: what the workers inherit is never collected there: without this, every worker's
+        # collector rescans (and copy-on-write duplicates) the parent's objects
+        gc.freeze()
+        try:
+            with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
+                for res in pool.map(_work, files, chunksize=chunk):
+                    results.append(res)
+        finally:
+            gc.unfreeze()
+        _WORKER = None
+    else:
+        # perf: what exists before the first file (modules, rules, settings) lives as long as the
+        # process: the collector need not scan it again at every full collection
+        gc.freeze()
+        try:
+            for path, shown in files:
+                results.append(checker.check_file(path, shown, keep))
+        finally:
+            gc.unfreeze()
+    if others is not None and checker.rules("set"):
+        results.entries.extend(others(results.checked))
+    set_findings, set_crashed = checker.check_set(results.entries)
+    results.entries.close()
+    if others is not None:
+        set_findings = [f for f in set_findings if _involves(f, results.checked)]
+    # set findings arrive after every file's, as before: ties in the sorted stream keep that order
+    set_kept = checker.accept_set(set_findings, results.checked, results.set_accepts, files)
+    results.findings.extend(set_kept)
+    stream = spill.Stream(lambda: _reported(results.findings, results.accepted_at))
+    return RunResult(stream, results.files, results.runs, results.skipped, results.crashed or set_crashed,
+                     results.checked, results.kept, results.accepted + _dropped(set_findings, set_kept))
+
+
+def _involves(f: Finding, checked) -> bool:
+    """Is a finding of a rule over several runs about a checked file (written there, or about a
+    run composed from it)? A crashed rule always is."""
+    if f.rule_id.startswith("TOOL-") or f.location.path in checked:
+        return True
+    return any(not r.line and r.path in checked for r in f.related)
+
+
+def _reported(findings: spill.Spill, accepted_at: set) -> Iterator[Finding]:
+    """The spilled findings in report order: sorted (stably), an unused-acceptance finding dropped
+    where a run built on that base used the acceptance, and duplicates merged. Duplicates share a
+    sort key, so merging within each run of equal keys is merging over the whole stream."""
+    for _key, found in groupby(findings, key=Finding.sort_key):
+        group: Iterable[Finding] = found
+        if accepted_at:
+            group = [f for f in group if not (f.rule_id == filtering.ACC_UNUSED and (
+                {(f.location.path, f.location.line), (f.location.path, f.location.line + 1)} & accepted_at))]
+        yield from _merge_duplicates(group)
+
+
+def summary_counts(findings: Iterable[Finding]) -> dict[str, int]:
+    counts = {str(l): 0 for l in (Level.ERROR, Level.WARNING, Level.NOTE)}
+    for f in findings:
+        counts[str(f.level)] += 1
+    return counts

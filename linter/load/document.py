@@ -1,0 +1,186 @@
+"""The located tree: one Document per file, built from the parser's node graph.
+
+Every node keeps its 1-based line and column, end line and end column, and its character
+span in the decoded text (without a byte-order mark), so the raw text of any scalar is a
+slice of ``Document.text``. Scalars keep their processed text and quoting style and are typed
+on demand under YAML 1.2 and YAML 1.1.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Iterator
+
+from ..common import scalars
+from ..common.findings import Location
+
+
+class Node:
+    __slots__ = ("line", "col", "end_line", "end_col", "start", "end", "path", "anchor", "file")
+    kind: str  # scalar, mapping, sequence (a class attribute of each kind)
+    line: int
+    col: int
+    end_line: int
+    end_col: int
+    start: int  # character offsets in Document.text
+    end: int
+    path: tuple[str, ...]  # key path from the document's root
+    anchor: str | None
+    file: str | None  # the shown path of the file the node was written in
+
+    def location(self, message: str = "") -> Location:
+        """Where this node was written: its own file (a composed run mixes files)."""
+        return Location(self.file, self.line, self.col, self.end_line, self.end_col, message,
+                        ".".join(self.path))
+
+
+class Scalar(Node):
+    __slots__ = ("text", "style", "tag", "_v11", "_v12")
+    kind = "scalar"
+
+    def __init__(self, text: str, style: str | None, tag: str | None):
+        self.text = text
+        self.style = style  # None (plain), "'", '"', "|", ">"
+        self.tag = tag  # explicit tag or None
+        self._v11 = self._v12 = _UNSET
+
+    @property
+    def plain(self) -> bool:
+        return self.style is None
+
+    @property
+    def value12(self):
+        if self._v12 is _UNSET:
+            self._v12 = scalars.typed(self.text, self.plain, self.tag, "1.2")
+        return self._v12
+
+    @property
+    def value11(self):
+        if self._v11 is _UNSET:
+            self._v11 = scalars.typed(self.text, self.plain, self.tag, "1.1")
+        return self._v11
+
+    def value(self, version: str = "1.2"):
+        return self.value12 if version == "1.2" else self.value11
+
+    def __repr__(self) -> str:
+        return f"Scalar({self.text!r}@{self.line}:{self.col})"
+
+
+class Mapping(Node):
+    __slots__ = ("pairs", "merged", "_index")
+    kind = "mapping"
+
+    def __init__(self):
+        self.pairs: list[tuple[Node, Node]] = []
+        # (key, value, merge key node): entries brought in by a ``<<`` merge key, which
+        # explicit keys override, as YAML loaders that implement merges do.
+        self.merged: list[tuple[Node, Node, Node]] = []
+        self._index: dict | None = None
+
+    def entries(self) -> Iterator[tuple[str, Node, Node, Node | None]]:
+        """(key text, key node, value node, merge-key node or None) in the order written.
+
+        A key written twice keeps its last value (as most loaders do; the duplicate is a
+        finding of its own). Entries brought in by a ``<<`` merge appear only where no
+        explicit key of that name exists."""
+        chosen: dict[str, tuple[Node, Node, Node | None]] = {}
+        for k, v in self.pairs:
+            name = key_text(k)
+            if name == "<<" and isinstance(k, Scalar) and k.plain:
+                continue
+            chosen[name] = (k, v, None)
+        for k, v, via in self.merged:
+            chosen.setdefault(key_text(k), (k, v, via))
+        for name, (k, v, via) in chosen.items():
+            yield name, k, v, via
+
+    def get(self, name: str) -> Node | None:
+        if self._index is None:
+            self._index = {n: v for n, _k, v, _via in self.entries()}
+        return self._index.get(name)
+
+    def __repr__(self) -> str:
+        return f"Mapping({len(self.pairs)}@{self.line}:{self.col})"
+
+
+class Sequence(Node):
+    __slots__ = ("items",)
+    kind = "sequence"
+
+    def __init__(self):
+        self.items: list[Node] = []
+
+    def __repr__(self) -> str:
+        return f"Sequence({len(self.items)}@{self.line}:{self.col})"
+
+
+class _Unset:
+    __slots__ = ()
+
+
+_UNSET = _Unset()
+
+
+def key_text(node: Node) -> str:
+    return node.text if isinstance(node, Scalar) else "?"
+
+
+@dataclass
+class Problem:
+    """A reason the file could not be read (wholly or in part), located where possible."""
+
+    kind: str  # parse, duplicate-key, encoding, size, depth, aliases, tab, io, json
+    message: str
+    line: int = 0
+    col: int = 0
+    related: list[Location] = field(default_factory=list)
+
+
+@dataclass
+class Document:
+    path: str  # as shown to the user (relative to the repository root where possible)
+    text: str = ""
+    roots: list[Node] = field(default_factory=list)
+    problems: list[Problem] = field(default_factory=list)
+    bom: str = ""  # a byte-order mark that preceded ``text`` in the file, if any
+    encoding: str = "utf-8"
+    fmt: str = "yaml"  # yaml, json or shell (a launch script)
+    aliases: int = 0
+    runs: list = field(default_factory=list)  # a launch script's training commands (shell.LaunchRoot)
+    # the other files a composed run of this document was built from (bases, the overrides file),
+    # by shown path: the raw text of a node written there is read from them
+    sources: dict[str, "Document"] = field(default_factory=dict)
+
+    @property
+    def readable(self) -> bool:
+        return not any(p.kind in FATAL for p in self.problems)
+
+    def loc(self, node: Node, message: str = "") -> Location:
+        return node.location(message)
+
+    def raw(self, node: Node) -> str:
+        if node.file != self.path:  # a node of a composed run written in another file
+            source = self.sources.get(node.file) if node.file is not None else None
+            return source.text[node.start:node.end] if source is not None else getattr(node, "text", "")
+        return self.text[node.start:node.end]
+
+
+FATAL = frozenset({"parse", "encoding", "size", "depth", "aliases", "io", "json", "binary"})
+
+
+def walk(root: Node) -> Iterator[Node]:
+    """Every node once (aliases are the same object, visited once; cycles are safe)."""
+    seen: set[int] = set()
+    stack = [root]
+    while stack:
+        node = stack.pop()
+        if id(node) in seen:
+            continue
+        seen.add(id(node))
+        yield node
+        if isinstance(node, Mapping):
+            for k, v in reversed(node.pairs):
+                stack.append(v)
+                stack.append(k)
+        elif isinstance(node, Sequence):
+            stack.extend(reversed(node.items))

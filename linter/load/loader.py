@@ -1,0 +1,784 @@
+"""Load: bytes on disk -> Document. Knows files and parsers, never rules.
+
+The check path composes with libyaml through PyYAML's C loader when it is present and falls
+back to ruamel.yaml (its C parser where installed). Only the node graph is built, never Python
+objects, so aliases cost their text and nothing the user wrote is constructed or run.
+"""
+from __future__ import annotations
+
+import codecs
+import gc
+import os
+import re
+import stat
+import warnings
+from typing import Any
+
+from ..common import scalars
+from .document import Document, Mapping, Node, Problem, Scalar, Sequence, key_text
+from ..common.findings import Location
+from ..common.limits import Limits
+
+
+_BOMS = (
+    (codecs.BOM_UTF32_LE, "utf-32-le"),
+    (codecs.BOM_UTF32_BE, "utf-32-be"),
+    (codecs.BOM_UTF8, "utf-8"),
+    (codecs.BOM_UTF16_LE, "utf-16-le"),
+    (codecs.BOM_UTF16_BE, "utf-16-be"),
+)
+_TAG_PREFIX = re.compile(r"(?:&\S+[ \t]+)?(!\S*)")
+_ANCHOR = re.compile(r"(?:![^\s,\[\]{}]*[ \t]+)?&([^\s,\[\]{}]+)")
+
+
+class _Backend:
+    """The fastest located composer available: libyaml via PyYAML, else ruamel.yaml."""
+
+    def __init__(self):
+        self.name, self.compose_all, self.errors = self._pick()
+        # perf: PyYAML's parsers (libyaml's or the pure one) also give the parser's events, from
+        # which the located tree is built directly (_EventBuilder); ruamel.yaml's node graph is read
+        self.events_loader = getattr(self.compose_all, "loader", None)
+
+    @staticmethod
+    def _pick():
+        forced = os.environ.get("TRIMTAB_PARSER", "")
+        if forced != "ruamel":
+            import yaml
+
+            if getattr(yaml, "__with_libyaml__", False) and forced != "pyyaml-pure":
+                loader = _untagged_loader(yaml)  # perf: see _untagged_loader
+                name = "libyaml"
+            elif forced == "pyyaml-pure":
+                loader = yaml.SafeLoader
+                name = "pyyaml"
+            else:
+                loader = None
+            if loader is not None:
+                def compose_all(text, _loader=loader):
+                    return yaml.compose_all(text, Loader=_loader)
+
+                compose_all.loader = loader  # type: ignore[attr-defined]
+                return name, compose_all, (yaml.YAMLError,)
+        from ruamel.yaml import YAML
+        from ruamel.yaml.error import YAMLError as RuamelError
+
+        def compose_all(text):
+            parser = YAML(typ="safe")
+            return parser.compose_all(text)
+
+        return "ruamel", compose_all, (RuamelError,)
+
+
+_backend: _Backend | None = None
+
+
+def _untagged_loader(yaml):
+    """libyaml's composer without PyYAML's tag resolution (perf, see docs/perf.md).
+
+    PyYAML's C composer calls back into the pure-Python resolver for every node (``resolve``, with
+    its regular expressions, plus ``descend_resolver``/``ascend_resolver``): over half the time of a
+    compose. trimtab never uses a resolved tag: scalars are typed by trimtab itself from their text
+    (scalars.py), and the builder reads ``node.tag`` only for a tag written in the file (other than
+    the non-specific ``!``), which the composer takes from the parser event without calling the
+    resolver. So the resolver here answers PyYAML's defaults (str / seq / map) at once. Everything
+    else (parser, marks, anchors, aliases, errors) is libyaml's and PyYAML's own."""
+    from yaml.nodes import MappingNode, ScalarNode
+
+    str_tag, seq_tag, map_tag = (yaml.resolver.BaseResolver.DEFAULT_SCALAR_TAG,
+                                 yaml.resolver.BaseResolver.DEFAULT_SEQUENCE_TAG,
+                                 yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG)
+
+    class UntaggedLoader(yaml.CSafeLoader):
+        def resolve(self, kind, value, implicit):
+            return str_tag if kind is ScalarNode else map_tag if kind is MappingNode else seq_tag
+
+        def descend_resolver(self, current_node, current_index):
+            pass
+
+        def ascend_resolver(self):
+            pass
+
+    return UntaggedLoader
+
+
+def backend() -> _Backend:
+    global _backend
+    if _backend is None:
+        _backend = _Backend()
+    return _backend
+
+
+def load(path: str, shown: str | None = None, limits: Limits = Limits(), fmt: str | None = None,
+         data: bytes | None = None) -> Document:
+    """Read one file into a Document. Never raises for anything the file contains or for
+    anything that goes wrong while reading it: each failure is a located Problem."""
+    shown = shown or path
+    if fmt is None:
+        fmt = "json" if path.lower().endswith(".json") else "yaml"
+    doc = Document(path=shown, fmt=fmt)
+    if data is None:
+        data, why = read(path, limits)
+        if why:
+            return _fail(doc, "io", why)
+    if len(data) > limits.max_bytes:
+        return _fail(doc, "size", f"is larger than the size limit of {limits.max_bytes} bytes "
+                                  "(setting limits.max_bytes)")
+    parse_bytes(doc, data, limits)
+    from ..common.redact import learn  # every output masks the credentials of every file read (trimtab.common.redact)
+
+    learn(doc)
+    return doc
+
+
+_O_FLAGS = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_BINARY", 0)
+
+
+def _read_fd(fd: int, limit: int) -> bytes:
+    """Up to ``limit`` bytes from an open file (a seam the tests use to simulate a writer)."""
+    chunks, left = [], limit
+    while left > 0:
+        chunk = os.read(fd, min(left, 1 << 20))
+        if not chunk:
+            break
+        chunks.append(chunk)
+        left -= len(chunk)
+    return b"".join(chunks)
+
+
+def read(path: str, limits: Limits = Limits()) -> tuple[bytes | None, str]:
+    """(bytes, "") or (None, why the file cannot be read). Reads at most max_bytes + 1 bytes.
+
+    Opens without blocking (a pipe or device named as a config never hangs the check), refuses
+    anything but a regular file, and notices a file that changes while it is read (the bytes
+    would be a mix of two versions)."""
+    try:
+        fd = os.open(path, _O_FLAGS)
+    except FileNotFoundError:
+        if os.path.islink(path):
+            target = os.readlink(path)
+            return None, f"cannot be read: broken symbolic link (its target {target} does not exist)"
+        return None, "cannot be read: no such file"
+    except PermissionError:
+        return None, "cannot be read: permission denied"
+    except IsADirectoryError:
+        return None, "is a directory, not a file"
+    except OSError as exc:
+        return None, f"cannot be read: {exc.strerror or type(exc).__name__}"
+    try:
+        before = os.fstat(fd)
+        if stat.S_ISDIR(before.st_mode):
+            return None, "is a directory, not a file"
+        if not stat.S_ISREG(before.st_mode):
+            return None, "is not a regular file (a pipe, socket or device), so it was not read"
+        if hasattr(os, "set_blocking"):
+            os.set_blocking(fd, True)
+        data = _read_fd(fd, limits.max_bytes + 1)
+        after = os.fstat(fd)
+        try:
+            now = os.stat(path)
+        except OSError:
+            now = None
+    except OSError as exc:
+        return None, f"cannot be read: {exc.strerror or type(exc).__name__}"
+    finally:
+        os.close(fd)
+    changed = (before.st_size, before.st_mtime_ns) != (after.st_size, after.st_mtime_ns)
+    if len(data) <= limits.max_bytes and after.st_size and len(data) != after.st_size:
+        # (a size of 0 is what some pseudo file systems report for any file: not a change)
+        changed = True
+    if now is None or (now.st_ino, now.st_dev, now.st_size, now.st_mtime_ns) != (
+            after.st_ino, after.st_dev, after.st_size, after.st_mtime_ns):
+        changed = True
+    if changed:
+        return None, ("changed while it was being read (another program is writing it); "
+                      "check it again once it is saved")
+    return data, ""
+
+
+def parse_bytes(doc: Document, data: bytes, limits: Limits) -> Document:
+    text = _decode(doc, data)
+    if text is None:
+        return doc
+    if text.startswith("\ufeff"):
+        doc.bom, text = "\ufeff", text[1:]
+    doc.text = text
+    if doc.fmt == "json" and not _json_ok(doc, text, limits):
+        return doc
+    # Building the node graph creates many small objects and no garbage: pausing the cyclic
+    # collector meanwhile cuts the time on a large file by about a third (measured here on a
+    # 100,000-line file: 2.9-3.3 s CPU with the collector on, 1.6-2.2 s paused).
+    paused = gc.isenabled()
+    gc.disable()
+    try:
+        return _compose(doc, text, limits)
+    finally:
+        if paused:
+            gc.enable()
+
+
+def _compose(doc: Document, text: str, limits: Limits, events: bool = True) -> Document:
+    """Build the located tree: from the parser's events where the parser gives them (``events``;
+    False reads the parser's composed node graph instead, as with ruamel.yaml, which the tests use
+    to prove both trees the same)."""
+    be = backend()
+    source = text
+    if doc.fmt == "json":
+        # valid JSON (checked above) holds tabs only as whitespace between tokens, never inside a
+        # string; YAML refuses a tab before a top-level value. A space for each tab keeps every
+        # column where it was.
+        source = text.replace("\t", " ")
+    if events and be.events_loader is not None:
+        return _compose_events(doc, source, limits, be)
+    try:
+        with warnings.catch_warnings():  # a parser's own warnings (a reused anchor) are not output
+            warnings.simplefilter("ignore")
+            raw_roots = [r for r in be.compose_all(source) if r is not None]
+    except be.errors as exc:
+        _parse_problem(doc, exc, limits)
+        if doc.fmt == "json" and doc.problems and doc.problems[-1].kind == "parse":
+            p = doc.problems[-1]
+            p.message = p.message.replace("cannot be parsed as YAML: ", "is valid JSON, but the YAML reader "
+                                          "cannot follow it (a key longer than 1024 characters?): ", 1)
+        return doc
+    except RecursionError:
+        line, col = _deep_mark(text, limits.max_depth)
+        return _fail(doc, "depth", f"nests deeper than {limits.max_depth} levels (setting limits.max_depth)",
+                     line, col)
+    except Exception as exc:  # a reader defect must not become a traceback: say so, located at the file
+        return _fail(doc, "parse", f"cannot be read: the YAML reader failed ({type(exc).__name__}: {exc})")
+    builder = _Builder(doc, limits, be.name)
+    raw_roots.reverse()
+    while raw_roots:
+        root = builder.build(raw_roots.pop())  # perf: each parser graph is let go as it is read
+        if root is None:
+            break
+        doc.roots.append(root)
+    builder.finish()
+    doc.aliases = builder.aliases
+    return doc
+
+
+def _compose_events(doc: Document, source: str, limits: Limits, be: _Backend) -> Document:
+    """The located tree built from the parser's events (perf and memory: the parser's node graph
+    is never made; see _EventBuilder). A parse error anywhere leaves no tree, as a composer's would."""
+    builder = _EventBuilder(doc, limits, be.name)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            roots = builder.run(be.events_loader(source))
+    except be.errors as exc:
+        _parse_problem(doc, exc, limits)
+        if doc.fmt == "json" and doc.problems and doc.problems[-1].kind == "parse":
+            p = doc.problems[-1]
+            p.message = p.message.replace("cannot be parsed as YAML: ", "is valid JSON, but the YAML reader "
+                                          "cannot follow it (a key longer than 1024 characters?): ", 1)
+        return doc
+    except Exception as exc:  # a reader defect must not become a traceback: say so, located at the file
+        return _fail(doc, "parse", f"cannot be read: the YAML reader failed ({type(exc).__name__}: {exc})")
+    doc.problems.extend(builder.problems)
+    doc.roots.extend(roots)
+    builder.finish()
+    doc.aliases = builder.aliases
+    return doc
+
+
+def _deep_mark(text: str, max_depth: int, upto: int | None = None) -> tuple[int, int]:
+    """Where nesting first passes ``max_depth``, found with an event parser (which, unlike a
+    composer, does not recurse): libyaml's, else (when libyaml stops before it yields the event,
+    at its own limit of 1000 levels) PyYAML's pure-Python one on the text up to where libyaml
+    stopped (``upto``). (0, 0) when it cannot be found."""
+    import yaml
+
+    readers = [yaml.SafeLoader]
+    if getattr(yaml, "__with_libyaml__", False):
+        readers.insert(0, yaml.CSafeLoader)
+    for reader in readers:
+        depth = 0
+        try:
+            part = text if reader is not yaml.SafeLoader or upto is None else text[:upto]
+            for event in yaml.parse(part, Loader=reader):
+                if isinstance(event, yaml.CollectionStartEvent):
+                    depth += 1
+                    if depth > max_depth:
+                        return event.start_mark.line + 1, event.start_mark.column + 1
+                elif isinstance(event, yaml.CollectionEndEvent):
+                    depth -= 1
+        except Exception:
+            continue
+    return 0, 0
+
+
+def _fail(doc: Document, kind: str, message: str, line: int = 0, col: int = 0) -> Document:
+    doc.problems.append(Problem(kind, message, line, col))
+    return doc
+
+
+def _decode(doc: Document, data: bytes) -> str | None:
+    encoding = "utf-8"
+    for bom, name in _BOMS:
+        if data.startswith(bom):
+            encoding = name
+            data = data[len(bom):]
+            break
+    if encoding == "utf-8" and b"\x00" in data:
+        line = data.count(b"\n", 0, data.index(b"\x00")) + 1
+        head = data[:256]
+        if len(head) >= 4 and (not any(head[1::2]) or not any(head[0::2])):
+            _fail(doc, "binary", "holds NUL bytes between its characters: it looks like UTF-16 without a "
+                                 "byte-order mark; save it as UTF-8", 1, 1)
+        else:
+            _fail(doc, "binary", "holds binary content (a NUL byte), not text", line, 1)
+        return None
+    try:
+        text = data.decode(encoding)
+    except UnicodeDecodeError as exc:
+        before = data[:exc.start]
+        line = before.count(b"\n") + 1
+        col = len(before[before.rfind(b"\n") + 1:].decode(encoding, "replace")) + 1
+        _fail(doc, "encoding", f"is not valid {encoding.upper()}: byte 0x{data[exc.start]:02x} "
+                               f"cannot be decoded", line, col)
+        return None
+    doc.encoding = encoding
+    if encoding != "utf-8":
+        doc.problems.append(Problem("encoding-other", f"is encoded as {encoding.upper()}, not "
+                                    "UTF-8; some loaders read only UTF-8", 1, 1))
+    return text
+
+
+def _json_deep_mark(text: str, max_depth: int) -> tuple[int, int]:
+    """Where JSON brackets (outside strings) first nest past ``max_depth``."""
+    depth, in_str, escaped = 0, False, False
+    for i, ch in enumerate(text):
+        if in_str:
+            if escaped:
+                escaped = False
+            elif ch == "\\":
+                escaped = True
+            elif ch == '"':
+                in_str = False
+        elif ch == '"':
+            in_str = True
+        elif ch in "[{":
+            depth += 1
+            if depth > max_depth:
+                line = text.count("\n", 0, i) + 1
+                return line, i - (text.rfind("\n", 0, i) + 1) + 1
+        elif ch in "]}":
+            depth -= 1
+    return 0, 0
+
+
+def _json_ok(doc: Document, text: str, limits: Limits = Limits()) -> bool:
+    import json
+
+    try:
+        json.loads(text)
+    except json.JSONDecodeError as exc:
+        _fail(doc, "json", f"is not valid JSON: {exc.msg}", exc.lineno, exc.colno)
+        return False
+    except RecursionError:
+        line, col = _json_deep_mark(text, limits.max_depth)
+        _fail(doc, "depth", f"nests deeper than {limits.max_depth} levels (setting limits.max_depth)", line, col)
+        return False
+    except ValueError as exc:  # e.g. an integer longer than the interpreter converts
+        _fail(doc, "json", f"is not readable as JSON: {exc}")
+        return False
+    return True
+
+
+_NESTING = "exceeded maximum nesting depth"
+
+
+def _parse_problem(doc: Document, exc: Exception, limits: Limits = Limits()) -> None:
+    mark = getattr(exc, "problem_mark", None) or getattr(exc, "context_mark", None)
+    problem = getattr(exc, "problem", None) or (str(exc).splitlines() or [type(exc).__name__])[0]
+    context = getattr(exc, "context", None)
+    message = f"{context}: {problem}" if context else str(problem)
+    line = mark.line + 1 if mark is not None else 0
+    col = mark.column + 1 if mark is not None else 0
+    position = getattr(exc, "position", None)  # a reader error (a control character) has only this
+    if mark is None and isinstance(position, int) and 0 <= position <= len(doc.text):
+        before = doc.text[:position]
+        line = before.count("\n") + 1
+        col = position - (before.rfind("\n") + 1) + 1
+        reason = getattr(exc, "reason", "") or "is not allowed"
+        char = getattr(exc, "character", None)
+        shown = f"#x{ord(char):04x}" if isinstance(char, str) else f"#x{char:04x}" if isinstance(char, int) else "a character"
+        message = f"character {shown} {reason}" if "character" not in str(reason) else f"{shown}: {reason}"
+    if _NESTING in str(problem):
+        upto = mark.index + 1 if mark is not None else None
+        line, col = _deep_mark(doc.text, limits.max_depth, upto) if limits.max_depth < 1000 else (0, 0)
+        if not line:
+            line, col = (mark.line + 1, mark.column + 1) if mark is not None else (0, 0)
+        doc.problems.append(Problem("depth", f"nests deeper than {limits.max_depth} levels (setting "
+                                    "limits.max_depth)", line, col))
+        return
+    related = []
+    cmark = getattr(exc, "context_mark", None)
+    if cmark is not None and mark is not None and cmark is not mark and (cmark.line, cmark.column) != (
+            mark.line, mark.column):
+        related.append(Location(doc.path, cmark.line + 1, cmark.column + 1, message=context or "context"))
+    if line:
+        lines = doc.text.splitlines()
+        if 0 < line <= len(lines) and "\t" in lines[line - 1][: len(lines[line - 1]) - len(lines[line - 1].lstrip())]:
+            message += " (this line is indented with a tab; YAML indents with spaces only)"
+    doc.problems.append(Problem("parse", f"cannot be parsed as YAML: {message}", line, col, related))
+
+
+def _tag(raw_tag) -> str:
+    return getattr(raw_tag, "value", raw_tag) or ""
+
+
+MAX_NUMBER_PROBLEMS = 10  # integers past the limit reported per document
+
+
+class _Builder:
+    """Turns a parser node graph into located trimtab nodes, each parser node once.
+
+    perf: the graph is let go as it is read (each parser node's slot in its parent is cleared once
+    its trimtab node exists), so a large file's two trees never coexist whole; only the nodes an
+    alias can reach again (collections and anchored scalars) are remembered by identity. The
+    graph is the builder's own: nothing else holds it."""
+
+    def __init__(self, doc: Document, limits: Limits, engine: str = ""):
+        self.doc = doc
+        self.limits = limits
+        self.engine = engine
+        self.problems: list[Problem] = doc.problems  # the event builder keeps its own until the end
+        self.memo: dict[int, Node] = {}
+        self.aliases = 0
+        self.numbers = 0
+        self.failed = False
+        # empty plain scalars inside flow mappings: (node, "key" | "value")
+        self.empties: list[tuple[Scalar, str]] = []
+
+    def finish(self) -> None:
+        """libyaml places an empty key or value of a flow mapping (``{a: }``, ``{? }``) at the next
+        token; the YAML reference reader (PyYAML's pure composer) places it right after the ``:`` or
+        ``?`` that introduced it, which is where a person looks. Move such nodes there."""
+        if not self.empties or self.engine != "libyaml" or self.failed:
+            return
+        import yaml
+
+        after: dict[tuple[int, type], Any] = {}
+        prev = None
+        try:
+            for tok in yaml.scan(self.doc.text, Loader=yaml.CSafeLoader):
+                if prev is not None and isinstance(prev, (yaml.KeyToken, yaml.ValueToken)):
+                    after.setdefault((tok.start_mark.index, type(prev)), prev.end_mark)
+                prev = tok
+        except yaml.YAMLError:
+            return
+        for node, role in self.empties:
+            want = yaml.KeyToken if role == "key" else yaml.ValueToken
+            mark = after.get((node.start, want))
+            if mark is not None:
+                node.line, node.col = mark.line + 1, mark.column + 1
+                node.end_line, node.end_col = node.line, node.col
+                node.start = node.end = mark.index
+
+    def build(self, raw) -> Node | None:
+        node = self._node(raw, (), 0)
+        return None if self.failed else node
+
+    def _place(self, node: Node, raw, path: tuple) -> None:
+        sm, em = raw.start_mark, raw.end_mark
+        node.line, node.col = sm.line + 1, sm.column + 1
+        node.end_line, node.end_col = em.line + 1, em.column + 1
+        node.start, node.end = sm.index, em.index
+        node.path = path
+        node.anchor = getattr(raw, "anchor", None)
+        text = self.doc.text
+        if node.anchor is None and sm.index < len(text) and text[sm.index] in "!&":
+            # PyYAML's nodes do not keep their anchor; a node's start mark is at its properties
+            # (perf: the pattern is tried only where properties can start, '!' or '&')
+            m = _ANCHOR.match(text, sm.index)
+            if m:
+                node.anchor = m.group(1)
+        node.file = self.doc.path
+
+    def _node(self, raw, path: tuple, depth: int, role: str = "") -> Node | None:
+        if self.failed:
+            return None
+        seen = self.memo.get(id(raw))
+        if seen is not None:
+            self.aliases += 1
+            if self.aliases > self.limits.max_aliases:
+                self._stop("aliases", f"uses more than {self.limits.max_aliases} alias references "
+                                      "(setting limits.max_aliases)", raw)
+            return seen
+        if depth > self.limits.max_depth:
+            self._stop("depth", f"nests deeper than {self.limits.max_depth} levels "
+                                "(setting limits.max_depth)", raw)
+            return None
+        kind = type(raw).__name__
+        if kind == "ScalarNode":
+            tag = None
+            text = self.doc.text
+            start = raw.start_mark.index
+            if start < len(text) and text[start] in "!&":
+                m = _TAG_PREFIX.match(text, start)
+                if m:
+                    # the non-specific tag '!' means "a string" (YAML 1.2.2, section 6.9.1);
+                    # some readers resolve it like a plain scalar
+                    tag = "!" if m.group(1) == "!" else _tag(raw.tag)
+            scalar = Scalar(raw.value, raw.style or None, tag)
+            node: Node = scalar
+            self._place(node, raw, path)
+            if len(raw.value) > scalars.MAX_INT_TEXT and scalar.plain and tag is None and scalars.oversized(raw.value):
+                self._oversized(scalar)
+            if node.anchor is not None:  # only an anchored scalar can be met again (an alias)
+                self.memo[id(raw)] = node
+            if role and not raw.value and scalar.plain and node.start == node.end and not node.anchor:
+                self.empties.append((scalar, role))
+            return node
+        if kind == "SequenceNode":
+            node = Sequence()
+            self._place(node, raw, path)
+            self.memo[id(raw)] = node
+            items = raw.value
+            for i, item in enumerate(items):
+                child = self._node(item, path + (str(i),), depth + 1)
+                if child is None:
+                    return node
+                node.items.append(child)
+                items[i] = None  # let go of the parser's node (see _Builder)
+            return node
+        node = Mapping()
+        self._place(node, raw, path)
+        self.memo[id(raw)] = node
+        first: dict[str, Node] = {}
+        flow = bool(getattr(raw, "flow_style", False))
+        pairs = raw.value
+        for i, (raw_k, raw_v) in enumerate(pairs):
+            pairs[i] = None  # let go of the parser's nodes once read (see _Builder)
+            k = self._node(raw_k, path, depth + 1, "key" if flow else "")
+            if k is None:
+                return node
+            name = key_text(k)
+            v = self._node(raw_v, path + (name,), depth + 1, "value" if flow else "")
+            if v is None:
+                return node
+            node.pairs.append((k, v))
+            if name == "<<" and isinstance(k, Scalar) and k.plain:
+                self._merge(node, k, v)
+                continue
+            if isinstance(k, Scalar):
+                if name in first:
+                    prev = first[name]
+                    self.problems.append(Problem(
+                        "duplicate-key", f"key '{name}' is written twice in one mapping; which value "
+                        "wins depends on the loader", k.line, k.col,
+                        [Location(self.doc.path, prev.line, prev.col, message=f"first '{name}' here")]))
+                else:
+                    first[name] = k
+        return node
+
+    def _oversized(self, node: Scalar) -> None:
+        self.numbers += 1
+        if self.numbers > MAX_NUMBER_PROBLEMS:
+            return  # a file of thousands of them: the first few are reported
+        text = node.text
+        shown = text if len(text) <= 24 else f"{text[:12]}...{text[-6:]}"
+        self.problems.append(Problem(
+            "number", f"the integer {shown} ({len(text)} characters) is past trimtab's limit (10^30): it is "
+            "read as text, and nothing that depends on it is checked", node.line, node.col))
+
+    def _merge(self, node: Mapping, key: Scalar, value: Node) -> None:
+        sources = value.items if isinstance(value, Sequence) else [value]
+        for src in sources:
+            if isinstance(src, Mapping) and src is not node:
+                for _name, k, v, _via in src.entries():
+                    node.merged.append((k, v, key))
+            else:
+                self.problems.append(Problem(
+                    "merge", "a merge key '<<' must refer to a mapping or a list of mappings",
+                    key.line, key.col))
+                return
+
+    def _stop(self, kind: str, message: str, raw) -> None:
+        if not self.failed:
+            self.failed = True
+            self.problems.append(Problem(kind, message, raw.start_mark.line + 1, raw.start_mark.column + 1))
+
+
+class _Frame:
+    """A collection being built from events: its node, key path and depth, and for a mapping the
+    key waiting for its value and the first node of each key name (duplicates)."""
+    __slots__ = ("node", "path", "depth", "is_map", "flow", "key", "first")
+
+    def __init__(self, node, path: tuple, depth: int, is_map: bool, flow: bool):
+        self.node = node
+        self.path = path
+        self.depth = depth
+        self.is_map = is_map
+        self.flow = flow
+        self.key: Node | None = None
+        self.first: dict[str, Node] = {}
+
+
+class _EventBuilder(_Builder):
+    """The located tree built from the parser's events, without the parser's node graph.
+
+    The same tree as _Builder makes from the composed graph (tests/test_tree_identity.py proves it
+    on every YAML and JSON file of the repository): each node's marks are its event's (a
+    collection ends at its end event), its anchor and tag are the event's own, and what a composer
+    refuses (an undefined alias, an anchor defined twice) is refused with the composer's error.
+    perf: no graph of parser nodes is made and let go (half the memory of a large file), and a
+    loop over events replaces the recursion over nodes. Problems are kept apart until the stream
+    has been read whole: a parse error anywhere leaves only that error, as with a composer."""
+
+    def __init__(self, doc: Document, limits: Limits, engine: str = ""):
+        super().__init__(doc, limits, engine)
+        self.problems = []
+        self.anchors: dict[str, tuple[Node | None, Any]] = {}
+
+    def run(self, parser) -> list[Node]:
+        import yaml
+        from yaml.composer import ComposerError
+
+        scalar_ev, alias_ev = yaml.ScalarEvent, yaml.AliasEvent
+        map_start, seq_start = yaml.MappingStartEvent, yaml.SequenceStartEvent
+        map_end, seq_end = yaml.MappingEndEvent, yaml.SequenceEndEvent
+        doc_start = yaml.DocumentStartEvent
+        limits, shown = self.limits, self.doc.path
+        max_depth, max_aliases = limits.max_depth, limits.max_aliases
+        roots: list[Node] = []
+        stack: list[_Frame] = []
+        get = parser.get_event
+        try:
+            while True:
+                ev = get()
+                if ev is None:
+                    break
+                cls = type(ev)
+                if cls is doc_start:
+                    self.anchors = {}
+                    continue
+                if not (cls is scalar_ev or cls is map_start or cls is seq_start or cls is alias_ev):
+                    if (cls is map_end or cls is seq_end) and stack:
+                        frame = stack.pop()
+                        if self.failed:
+                            continue
+                        node = frame.node
+                        em = ev.end_mark
+                        node.end_line, node.end_col, node.end = em.line + 1, em.column + 1, em.index
+                        self._attach(node, stack, roots)
+                    continue
+                if self.failed:  # nothing more is built; what a composer refuses is still refused
+                    if cls is alias_ev:
+                        if ev.anchor not in self.anchors:
+                            raise ComposerError(None, None, "found undefined alias", ev.start_mark)
+                        continue
+                    if ev.anchor is not None:
+                        self._anchor(ev.anchor, None, ev.start_mark, ComposerError)
+                    if cls is not scalar_ev:
+                        stack.append(_Frame(None, (), 0, False, False))
+                    continue
+                # where the new node goes: its key path, depth and role
+                if stack:
+                    parent = stack[-1]
+                    depth = parent.depth + 1
+                    if parent.is_map:
+                        if parent.key is None:
+                            path, role = parent.path, "key" if parent.flow else ""
+                        else:
+                            path = parent.path + (key_text(parent.key),)
+                            role = "value" if parent.flow else ""
+                    else:
+                        path, role = parent.path + (str(len(parent.node.items)),), ""
+                else:
+                    path, depth, role = (), 0, ""
+                if cls is alias_ev:
+                    hit = self.anchors.get(ev.anchor)
+                    if hit is None:
+                        raise ComposerError(None, None, "found undefined alias", ev.start_mark)
+                    target = hit[0]
+                    self.aliases += 1
+                    if self.aliases > max_aliases:
+                        self._stop_at("aliases", f"uses more than {max_aliases} alias references "
+                                                 "(setting limits.max_aliases)", target.line, target.col)
+                        continue
+                    self._attach(target, stack, roots)
+                    continue
+                sm = ev.start_mark
+                if depth > max_depth:
+                    self._stop_at("depth", f"nests deeper than {max_depth} levels (setting limits.max_depth)",
+                                  sm.line + 1, sm.column + 1)
+                    if ev.anchor is not None:
+                        self._anchor(ev.anchor, None, sm, ComposerError)
+                    if cls is not scalar_ev:
+                        stack.append(_Frame(None, (), 0, False, False))
+                    continue
+                anchor = ev.anchor
+                if cls is scalar_ev:
+                    value = ev.value
+                    node = Scalar(value, ev.style or None, ev.tag)
+                    em = ev.end_mark
+                    node.line, node.col, node.start = sm.line + 1, sm.column + 1, sm.index
+                    node.end_line, node.end_col, node.end = em.line + 1, em.column + 1, em.index
+                    node.path, node.anchor, node.file = path, anchor, shown
+                    if anchor is not None:
+                        self._anchor(anchor, node, sm, ComposerError)
+                    if len(value) > scalars.MAX_INT_TEXT and node.style is None and node.tag is None \
+                            and scalars.oversized(value):
+                        self._oversized(node)
+                    if role and not value and node.style is None and sm.index == em.index and anchor is None:
+                        self.empties.append((node, role))
+                    self._attach(node, stack, roots)
+                    continue
+                coll: Node = Mapping() if cls is map_start else Sequence()
+                coll.line, coll.col, coll.start = sm.line + 1, sm.column + 1, sm.index
+                coll.path, coll.anchor, coll.file = path, anchor, shown
+                if anchor is not None:
+                    self._anchor(anchor, coll, sm, ComposerError)
+                stack.append(_Frame(coll, path, depth, cls is map_start, bool(ev.flow_style)))
+        finally:
+            dispose = getattr(parser, "dispose", None)
+            if dispose is not None:
+                dispose()
+        return roots
+
+    def _anchor(self, name: str, node: Node | None, mark, error) -> None:
+        seen = self.anchors.get(name)
+        if seen is not None:
+            raise error("found duplicate anchor; first occurrence", seen[1], "second occurrence", mark)
+        self.anchors[name] = (node, mark)
+
+    def _attach(self, node: Node, stack: list, roots: list) -> None:
+        """A finished node joins its parent (a mapping's key waits for its value) or the roots."""
+        if not stack:
+            if not self.failed:
+                roots.append(node)
+            return
+        parent = stack[-1]
+        if not parent.is_map:
+            parent.node.items.append(node)
+            return
+        k = parent.key
+        if k is None:
+            parent.key = node
+            return
+        parent.key = None
+        mapping = parent.node
+        mapping.pairs.append((k, node))
+        name = key_text(k)
+        if name == "<<" and isinstance(k, Scalar) and k.style is None:
+            self._merge(mapping, k, node)
+            return
+        if isinstance(k, Scalar):
+            first = parent.first
+            if name in first:
+                prev = first[name]
+                self.problems.append(Problem(
+                    "duplicate-key", f"key '{name}' is written twice in one mapping; which value "
+                    "wins depends on the loader", k.line, k.col,
+                    [Location(self.doc.path, prev.line, prev.col, message=f"first '{name}' here")]))
+            else:
+                first[name] = k
+
+    def _stop_at(self, kind: str, message: str, line: int, col: int) -> None:
+        if not self.failed:
+            self.failed = True
+            self.problems.append(Problem(kind, message, line, col))

@@ -1,0 +1,363 @@
+"""Resolve: a document's tree -> RunModel, through the key map, the alias table and the native
+layout, then derive the run arithmetic. Knows concepts, never rules."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import cast
+
+from ..compose.nodes import Unknown
+from ..load.document import Document, Mapping, Node, Scalar, Sequence
+from ..common.findings import Location
+from .arithmetic import Unit, settle
+from .model import Component, RunModel, Unused, Value
+from ..common.settings import KeySpec
+from ..common.vocabulary import (ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX,
+                                 evaluation_section, normalise_key)
+
+
+@dataclass
+class ResolveOptions:
+    keys: dict[str, KeySpec] = field(default_factory=dict)
+    version: str = "1.1"
+    force_rl: bool = False
+
+
+# Field words inside one reward component (generic).
+_FIELD_WORDS = {
+    "kind": ("kind", "type", "source_type"),
+    "ref": ("ref", "function", "fn", "func", "callable", "path", "module", "import", "model", "model_path",
+            "target", "entrypoint", "entry_point"),
+    "weight": ("weight", "scale", "coef", "coefficient"),
+    "revision": ("revision", "commit", "sha", "version_pin"),
+    "endpoint": ("endpoint", "url", "uri", "address"),
+    "timeout_s": ("timeout_s", "timeout", "timeout_seconds", "request_timeout"),
+    "name": ("name", "id"),
+}
+
+
+def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> RunModel:
+    model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version)
+    # A composed run's root carries, per dotted key path, the places a value passed through.
+    model.chains = getattr(root, "chains", None) or {}
+    model.roles = getattr(root, "roles", None) or {}
+    model.notes = list(getattr(root, "notes", None) or [])
+    leaves = list(_leaves(root))
+    chains = {p: c for p, _n, c in reversed(leaves)}  # the first way each key path was reached
+    taken: set[int] = set()
+    mapped = set()
+    for concept, spec in opts.keys.items():
+        node = _at(root, spec.key)
+        if node is None:
+            continue  # this file does not use the mapped layout: aliases and native names apply
+        mapped.add(concept)
+        _store(model, concept, node, "keymap", spec.key, spec, chains.get(tuple(spec.key.split("."))))
+        taken.add(id(node))
+    candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
+    sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
+    # perf: most keys are no alias; their parent sections are normalised only for those that are,
+    # once per section, and each key word once per file
+    words: dict[str, str] = {}
+    sections: dict[tuple, list[str]] = {}
+    inside: dict[tuple, bool] = {}
+    evals: dict[tuple, str | None] = {}
+    for path, node, _chain in leaves:
+        if id(node) in taken:
+            continue
+        # keys inside one reward component are its fields, not concepts of the run
+        if _inside_sources(path, sources_key, inside):
+            continue
+        leaf = words.get(path[-1])
+        if leaf is None:
+            leaf = words[path[-1]] = normalise_key(path[-1])
+        aliases = ALIASES.get(leaf)
+        if not aliases:
+            continue
+        parents = sections.get(path[:-1])
+        if parents is None:
+            parents = sections[path[:-1]] = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
+        section = path[:-1]
+        if section not in evals:
+            evals[section] = evaluation_section(section)
+        in_eval = evals[section]
+        for alias in aliases:
+            if alias.concept in mapped:
+                continue
+            if alias.under and (not parents or parents[-1] not in alias.under):
+                continue
+            if in_eval is not None:
+                # an evaluation, validation or test block samples for another loop: its keys never
+                # compete with the training run's. Only a sandbox (where generated code runs, in
+                # any loop) is taken from one, and only when the training run states none.
+                if not alias.concept.startswith("sandbox."):
+                    if isinstance(node, Mapping) and CONCEPTS[alias.concept].type not in ("list", "any"):
+                        continue  # a section of the block, not a value
+                    model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
+                                               f"in the evaluation section '{in_eval}'", "evaluation"))
+                    continue
+                strength = 0
+            elif alias.not_under and any(p in alias.not_under for p in parents):
+                continue
+            else:
+                strength = 2 if alias.under else 1
+            if alias.concept == "reward.sources" and isinstance(node, Scalar):
+                continue
+            if isinstance(node, (Mapping, Sequence)) and CONCEPTS[alias.concept].type not in ("list", "any"):
+                if not (alias.concept == "sandbox.kind" and isinstance(node, Mapping)):
+                    continue
+            candidates.setdefault(alias.concept, []).append((strength, path, node))
+    native = {".".join(p): (p, n) for p, n, _c in leaves}
+    for concept in CONCEPTS:
+        if concept in mapped or concept in model.values:
+            continue
+        found = candidates.get(concept)
+        if found:
+            best = max(s for s, _p, _n in found)
+            top = [(p, n) for s, p, n in found if s == best]
+            distinct = {}
+            for p, n in top:
+                # one node at two paths: a reference and its target; the referring path tells the story
+                if id(n) not in distinct or ".".join(p) in model.chains:
+                    distinct[id(n)] = (p, n)
+            if len(distinct) > 1:
+                model.ambiguous[concept] = [doc.loc(n, ".".join(p)) for p, n in distinct.values()]
+                continue
+            path, node = next(iter(distinct.values()))
+            if concept == "sandbox.kind" and isinstance(node, Mapping):
+                continue  # the section itself; its fields resolve through "kind"/"type" aliases
+            via = "native" if ".".join(path) == concept else "alias"  # the concept's own path is the native layout
+            _store(model, concept, node, via, ".".join(path), chain=chains.get(path), synonyms=opts.keys.get(concept))
+            continue
+        hit = native.get(concept)
+        if hit is not None:
+            _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]), synonyms=opts.keys.get(concept))
+    settle(model)  # the run's arithmetic: counts in their concepts' units, derived quantities
+    markers = sum(1 for c in RL_MARKERS if c in model.values)
+    model.is_rl = opts.force_rl or markers >= RL_MIN_MARKERS or "run.estimator" in model.values and markers >= 2
+    return model
+
+
+# How many times, in all, a section reached again through an alias may be walked again: aliased
+# sections resolve at every place they are used, while a nested-alias document stays linear.
+REVISIT_BUDGET = 500
+
+
+def _inside_sources(path: tuple, sources_key: tuple | None, memo: dict) -> bool:
+    """A key inside one reward component (a field of reward.sources, not a concept of the run).
+    ``memo`` holds the answer per section (key path) of one run: linear in the depth of nesting."""
+    return _sources_section(path[:-1], sources_key, memo) if path else False
+
+
+def _sources_section(section: tuple, sources_key: tuple | None, memo: dict) -> bool:
+    """Is ``section``, or a section above it, a reward-sources list (each answer memoised)?"""
+    todo = []
+    while section and section not in memo:
+        todo.append(section)
+        section = section[:-1]
+    found = memo.get(section, False)
+    for s in reversed(todo):  # the shallowest first
+        if not found:
+            found = sources_key is not None and s == sources_key or _names_sources(s)
+        memo[s] = found
+    return found
+
+
+def _names_sources(section: tuple) -> bool:
+    """Does the last key of ``section`` name the reward sources, given the sections above it?"""
+    aliases = [a for a in ALIASES.get(normalise_key(section[-1]), ()) if a.concept == "reward.sources"]
+    if not aliases:
+        return False
+    parents = [normalise_key(p) for p in section[:-1] if not p.isdigit()]
+    for alias in aliases:
+        if alias.not_under and any(p in alias.not_under for p in parents):
+            continue
+        if not alias.under or parents and parents[-1] in alias.under:
+            return True
+    return False
+
+
+def _leaves(root: Node):
+    """(key path, node, chain) for every mapping entry, sections included. ``chain`` holds the
+    related locations of the hops that brought the entry to this path: a ``<<`` merge key, or the
+    key whose value is an alias of a node written elsewhere. Each section is walked once per
+    path it is reached by, within REVISIT_BUDGET; cycles are never followed."""
+    seen: set[int] = set()
+    budget = REVISIT_BUDGET
+    stack: list[tuple[tuple, Node, tuple, frozenset]] = [((), root, (), frozenset())]
+    while stack:
+        path, node, chain, above = stack.pop()
+        if id(node) in seen:
+            if budget <= 0 or id(node) in above:
+                continue
+            budget -= 1
+        seen.add(id(node))
+        if isinstance(node, Mapping):
+            inner = above | {id(node)}
+            for name, k, v, via in node.entries():
+                p = path + (name,)
+                hops: tuple = chain
+                if via is not None:
+                    hops = hops + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
+                elif v.anchor and v.path != p and isinstance(k, Scalar) and k.path == path:
+                    hops = hops + (k.location(f"{'.'.join(p)} is an alias of {'.'.join(v.path) or 'the top level'}"),)
+                yield p, v, list(hops)
+                if isinstance(v, Mapping):
+                    stack.append((p, v, hops, inner))
+
+
+def _at(root: Node, key: str) -> Node | None:
+    """The node at a dotted key path (list items by index); a flat key written with dots in its
+    name (``"batch.mini": 96``) is found too."""
+    if isinstance(root, Mapping):
+        flat = root.get(key)
+        if flat is not None:
+            return flat
+    node = root
+    for part in key.split("."):
+        if isinstance(node, Mapping):
+            node = node.get(part)
+        elif isinstance(node, Sequence) and part.isdigit() and int(part) < len(node.items):
+            node = node.items[int(part)]
+        else:
+            return None
+        if node is None:
+            return None
+    return node
+
+
+def scalar_value(node: Node, version: str):
+    if isinstance(node, Scalar):
+        return node.value(version)
+    return node
+
+
+def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None,
+           chain: list | None = None, synonyms: KeySpec | None = None):
+    """Store one concept's value. ``synonyms``: the key map's entry for the concept when the value
+    was found elsewhere than its mapped key (its ``values`` table still says what a value means)."""
+    _store_value(model, concept, node, via, key, spec, synonyms or spec)
+    v = model.values.get(concept)
+    if chain and v is not None and v.node is node:
+        # a value written elsewhere (at an anchor) and reached through merges or aliases points
+        # at the anchor's line; each hop (the '<<' or the key holding the alias) is a related location
+        v.chain.extend(h for h in chain if h not in v.chain)
+
+
+def _chain(model: RunModel, key: str) -> list[Location]:
+    return list(model.chains.get(key, ())) if model.chains else []
+
+
+def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None,
+                 synonyms: KeySpec | None = None):
+    doc = model.doc
+    loc = doc.loc(node)
+    if model.chains and key and loc.key_path != key:
+        # reached through a reference: written at the target's line, known by the key that refers to it
+        loc = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, key)
+    chain = _chain(model, key)
+    if concept == "reward.sources":
+        model.values[concept] = Value(concept, node, loc, node, via, key, chain)
+        model.components = _components(model, node, spec, key)
+        return
+    if isinstance(node, (Mapping, Sequence)):
+        if CONCEPTS[concept].type == "any":
+            model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
+        return
+    if isinstance(node, Unknown):  # known only at launch: out of the run, never reasoned about
+        model.unknown[concept] = Value(concept, None, loc, node, via, key, chain, note=node.why)
+        return
+    value = cast(Scalar, node).value(model.version)
+    v = Value(concept, value, loc, node, via, key, chain, raw=value)
+    if spec is not None and (spec.per or spec.scope):
+        v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
+    meant = synonyms.meaning(value) if synonyms is not None else None
+    if meant is not None:
+        # a value synonym of the key map: the concept takes the value it stands for; the node (and so
+        # every location and the raw value) still shows what is written
+        v.value = meant
+        v.note = f"key map: {cast(Scalar, node).text.strip()} means {meant}"
+    c = CONCEPTS[concept]
+    if spec is not None and c.per:
+        v.unit = Unit(spec.per or c.per, spec.scope or c.scope)  # the key map states the unit
+    model.values[concept] = v
+    expected = CONCEPTS[concept].type
+    if v.value is not None and not _fits(v.value, expected):
+        model.mistyped.append((v, expected))
+
+
+def _fits(value, expected: str) -> bool:
+    if expected == "int":
+        return isinstance(value, int) and not isinstance(value, bool) or (
+            isinstance(value, float) and value.is_integer())
+    if expected == "number":
+        return isinstance(value, (int, float)) and not isinstance(value, bool)
+    if expected == "bool":
+        return isinstance(value, bool)
+    if expected == "str":
+        return isinstance(value, str)
+    return True
+
+
+def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:
+    doc = model.doc
+    names = dict(spec.fields) if spec and spec.fields else {}
+    out: list[Component] = []
+    items: list[tuple[Node | None, Node]]
+    if isinstance(node, Sequence):
+        items = [(None, it) for it in node.items]
+    elif isinstance(node, Mapping):
+        items = [(k, v) for _n, k, v, _via in node.entries()]
+    else:
+        return out
+    for i, (name_node, item) in enumerate(items):
+        comp = Component(i, doc.loc(item))
+        at = f"{key}.{name_node.text if isinstance(name_node, Scalar) else i}"
+        if name_node is not None:
+            comp.fields["name"] = Value("name", name_node.text if isinstance(name_node, Scalar) else "?",
+                                        doc.loc(name_node), name_node, "component")
+            comp.location = doc.loc(name_node)
+        if isinstance(item, Scalar):
+            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component",
+                                       chain=_chain(model, at))
+        elif isinstance(item, Mapping):
+            _component_sandbox(model, comp, item)
+            for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
+                if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
+                                                   for a in ALIASES.get(normalise_key(word), ())):
+                    comp.fields["trust_remote_code"] = Value("trust_remote_code", sub.value(model.version),
+                                                             doc.loc(sub), sub, "component", word)
+            for field_name in REWARD_FIELDS:
+                words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
+                for w in words:
+                    sub = item.get(w)
+                    if sub is not None:
+                        val = sub.value(model.version) if isinstance(sub, Scalar) else sub
+                        comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
+                                                        _chain(model, f"{at}.{w}"))
+                        break
+        out.append(comp)
+    return out
+
+
+def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
+    """A sandbox section inside one component: its fields become ``sandbox.*`` fields of the
+    component (they describe where that component's code runs)."""
+    for word, _k, sub, _via in item.entries():
+        if normalise_key(word) not in SANDBOX:
+            continue
+        if isinstance(sub, Scalar):
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", sub.value(model.version), model.doc.loc(sub), sub,
+                                                "component", word)
+            return
+        if not isinstance(sub, Mapping):
+            return
+        for name, _kn, v, _via2 in sub.entries():
+            if not isinstance(v, Scalar):
+                continue
+            for alias in ALIASES.get(normalise_key(name), ()):
+                if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
+                    comp.fields[alias.concept] = Value(alias.concept, v.value(model.version), model.doc.loc(v), v,
+                                                       "component", f"{word}.{name}")
+                    break
+        return
+
+

@@ -1,0 +1,164 @@
+"""The RunModel: resolved concepts with their origins, and the arithmetic derived from them."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+from ..load.document import Document, Node
+from ..common.findings import Location
+
+
+def whole(x):
+    """``x`` as a positive whole number (an integral float as an int), else None: zero, negative,
+    fractional, boolean and non-numeric values are reported by the rules, never computed with."""
+    if isinstance(x, bool):
+        return None
+    if isinstance(x, float) and x.is_integer():
+        x = int(x)
+    return x if isinstance(x, int) and x > 0 else None
+
+
+@dataclass
+class Value:
+    """One resolved concept: its value, the node it was read from and how it got there."""
+
+    concept: str
+    value: Any
+    location: Location  # where the value was written (the command line: path None)
+    node: Node | None = None
+    via: str = ""  # keymap, alias, native, derived, override
+    key: str = ""  # the key path in the user's file
+    chain: list[Location] = field(default_factory=list)  # base -> experiment -> reference -> override
+    inputs: tuple[str, ...] = ()  # for derived values: the concepts it was computed from
+    note: str = ""  # how it was read or converted ("x group size 8")
+    raw: Any = None  # the value as written, before unit conversion
+    unit: Any = None  # for a batch count: the unit it is written in, when the key map states it (arithmetic.Unit)
+
+    @property
+    def whole(self):
+        return whole(self.value)
+
+    @property
+    def number(self):
+        v = self.value
+        if isinstance(v, bool) or not isinstance(v, (int, float)):
+            return None
+        return v
+
+
+@dataclass
+class Unused:
+    """A key that looks like a concept but was not used for it, and why (explain lists them)."""
+
+    concept: str
+    key: str  # the key path in the user's file
+    location: Location
+    reason: str  # "evaluation section 'eval'", "wrong shape: a list where a whole number is expected", ...
+    kind: str = ""  # evaluation, shape, section, lost, keymap
+
+
+@dataclass
+class Component:
+    """One reward component of reward.sources; each field a Value (or absent)."""
+
+    index: int
+    location: Location
+    fields: dict[str, Value] = field(default_factory=dict)
+
+    def get(self, name: str):
+        v = self.fields.get(name)
+        return v.value if v is not None else None
+
+    def loc(self, name: str) -> Location:
+        v = self.fields.get(name)
+        return v.location if v is not None else self.location
+
+
+@dataclass
+class RunModel:
+    doc: Document
+    index: int = 0  # document index inside a multi-document file
+    values: dict[str, Value] = field(default_factory=dict)  # stated (read from files)
+    derived: dict[str, Value] = field(default_factory=dict)  # computed from other concepts
+    components: list[Component] = field(default_factory=list)
+    ambiguous: dict[str, list[Location]] = field(default_factory=dict)
+    mistyped: list[tuple[Value, str]] = field(default_factory=list)  # (value, expected type)
+    unused: list[Unused] = field(default_factory=list)  # keys that look like a concept but were not used
+    is_rl: bool = False
+    version: str = "1.1"  # the YAML version the user's loader reads concept values under
+    settings: Any = None
+    files: list[str] = field(default_factory=list)  # every file this run was composed from
+    chains: dict[str, list[Location]] = field(default_factory=dict)  # key path -> origin chain (compose)
+    roles: dict[str, str] = field(default_factory=dict)  # key path -> the layer its value came from (compose)
+    notes: list = field(default_factory=list)  # values known only at launch (compose problems, note level)
+    unknown: dict[str, Value] = field(default_factory=dict)  # concepts whose value is known only at launch
+    touched: set = field(default_factory=set)  # unknown concepts a rule asked for (engine.run_rule)
+
+    @property
+    def path(self) -> str:
+        return self.doc.path
+
+    @property
+    def stage(self) -> str:
+        v = self.values.get("run.stage")
+        return str(v.value).lower() if v is not None and v.value is not None else "rl"
+
+    def get(self, concept: str) -> Value | None:
+        v = self.values.get(concept)
+        if v is None and self.unknown and concept in self.unknown:
+            self.touched.add(concept)
+        return v if v is not None else self.derived.get(concept)
+
+    def stated(self, concept: str) -> Value | None:
+        if self.unknown and concept in self.unknown:
+            self.touched.add(concept)
+        return self.values.get(concept)
+
+    def value(self, concept: str, default=None):
+        v = self.get(concept)
+        return default if v is None else v.value
+
+    def num(self, concept: str):
+        v = self.get(concept)
+        return None if v is None else v.number
+
+    def int(self, concept: str):
+        n = self.num(concept)
+        if n is None:
+            return None
+        if isinstance(n, float):
+            return int(n) if n.is_integer() else None
+        return n
+
+    def text(self, concept: str) -> str | None:
+        v = self.get(concept)
+        if v is None or v.value is None or isinstance(v.value, (bool, list, dict)):
+            return None
+        return str(v.value).strip().lower()
+
+    def loc(self, concept: str, message: str = "") -> Location:
+        v = self.get(concept)
+        if v is None:
+            return Location(self.path, 0, 0, message=message)
+        if v.via == "derived":
+            # point at the first stated input
+            for name in v.inputs:
+                src = self.values.get(name)
+                if src is not None:
+                    return src.location.with_message(message)
+        return v.location.with_message(message) if message else v.location
+
+    def has(self, *concepts: str) -> bool:
+        return all(self.get(c) is not None for c in concepts)
+
+    def origin(self, concept: str) -> str:
+        """A short human description of where a value came from."""
+        v = self.get(concept)
+        if v is None:
+            return "not found"
+        if v.via == "derived":
+            return "derived from " + ", ".join(v.inputs)
+        text = v.location.label()
+        if v.note:
+            text += f" ({v.note})"
+        return text
