@@ -105,7 +105,8 @@ class Checker:
 
             check_published(settings.keymap, published)
             keys = {**parse_keys(published), **keys}
-        self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version)
+        self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version,
+                                           readers=tuple(settings.readers.items()), stated=settings.yaml_version_set)
         self.composer = Composer(settings, self.options.overrides)
 
     def _wanted(self, rule_id: str) -> bool:
@@ -220,7 +221,7 @@ class Checker:
 
         opts_r = self.resolve_opts
         if self.settings.run_configs and matches(shown, self.settings.run_configs):
-            opts_r = ResolveOptions(opts_r.keys, opts_r.version, True)
+            opts_r = ResolveOptions(opts_r.keys, opts_r.version, True, opts_r.readers, opts_r.stated)
         model = resolve(doc, comp.root, opts_r, index)
         model.settings = self.settings
         model.files = comp.files
