@@ -1,0 +1,147 @@
+"""``trimtab map`` on three invented layouts (issue #18), each with the key map its author meant:
+
+- brightwater/: two configs of one layout whose mini-batch counts prompts on each device (no key
+  says so; only that reading makes the numbers whole);
+- copperline-tern-1b.yaml: evaluation and validation blocks that mirror the training keys;
+- marrowfield-plover-7b.yaml: null, empty and ``${...}`` values filled at launch, and a KL
+  estimator written in the team's own words.
+
+Each draft is compared line by line with its expected key map (``*.expected.toml`` beside the
+fixture: the draft's key-map lines without their reasons, and the first line of each unit
+question). Then the user's confirmation is made (the commented lines the layout's author would
+uncomment) and a check of the configs must hold no finding of the run arithmetic or the
+vocabulary: following the draft gives no false finding.
+"""
+from __future__ import annotations
+
+import json
+import re
+import shutil
+import sys
+from pathlib import Path
+
+import pytest
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+from support import FIXTURES, run_cli
+
+MAPS = FIXTURES / "adopt" / "map"
+LINE = re.compile(r'^(#\s*)?"[a-z_]+\.[a-z_]+" = ')
+
+# layout -> (what map is given, the commented lines the author confirms, what each concept must read)
+LAYOUTS = {
+    "brightwater": (("brightwater",), (), {
+        "batch.mini": ("optimiser_cfg.update_chunk", "prompt", "gpu"),
+        "batch.micro_per_gpu": ("optimiser_cfg.device_chunk", "completion", "gpu"),
+        "batch.prompts": ("method.prompts_per_round", "prompt", "global"),
+        "rollout.group_size": ("method.answers_per_prompt",),
+        "cluster.nodes": ("cluster_cfg.hosts",),
+        "cluster.gpus_per_node": ("cluster_cfg.devices_each",),
+        "optim.epochs": ("optimiser_cfg.passes",),
+        "optim.lr": ("optimiser_cfg.step_size",),
+        "rollout.temperature": ("sampler.temp",),
+        "length.prompt_max": ("sampler.prompt_tokens",),
+        "length.response_max": ("sampler.answer_tokens",),
+        "run.estimator": ("method.family",),
+        "kl.coef": ("optimiser_cfg.anchor_coef",),
+    }),
+    "copperline": (("copperline-tern-1b.yaml",), (
+        '# "batch.mini" = { key = "learner.update_chunk", per = "completion", scope = "global" }',), {
+        "rollout.temperature": ("rollout.heat",),
+        "rollout.top_p": ("rollout.nucleus",),
+        "length.response_max": ("rollout.answer_tokens",),
+        "length.prompt_max": ("rollout.prompt_tokens",),
+        "rollout.group_size": ("scheme.draws_per_prompt",),
+        "batch.prompts": ("scheme.prompts_per_round", "prompt", "global"),
+        "batch.mini": ("learner.update_chunk", "completion", "global"),
+        "run.estimator": ("scheme.family",),
+        "optim.lr": ("learner.step_size",),
+        "optim.grad_clip": ("learner.gradient_cap",),
+        "kl.coef": ("learner.anchor.divergence_coef",),
+        "reference.source": ("learner.anchor.frozen_weights",),
+    }),
+    "marrowfield": (("marrowfield-plover-7b.yaml",), (
+        '# "batch.mini" = { key = "learner.samples_per_update", per = "completion", scope = "global" }',
+        '# "kl.estimator" = { key = "learner.regulariser.divergence_estimator", values = { "unbiased_low_var" = "k3" } }',
+        '# "schedule.total_steps" = "job.total_rounds"'), {
+        "run.estimator": ("job.family",),
+        "rollout.group_size": ("job.answers_per_prompt",),
+        "batch.prompts": ("job.prompts_per_round", "prompt", "global"),
+        "batch.mini": ("learner.samples_per_update", "completion", "global"),
+        "batch.micro_per_gpu": ("learner.samples_per_device", "completion", "gpu"),
+        "rollout.temperature": ("gen.temp",),
+        "length.response_max": ("gen.answer_tokens",),
+        "optim.lr": ("learner.step_size",),
+        "kl.coef": ("learner.regulariser.divergence_coef",),
+        "kl.estimator": ("learner.regulariser.divergence_estimator",),
+        "cluster.gpus_per_node": ("hosting.devices_each",),
+        "cluster.nodes": ("hosting.machines",),
+        "model.source": ("hosting.policy_weights",),
+    }),
+}
+
+
+def key_map_lines(draft: str) -> list[str]:
+    """The draft's key-map lines without their reasons, and the first line of each unit question."""
+    out = []
+    for line in draft.splitlines():
+        if LINE.match(line):
+            out.append(line.split("  # ", 1)[0])
+        elif line.startswith("# unit of "):
+            out.append(line)
+    return out
+
+
+def expected_lines(name: str) -> list[str]:
+    text = (MAPS / f"{name}.expected.toml").read_text(encoding="utf-8")
+    return [line for line in text.splitlines() if line and not line.startswith("## ")]
+
+
+def drafted(name: str, tmp_path: Path) -> tuple[Path, str, str]:
+    given, _confirm, _truth = LAYOUTS[name]
+    root = tmp_path / name
+    root.mkdir()
+    (root / ".git").mkdir()
+    for g in given:
+        src = MAPS / g
+        (shutil.copytree if src.is_dir() else shutil.copy)(src, root / g)
+    r = run_cli("map", *given, "--output", "keys.draft.toml", cwd=root)
+    assert r.code == 0, r.err
+    return root, (root / "keys.draft.toml").read_text(encoding="utf-8"), r.out
+
+
+def confirmed(draft: str, confirm: tuple[str, ...]) -> str:
+    lines = draft.splitlines()
+    for c in confirm:
+        hits = [i for i, line in enumerate(lines) if line.split("  # ", 1)[0] == c]
+        assert len(hits) == 1, c
+        lines[hits[0]] = lines[hits[0]][2:]
+    return "\n".join(lines) + "\n"
+
+
+@pytest.mark.parametrize("name", sorted(LAYOUTS))
+def test_the_draft_is_the_expected_key_map_line_by_line(name, tmp_path):
+    _root, draft, _report = drafted(name, tmp_path)
+    tomllib.loads(draft)
+    assert key_map_lines(draft) == expected_lines(name)
+
+
+@pytest.mark.parametrize("name", sorted(LAYOUTS))
+def test_following_the_draft_reads_every_concept_right_and_gives_no_false_finding(name, tmp_path):
+    root, draft, _report = drafted(name, tmp_path)
+    given, confirm, truth = LAYOUTS[name]
+    (root / "pyproject.toml").write_text(confirmed(draft, confirm), encoding="utf-8")
+    table = tomllib.loads((root / "pyproject.toml").read_text(encoding="utf-8"))["tool"]["trimtab"]["keys"]
+    got = {c: (s,) if isinstance(s, str) else (s["key"], s["per"], s["scope"]) if "per" in s else (s["key"],)
+           for c, s in table.items()}
+    assert got == truth
+    r = run_cli("check", *given, "--format", "json", cwd=root)
+    findings = json.loads(r.out)["findings"]
+    wrong = [f for f in findings if f["rule"].split("-")[0] in ("BAT", "SMP", "LEN", "VOC", "KL")
+             and f["level"] != "note"]
+    assert wrong == [], findings
+    assert r.code == 0, r.out
