@@ -38,11 +38,7 @@ from .document import Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .model import RunModel, Value
 from .redact import for_text, mask
-from .vocabulary import ALIASES, CONCEPTS, normalise_key
-
-
-def evaluation_section(sections):  # TEMPORARY until the shared one lands on main
-    return next((p for p in sections if normalise_key(p) in ("eval", "evaluation", "validation", "val", "test")), None)
+from .vocabulary import ALIASES, CONCEPTS, evaluation_section, normalise_key
 
 # Generic synonyms of the trade, folded to one word before names are compared. Phrases first.
 PHRASES = {
@@ -60,7 +56,7 @@ _SYN_GROUPS = {
     "eps": "eps epsilon range band",
     "high": "high upper hi",
     "low": "low lower lo",
-    "reference": "reference ref frozen",
+    "reference": "reference ref frozen anchor",
     "model": "model weights checkpoint_path",
     "grad": "grad gradient gradients",
     "max": "max maximum limit cap",
@@ -175,6 +171,7 @@ VALUE_WORDS: dict[str, tuple[tuple[str, tuple[str, ...]], ...]] = {
 # Values that say nothing about an enumeration on their own (they name a value of several).
 PLAIN_VALUES = frozenset({"none", "true", "false", "on", "off", "yes", "no", "null", ""})
 
+_ENUMERATED = frozenset(v for c in CONCEPTS.values() for v in c.values) - PLAIN_VALUES
 MIN_NAME = 0.4  # the least name overlap (Dice) that counts as name evidence
 LIVE_MARGIN = 1.0  # a live line leads every other candidate by at least this score
 W_NAME, W_SECTION, W_RANGE, W_RANGE_OUT, W_ENUM, W_EVERY = 3.0, 1.5, 1.0, -2.0, 3.0, 0.5
@@ -543,6 +540,8 @@ def score(concept: str, path: tuple[str, ...], node: Node, version: str) -> Cand
         reasons.append(f"name: '{leaf}' ~ '{which.label}' ({shared})")
     enum = False
     proposal: tuple = ()
+    if not c.values and isinstance(value, str) and not late and value.strip().lower() in _ENUMERATED:
+        return None  # a value of an enumeration (grpo, k3) is that concept's, not a name or a path
     if c.values and isinstance(value, str) and not late:
         written = value.strip().lower()
         enum = written in c.values and written not in PLAIN_VALUES
