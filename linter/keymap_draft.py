@@ -351,21 +351,21 @@ class Draft:
                  "[tool.trimtab.keys]"]
         for concept in sorted(self.live):
             c = self.live[concept]
-            lines.extend("# " + n for n in _unit_evidence(c))
-            lines.append(f"{_q(concept)} = {c.toml_value(c.chosen)}  # {for_text('; '.join(c.reasons))}")
+            lines.extend("# " + for_text(mask(n)) for n in _unit_evidence(c))
+            lines.append(f"{_q(concept)} = {c.toml_value(c.chosen)}  # {for_text(mask('; '.join(c.reasons)))}")
         for concept in sorted(self.questions):
             c = self.questions[concept]
             if c.settled:
-                lines.extend("# " + n for n in _unit_evidence(c))
-                lines.append(f"{_q(concept)} = {c.toml_value(c.chosen)}  # {for_text('; '.join(c.reasons))}")
+                lines.extend("# " + for_text(mask(n)) for n in _unit_evidence(c))
+                lines.append(f"{_q(concept)} = {c.toml_value(c.chosen)}  # {for_text(mask('; '.join(c.reasons)))}")
         for concept in sorted(set(self.ambiguous) | {c for c, q in self.questions.items() if not q.settled}):
             cands = self.ambiguous.get(concept) or [self.questions[concept]]
             lines.append(f"# {concept}: {_state(cands)} ({CONCEPTS[concept].meaning})")
             for c in cands:
-                lines.extend("# " + n for n in _unit_evidence(c))
+                lines.extend("# " + for_text(mask(n)) for n in _unit_evidence(c))
                 for unit in ([o.unit for o in c.unit_lines()] or [None]):
                     lines.append(f"# {_q(concept)} = {c.toml_value(unit, values=True)}  "
-                                 f"# {for_text('; '.join(c.reasons + _line_reasons(c, unit)))}")
+                                 f"# {for_text(mask('; '.join(c.reasons + _line_reasons(c, unit))))}")
         return "\n".join(lines) + "\n"
 
     def report(self, out: TextIO, draft_to: str | None) -> None:
@@ -378,7 +378,7 @@ class Draft:
                 c = self.questions[concept]
                 out.write(f"  {concept} ({CONCEPTS[concept].meaning}): {for_text(c.key)}  line {c.line}: {_shown(c)}\n")
                 for n in _unit_evidence(c) + _proposal_words(c):
-                    out.write(f"      {for_text(n)}\n")
+                    out.write(f"      {for_text(mask(n))}\n")
         if self.live or self.ambiguous:
             out.write("\nCould not place (candidates, with why):\n")
             for concept in sorted(set(self.live) | set(self.ambiguous)):
@@ -389,9 +389,9 @@ class Draft:
                 out.write(f"  {concept} ({CONCEPTS[concept].meaning}): {state}\n")
                 for c in cands:
                     out.write(f"      {for_text(c.key)}  line {c.line}: {_shown(c)}  -- "
-                              f"{for_text('; '.join(c.reasons))}\n")
+                              f"{for_text(mask('; '.join(c.reasons)))}\n")
                     for n in _unit_evidence(c) + _proposal_words(c):
-                        out.write(f"        {for_text(n)}\n")
+                        out.write(f"        {for_text(mask(n))}\n")
         if self.absent:
             out.write("\nNo candidate key in " + ("this file" if self.files == 1 else "these files") + ":\n")
             out.write(textwrap.fill(", ".join(self.absent), 96, initial_indent="  ", subsequent_indent="  ") + "\n")
@@ -823,6 +823,16 @@ def _by_unit(concept: str, units: tuple, verdict) -> dict[Unit, UnitOption]:
     """Each reading of one count: consistent when some reading of the whole run with it is,
     broken when every one breaks (with what breaks), unknown otherwise (with what is missing)."""
     out: dict[Unit, UnitOption] = {}
+    have_key: dict[Unit, tuple] = {}
+    rank = {"consistent": 0, "unknown": 1, "broken": 2}
+
+    def others(a) -> tuple:
+        return tuple((c, u) for c, u in a.reading if c != concept)
+
+    # what breaks is told under the best reading of the other counts, so that it is this count's doing
+    best_others: dict[tuple, int] = {}
+    for a, s in verdict.considered:
+        best_others[others(a)] = min(rank[s], best_others.get(others(a), 2))
     for a, status in verdict.considered:
         u = dict(a.reading).get(concept, units[0] if units else None)
         if u is None:
@@ -831,11 +841,10 @@ def _by_unit(concept: str, units: tuple, verdict) -> dict[Unit, UnitOption]:
                "broken": "; ".join(breaks(a)),
                "unknown": "needs " + "; ".join(dict.fromkeys(t.missing for t in a.terms.values()
                                                                if t.missing and t.ambiguous))}[status]
-        have = out.get(u)
-        rank = {"consistent": 0, "unknown": 1, "broken": 2}
-        if have is None or rank[status] < rank[have.status] or (
-                status == "broken" == have.status and len(why) < len(have.why)):
+        key = (rank[status], best_others[others(a)], len(why))
+        if u not in out or key < have_key[u]:
             out[u] = UnitOption(u, status, why)
+            have_key[u] = key
     for u in units:
         out.setdefault(u, UnitOption(u, "unknown", ""))
     return {u: out[u] for u in units}

@@ -202,3 +202,22 @@ def test_an_alias_that_matches_twice_is_offered_both_ways(tmp_path):
     assert "rollout.temperature" not in live
     assert {k for c, k in commented if c == "rollout.temperature"} == {"actor.temperature", "policy.temperature"}
     assert "rollout.temperature (sampling temperature): ambiguous: 2 candidates" in report
+
+
+def test_counts_the_alias_table_placed_are_asked_their_unit_too(tmp_path):
+    """BAT-9's bad fixture: the alias table places rollout_batch_size and mini_batch_size, and only
+    the prompt reading of both makes the numbers whole. The draft states exactly the key-map lines
+    explain gives to settle it (arithmetic.keymap_line), and with them the check has no unit note."""
+    root, _config, draft, report = draft_for(tmp_path, FIXTURES / "rules" / "BAT-9" / "bad.yaml")
+    explained = run_cli("explain", "bad.yaml", cwd=root).out
+    settle = explained[explained.index("To settle it, add to the key map:"):].splitlines()[1:3]
+    assert len(settle) == 2
+    live = [line.split("  # ", 1)[0] for line in draft.splitlines() if line.startswith('"batch.')]
+    for line in settle:
+        assert line.strip() in live
+    assert "placed by the alias table ('mini_batch_size')" in draft
+    assert "prompts, global is the only reading the file's numbers make consistent" in report
+    assert "BAT-9" in run_cli("check", "bad.yaml", cwd=root).out
+    (root / "pyproject.toml").write_text(draft, encoding="utf-8")
+    after = run_cli("check", "bad.yaml", cwd=root)
+    assert "BAT-" not in after.out, after.out
