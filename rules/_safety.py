@@ -31,7 +31,7 @@ _KIND = {w: k for k, words in _KIND_WORDS.items() for w in words}
 
 def kind_of(comp) -> str:
     """rule, code, model, judge, remote, or '' when it cannot be told."""
-    from trimtab.codescan import looks_like_code
+    from trimtab.engine.codescan import looks_like_code
 
     k = comp.get("kind")
     if isinstance(k, str) and k.strip().lower() in _KIND:
@@ -63,7 +63,7 @@ def label(comp) -> str:
 
 
 def scanner(ctx):
-    from trimtab.codescan import scanner as make
+    from trimtab.engine.codescan import scanner as make
 
     return make(ctx.settings if ctx.settings is not None else ctx.model.settings)
 
@@ -100,7 +100,7 @@ class CodeReward:
 def code_rewards(ctx) -> list[CodeReward]:
     """Components that execute generated code: declared so, or found so by static analysis.
     Computed once per run (every EXE rule asks)."""
-    from trimtab.codescan import parse_reference
+    from trimtab.engine.codescan import parse_reference
 
     memo = vars(ctx.model).get("_code_rewards")
     if memo is not None:

@@ -8,7 +8,8 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
-from trimtab import Location, Scalar, budget, rule
+from trimtab import Location, Scalar, rule
+from trimtab.common import budget
 
 from ._safety import kind_of, label, safe_url, scanner
 
@@ -33,7 +34,7 @@ def _shown_list(items, limit=6) -> str:
       "absolute path, a symbolic link pointing out) is refused and its target is not read.",
       needs=SOURCES)
 def reference_unverifiable(ctx):
-    from trimtab.codescan import parse_reference
+    from trimtab.engine.codescan import parse_reference
 
     sc = scanner(ctx)
     roots = [r or "." for r in sc.root_names]

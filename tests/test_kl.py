@@ -71,7 +71,7 @@ KL_IDS = ["KL-1", "KL-2", "KL-3", "KL-4", "KL-5", "KL-6"]
 
 @pytest.mark.parametrize("rule_id", KL_IDS)
 def test_rules_command_shows_the_rationale(rule_id):
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     rule = Registry().rules[rule_id]
     r = run_cli("rules", rule_id)

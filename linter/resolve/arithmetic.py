@@ -20,9 +20,9 @@ from itertools import product
 from math import gcd
 from typing import Any
 
-from .findings import Location
+from ..common.findings import Location
 from .model import RunModel, Value, whole
-from .vocabulary import CONCEPTS, normalise_key
+from ..common.vocabulary import CONCEPTS, normalise_key
 
 __all__ = ["PARALLEL", "Unit", "Term", "Step", "Arithmetic", "Verdict", "of", "readings", "judge", "settle",
            "settled", "sources", "where", "related", "remainder", "lcm", "near_multiples", "near_divisors",

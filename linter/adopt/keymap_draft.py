@@ -33,12 +33,12 @@ import textwrap
 from dataclasses import dataclass, field
 from typing import TextIO
 
-from .arithmetic import COUNTED, Unit, admissible, breaks, judge
-from .document import Mapping, Node, Scalar, Sequence
-from .findings import Location
-from .model import RunModel, Value
-from .redact import for_text, mask
-from .vocabulary import ALIASES, CONCEPTS, evaluation_section, normalise_key
+from ..common.findings import Location
+from ..common.redact import for_text, mask
+from ..common.vocabulary import ALIASES, CONCEPTS, evaluation_section, normalise_key
+from ..load.document import Mapping, Node, Scalar, Sequence
+from ..resolve.arithmetic import COUNTED, Unit, admissible, breaks, judge
+from ..resolve.model import RunModel, Value
 
 # Generic synonyms of the trade, folded to one word before names are compared. Phrases first.
 PHRASES = {
@@ -614,7 +614,7 @@ def _keys(root: Node):
 
 # --- one draft from every run of the layout ---------------------------------------------------------
 def _roots(m: RunModel):
-    from .shell import runs_of
+    from ..compose.shell import runs_of
 
     roots = runs_of(m.doc)
     return roots[m.index] if roots and m.index < len(roots) else None
@@ -853,7 +853,7 @@ def _by_unit(concept: str, units: tuple, verdict) -> dict[Unit, UnitOption]:
 def draft_command(outcome, output: str | None, out: TextIO, err: TextIO, folders: tuple = ()) -> int:
     """Draft one key map from every checked file of the request (a pipeline Outcome with its models
     kept): one config, several of one layout, or a folder of them."""
-    from .explain import not_checked, problems_of
+    from ..report.explain import not_checked, problems_of
 
     if not outcome.files and not outcome.missing and folders:
         named = ", ".join(folders)
@@ -874,7 +874,7 @@ def draft_command(outcome, output: str | None, out: TextIO, err: TextIO, folders
         ", ...)" if len(shown) > 3 else ")")
     d = draft(runs, label)
     if output:
-        from .paths import write_atomic
+        from ..common.paths import write_atomic
 
         write_atomic(output, d.toml())
     d.report(out, output)
