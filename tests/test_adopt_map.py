@@ -221,3 +221,26 @@ def test_counts_the_alias_table_placed_are_asked_their_unit_too(tmp_path):
     (root / "pyproject.toml").write_text(draft, encoding="utf-8")
     after = run_cli("check", "bad.yaml", cwd=root)
     assert "BAT-" not in after.out, after.out
+
+
+def test_enumerated_values_trimtab_does_not_know_get_a_value_synonym_line(tmp_path):
+    """Placed by the alias table or the native layout, a value none of the concept's own is asked
+    what it means: the draft proposes values = { ... } with why, commented out until confirmed.
+    Once confirmed, the settings accept the lines and the estimator is read as the one meant."""
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "run.yaml").write_text(
+        "algorithm: grpo\nclip_ratio: 0.2\nkl:\n  kl_coef: 0.01\n  kl_estimator: low_var_kl\n  placement: in_reward\n"
+        "rollout:\n  group_size: 8\n  temperature: 1.0\nsandbox:\n  kind: subprocess\n", encoding="utf-8")
+    r = run_cli("map", "run.yaml", cwd=tmp_path)
+    draft = r.out[r.out.index("[tool.trimtab.keys]"):]
+    for line in ('# "kl.estimator" = { key = "kl.kl_estimator", values = { "low_var_kl" = "k3" } }',
+                 '# "kl.placement" = { key = "kl.placement", values = { "in_reward" = "reward" } }',
+                 '# "sandbox.kind" = { key = "sandbox.kind", values = { "subprocess" = "process" } }'):
+        assert line + "  # " in draft, line
+    assert "its words fit k3 or k2: the line says k3, confirm which" in draft
+    assert "placed by the native layout ('kind')" in draft
+    assert "KL-4" in run_cli("check", "run.yaml", cwd=tmp_path).out
+    (tmp_path / "pyproject.toml").write_text(draft.replace("# \"", "\"").replace("\n# kl.", "\n## kl.")
+                                             .replace("\n# sandbox.", "\n## sandbox."), encoding="utf-8")
+    after = run_cli("check", "run.yaml", cwd=tmp_path)
+    assert after.code == 0 and "KL-4" not in after.out and "SEC-" not in after.out, after.out + after.err

@@ -186,3 +186,20 @@ def test_without_the_stated_unit_the_same_key_gives_a_false_finding(tmp_path):
     (root / "pyproject.toml").write_text(plain, encoding="utf-8")
     r = run_cli("check", "brightwater", "--format", "json", cwd=root)
     assert {f["rule"] for f in json.loads(r.out)["findings"]} & {"BAT-2", "BAT-3", "BAT-7"}
+
+
+def test_several_configs_make_one_draft_and_a_concept_in_some_is_still_placed(tmp_path):
+    (tmp_path / ".git").mkdir()
+    base = "recipe:\n  family: rloo\n  answers_per_prompt: 4\nlearner:\n  step_size: 1.0e-6\n"
+    (tmp_path / "a.yaml").write_text(base + "regulariser:\n  divergence_coef: 0.02\n", encoding="utf-8")
+    (tmp_path / "b.yaml").write_text(base.replace("1.0e-6", "2.0e-6"), encoding="utf-8")
+    r = run_cli("map", "a.yaml", "b.yaml", cwd=tmp_path)
+    assert r.code == 0, r.err
+    assert r.out.startswith("2 configs of one layout (a.yaml, b.yaml)")
+    draft = r.out[r.out.index("[tool.trimtab.keys]"):]
+    assert '"kl.coef" = "regulariser.divergence_coef"  # ' in draft and "in 1 of 2 configs" in draft
+    assert "in all 2 configs, always 4" in draft  # the same value in every config: stronger evidence
+    assert "in all 2 configs (2 different values)" in draft
+    assert [line.split("  # ")[0] for line in draft.splitlines() if line.startswith('"')] == [
+        '"kl.coef" = "regulariser.divergence_coef"', '"optim.lr" = "learner.step_size"',
+        '"rollout.group_size" = "recipe.answers_per_prompt"', '"run.estimator" = "recipe.family"']

@@ -728,15 +728,16 @@ def _questions(d: Draft, placed_values: dict[str, list[tuple[RunModel, Value]]])
     and what a value trimtab does not know means (an enumeration)."""
     for concept, found in placed_values.items():
         m, v = found[0]
-        if v.via != "alias" or not isinstance(v.node, Scalar):
-            continue
+        if v.via not in ("alias", "native") or not isinstance(v.node, Scalar):
+            continue  # the key map already says what the user means
         c = CONCEPTS[concept]
-        counted = concept in COUNTED and v.unit is None
+        counted = concept in COUNTED and v.unit is None and v.via == "alias"  # native: trimtab's own unit
         unknown = (c.values and isinstance(v.value, str) and v.value.strip().lower() not in c.values
                    and not _late(v.node, m.version))
         if not counted and not unknown:
             continue
-        cand = Candidate(concept, v.key, v.node, 0.0, [f"placed by the alias table ('{v.key.rsplit('.', 1)[-1]}')"],
+        how = "the alias table" if v.via == "alias" else "the native layout"
+        cand = Candidate(concept, v.key, v.node, 0.0, [f"placed by {how} ('{v.key.rsplit('.', 1)[-1]}')"],
                          placed=True, late=_late(v.node, m.version),
                          value_text=v.node.text.strip())
         if unknown:
