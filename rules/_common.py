@@ -42,7 +42,8 @@ def shown(v) -> str:
         if isinstance(text, str) and text:
             return text
         if getattr(node, "kind", "") in ("mapping", "sequence"):
-            return f"a {node.kind}"
+            raw = getattr(v, "raw", None)  # a list read as one value keeps its text in short ([loss, reward])
+            return raw if isinstance(raw, str) and raw else f"a {node.kind}"
     value = getattr(v, "value", v)
     if isinstance(value, bool):
         return str(value).lower()

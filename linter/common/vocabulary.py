@@ -257,6 +257,11 @@ def _aliases() -> dict[str, tuple[Alias, ...]]:
 
 ALIASES = _aliases()
 
+# Names that hold keys rather than a value: a mapping written under one of them is a section
+# (``sampling: {temperature: ...}``), never a wrong-shaped value of the concept the word also names.
+SECTION_WORDS = frozenset(ROLLOUT + CRITIC + REF + ELSEWHERE + SANDBOX + MODEL + CKPT) | frozenset(
+    w for found in ALIASES.values() for a in found for w in a.under)
+
 
 def normalise_key(key: str) -> str:
     return key.strip().lower().replace("-", "_")

@@ -51,6 +51,10 @@ class Picture:
     D: int | None = None
     A: int | None = None
     E: int | None = None
+    mini_parts: int | None = None  # whole mini-batches and what is left (the arithmetic's mini step)
+    mini_left: int = 0
+    columns: int | None = None  # whole micro-batch columns of a mini-batch and what is left (its lanes step)
+    columns_left: int = 0
 
 
 def _int(x):
@@ -121,7 +125,7 @@ def batch_steps(model: RunModel) -> Picture:
     mini = Step("mini", "Mini-batches", "", [q["batch.mini"]])
     s = a.step("mini")
     if s is not None and s.divides is False:
-        k = R // M
+        k = s.parts
         mini.broken = f"{R} completions do not split into mini-batches of {M}: {_x(s.formula)}"
         mini.remainder = s.remainder
         mini.text = f"{_x(s.formula)}: {k} whole mini-batches, remainder {s.remainder}"
@@ -164,7 +168,7 @@ def batch_steps(model: RunModel) -> Picture:
             # the ranks themselves cannot be counted: the world does not split into model-parallel groups
             world, X = ranks.terms[0].whole, a.step("replica").value
             group = " \u00d7 ".join(str(t.whole) for t in ranks.terms[1:]) if len(ranks.terms) > 2 else str(X)
-            k, r = divmod(world, X)
+            k, r = ranks.parts, ranks.remainder
             micro.broken = (f"{world} GPUs do not split into model-parallel groups of {group}: "
                             f"{world} = {k} \u00d7 {X} + {r}")
             micro.remainder = r
@@ -172,23 +176,29 @@ def batch_steps(model: RunModel) -> Picture:
             micro.known = True
     steps.append(micro)
     upd = Step("updates", "Optimiser updates per step", "", [q["optim.epochs"]])
-    s = a.step("updates")
+    s, split = a.step("updates"), a.step("mini")
     if s is not None and s.divides is not False and not isinstance(s.value, float):
-        k, e = R // M, E or 1
+        k, e = split.parts, E or 1
         upd.text = (f"{k} mini-batch{'es' if k != 1 else ''} \u00d7 {e} epoch{'s' if e != 1 else ''} = "
                     f"{s.value} update{'s' if s.value != 1 else ''}")
         if s.agrees is False:
             upd.broken = f"{s.stated.whole} updates per step are stated, but {_x(s.formula)} = {s.value}"
     elif s is not None:
-        k = R // M
+        k = split.parts
         upd.text = (f"{_x(s.formula)} = {arithmetic.fmt(s.value)} updates per step: not a whole number; "
-                    f"{k} whole mini-batch{'es' if k != 1 else ''}, the {R % M} completions left over make no "
+                    f"{k} whole mini-batch{'es' if k != 1 else ''}, the {split.remainder} completions left over make no "
                     "whole mini-batch")
     else:
         upd.text = f"{_v(E)} epoch(s) over each step's completions"
         upd.known = False
     steps.append(upd)
-    return Picture(steps, P, G, R, M, u, D, A, E)
+    pic = Picture(steps, P, G, R, M, u, D, A, E)
+    for key, whole, left in (("mini", "mini_parts", "mini_left"), ("lanes", "columns", "columns_left")):
+        s = a.step(key)
+        if s is not None and s.parts is not None:
+            setattr(pic, whole, s.parts)
+            setattr(pic, left, s.remainder or 0)
+    return pic
 
 
 def _v(n) -> str:

@@ -151,8 +151,8 @@ def batch_svg(anchor: Anchor, rid: str, pic: Picture) -> str:
     s = steps["mini"]
     body += _label(anchor, 12, y, "4  " + s.title, [("mini-batch M", s.quantities[0])])
     mini_right = None
-    if R and M and M > 0 and scale:
-        k, r = divmod(R, M)
+    if R and M and scale and pic.mini_parts is not None:
+        k, r = pic.mini_parts, pic.mini_left
         body += _segments(BAR_X, y, k * M * scale, bar_h, k, "bar-mini", f"{M}",
                           many=f"{num(k)} mini-batches of {M}")
         if k:
@@ -173,8 +173,8 @@ def batch_svg(anchor: Anchor, rid: str, pic: Picture) -> str:
     body += labels
     top = y + 8
     lanes_h = 0
-    if M and u and D and M > 0:
-        k, r = divmod(M, u * D)
+    if M and u and D and pic.columns is not None:
+        k, r = pic.columns, pic.columns_left
         cols = k + (1 if r else 0)
         cw = BAR_W / cols if cols else BAR_W
         shown = D if D <= 8 else 7

@@ -53,8 +53,10 @@ class Unused:
     concept: str
     key: str  # the key path in the user's file
     location: Location
-    reason: str  # "evaluation section 'eval'", "wrong shape: a list where a whole number is expected", ...
-    kind: str = ""  # evaluation, shape, section, lost, keymap
+    reason: str  # "in the evaluation section 'eval'", "a list where a whole number is expected", ...
+    kind: str = ""  # evaluation; shape (reported: VOC-2); lost (another key was read); ambiguous; keymap
+    shown: str = ""  # the value as written, in short (a list or mapping)
+    node: Any = None  # the value's node
 
 
 @dataclass
@@ -92,7 +94,8 @@ class RunModel:
     roles: dict[str, str] = field(default_factory=dict)  # key path -> the layer its value came from (compose)
     notes: list = field(default_factory=list)  # values known only at launch (compose problems, note level)
     unknown: dict[str, Value] = field(default_factory=dict)  # concepts whose value is known only at launch
-    touched: set = field(default_factory=set)  # unknown concepts a rule asked for (engine.run_rule)
+    touched: set = field(default_factory=set)  # unknown or unusable concepts a rule asked for (engine.run_rule)
+    unusable: set = field(default_factory=set)  # concepts written with a value of the wrong shape (VOC-2)
 
     @property
     def path(self) -> str:
@@ -105,12 +108,12 @@ class RunModel:
 
     def get(self, concept: str) -> Value | None:
         v = self.values.get(concept)
-        if v is None and self.unknown and concept in self.unknown:
+        if v is None and (self.unknown and concept in self.unknown or self.unusable and concept in self.unusable):
             self.touched.add(concept)
         return v if v is not None else self.derived.get(concept)
 
     def stated(self, concept: str) -> Value | None:
-        if self.unknown and concept in self.unknown:
+        if self.unknown and concept in self.unknown or self.unusable and concept in self.unusable:
             self.touched.add(concept)
         return self.values.get(concept)
 
