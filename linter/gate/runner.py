@@ -103,7 +103,8 @@ class Checker:
 
             check_published(settings.keymap, published)
             keys = {**parse_keys(published), **keys}
-        self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version)
+        self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version,
+                                           readers=tuple(settings.readers.items()), stated=settings.yaml_version_set)
         self.composer = Composer(settings, self.options.overrides)
 
     def _wanted(self, rule_id: str) -> bool:
@@ -199,7 +200,7 @@ class Checker:
 
         opts_r = self.resolve_opts
         if self.settings.run_configs and matches(shown, self.settings.run_configs):
-            opts_r = ResolveOptions(opts_r.keys, opts_r.version, True)
+            opts_r = ResolveOptions(opts_r.keys, opts_r.version, True, opts_r.readers, opts_r.stated)
         model = resolve(doc, comp.root, opts_r, index)
         model.settings = self.settings
         model.files = comp.files
@@ -219,7 +220,9 @@ class Checker:
 
         doc = load(path, shown, self.settings)
         if not doc.readable or shown in self.composer.base_files:
-            return [], [], not doc.readable
+            # a file that cannot be parsed stays so while its content is the same; one that could
+            # not be read (or changed while it was read) is not known yet
+            return [], [], any(p.kind == "io" for p in doc.problems)
         runs, files = [], set()
         for index, root in enumerate(runs_of(doc)):
             comp = self.composer.compose(doc, root, path)
