@@ -219,7 +219,9 @@ class Checker:
 
         doc = load(path, shown, self.settings)
         if not doc.readable or shown in self.composer.base_files:
-            return [], [], not doc.readable
+            # a file that cannot be parsed stays so while its content is the same; one that could
+            # not be read (or changed while it was read) is not known yet
+            return [], [], any(p.kind == "io" for p in doc.problems)
         runs, files = [], set()
         for index, root in enumerate(runs_of(doc)):
             comp = self.composer.compose(doc, root, path)
