@@ -99,6 +99,21 @@ CONCEPTS: dict[str, Concept] = {c.name: c for c in (
 )}
 
 # Fields of one reward component (reward.sources items).
+def fits(value, expected: str) -> bool:
+    """Does a value have a concept's type (int, number, bool, str; any other type takes anything but a
+    date, which no concept means)?"""
+    if expected == "int":
+        return isinstance(value, int) and not isinstance(value, bool) or (
+            isinstance(value, float) and value.is_integer())
+    if expected == "number":
+        return isinstance(value, (int, float)) and not isinstance(value, bool)
+    if expected == "bool":
+        return isinstance(value, bool)
+    if expected == "str":
+        return isinstance(value, str)
+    return value is None or isinstance(value, (str, int, float, bool, list, dict))
+
+
 def declare(concept: Concept) -> Concept:
     """Add a plugin's concept to the vocabulary (validated by the plugin registry)."""
     CONCEPTS.setdefault(concept.name, concept)

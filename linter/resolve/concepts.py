@@ -12,7 +12,7 @@ from .arithmetic import Unit, settle
 from .model import Component, RunModel, Unused, Value
 from ..common.settings import KeySpec
 from ..common.vocabulary import (ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, SECTION_WORDS,
-                                 Concept, evaluation_section, normalise_key)
+                                 Concept, evaluation_section, fits, normalise_key)
 
 
 @dataclass
@@ -20,6 +20,8 @@ class ResolveOptions:
     keys: dict[str, KeySpec] = field(default_factory=dict)
     version: str = "1.1"
     force_rl: bool = False
+    readers: tuple = ()  # (glob, reader) from the settings, the first match wins
+    stated: bool = False  # the settings name the reader (yaml_version written)
 
 
 # Field words inside one reward component (generic).
@@ -36,7 +38,8 @@ _FIELD_WORDS = {
 
 
 def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> RunModel:
-    model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version)
+    model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version,
+                     readers=opts.readers, reader_named=opts.stated)
     # A composed run's root carries, per dotted key path, the places a value passed through.
     model.chains = getattr(root, "chains", None) or {}
     model.roles = getattr(root, "roles", None) or {}
@@ -413,7 +416,7 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     if isinstance(node, Unknown):  # known only at launch: out of the run, never reasoned about
         model.unknown[concept] = Value(concept, None, loc, node, via, key, chain, note=node.why)
         return
-    value = cast(Scalar, node).value(model.version)
+    value = model.read(node)
     v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
@@ -433,16 +436,7 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
 
 
 def _fits(value, expected: str) -> bool:
-    if expected == "int":
-        return isinstance(value, int) and not isinstance(value, bool) or (
-            isinstance(value, float) and value.is_integer())
-    if expected == "number":
-        return isinstance(value, (int, float)) and not isinstance(value, bool)
-    if expected == "bool":
-        return isinstance(value, bool)
-    if expected == "str":
-        return isinstance(value, str)
-    return True
+    return fits(value, expected) or expected not in ("int", "number", "bool", "str")
 
 
 def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:
@@ -464,21 +458,21 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                                         doc.loc(name_node), name_node, "component")
             comp.location = doc.loc(name_node)
         if isinstance(item, Scalar):
-            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component",
+            comp.fields["ref"] = Value("ref", model.read(item), doc.loc(item), item, "component",
                                        chain=_chain(model, at))
         elif isinstance(item, Mapping):
             _component_sandbox(model, comp, item)
             for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
                 if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
                                                    for a in ALIASES.get(normalise_key(word), ())):
-                    comp.fields["trust_remote_code"] = Value("trust_remote_code", sub.value(model.version),
+                    comp.fields["trust_remote_code"] = Value("trust_remote_code", model.read(sub),
                                                              doc.loc(sub), sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
                     sub = item.get(w)
                     if sub is not None:
-                        val = sub.value(model.version) if isinstance(sub, Scalar) else sub
+                        val = model.read(sub) if isinstance(sub, Scalar) else sub
                         comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
                                                         _chain(model, f"{at}.{w}"))
                         break
@@ -493,7 +487,7 @@ def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
         if normalise_key(word) not in SANDBOX:
             continue
         if isinstance(sub, Scalar):
-            comp.fields["sandbox.kind"] = Value("sandbox.kind", sub.value(model.version), model.doc.loc(sub), sub,
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", model.read(sub), model.doc.loc(sub), sub,
                                                 "component", word)
             return
         if not isinstance(sub, Mapping):
@@ -503,7 +497,7 @@ def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
                 continue
             for alias in ALIASES.get(normalise_key(name), ()):
                 if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
-                    comp.fields[alias.concept] = Value(alias.concept, v.value(model.version), model.doc.loc(v), v,
+                    comp.fields[alias.concept] = Value(alias.concept, model.read(v), model.doc.loc(v), v,
                                                        "component", f"{word}.{name}")
                     break
         return
