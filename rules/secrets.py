@@ -38,7 +38,7 @@ def literal_credential(ctx):
         shown = mask(text)
         if "://" in text and "@" in text:
             shown = safe_url(text) + ", user information masked"
-        yield ctx.finding(f"literal credential: {why} (masked: {shown})", ctx.doc.loc(node), subject=digest(text),
+        yield ctx.finding(f"literal credential, {why} (masked: {shown})", ctx.doc.loc(node), subject=digest(text),
                           suggestion="read it at run time from an environment variable or a secret store, "
                                      "and rotate it")
 
