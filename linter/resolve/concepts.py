@@ -12,7 +12,7 @@ from .arithmetic import Unit, settle
 from .model import Component, RunModel, Unused, Value
 from ..common.settings import KeySpec
 from ..common.vocabulary import (ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, SECTION_WORDS,
-                                 Concept, evaluation_section, normalise_key)
+                                 Concept, evaluation_section, fits, normalise_key, share_of_run)
 
 
 @dataclass
@@ -20,6 +20,8 @@ class ResolveOptions:
     keys: dict[str, KeySpec] = field(default_factory=dict)
     version: str = "1.1"
     force_rl: bool = False
+    readers: tuple = ()  # (glob, reader) from the settings, the first match wins
+    stated: bool = False  # the settings name the reader (yaml_version written)
 
 
 # Field words inside one reward component (generic).
@@ -36,7 +38,8 @@ _FIELD_WORDS = {
 
 
 def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> RunModel:
-    model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version)
+    model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version,
+                     readers=opts.readers, reader_named=opts.stated)
     # A composed run's root carries, per dotted key path, the places a value passed through.
     model.chains = getattr(root, "chains", None) or {}
     model.roles = getattr(root, "roles", None) or {}
@@ -86,7 +89,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             if alias.concept == "reward.sources" and isinstance(node, Scalar):
                 continue
             shape = "" if alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
-                _shape(alias.concept, node, leaf, model.version)
+                _shape(alias.concept, node, leaf, model.version, synonyms=opts.keys.get(alias.concept))
             if shape == "section":
                 continue  # a section named like the concept holds keys, not its value
             if alias.concept in mapped:
@@ -246,7 +249,8 @@ def _at(root: Node, key: str) -> Node | None:
 _EXPECTED = {"int": "a whole number", "number": "a number", "bool": "true or false", "str": "a word or text"}
 
 
-def _shape(concept: str, node: Node, leaf: str, version: str, named: bool = False) -> str:
+def _shape(concept: str, node: Node, leaf: str, version: str, named: bool = False,
+           synonyms: KeySpec | None = None) -> str:
     """How a value's shape fits its concept: "" when it fits (or is a list trimtab understands, see
     ``_combined``); "section" for a mapping that holds keys rather than the concept's value (found
     by an alias word that is also a section word, or standing for a word or a switch); otherwise
@@ -266,7 +270,7 @@ def _shape(concept: str, node: Node, leaf: str, version: str, named: bool = Fals
         if not named and (c.type in ("str", "bool") or leaf in SECTION_WORDS):
             return "section"
         return f"a mapping where {expected} is expected"
-    if _combined(c, node, version) is not None or _counted(c, leaf, node) is not None:
+    if _combined(c, node, version, synonyms) is not None or _counted(c, leaf, node) is not None:
         return ""
     return f"a list where {expected} is expected"
 
@@ -285,15 +289,17 @@ def _counted(c: Concept, leaf: str, node: Node) -> int | None:
     return len(node.items)
 
 
-def _combined(c: Concept, node: Node, version: str) -> str | None:
+def _combined(c: Concept, node: Node, version: str, synonyms: KeySpec | None = None) -> str | None:
     """A list of an enumeration's values read as one value: all of the parts that the enumeration
     names together as "both" (``placement: [loss, reward]`` is both) or one of them alone
-    (``[loss]``); None for any other list."""
+    (``[loss]``); None for any other list. Each item may be a value synonym of the key map."""
     if "both" not in c.values or not isinstance(node, Sequence) or not node.items:
         return None
     words = set()
     for item in node.items:
         value = item.value(version) if isinstance(item, Scalar) else None
+        meant = synonyms.meaning(value) if synonyms is not None else None
+        value = meant if meant is not None else value
         if not isinstance(value, str):
             return None
         words.add(value.strip().lower())
@@ -390,7 +396,7 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
         if c.type == "any":
             model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
             return
-        combined = _combined(c, node, model.version)
+        combined = _combined(c, node, model.version, synonyms)
         if combined is not None:  # a list that names one value of an enumeration (placement: [loss, reward])
             shown = _compact(node, model.version)
             model.values[concept] = Value(concept, combined, loc, node, via, key, chain,
@@ -403,14 +409,14 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
             model.values[concept] = Value(concept, count, loc, node, via, key, chain,
                                           note=f"the list {shown} counted: {count}", raw=count)
             return
-        why = _shape(concept, node, leaf, model.version, named=via == "keymap")
+        why = _shape(concept, node, leaf, model.version, named=via == "keymap", synonyms=synonyms)
         if why and why != "section" and c.type != "list":
             model.unused.append(Unused(concept, key, loc, why, "shape", _compact(node, model.version), node))
         return
     if isinstance(node, Unknown):  # known only at launch: out of the run, never reasoned about
         model.unknown[concept] = Value(concept, None, loc, node, via, key, chain, note=node.why)
         return
-    value = cast(Scalar, node).value(model.version)
+    value = model.read(node)
     v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
@@ -425,21 +431,14 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
         v.unit = Unit(spec.per or c.per, spec.scope or c.scope)  # the key map states the unit
     model.values[concept] = v
     expected = CONCEPTS[concept].type
-    if v.value is not None and not _fits(v.value, expected):
+    if share_of_run(concept, v.value):
+        v.note = f"a share of the run: {v.value:g} of the total steps"
+    elif v.value is not None and not _fits(v.value, expected):
         model.mistyped.append((v, expected))
 
 
 def _fits(value, expected: str) -> bool:
-    if expected == "int":
-        return isinstance(value, int) and not isinstance(value, bool) or (
-            isinstance(value, float) and value.is_integer())
-    if expected == "number":
-        return isinstance(value, (int, float)) and not isinstance(value, bool)
-    if expected == "bool":
-        return isinstance(value, bool)
-    if expected == "str":
-        return isinstance(value, str)
-    return True
+    return fits(value, expected) or expected not in ("int", "number", "bool", "str")
 
 
 def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:
@@ -461,21 +460,21 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                                         doc.loc(name_node), name_node, "component")
             comp.location = doc.loc(name_node)
         if isinstance(item, Scalar):
-            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component",
+            comp.fields["ref"] = Value("ref", model.read(item), doc.loc(item), item, "component",
                                        chain=_chain(model, at))
         elif isinstance(item, Mapping):
             _component_sandbox(model, comp, item)
             for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
                 if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
                                                    for a in ALIASES.get(normalise_key(word), ())):
-                    comp.fields["trust_remote_code"] = Value("trust_remote_code", sub.value(model.version),
+                    comp.fields["trust_remote_code"] = Value("trust_remote_code", model.read(sub),
                                                              doc.loc(sub), sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
                     sub = item.get(w)
                     if sub is not None:
-                        val = sub.value(model.version) if isinstance(sub, Scalar) else sub
+                        val = model.read(sub) if isinstance(sub, Scalar) else sub
                         comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
                                                         _chain(model, f"{at}.{w}"))
                         break
@@ -490,7 +489,7 @@ def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
         if normalise_key(word) not in SANDBOX:
             continue
         if isinstance(sub, Scalar):
-            comp.fields["sandbox.kind"] = Value("sandbox.kind", sub.value(model.version), model.doc.loc(sub), sub,
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", model.read(sub), model.doc.loc(sub), sub,
                                                 "component", word)
             return
         if not isinstance(sub, Mapping):
@@ -500,7 +499,7 @@ def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
                 continue
             for alias in ALIASES.get(normalise_key(name), ()):
                 if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
-                    comp.fields[alias.concept] = Value(alias.concept, v.value(model.version), model.doc.loc(v), v,
+                    comp.fields[alias.concept] = Value(alias.concept, model.read(v), model.doc.loc(v), v,
                                                        "component", f"{word}.{name}")
                     break
         return

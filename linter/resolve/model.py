@@ -4,7 +4,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from ..load.document import Document, Node
+from ..load.document import Document, Node, Scalar
 from ..common.findings import Location
 
 
@@ -88,6 +88,8 @@ class RunModel:
     unused: list[Unused] = field(default_factory=list)  # keys that look like a concept but were not used
     is_rl: bool = False
     version: str = "1.1"  # the YAML version the user's loader reads concept values under
+    readers: tuple = ()  # (glob, reader): the settings' readers table, the first match wins
+    reader_named: bool = False  # the settings name the reader of files no glob matches
     settings: Any = None
     files: list[str] = field(default_factory=list)  # every file this run was composed from
     chains: dict[str, list[Location]] = field(default_factory=dict)  # key path -> origin chain (compose)
@@ -100,6 +102,27 @@ class RunModel:
     @property
     def path(self) -> str:
         return self.doc.path
+
+    def reader(self, node) -> tuple[str, bool]:
+        """(the reader the file a node was written in meets, whether the settings name it): JSON
+        for a .json file, else the first of the settings' readers whose glob matches the file, else
+        yaml_version (named when written in the settings, else the default, assumed)."""
+        shown = getattr(node, "file", None) or self.doc.path
+        if shown.lower().endswith(".json") or shown == self.doc.path and self.doc.fmt == "json":
+            return "json", True
+        if self.readers:
+            from ..load.discover import matches
+
+            for glob, reader in self.readers:
+                if matches(shown, (glob,)):
+                    return reader, True
+        return self.version, self.reader_named
+
+    def read(self, node):
+        """A node's value as its file's reader reads it (a scalar; other nodes as they are)."""
+        if isinstance(node, Scalar):
+            return node.value(self.reader(node)[0])
+        return node
 
     @property
     def stage(self) -> str:
