@@ -292,8 +292,13 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                                         doc.loc(name_node), name_node, "component")
             comp.location = doc.loc(name_node)
         if isinstance(item, Scalar):
-            comp.fields["ref"] = Value("ref", item.value(model.version), doc.loc(item), item, "component",
-                                       chain=_chain(model, at))
+            val = item.value(model.version)
+            if name_node is not None and isinstance(val, (int, float)) and not isinstance(val, bool):
+                # a mapping of name -> weight: the name is the reward, the number its weight
+                comp.fields["weight"] = Value("weight", val, doc.loc(item), item, "component",
+                                              chain=_chain(model, at))
+            else:
+                comp.fields["ref"] = Value("ref", val, doc.loc(item), item, "component", chain=_chain(model, at))
         elif isinstance(item, Mapping):
             _component_sandbox(model, comp, item)
             for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
@@ -310,6 +315,12 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                         comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
                                                         _chain(model, f"{at}.{w}"))
                         break
+        named = comp.fields.get("name")
+        if named is not None and not any(f in comp.fields for f in ("ref", "endpoint", "kind")):
+            # a component known by its name alone: the name is the reference (a function by name,
+            # or a model when it reads as a path or repository)
+            comp.fields["ref"] = Value("ref", named.value, named.location, named.node, "component", named.key,
+                                       named.chain)
         out.append(comp)
     return out
 
