@@ -11,7 +11,8 @@ from .findings import Location
 from .arithmetic import Unit, settle
 from .model import Component, RunModel, Value
 from .settings import KeySpec
-from .vocabulary import ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, normalise_key
+from .vocabulary import (ALIASES, CONCEPTS, ELSEWHERE, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, SWITCHES,
+                         normalise_key, section_word, switched_off, word_concept)
 
 
 @dataclass
@@ -67,12 +68,12 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         leaf = words.get(path[-1])
         if leaf is None:
             leaf = words[path[-1]] = normalise_key(path[-1])
-        aliases = ALIASES.get(leaf)
-        if not aliases:
+        aliases = ALIASES.get(leaf, ())
+        kl_words = "kl" in leaf or len(path) > 1 and "kl" in path[-2].lower()
+        if not aliases and not kl_words:
             continue
-        parents = sections.get(path[:-1])
-        if parents is None:
-            parents = sections[path[:-1]] = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
+        parents = _parents(path, sections)
+        matched = False
         for alias in aliases:
             if alias.concept in mapped:
                 continue
@@ -90,6 +91,9 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                 if not (alias.concept == "sandbox.kind" and isinstance(node, Mapping)):
                     continue
             candidates.setdefault(alias.concept, []).append((strength, path, node))
+            matched = True
+        if not matched and kl_words:
+            _by_words(leaf, path, node, parents, candidates, mapped, model.version)
     native = {".".join(p): (p, n) for p, n, _c in leaves}
     for concept in CONCEPTS:
         if concept in mapped or concept in model.values:
@@ -116,9 +120,46 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         if hit is not None:
             _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]))
     settle(model)  # the run's arithmetic: counts in their concepts' units, derived quantities
+    _liveness(model)
     markers = sum(1 for c in RL_MARKERS if c in model.values)
     model.is_rl = opts.force_rl or markers >= RL_MIN_MARKERS or "run.estimator" in model.values and markers >= 2
     return model
+
+
+def _parents(path: tuple, sections: dict) -> list[str]:
+    """The normalised section words above a key (list indices left out), once per section."""
+    parents = sections.get(path[:-1])
+    if parents is None:
+        parents = sections[path[:-1]] = [section_word(normalise_key(p)) for p in path[:-1] if not p.isdigit()]
+    return parents
+
+
+def _by_words(leaf: str, path: tuple, node: Node, parents: list[str], candidates: dict, mapped: set,
+              version: str) -> None:
+    """A KL key that names its place (loss or reward) and its role by its words, outside evaluation
+    sections; taken only when its value has the concept's type (a switch true/false, a number)."""
+    if any(p in ELSEWHERE for p in parents):
+        return
+    found = word_concept(leaf, parents[-1] if parents else "")
+    if found is None or found[0] in mapped or not isinstance(node, Scalar):
+        return
+    concept, expected = found
+    value = node.value(version)
+    if value is None or _fits(value, expected):
+        candidates.setdefault(concept, []).append((1, path, node))
+
+
+def _liveness(model: RunModel) -> None:
+    """Mark the concepts of a mechanism that a switch turns off as dead (vocabulary.SWITCHES): once,
+    here, so that no rule reasons about a setting the trainer does not read. A dead switch kills
+    nothing."""
+    for sw in SWITCHES:
+        v = model.values.get(sw.concept)
+        if v is None or sw.concept in model.dead or not switched_off(sw, v.value):
+            continue
+        for c in sw.governs:
+            if c in model.values and c not in model.dead:
+                model.dead[c] = v
 
 
 # How many times, in all, a section reached again through an alias may be walked again: aliased
