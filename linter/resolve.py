@@ -114,11 +114,11 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
             via = "native" if ".".join(path) == concept else "alias"  # the concept's own path is the native layout
-            _store(model, concept, node, via, ".".join(path), chain=chains.get(path))
+            _store(model, concept, node, via, ".".join(path), chain=chains.get(path), synonyms=opts.keys.get(concept))
             continue
         hit = native.get(concept)
         if hit is not None:
-            _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]))
+            _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]), synonyms=opts.keys.get(concept))
     settle(model)  # the run's arithmetic: counts in their concepts' units, derived quantities
     _liveness(model)
     markers = sum(1 for c in RL_MARKERS if c in model.values)
@@ -257,8 +257,10 @@ def scalar_value(node: Node, version: str):
 
 
 def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None,
-           chain: list | None = None):
-    _store_value(model, concept, node, via, key, spec)
+           chain: list | None = None, synonyms: KeySpec | None = None):
+    """Store one concept's value. ``synonyms``: the key map's entry for the concept when the value
+    was found elsewhere than its mapped key (its ``values`` table still says what a value means)."""
+    _store_value(model, concept, node, via, key, spec, synonyms or spec)
     v = model.values.get(concept)
     if chain and v is not None and v.node is node:
         # a value written elsewhere (at an anchor) and reached through merges or aliases points
@@ -270,7 +272,8 @@ def _chain(model: RunModel, key: str) -> list[Location]:
     return list(model.chains.get(key, ())) if model.chains else []
 
 
-def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None):
+def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None,
+                 synonyms: KeySpec | None = None):
     doc = model.doc
     loc = doc.loc(node)
     if model.chains and key and loc.key_path != key:
@@ -292,12 +295,18 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
+    meant = synonyms.meaning(value) if synonyms is not None else None
+    if meant is not None:
+        # a value synonym of the key map: the concept takes the value it stands for; the node (and so
+        # every location and the raw value) still shows what is written
+        v.value = meant
+        v.note = f"key map: {cast(Scalar, node).text.strip()} means {meant}"
     c = CONCEPTS[concept]
     if spec is not None and c.per:
         v.unit = Unit(spec.per or c.per, spec.scope or c.scope)  # the key map states the unit
     model.values[concept] = v
     expected = CONCEPTS[concept].type
-    if value is not None and not _fits(value, expected):
+    if v.value is not None and not _fits(v.value, expected):
         model.mistyped.append((v, expected))
 
 

@@ -29,6 +29,18 @@ class KeySpec:
     per: str = ""  # prompt | completion
     scope: str = ""  # global | gpu
     fields: tuple = ()  # for reward.sources: ((field, key in component), ...)
+    values: tuple = ()  # value synonyms of an enumerated concept: ((as written, meaning), ...)
+
+    def meaning(self, written):
+        """The concept value a value written in the user's file stands for under this key map's
+        ``values`` table (compared as text, case and surrounding blanks aside), or None."""
+        if not self.values or isinstance(written, (dict, list)) or written is None:
+            return None
+        text = (str(written).lower() if isinstance(written, bool) else str(written)).strip().lower()
+        for said, meant in self.values:
+            if said.strip().lower() == text:
+                return meant
+        return None
 
 
 class SettingsError(Exception):
@@ -198,7 +210,7 @@ def _expected(err) -> str:
     if v == "minLength":
         return "a non-empty string"
     if v == "anyOf":
-        return "a key path string, or a table with key (and per, scope, fields)"
+        return "a key path string, or a table with key (and per, scope, fields, values)"
     return err.message
 
 
@@ -215,12 +227,20 @@ def _check_concepts(table: dict, path: Path, prefix: str) -> None:
     from .vocabulary import CONCEPTS
 
     dot = f"{prefix}." if prefix else ""
-    for concept in table.get("keys", {}):
+    for concept, spec in table.get("keys", {}).items():
         if concept not in CONCEPTS:
             near = [c for c in CONCEPTS if c.split(".")[-1] == concept.split(".")[-1]]
             hint = f" (did you mean {', '.join(near)}?)" if near else ""
             raise SettingsError(f"{path}: setting {dot}keys.{concept}: expected a concept name, "
                                 f"found unknown concept {concept!r}{hint}; `trimtab explain` lists them")
+        allowed = CONCEPTS[concept].values
+        for said, meant in (spec.get("values", {}) if isinstance(spec, dict) else {}).items():
+            if not allowed:
+                raise SettingsError(f"{path}: setting {dot}keys.{concept}.values: expected value synonyms only for an "
+                                    f"enumerated concept, found them for {concept}, which takes any value")
+            if str(meant).strip().lower() not in allowed:
+                raise SettingsError(f"{path}: setting {dot}keys.{concept}.values.{said}: expected one of "
+                                    f"{', '.join(allowed)}, found {_show(meant)}")
 
 
 def build(table: dict, root: Path, path: Path | None = None, prefix: str = "") -> Settings:
@@ -260,6 +280,7 @@ def parse_keys(table: dict) -> dict[str, KeySpec]:
             out[concept] = KeySpec(spec)
         else:
             out[concept] = KeySpec(spec["key"], spec.get("per", ""), spec.get("scope", ""),
-                                   tuple(sorted(spec.get("fields", {}).items())))
+                                   tuple(sorted(spec.get("fields", {}).items())),
+                                   tuple(spec.get("values", {}).items()))
     return out
 

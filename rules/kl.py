@@ -146,7 +146,10 @@ def kl_twice(ctx):
       rationale="The per-sample KL between policy and reference is approximated by one of three estimators "
       f"({_K_SOURCE}): k1 = -log r ({_ESTIMATORS['k1']}), k2 = (log r)^2 / 2 ({_ESTIMATORS['k2']}), "
       f"k3 = (r - 1) - log r ({_ESTIMATORS['k3']}), with r = p_ref / p_policy. A value that is none of "
-      "them is a typo or a trainer-specific name: the trainer refuses it or falls back to its default.")
+      "them is a typo or a trainer-specific name: the trainer refuses it or falls back to its default. "
+      "A name that describes an estimator in words (low variance, squared, naive) is a note naming the "
+      "key-map line that says which one it means (`values = { low_var_kl = \"k3\" }`); with that line "
+      "the value is read as the estimator it stands for.")
 def kl_estimator(ctx):
     v = ctx.model.get("kl.estimator")
     if v is None or not isinstance(v.value, str):
@@ -155,6 +158,18 @@ def kl_estimator(ctx):
     if name in _ESTIMATORS:
         return
     squeezed = "".join(ch for ch in name if ch.isalnum())
+    described = _in_words(squeezed)
+    if described:
+        # a name that describes an estimator in words (Schulman 2020: k1 naive, k2 and k3 low variance,
+        # k3 the unbiased low-variance one): the trainer's own vocabulary, which trimtab cannot settle
+        # alone; the key map's value synonyms say what it means
+        written = v.node.text.strip() if hasattr(v.node, "text") else name
+        line = (f'[tool.trimtab.keys] "kl.estimator" = {{ key = "{v.key}", values = {{ {_toml_key(written)} = '
+                f'"{described[0]}" }} }}')
+        yield ctx.finding(f"kl.estimator = {shown(v)} describes {' or '.join(described)} in words "
+                          f"({_K_SOURCE}); trimtab reads it once the key map says which", v.location,
+                          level="note", subject=name, suggestion=line)
+        return
     if squeezed in _ESTIMATORS:
         suggestion = f"write {squeezed}"
     else:
@@ -162,6 +177,31 @@ def kl_estimator(ctx):
                       "(arXiv:2402.03300)")
     yield ctx.finding(f"kl.estimator = {shown(v)} is not a KL estimator: expected k1, k2 or k3", v.location,
                       subject=name, suggestion=suggestion)
+
+
+# Words that describe an estimator rather than name it (letters and digits only, lower case), after
+# Schulman 2020 (from memory): k1 is the naive log-ratio estimator; k2 (half the squared log ratio) is
+# low-variance but biased; k3 ((r - 1) - log r) is unbiased and low-variance. "Low variance" alone fits
+# k2 and k3; "unbiased" with "low variance" fits k3 only.
+_WORDS = (
+    (("unbiasedlowvar", "lowvarunbiased"), ("k3",)),
+    (("lowvar",), ("k3", "k2")),
+    (("squared", "mse", "halfsq", "sqlog"), ("k2",)),
+    (("naive", "logratio"), ("k1",)),
+)
+
+
+def _in_words(squeezed: str) -> tuple[str, ...]:
+    """The estimators a name describes in words (most likely first), or ()."""
+    for stems, which in _WORDS:
+        if any(stem in squeezed for stem in stems):
+            return which
+    return ()
+
+
+def _toml_key(text: str) -> str:
+    bare = text and all(ch.isascii() and (ch.isalnum() or ch in "_-") for ch in text)
+    return text if bare else '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
 
 @rule(id="KL-5", name="kl-coef-range", level="warning", summary="The KL coefficient is outside the usual range.",
