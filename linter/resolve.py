@@ -327,16 +327,16 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
     doc = model.doc
     names = dict(spec.fields) if spec and spec.fields else {}
     out: list[Component] = []
-    items: list[tuple[Node | None, Node]]
+    items: list[tuple[Node | None, Node, str]]  # (name, component, its key path below the list)
     if isinstance(node, Sequence):
-        items = [(None, it) for it in node.items]
+        items = [_one_entry(it, names, str(i)) for i, it in enumerate(node.items)]
     elif isinstance(node, Mapping):
-        items = [(k, v) for _n, k, v, _via in node.entries()]
+        items = [(k, v, k.text if isinstance(k, Scalar) else str(i)) for i, (_n, k, v, _via) in enumerate(node.entries())]
     else:
         return out
-    for i, (name_node, item) in enumerate(items):
+    for i, (name_node, item, below) in enumerate(items):
         comp = Component(i, doc.loc(item))
-        at = f"{key}.{name_node.text if isinstance(name_node, Scalar) else i}"
+        at = f"{key}.{below}"
         if name_node is not None:
             comp.fields["name"] = Value("name", name_node.text if isinstance(name_node, Scalar) else "?",
                                         doc.loc(name_node), name_node, "component")
@@ -373,6 +373,20 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                                        named.chain)
         out.append(comp)
     return out
+
+
+def _one_entry(item: Node, names: dict, at: str) -> tuple[Node | None, Node, str]:
+    """A list item written as a one-entry mapping (``{accuracy: 1.0}``, ``{judge: team/model}``,
+    ``{style: {kind: judge, ...}}``) whose key is no component field: the same as an entry of a
+    mapping of name -> reward."""
+    if isinstance(item, Mapping):
+        entries = list(item.entries())
+        if len(entries) == 1:
+            word, k, v, _via = entries[0]
+            known = set(names.values()) | {w for words in _FIELD_WORDS.values() for w in words} | set(SANDBOX)
+            if isinstance(k, Scalar) and isinstance(v, (Scalar, Mapping)) and normalise_key(word) not in known:
+                return k, v, f"{at}.{k.text}"
+    return None, item, at
 
 
 def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:

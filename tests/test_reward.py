@@ -333,6 +333,9 @@ def test_name_index_never_follows_links_or_hidden_folders(tmp_path):
     ("[team/judge-7b, ./weights/rm]", ["model", "model"]),
     ("{accuracy: 1.0, team/judge-7b: 0.5}", ["rule", "model"]),
     ("[{name: accuracy, weight: 1.0}, {name: j, kind: judge, path: team/judge-7b}]", ["rule", "judge"]),
+    ("[{accuracy: 1.0}, {j: team/judge-7b}]", ["rule", "model"]),
+    ("[{accuracy: {weight: 1.0}}, {j: {kind: judge, model: team/judge-7b}}]", ["rule", "judge"]),
+    ("[{sandbox: container}]", [""]),  # a field of a component, not a name
 ])
 def test_reward_forms_give_the_same_kinds(tmp_path, sources, kinds):
     from trimtab_rules._safety import kind_of
