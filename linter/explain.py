@@ -119,6 +119,14 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
             out.write("\nAmbiguous (set them in [tool.trimtab.keys]):\n")
             for name, locs in sorted(m.ambiguous.items()):
                 out.write(f"  {name}: " + "; ".join(f"{_t(l.key_path)} at {_t(l.label())}" for l in locs) + "\n")
+        if m.unused:
+            out.write("\nLook like concepts, not used:\n")
+            seen = set()
+            for u in sorted(m.unused, key=lambda u: (u.location.path or "", u.location.line, u.location.col, u.concept)):
+                line = f"  {_t(u.location.label())}  {_t(u.key)}  {u.concept}: {_t(u.reason)}\n"
+                if line not in seen:
+                    seen.add(line)
+                    out.write(line)
         if m.unknown:
             out.write("\nKnown only at launch (left out of the checks):\n")
             for name, v in sorted(m.unknown.items()):

@@ -47,6 +47,17 @@ class Value:
 
 
 @dataclass
+class Unused:
+    """A key that looks like a concept but was not used for it, and why (explain lists them)."""
+
+    concept: str
+    key: str  # the key path in the user's file
+    location: Location
+    reason: str  # "evaluation section 'eval'", "wrong shape: a list where a whole number is expected", ...
+    kind: str = ""  # evaluation, shape, section, lost, keymap
+
+
+@dataclass
 class Component:
     """One reward component of reward.sources; each field a Value (or absent)."""
 
@@ -72,6 +83,7 @@ class RunModel:
     components: list[Component] = field(default_factory=list)
     ambiguous: dict[str, list[Location]] = field(default_factory=dict)
     mistyped: list[tuple[Value, str]] = field(default_factory=list)  # (value, expected type)
+    unused: list[Unused] = field(default_factory=list)  # keys that look like a concept but were not used
     is_rl: bool = False
     version: str = "1.1"  # the YAML version the user's loader reads concept values under
     settings: Any = None

@@ -9,10 +9,10 @@ from .composed import Unknown
 from .document import Document, Mapping, Node, Scalar, Sequence
 from .findings import Location
 from .arithmetic import Unit, settle
-from .model import Component, RunModel, Value
+from .model import Component, RunModel, Unused, Value
 from .settings import KeySpec
 from .vocabulary import (ALIASES, CONCEPTS, ELSEWHERE, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, SWITCHES,
-                         normalise_key, section_word, switched_off, word_concept)
+                         evaluation_section, normalise_key, section_word, switched_off, word_concept)
 
 
 @dataclass
@@ -59,6 +59,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     words: dict[str, str] = {}
     sections: dict[tuple, list[str]] = {}
     inside: dict[tuple, bool] = {}
+    evals: dict[tuple, str | None] = {}
     for path, node, _chain in leaves:
         if id(node) in taken:
             continue
@@ -74,17 +75,30 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             continue
         parents = _parents(path, sections)
         matched = False
+        section = path[:-1]
+        if section not in evals:
+            evals[section] = evaluation_section(section)
+        in_eval = evals[section]
         for alias in aliases:
             if alias.concept in mapped:
                 continue
-            if alias.not_under and any(p in alias.not_under for p in parents):
+            if alias.under and (not parents or parents[-1] not in alias.under):
                 continue
-            if alias.under:
-                if not parents or parents[-1] not in alias.under:
+            if in_eval is not None:
+                # an evaluation, validation or test block samples for another loop: its keys never
+                # compete with the training run's. Only a sandbox (where generated code runs, in
+                # any loop) is taken from one, and only when the training run states none.
+                if not alias.concept.startswith("sandbox."):
+                    if isinstance(node, Mapping) and CONCEPTS[alias.concept].type not in ("list", "any"):
+                        continue  # a section of the block, not a value
+                    model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
+                                               f"in the evaluation section '{in_eval}'", "evaluation"))
                     continue
-                strength = 2
+                strength = 0
+            elif alias.not_under and any(p in alias.not_under for p in parents):
+                continue
             else:
-                strength = 1
+                strength = 2 if alias.under else 1
             if alias.concept == "reward.sources" and isinstance(node, Scalar):
                 continue
             if isinstance(node, (Mapping, Sequence)) and CONCEPTS[alias.concept].type not in ("list", "any"):
@@ -92,7 +106,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                     continue
             candidates.setdefault(alias.concept, []).append((strength, path, node))
             matched = True
-        if not matched and kl_words:
+        if not matched and kl_words and in_eval is None:
             _by_words(leaf, path, node, parents, candidates, mapped, model.version)
     native = {".".join(p): (p, n) for p, n, _c in leaves}
     for concept in CONCEPTS:

@@ -6,7 +6,9 @@ sections as context), or through the native layout (the concept's own dotted nam
 """
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
+from functools import lru_cache
 
 
 @dataclass(frozen=True)
@@ -349,3 +351,72 @@ ALIASES = _aliases()
 
 def normalise_key(key: str) -> str:
     return key.strip().lower().replace("-", "_")
+
+
+# --- Evaluation sections --------------------------------------------------------------------------
+# A run config often holds, beside the training rollout, a block that samples for evaluation,
+# validation or testing, with its own temperature, top-p, response length and number of samples.
+# Those keys describe another loop: they must not compete with the training rollout's keys, and
+# rules about training must not read them. ``evaluation_section`` is the one place that decides
+# whether a key sits in such a block (resolve, explain and the key-map draft all ask it).
+
+# Words that name an evaluation block wherever they appear in a section's name
+# (``eval``, ``evaluation``, ``eval_sampling``, ``validation_config``, ``benchmarkSettings``).
+EVAL_WORDS = frozenset({
+    "eval", "evals", "evaluation", "evaluations", "evaluate", "evaluator", "evaluating",
+    "validation", "validations", "validate", "validating", "benchmark", "benchmarks", "benchmarking",
+    "holdout", "heldout",
+})
+# Words that name an evaluation block only when nothing around them speaks of code being tested:
+# ``test``, ``test_sampling`` and ``val_kwargs`` are evaluation blocks; ``test_cases`` or
+# ``unit_tests`` inside a reward or a sandbox are what a code reward runs, not an evaluation.
+EVAL_WEAK_WORDS = frozenset({"val", "test", "tests", "testing"})
+# Words that, said with a weak word, make it about code under test ...
+CODE_TEST_WORDS = frozenset({
+    "case", "cases", "suite", "suites", "harness", "command", "commands", "cmd", "runner", "unit", "units",
+    "script", "scripts", "code", "input", "inputs", "output", "outputs", "assert", "asserts", "assertion",
+    "assertions", "timeout", "coverage", "fixture", "fixtures", "program", "programs", "solution",
+    "solutions", "hidden", "public", "private", "pass", "fail",
+})
+# ... and sections inside which a weak word is about code under test, whatever it is said with.
+CODE_SECTION_WORDS = frozenset({
+    "reward", "rewards", "verifier", "verifiers", "verify", "verification", "grader", "graders", "checker",
+    "sandbox", "execution", "executor", "exec", "judge",
+})
+
+
+def key_words(key: str) -> tuple[str, ...]:
+    """The words of one key, lower case: ``evalSampling`` and ``eval-sampling`` give (eval, sampling)."""
+    return _key_words(key)
+
+
+@lru_cache(maxsize=4096)
+def _key_words(key: str) -> tuple[str, ...]:
+    key = re.sub(r"([a-z0-9])([A-Z])", r"\1_\2", key.strip())
+    return tuple(w for w in re.split(r"[^a-z0-9]+", key.lower()) if w and not w.isdigit())
+
+
+def evaluation_section(sections) -> str | None:
+    """The section name that makes a key path's sections an evaluation, validation or test block,
+    or None for a training (or neutral) one. ``sections`` are the names of the sections that hold
+    the key, outermost first, without the key itself (list indices are skipped).
+
+    A section is an evaluation block when one of its name's words is an evaluation word
+    (EVAL_WORDS), or a weak word (EVAL_WEAK_WORDS) that is not said with a code-test word. Nothing
+    inside a reward, verifier or sandbox section (CODE_SECTION_WORDS) marks one: there ``test_cases``
+    are what the reward runs and an ``evaluator`` is how it grades."""
+    code = False
+    for name in sections:
+        if not isinstance(name, str) or name.isdigit():
+            continue
+        words = _key_words(name)
+        if any(w in CODE_SECTION_WORDS for w in words):
+            code = True  # a reward's evaluator, a verifier's tests: how the reward grades, not a block
+            continue
+        if code:
+            continue
+        if any(w in EVAL_WORDS for w in words):
+            return name
+        if any(w in EVAL_WEAK_WORDS for w in words) and not any(w in CODE_TEST_WORDS for w in words):
+            return name
+    return None
