@@ -24,6 +24,8 @@ MAX_BYTES = 2_000_000  # a reward module larger than this is not read
 # within these bounds (files and bytes read); the index is built once per scanner, misses included.
 INDEX_FILES = 5_000
 INDEX_BYTES = 64_000_000
+INDEX_ENTRIES = 100_000  # folders and files looked at (a tree of empty folders is bounded too)
+INDEX_SECONDS = 2.0  # wall-clock time for the whole walk
 _INDEX_SKIP = frozenset({"__pycache__", "node_modules", "site-packages", "dist-packages"})
 # top-level definitions and assignments, found in the bytes before the syntax tree confirms them
 _TOP_DEF = re.compile(rb"^(?:async[ \t]+)?def[ \t]+([A-Za-z_]\w*)|^class[ \t]+([A-Za-z_]\w*)|^([A-Za-z_]\w*)[ \t]*[:=]",
@@ -321,11 +323,23 @@ class Scanner:
         INDEX_FILES and INDEX_BYTES; links and hidden folders are not followed)."""
         if self._index is not None:
             return self._index
+        import time
+
         index: dict[str, list[Path]] = {}
-        files = size = 0
+        files = size = entries = 0
+        until = time.monotonic() + INDEX_SECONDS
         for base in self.roots:
             for top, dirs, names in os.walk(base, followlinks=False):
-                dirs[:] = sorted(d for d in dirs if not d.startswith(".") and d not in _INDEX_SKIP)
+                # hidden folders, caches and installed packages are not reward code; another file
+                # system mounted below the repository (/proc under a root of /) is not walked
+                dirs[:] = sorted(d for d in dirs if not d.startswith(".") and d not in _INDEX_SKIP
+                                 and not os.path.ismount(os.path.join(top, d)))
+                entries += len(dirs) + len(names)
+                if entries > INDEX_ENTRIES or time.monotonic() > until:
+                    self.index_cut = (f"the search stopped after {entries} entries and {files} Python files, "
+                                      "trimtab's bound")
+                    self._index = index
+                    return index
                 for fname in sorted(names):
                     if not fname.endswith(".py"):
                         continue

@@ -349,3 +349,17 @@ def test_reward_forms_give_the_same_kinds(tmp_path, sources, kinds):
     weights = {c.get("ref"): c.get("weight") for c in m.components}
     if "1.0" in sources:
         assert weights["accuracy"] == 1.0
+
+
+def test_name_index_walk_is_bounded_by_entries(tmp_path, monkeypatch):
+    # a repository of many folders and no Python files (or a checker rooted at /) is not walked to the end
+    from trimtab import codescan
+
+    for i in range(30):
+        (tmp_path / f"d{i:02d}").mkdir()
+    (tmp_path / "d29" / "late.py").write_text("def late():\n    pass\n")
+    monkeypatch.setattr(codescan, "INDEX_ENTRIES", 10)
+    miss = codescan.Scanner(tmp_path).find_name("late")
+    assert miss.status == "no-function" and "stopped after" in miss.reason
+    monkeypatch.setattr(codescan, "INDEX_ENTRIES", 1000)
+    assert codescan.Scanner(tmp_path).find_name("late").status == "ok"
