@@ -7,11 +7,11 @@ start-up stays fast.
 __version__ = "0.1.0"
 
 _EXPORTS = {
-    "hookimpl": "engine", "Rule": "engine", "rule": "engine", "Context": "engine", "collect": "engine",
-    "Concept": "vocabulary",
-    "Finding": "findings", "Level": "findings", "Location": "findings", "Edit": "findings",
-    "RunModel": "model", "Value": "model", "Component": "model",
-    "Document": "document", "Scalar": "document", "Mapping": "document", "Sequence": "document",
+    "hookimpl": "engine.registry", "Rule": "engine.registry", "rule": "engine.registry", "Context": "engine.registry", "collect": "engine.registry",
+    "Concept": "common.vocabulary",
+    "Finding": "common.findings", "Level": "common.findings", "Location": "common.findings", "Edit": "common.findings",
+    "RunModel": "resolve.model", "Value": "resolve.model", "Component": "resolve.model",
+    "Document": "load.document", "Scalar": "load.document", "Mapping": "load.document", "Sequence": "load.document",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

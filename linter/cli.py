@@ -10,7 +10,7 @@ import os
 import sys
 from pathlib import Path
 
-from .redact import for_text  # every message that shows a file's text: masked, controls made visible
+from .common.redact import for_text  # every message that shows a file's text: masked, controls made visible
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
 
@@ -53,7 +53,7 @@ def build_parser() -> argparse.ArgumentParser:
     c = sub.add_parser("check", help="check run configs and report findings")
     c.add_argument("paths", nargs="*", metavar="PATH", help="files or folders (default: the include globs)")
     c.add_argument("--format", choices=("text", "json", "sarif"), default="text",
-                   help="report format: text for people, JSON (linter/report.schema.json) or SARIF 2.1.0 "
+                   help="report format: text for people, JSON (linter/report/report.schema.json) or SARIF 2.1.0 "
                         "(default: text)")
     c.add_argument("--output", metavar="FILE", help="write the report here instead of standard output")
     c.add_argument("--gate", choices=("error", "warning", "note"),
@@ -119,13 +119,13 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INCOMPLETE
     if extra:  # the command's own usage, not the top-level one
         _commands(parser)[args.command].error(f"unrecognized arguments: {' '.join(extra)}")
-    from .settings import SettingsError
+    from .common.settings import SettingsError
 
     try:
         _given_paths_exist(args)
         if args.command == "check":
             if args.staged:
-                from .hook import with_staged
+                from .adopt.hook import with_staged
 
                 return with_staged(args, cmd_check)
             return cmd_check(args)
@@ -167,7 +167,7 @@ def _commands(parser) -> dict:
 def _given_paths_exist(args) -> None:
     """A path given on the command line that does not exist stops every command the same way
     (exit 2): there is nothing to check, and a gate must not pass it."""
-    from .settings import SettingsError
+    from .common.settings import SettingsError
 
     given = {"check": "paths", "explain": "config", "map": "config", "audit": "configs"}.get(args.command)
     paths = getattr(args, given, None) if given else None
@@ -179,13 +179,13 @@ def _given_paths_exist(args) -> None:
 
 
 def _settings(args):
-    from . import settings
+    from .common import settings
 
     return settings.load(Path(args.settings) if args.settings else None)
 
 
 def _registry():
-    from .engine import Registry
+    from .engine.registry import Registry
 
     reg = Registry()
     for err in reg.errors:
@@ -194,7 +194,7 @@ def _registry():
 
 
 def _overrides(items: list[str]) -> list[tuple[str, str, bool]]:
-    from .settings import SettingsError
+    from .common.settings import SettingsError
 
     out = []
     for item in items:
@@ -210,7 +210,7 @@ def _refuse_overwrite(files, target, option: str) -> None:
     """trimtab never writes to a file it checks: an output path that is one of them is refused,
     unless the file is trimtab's own earlier output (a report or an accepted-findings file that
     an include glob happens to match)."""
-    from .settings import SettingsError
+    from .common.settings import SettingsError
 
     if not target or not os.path.exists(target):
         return
@@ -246,9 +246,9 @@ def _own_output(path) -> bool:
 def _refuse_non_configs(paths, settings) -> None:
     """A file named on the command line that is neither a YAML or JSON config nor a launch script:
     one plain message (exit 2), not a parse finding."""
-    from .discover import relpath
-    from .settings import SettingsError
-    from .shell import is_config
+    from .load.discover import relpath
+    from .common.settings import SettingsError
+    from .compose.shell import is_config
 
     for p in paths:
         path = Path(p)
@@ -270,7 +270,7 @@ def _progress(args):
     def start(total: int):
         if args.no_progress or not sys.stderr.isatty() or total <= 20 or os.environ.get("PRE_COMMIT"):
             return None
-        from .progress import Progress
+        from .report.progress import Progress
 
         return Progress(total, sys.stderr)
 
@@ -278,15 +278,15 @@ def _progress(args):
 
 
 def cmd_check(args) -> int:
-    from . import filtering
+    from .gate import filtering
     from .pipeline import Pipeline
-    from .settings import SettingsError
+    from .common.settings import SettingsError
 
     registry = _registry()  # first: a plugin may declare concepts the settings' key map names
     settings = _settings(args)
     _refuse_non_configs(args.paths, settings)
     if getattr(args, "staged_root", None) is not None:
-        settings.root = args.staged_root  # check --staged: the index, mirrored (linter/hook.py)
+        settings.root = args.staged_root  # check --staged: the index, mirrored (linter/adopt/hook.py)
     if args.diff and not args.fix:
         raise SettingsError("--diff shows what --fix would change: use --fix --diff")
     if args.fix and args.write_accepted:
@@ -325,20 +325,20 @@ def cmd_check(args) -> int:
     summary = {**outcome.summary(), "hidden": outcome.below(args.show), "accepted": outcome.accepted}
     from contextlib import nullcontext
 
-    from .paths import atomic_open
+    from .common.paths import atomic_open
 
     # a report file appears whole or not at all (written beside it, then renamed)
     with atomic_open(args.output) if args.output else nullcontext(sys.stdout) as out:
         if args.format == "json":
-            from .reports import json_report
+            from .report.text import json_report
 
             json_report(findings, summary, code, out)
         elif args.format == "sarif":
-            from . import sarif
+            from .report import sarif
 
             sarif.write(findings, _catalogue(registry), settings.root, out, not outcome.incomplete)
         else:
-            from .reports import text
+            from .report.text import text
 
             text(findings, out, colour=out.isatty() and not os.environ.get("NO_COLOR"))
     total = len(outcome.files)
@@ -353,14 +353,14 @@ def cmd_check(args) -> int:
 
 
 def _catalogue(registry):
-    from .engine import TOOL_RULES
+    from .engine.registry import TOOL_RULES
 
     return registry.ordered() + list(TOOL_RULES.values())
 
 
 def cmd_rules(args) -> int:
-    from .engine import TOOL_RULES
-    from .redact import visible as _v
+    from .engine.registry import TOOL_RULES
+    from .common.redact import visible as _v
 
     registry = _registry()
     rules = {**{r.id: r for r in registry.ordered()}, **TOOL_RULES}
@@ -370,7 +370,7 @@ def cmd_rules(args) -> int:
         if r is None:
             print(f"trimtab: error: no rule {_v(rid)}; `trimtab rules` lists them", file=sys.stderr)
             return EXIT_INCOMPLETE
-        # a plugin's texts are shown, never obeyed: control characters made visible (trimtab.redact)
+        # a plugin's texts are shown, never obeyed: control characters made visible (trimtab.common.redact)
         print(f"{_v(r.id)}  {_v(r.name)}  (default level: {r.level}{', CWE-%d' % r.cwe if r.cwe else ''})")
         print(f"\n{_v(r.summary)}\n\n{_v(r.rationale)}")
         if r.needs:
@@ -401,7 +401,7 @@ def _toml(value) -> str:
 
 
 def cmd_audit(args) -> int:
-    from .audit import audit, write
+    from .report.audit import audit, write
     from .pipeline import Pipeline
 
     # a one-off audit may look at a config kept outside the repository (not confined)
@@ -422,7 +422,7 @@ def cmd_audit(args) -> int:
 
 
 def cmd_explain(args) -> int:
-    from .explain import explain
+    from .report.explain import explain
 
     return explain(_one_file(args), sys.stdout)
 
@@ -442,7 +442,7 @@ def _one_file(args):
 def _accepted_elsewhere(path: Path, checked: set[str], root: Path) -> list[dict]:
     """Entries of an existing accepted-findings file for files this run did not check and that
     still exist: a partial run (named paths, --since) keeps them rather than dropping them."""
-    from . import filtering
+    from .gate import filtering
 
     if not path.is_file():
         return []
@@ -450,7 +450,7 @@ def _accepted_elsewhere(path: Path, checked: set[str], root: Path) -> list[dict]
         rows = filtering.read_accepted(path)
     except filtering.AcceptedFileError:
         return []
-    from .paths import confined
+    from .common.paths import confined
 
     return [r for r in rows if r.get("file") not in checked
             and (real := confined(root / str(r.get("file")), root)) is not None and real.is_file()]
@@ -459,14 +459,14 @@ def _accepted_elsewhere(path: Path, checked: set[str], root: Path) -> list[dict]
 def _fix(args, settings, findings, files) -> int | None:
     """Apply (or, with --diff, show) the safe fixes. Returns the exit status when done, or None
     to check again and report what is left."""
-    from . import fix
+    from .adopt import fix
 
     on_disk = {shown: Path(p) for p, shown in files}
 
     def locate(shown: str):
         if shown in on_disk:
             return on_disk[shown]
-        from .paths import confined
+        from .common.paths import confined
 
         candidate = confined(settings.root / shown, settings.root)  # never a file outside
         return candidate if candidate is not None and candidate.is_file() else None
@@ -494,12 +494,12 @@ def _fix(args, settings, findings, files) -> int | None:
 
 
 def cmd_map(args) -> int:
-    from .keymap_draft import draft_command
+    from .adopt.keymap_draft import draft_command
 
     return draft_command(_one_file(args), args.output, sys.stdout, sys.stderr)
 
 
 def cmd_install_hook(args) -> int:
-    from .hook import install
+    from .adopt.hook import install
 
     return install(Path.cwd(), args.force, sys.stderr)

@@ -17,12 +17,12 @@ from itertools import chain
 from pathlib import Path
 from typing import Any
 
-from . import filtering
-from .check import CheckOptions, Checker, Kept, run, summary_counts
-from .engine import Registry
-from .findings import Finding, Level, Location
-from .settings import Settings, SettingsError
-from .spill import Stream
+from .gate import filtering
+from .gate.runner import CheckOptions, Checker, Kept, run, summary_counts
+from .engine.registry import Registry
+from .common.findings import Finding, Level, Location
+from .common.settings import Settings, SettingsError
+from .common.spill import Stream
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
 
@@ -127,7 +127,7 @@ class Outcome:
             if shown in k.doc.sources:
                 return k.doc.sources[shown]
         # a file a run names that the composer did not read: through the composer's cache of bases
-        from .compose import load_source
+        from .compose.layers import load_source
 
         disk = Path(shown) if Path(shown).is_absolute() else self.settings.root / shown
         return load_source(disk, shown, self.settings.limits)
@@ -140,7 +140,7 @@ class Pipeline:
 
     # --- discover --------------------------------------------------------------------------------
     def discover(self, req: Request) -> tuple[list[tuple[str, str]], list[str]]:
-        from .discover import changed_since, discover
+        from .load.discover import changed_since, discover
 
         settings = self.settings
         if req.staged_files is not None:
@@ -183,8 +183,8 @@ class Pipeline:
         """A base among the files to check (given, or changed since a ref) brings the files built on it."""
         if not (req.paths or changed is not None):
             return files  # the whole repository is checked anyway
-        from .compose import with_dependants
-        from .discover import relpath
+        from .compose.layers import with_dependants
+        from .load.discover import relpath
 
         seeds = set(changed or ()) | {s for _p, s in files}
         seeds |= {relpath(Path(p), self.settings.root.resolve()) for p in req.paths if Path(p).is_file()}
@@ -223,11 +223,11 @@ class Pipeline:
 
     def _others(self, req: Request, checker):
         """For a check of some files only (paths given, --since, --staged): the other runs of the
-        repository, for the rules over several runs (linter/context.py)."""
+        repository, for the rules over several runs (linter/gate/context.py)."""
         partial = bool(req.paths) or req.since is not None or req.staged_files is not None
         if not (req.cross_run and partial and checker.rules("set")):
             return None
-        from .context import other_entries
+        from .gate.context import other_entries
 
         source = self.settings.source
         start = Path(source).resolve().parent if source else Path.cwd()
@@ -244,7 +244,7 @@ class Pipeline:
             rows = filtering.read_accepted(path)
         except filtering.AcceptedFileError as exc:
             raise SettingsError(str(exc)) from None
-        from .paths import confined
+        from .common.paths import confined
 
         # an entry naming a file outside the repository is gone: nothing outside is even looked at
         gone = {str(r.get("file")) for r in rows

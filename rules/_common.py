@@ -6,7 +6,7 @@ value means "off", where to point a finding about a value that is not written at
 from __future__ import annotations
 
 from trimtab import Location
-from trimtab.vocabulary import CRITIC_FREE as _NO_CRITIC
+from trimtab.common.vocabulary import CRITIC_FREE as _NO_CRITIC
 
 # Estimator families (values of run.estimator, lower case).
 # Clipped policy-gradient objectives: PPO (Schulman et al. 2017, arXiv:1707.06347) and its GAE

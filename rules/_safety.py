@@ -33,7 +33,7 @@ def kind_of(comp) -> str:
     """rule, code, model, judge, remote, or '' when it cannot be told. A reference written as a
     bare identifier (``accuracy``) is a reward function by name; a path- or repository-like one
     (``team/model``, ``./weights``) is a model."""
-    from trimtab.codescan import function_name, looks_like_code
+    from trimtab.engine.codescan import function_name, looks_like_code
 
     k = comp.get("kind")
     if isinstance(k, str) and k.strip().lower() in _KIND:
@@ -54,7 +54,7 @@ def locate(ctx, comp):
     """Where a code reward's reference leads (a codescan ``Located``), or None when its reference
     is not code: ``module:function`` and file references through the search roots, a bare
     function name through every module of the search roots."""
-    from trimtab.codescan import function_name, parse_reference
+    from trimtab.engine.codescan import function_name, parse_reference
 
     ref = parse_reference(comp.get("ref"))
     if ref is not None:
@@ -78,7 +78,7 @@ def label(comp) -> str:
 
 
 def scanner(ctx):
-    from trimtab.codescan import scanner as make
+    from trimtab.engine.codescan import scanner as make
 
     return make(ctx.settings if ctx.settings is not None else ctx.model.settings)
 

@@ -8,8 +8,8 @@ disagreement and the rules downstream stay silent instead of repeating it.
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab import arithmetic
-from trimtab.arithmetic import PARALLEL, either, judge, keymap_line, lcm, near_divisors, near_multiples, related, remainder
+from trimtab.resolve import arithmetic
+from trimtab.resolve.arithmetic import PARALLEL, either, judge, keymap_line, lcm, near_divisors, near_multiples, related, remainder
 
 _GROUP_RELATIVE_BASIS = ("Group-relative estimators sample a group of completions per prompt and use the "
                          "group's statistics as the baseline (Shao et al. 2024, arXiv:2402.03300, "

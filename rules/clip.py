@@ -6,7 +6,7 @@ arXiv:2503.14476), optionally with a dual clip c for negative advantages (arXiv:
 """
 from __future__ import annotations
 
-from trimtab.arithmetic import judge
+from trimtab.resolve.arithmetic import judge
 from trimtab import rule
 
 from ._common import CLIPPED, anchor, clipped, estimator, num, shown, unresolved

@@ -3,8 +3,8 @@ which must itself fit the model's."""
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab import arithmetic
-from trimtab.arithmetic import related
+from trimtab.resolve import arithmetic
+from trimtab.resolve.arithmetic import related
 
 LENGTHS = ("length.prompt_max", "length.response_max", "rollout.context_max", "model.context_max")
 

@@ -6,7 +6,7 @@ from itertools import groupby, islice
 from operator import itemgetter
 
 from trimtab import Location, rule
-from trimtab.spill import Spill
+from trimtab.common.spill import Spill
 
 from ._common import anchor, num, shown, unresolved
 

@@ -8,7 +8,8 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
-from trimtab import Location, Scalar, budget, rule
+from trimtab import Location, Scalar, rule
+from trimtab.common import budget
 
 from ._safety import kind_of, label, locate, safe_url, scanner
 

@@ -9,7 +9,7 @@ from trimtab import rule
 from ._safety import CAUTIONS, digest, kind_of, label, locate, mask, safe_url, scanner
 
 # --- SEC-1 -----------------------------------------------------------------------------------------
-# The detector lives in trimtab.redact: every output masks what SEC-1 reports, with the same test.
+# The detector lives in trimtab.common.redact: every output masks what SEC-1 reports, with the same test.
 @rule(id="SEC-1", name="literal-credential", level="error", summary="A config holds a literal credential.",
       rationale="A token, password or API key written into a config is in version control, in every copy of the "
       "repository and in every log that prints the config (CWE-798, hard-coded credentials). trimtab "
@@ -28,7 +28,7 @@ from ._safety import CAUTIONS, digest, kind_of, label, locate, mask, safe_url, s
            "at run time from the environment or a secret store. Your organisation's security policy and local "
            "rules take precedence over this advice.")
 def literal_credential(ctx):
-    from trimtab.redact import credentials
+    from trimtab.common.redact import credentials
 
     for _key, node, why in credentials(ctx.doc, ctx.options["min_length"], ctx.options["min_entropy_bits"]):
         text = node.text

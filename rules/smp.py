@@ -3,7 +3,7 @@ completions of one prompt; a group of one, or a group sampled deterministically,
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab.arithmetic import related, settled
+from trimtab.resolve.arithmetic import related, settled
 
 _GROUPS = ("Published group sizes: 64 completions per prompt (Shao et al. 2024, arXiv:2402.03300) and 16 "
            "(Guo et al. 2025, arXiv:2501.12948v2, the revised version, from memory).")

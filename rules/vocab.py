@@ -2,8 +2,8 @@
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab.scalars import oversized, same_value
-from trimtab.vocabulary import CONCEPTS, RL_MARKERS, RL_MIN_MARKERS
+from trimtab.common.scalars import oversized, same_value
+from trimtab.common.vocabulary import CONCEPTS, RL_MARKERS, RL_MIN_MARKERS
 
 # Enumerations whose unknown values a rule of their own area reports with its own reasoning.
 OWNED_ELSEWHERE = frozenset({"kl.estimator"})

@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 from trimtab import Level, Location, rule
-from trimtab.scalars import same_value, type11, type12
+from trimtab.common.scalars import same_value, type11, type12
 
 _PARSE_WHY = ("A run config that does not parse cannot launch; where a loader is lenient, it may read "
               "something other than what was written. Line and column are the parser's.")
@@ -150,7 +150,7 @@ def version_disagreement(ctx):
 
 
 def _expects_text(concept: str) -> bool:
-    from trimtab.vocabulary import CONCEPTS
+    from trimtab.common.vocabulary import CONCEPTS
 
     c = CONCEPTS.get(concept)
     return c is not None and c.type == "str"  # "any" concepts (reference.source) give false a meaning

@@ -19,7 +19,7 @@ REPO = Path(__file__).resolve().parents[1]
 FIXTURES = REPO / "fixtures"
 SHARED = Path(os.environ.get("TRIMTAB_SHARED", REPO.parent / "shared"))
 # A check of some files keeps a cache of the other runs in git's own folder, else in the user's cache
-# folder (linter/context.py): the suite's repositories without git use a folder of its own.
+# folder (linter/gate/context.py): the suite's repositories without git use a folder of its own.
 if "XDG_CACHE_HOME" not in os.environ:
     import tempfile
 

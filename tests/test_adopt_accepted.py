@@ -199,7 +199,7 @@ def test_findings_sharing_a_fingerprint_are_counted(tmp_path):
 
 def test_a_crashed_rule_is_never_recorded(tmp_path, monkeypatch):
     from trimtab import cli, hookimpl, rule
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     class Crash:
         @hookimpl

@@ -159,8 +159,8 @@ def test_diff_needs_fix(tmp_path):
 
 # --- the fixer refuses what it cannot prove -------------------------------------------------------
 def plan_for(tmp_path: Path, text: str, edits) -> "list":
-    from trimtab import fix
-    from trimtab.findings import Finding, Level, Location
+    from trimtab.adopt import fix
+    from trimtab.common.findings import Finding, Level, Location
 
     p = tmp_path / "run.yaml"
     p.write_text(text, encoding="utf-8")
@@ -214,8 +214,8 @@ def test_refuses_stale_spans_and_partial_scalars(tmp_path):
 
 
 def test_refuses_quoting_in_json(tmp_path):
-    from trimtab import fix
-    from trimtab.findings import Finding, Level, Location
+    from trimtab.adopt import fix
+    from trimtab.common.findings import Finding, Level, Location
 
     p = tmp_path / "run.json"
     p.write_text('{"run": {"name": "x"}, "flag": true}\n', encoding="utf-8")
@@ -248,10 +248,10 @@ class _Plugin:
 
 
 def test_a_rule_can_declare_a_value_correcting_fix(tmp_path):
-    from trimtab import fix
-    from trimtab.check import Checker
-    from trimtab.engine import Registry
-    from trimtab.settings import Settings
+    from trimtab.adopt import fix
+    from trimtab.gate.runner import Checker
+    from trimtab.engine.registry import Registry
+    from trimtab.common.settings import Settings
 
     text = ("run:\n  estimator: grpo   # factors below\nbatch:\n  prompts: 64\n  rollouts:  500   # stated\n"
             "rollout:\n  group_size: 8\n  temperature: 0.9\n")
@@ -305,10 +305,10 @@ def test_property_exponent_respelling_keeps_value_and_bytes(number, pad, comment
     """Reference: PyYAML (YAML 1.1) and Python's float() (the YAML 1.2 reading of a float)."""
     import tempfile
 
-    from trimtab import fix
-    from trimtab.check import Checker
-    from trimtab.engine import Registry
-    from trimtab.settings import Settings
+    from trimtab.adopt import fix
+    from trimtab.gate.runner import Checker
+    from trimtab.engine.registry import Registry
+    from trimtab.common.settings import Settings
 
     text = (f"run:\n  estimator: grpo\nrollout:\n  group_size: 8\n  temperature: 0.9\n"
             f"optim:\n  lr:{pad} {number}{comment}\n")
@@ -335,7 +335,7 @@ def test_an_edit_keeps_its_meaning_across_worker_processes():
     """--jobs N returns findings from worker processes by pickling: KEEP must stay the one object."""
     import pickle
 
-    from trimtab.findings import KEEP
+    from trimtab.common.findings import KEEP
 
     e = pickle.loads(pickle.dumps(Edit("run.yaml", 1, 5, "3e-6", "3.0e-6")))
     assert e.value is KEEP

@@ -71,9 +71,9 @@ def confirm(text: str, truth: dict[str, str]) -> str:
 
 
 def resolved_keys(root: Path, config: Path) -> dict[str, str]:
-    from trimtab.engine import Registry
-    from trimtab.explain import models
-    from trimtab.settings import load
+    from trimtab.engine.registry import Registry
+    from trimtab.report.explain import models
+    from trimtab.common.settings import load
 
     settings = load(root / "pyproject.toml")
     runs, problems = models(str(config), settings, Registry())

@@ -9,7 +9,7 @@ from contextlib import redirect_stderr, redirect_stdout
 from types import SimpleNamespace
 
 from trimtab.cli import main
-from trimtab.progress import Progress
+from trimtab.report.progress import Progress
 
 RUN = "run:\n  estimator: grpo\nrollout:\n  group_size: 8\n  temperature: 0.9\n"
 

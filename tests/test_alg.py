@@ -40,7 +40,7 @@ def test_gamma_outside_unit_interval_is_an_error(tmp_path_factory, x):
 
 @pytest.mark.parametrize("rule_id", ["ALG-1", "ALG-2", "ALG-3"])
 def test_rules_command_shows_the_rationale(rule_id):
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     rule = Registry().rules[rule_id]
     out = run_cli("rules", rule_id).out

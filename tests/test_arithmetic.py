@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import time
 
-from trimtab.arithmetic import near_divisors, near_multiples, remainder
+from trimtab.resolve.arithmetic import near_divisors, near_multiples, remainder
 
 
 def test_nearest_values():

@@ -163,8 +163,8 @@ def _reference_numbers(path: Path) -> dict:
 
 @pytest.mark.parametrize("path", [CLEAN, BROKEN])
 def test_svg_labels_carry_the_run_models_numbers_and_origins(tmp_path, path):
-    from trimtab.explain import models
-    from trimtab.settings import load
+    from trimtab.report.explain import models
+    from trimtab.common.settings import load
 
     _res, page = audit_page(tmp_path, path)
     tree = parse(page)
@@ -189,7 +189,7 @@ def test_svg_labels_carry_the_run_models_numbers_and_origins(tmp_path, path):
 
 
 def _registry():
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     return Registry()
 
@@ -361,9 +361,9 @@ def test_edge_values_draw_no_impossible_shapes(tmp_path):
 def test_base_files_of_a_composed_run_are_shown_and_linkable(tmp_path, monkeypatch):
     """Composition is a pass-through today; a run composed from a base file lists it in
     RunModel.files, and the page then shows the base file so related locations can point into it."""
-    from trimtab import compose
-    from trimtab.engine import Registry, rule
-    from trimtab.findings import Location
+    from trimtab.compose import layers as compose
+    from trimtab.engine.registry import Registry, rule
+    from trimtab.common.findings import Location
 
     base = "fixtures/audit/clean.yaml"
     real = compose.Composer.compose
@@ -387,9 +387,9 @@ def test_base_files_of_a_composed_run_are_shown_and_linkable(tmp_path, monkeypat
         def trimtab_rules(self):
             return [points]
 
-    from trimtab.audit import audit
+    from trimtab.report.audit import audit
     from trimtab.pipeline import Pipeline, Request
-    from trimtab.settings import load
+    from trimtab.common.settings import load
 
     page = audit(Pipeline(load(None, REPO), Registry([Plugin()])).run(
         Request(paths=[str(BROKEN)], gate="warning", confine=False, keep_models=True)))
@@ -422,9 +422,9 @@ def _quoted(text: str) -> str:
 
 
 def _page_for_name(tmp_path, name: str) -> str:
-    from trimtab.audit import audit
+    from trimtab.report.audit import audit
     from trimtab.pipeline import Pipeline, Request
-    from trimtab.settings import load
+    from trimtab.common.settings import load
 
     global _REGISTRY
     _REGISTRY = _REGISTRY or _registry()

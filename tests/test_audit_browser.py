@@ -242,7 +242,7 @@ def _count(image, rgb: tuple[int, int, int]) -> int:
 
 
 def test_screenshot_shows_the_broken_step(browser):
-    from trimtab.audit import BROKEN_FILL
+    from trimtab.report.audit_svg import BROKEN_FILL
 
     _pages, _results, shots = browser
     rgb = tuple(int(BROKEN_FILL[i:i + 2], 16) for i in (1, 3, 5))

@@ -15,9 +15,9 @@ from pathlib import Path
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from trimtab.check import Checker
-from trimtab.engine import Registry
-from trimtab.settings import Settings
+from trimtab.gate.runner import Checker
+from trimtab.engine.registry import Registry
+from trimtab.common.settings import Settings
 
 _TMP = Path(tempfile.mkdtemp(prefix="trimtab-props-"))
 atexit.register(shutil.rmtree, _TMP, True)

@@ -150,7 +150,7 @@ def test_the_budget_interrupts_a_match_and_restores_the_signal_handler():
     import signal
     import threading
 
-    from trimtab import budget
+    from trimtab.common import budget
 
     before = signal.getsignal(signal.SIGPROF)
     with bounded(30, "a budgeted match"):
@@ -216,14 +216,14 @@ def test_integers_of_thousands_of_digits_are_a_finding_and_the_other_files_are_c
     ("0" * 500 + "7", 7),  # leading zeros do not count (YAML 1.1 octal, YAML 1.2 decimal)
 ])
 def test_integers_below_the_limit_keep_their_value(text, value):
-    from trimtab import scalars
+    from trimtab.common import scalars
 
     assert scalars.type11(text) == value and not scalars.oversized(text)
 
 
 @pytest.mark.parametrize("text", ["1" + "0" * 30, "0x" + "f" * 26, "-" + "9" * 40, "1" + ":00" * 5000])
 def test_integers_past_the_limit_stay_text_without_converting(text):
-    from trimtab import scalars
+    from trimtab.common import scalars
 
     with bounded(10, "typing a long integer"):
         assert scalars.typed(text, True, None, "1.1") == text and scalars.oversized(text)
@@ -235,7 +235,7 @@ def test_integers_past_the_limit_stay_text_without_converting(text):
     "# trimtab: accept KL-1" + " " * 40_000 + "x",  # ids, a long blank run, a word without "--": malformed
 ])
 def test_a_long_acceptance_comment_is_parsed_in_linear_time(comment):
-    from trimtab import filtering
+    from trimtab.gate import filtering
 
     with bounded(10, "parsing one acceptance comment"):  # 27 s before, on 40,000 characters
         [a] = filtering.acceptances("kl_coef: 0.0  " + comment + "\n")
@@ -246,7 +246,7 @@ def test_a_long_acceptance_comment_is_parsed_in_linear_time(comment):
 
 
 def test_an_acceptance_comment_reads_as_before():
-    from trimtab import filtering
+    from trimtab.gate import filtering
 
     [a, b, c, d] = filtering.acceptances(
         "a: 1  # trimtab: accept KL-1, clp-2 -- the recipe -- as published\n"
@@ -262,7 +262,7 @@ def test_an_acceptance_comment_reads_as_before():
 def test_a_long_value_full_of_references_is_scanned_in_linear_time():
     # SEC-1's environment-reference test: "${" with no "}" after it, 200,000 times (the pattern
     # \$\{[^}]*\}, tried at every "${", took seconds on 40,000 characters)
-    from trimtab import redact
+    from trimtab.common import redact
 
     with bounded(10, "one environment-reference test"):
         assert redact.literal("${" * 100_000)  # no reference: a literal
@@ -290,9 +290,9 @@ def test_a_base_named_again_later_applies_at_its_last_place(repo):
     (repo / "high.yaml").write_text("optim:\n  lr: 1.0e-5\n  warmup_steps: 10\n")
     (repo / "run.yaml").write_text((RULES / "REW-10" / "good.yaml").read_text()
                                    + "bases: [low.yaml, high.yaml, low.yaml]\n")
-    from trimtab.engine import Registry
-    from trimtab.explain import models
-    from trimtab.settings import load as load_settings
+    from trimtab.engine.registry import Registry
+    from trimtab.report.explain import models
+    from trimtab.common.settings import load as load_settings
 
     settings = load_settings(start=repo)
     (m,), _ = models(str(repo / "run.yaml"), settings, Registry(), [])
@@ -334,7 +334,7 @@ def test_max_depth_at_the_schemas_maximum_works_in_every_command(repo):
 
     from support import REPO
 
-    schema = json.loads((REPO / "linter" / "settings.schema.json").read_text())
+    schema = json.loads((REPO / "linter" / "common" / "settings.schema.json").read_text())
     deepest = schema["properties"]["limits"]["properties"]["max_depth"]["maximum"]
     (repo / "trimtab.toml").write_text(f'bases_key = "bases"\n[limits]\nmax_depth = {deepest}\n')
     (repo / "base.yaml").write_text("seed: 7\n")
@@ -353,9 +353,9 @@ def test_opt_4_is_linear_when_many_runs_share_one_folder():
     """20,000 runs, each writing the same checkpoint folder at a line of its own: one finding per
     run, each listing ten others and the count of the rest (quadratic before: each finding
     built the list of all the others)."""
-    from trimtab.check import SetEntry
-    from trimtab.findings import Location
-    from trimtab.model import Value
+    from trimtab.gate.runner import SetEntry
+    from trimtab.common.findings import Location
+    from trimtab.resolve.model import Value
     from trimtab_rules import opt
 
     n = 20_000

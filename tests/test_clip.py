@@ -58,7 +58,7 @@ def test_clip_rules_are_silent_without_their_inputs(tmp_path):
 
 @pytest.mark.parametrize("rule_id", [f"CLP-{n}" for n in range(1, 9)])
 def test_rules_command_shows_the_rationale(rule_id):
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     rule = Registry().rules[rule_id]
     out = run_cli("rules", rule_id).out

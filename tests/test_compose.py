@@ -12,10 +12,10 @@ from hypothesis import given, settings as hsettings, strategies as st
 
 from support import FIXTURES, check_json, run_cli, shared_path
 from trimtab import hookimpl, rule
-from trimtab.check import CheckOptions, Checker, run
-from trimtab.discover import discover
-from trimtab.engine import Registry
-from trimtab.settings import load as load_settings
+from trimtab.gate.runner import CheckOptions, Checker, run
+from trimtab.load.discover import discover
+from trimtab.engine.registry import Registry
+from trimtab.common.settings import load as load_settings
 
 COMPOSE = FIXTURES / "compose"
 RULES = FIXTURES / "rules"
@@ -82,7 +82,7 @@ def test_override_on_the_command_line_masks_the_defect():
 
 
 def test_derived_arithmetic_in_the_run_model():
-    from trimtab.explain import models
+    from trimtab.report.explain import models
 
     folder = COMPOSE / "after"
     settings = load_settings(start=folder)
@@ -121,7 +121,7 @@ def test_defect_masked_by_the_next_layer(tmp_path):
 
 
 def test_deletion_marker_removes_a_key_of_the_base():
-    from trimtab.explain import models
+    from trimtab.report.explain import models
 
     folder = COMPOSE / "masked"
     (m,), _ = models(str(folder / "experiments/sweep.yaml"), load_settings(start=folder), Registry())
@@ -151,7 +151,7 @@ def test_interpolation_carries_a_wrong_value_across_files():
 
 
 def test_interpolation_types():
-    from trimtab.explain import models
+    from trimtab.report.explain import models
 
     folder = COMPOSE / "carried"
     settings = load_settings(start=folder)
@@ -165,7 +165,7 @@ def test_interpolation_types():
 
 # --- the same run written out flat gives the same findings -----------------------------------------
 def _flat(node, indent: int = 0) -> list[str]:
-    from trimtab.document import Mapping, Scalar, Sequence
+    from trimtab.load.document import Mapping, Scalar, Sequence
 
     pad = " " * indent
     out = []
@@ -192,8 +192,8 @@ def _scalar(node) -> str:
                                           ("carried", "experiments/rate.yaml"),
                                           ("masked", "experiments/sweep.yaml")])
 def test_flat_equivalence(tmp_path, scenario, exp):
-    from trimtab import loader
-    from trimtab.compose import Composer
+    from trimtab.load import loader
+    from trimtab.compose.layers import Composer
 
     folder = COMPOSE / scenario
     settings = load_settings(start=folder)
@@ -242,8 +242,8 @@ def test_command_line_location_validates_as_sarif():
 def test_sarif_location_of_a_command_line_value_and_of_a_region():
     # SARIF 2.1.0, section 3.28 (a location with only logical locations and a message) and 3.30 (a region's
     # endLine is not before its startLine; section numbers from memory).
-    from trimtab.findings import Location
-    from trimtab.sarif import _location
+    from trimtab.common.findings import Location
+    from trimtab.report.sarif import _location
 
     loc = _location(Location(None, message="prompts per step", key_path="batch.prompts"))
     assert loc == {"logicalLocations": [{"fullyQualifiedName": "batch.prompts", "kind": "property"}],
@@ -263,7 +263,7 @@ def test_bad_override_value_is_a_clear_error():
 
 
 def test_set_reaches_into_a_list_and_removes_keys(tmp_path):
-    from trimtab.explain import models
+    from trimtab.report.explain import models
 
     (tmp_path / "trimtab.toml").write_text("")
     run_file = tmp_path / "run.yaml"
@@ -365,7 +365,7 @@ def test_acceptance_in_a_base_file(tmp_path):
 
 
 def test_a_base_is_loaded_once_per_process(tmp_path):
-    from trimtab import compose
+    from trimtab.compose import layers as compose
 
     (tmp_path / "trimtab.toml").write_text('bases_key = "inherit"\n')
     (tmp_path / "base.yaml").write_text("algorithm: grpo\nrollout:\n  group_size: 8\n")
@@ -383,10 +383,10 @@ def test_a_base_is_loaded_once_per_process(tmp_path):
 def test_merge_is_key_by_key_later_wins(layers):
     """Mappings merge key by key, later layers win, scalars replace whole (against a plain
     reference implementation of that merge)."""
-    from trimtab import loader
-    from trimtab.compose import Composer
-    from trimtab.document import Document, Mapping
-    from trimtab.settings import Settings
+    from trimtab.load import loader
+    from trimtab.compose.layers import Composer
+    from trimtab.load.document import Document, Mapping
+    from trimtab.common.settings import Settings
 
     def merge(a, b):
         out = dict(a)
@@ -409,7 +409,7 @@ def test_merge_is_key_by_key_later_wins(layers):
         loader.parse_bytes(d, json.dumps(layer).encode(), loader.Limits())
         docs.append(d)
     composer.hist = {}
-    from trimtab.compose import _M
+    from trimtab.compose.layers import _M
 
     top = _M(docs[-1].roots[0])
     for i, d in enumerate(docs):
@@ -493,7 +493,7 @@ def test_built_in_arithmetic_rule_sees_the_composed_run():
 
 
 def test_reference_and_target_both_matching_a_concept_word(tmp_path):
-    from trimtab.explain import models
+    from trimtab.report.explain import models
 
     (tmp_path / "trimtab.toml").write_text("")
     run_file = tmp_path / "run.yaml"
@@ -506,7 +506,7 @@ def test_reference_and_target_both_matching_a_concept_word(tmp_path):
 
 
 def test_text_that_only_looks_like_a_reference_stays_as_written(tmp_path):
-    from trimtab.explain import models
+    from trimtab.report.explain import models
 
     (tmp_path / "trimtab.toml").write_text("")
     run_file = tmp_path / "run.yaml"
@@ -522,7 +522,7 @@ def test_text_that_only_looks_like_a_reference_stays_as_written(tmp_path):
 def test_json_report_with_command_line_and_base_locations_validates():
     import jsonschema
 
-    schema = json.loads((Path(__file__).resolve().parents[1] / "linter" / "report.schema.json").read_text())
+    schema = json.loads((Path(__file__).resolve().parents[1] / "linter" / "report" / "report.schema.json").read_text())
     res = check_json("experiments/tidepool.yaml", args=["--set", "rollout.temperature=warm", "--set", "run_name.x=1"],
                      cwd=COMPOSE / "after")
     jsonschema.Draft7Validator(schema).validate(res.json)

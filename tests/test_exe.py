@@ -83,7 +83,7 @@ def test_exe4_threshold_is_an_option(tmp_path):
 
 # --- the scanner ------------------------------------------------------------------------------------------
 def _scan_source(tmp_path, source):
-    from trimtab.codescan import Reference, Scanner
+    from trimtab.engine.codescan import Reference, Scanner
 
     (tmp_path / "mod.py").write_text(source)
     sc = Scanner(tmp_path)
@@ -95,7 +95,7 @@ def _scan_source(tmp_path, source):
 def test_os_family_coverage_against_the_standard_library(tmp_path):
     """Every os function of this Python whose name starts with exec, spawn or posix_spawn is in the
     detector list, and the scanner reports a call to it (the standard library itself is the reference)."""
-    from trimtab.codescan import OS_RUNNERS
+    from trimtab.engine.codescan import OS_RUNNERS
 
     family = sorted(n for n in dir(os) if n.startswith(("exec", "spawn", "posix_spawn")) and callable(getattr(os, n)))
     assert family, "this Python's os module has no exec/spawn functions?"
@@ -167,9 +167,9 @@ rewards:
     assert res.of("EXE-1") == []
     assert at(res, "EXE-2") == [(13, 16)]
     # the component's own revision is a field of the component, not the policy's model.revision
-    from trimtab.explain import models
-    from trimtab.engine import Registry
-    from trimtab.settings import Settings
+    from trimtab.report.explain import models
+    from trimtab.engine.registry import Registry
+    from trimtab.common.settings import Settings
 
     (m,), _ = models(str(tmp_path / "run.yaml"), Settings(root=tmp_path), Registry())
     assert "model.revision" not in m.values and m.components[0].get("revision") == "abc"

@@ -35,7 +35,7 @@ def test_fixture(tmp_path, kind, path):
 
 
 def test_every_registered_rule_has_a_good_and_a_bad_fixture():
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     have: dict[str, set[str]] = {}
     for kind, path in FIXTURES:

@@ -96,7 +96,7 @@ def test_rule_level_and_off_from_settings(repo):
 def test_json_report_validates_against_the_shipped_schema():
     import jsonschema
 
-    schema = json.loads((REPO / "linter" / "report.schema.json").read_text())
+    schema = json.loads((REPO / "linter" / "report" / "report.schema.json").read_text())
     r = check_json(cwd=DEMO)
     jsonschema.Draft7Validator.check_schema(schema)
     jsonschema.validate(r.json, schema, cls=jsonschema.Draft7Validator)
@@ -206,7 +206,7 @@ class _CrashPlugin:
 
 def test_crashing_rule_is_a_tool_finding_and_exit_2(repo, monkeypatch):
     from trimtab import cli
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     monkeypatch.setattr(cli, "_registry", lambda: Registry(plugins=[_CrashPlugin()]))
     write(repo, "a.yaml", RUN_CONFIG)
@@ -320,7 +320,7 @@ def test_readme_plugin_example_works(tmp_path, monkeypatch):
     import types
 
     from trimtab import cli
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     readme = (REPO / "README.md").read_text()
     code = re.search(r"```python\n# burrow_rules/__init__.py\n(.*?)```", readme, re.S).group(1)
@@ -337,7 +337,7 @@ def test_readme_plugin_example_works(tmp_path, monkeypatch):
 
 def test_readme_lists_every_rule_with_its_level():
     """The README's rule tables are the catalogue: every registered rule, with its default level."""
-    from trimtab.engine import TOOL_RULES, Registry
+    from trimtab.engine.registry import TOOL_RULES, Registry
 
     readme = (REPO / "README.md").read_text()
     rows = dict(re.findall(r"^\| ([A-Z]+-\d+) \| (error|warning|note) \|", readme, re.M))
@@ -370,7 +370,7 @@ def test_readme_settings_example_is_valid(tmp_path):
     (tmp_path / ".git").mkdir()
     write(tmp_path, "pyproject.toml", block)
     write(tmp_path, "run.yaml", RUN_CONFIG)
-    from trimtab import settings
+    from trimtab.common import settings
 
     s = settings.load(start=tmp_path)
     assert s.gate == "warning" and s.bases_key == "inherit" and s.limits.max_depth == 200

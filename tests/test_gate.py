@@ -62,7 +62,7 @@ def test_a_path_that_does_not_exist_exits_2_with_one_message(repo, argv):
 
 # --- 7. the plain hook's fallback message -------------------------------------------------------
 def test_plain_hook_without_trimtab_says_what_the_readme_says(tmp_path):
-    from trimtab.hook import hook_script
+    from trimtab.adopt.hook import hook_script
 
     script = tmp_path / "pre-commit"
     script.write_text(hook_script(str(tmp_path / "no-such-python")), encoding="utf-8")
@@ -77,7 +77,7 @@ def test_plain_hook_without_trimtab_says_what_the_readme_says(tmp_path):
 
 # --- 10. rule options printed as TOML -------------------------------------------------------------
 def test_rules_id_prints_options_as_valid_toml():
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     with_options = [r for r in Registry().ordered() if r.options]
     assert any(isinstance(v, bool) for r in with_options for v in r.options.values())
@@ -144,7 +144,7 @@ def test_extra_argument_shows_the_commands_own_usage(repo):
 
 # --- 8. a rule's help once per report; the safety cautions only where they apply -------------------
 def test_text_report_prints_each_help_paragraph_once():
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
     from trimtab_rules._safety import CAUTIONS
 
     r = run_cli("check", cwd=DEMO)

@@ -12,11 +12,11 @@ import pytest
 import yaml
 
 from support import FIXTURES, MEASURED, bounded, run_cli
-from trimtab import loader
-from trimtab.check import Checker
-from trimtab.document import Scalar, Sequence, walk
-from trimtab.engine import Registry
-from trimtab.settings import Settings, SettingsError
+from trimtab.load import loader
+from trimtab.gate.runner import Checker
+from trimtab.load.document import Scalar, Sequence, walk
+from trimtab.engine.registry import Registry
+from trimtab.common.settings import Settings, SettingsError
 
 HOSTILE = FIXTURES / "hostile"
 
@@ -608,7 +608,7 @@ def test_an_output_path_that_cannot_be_written_exits_2(repo, option):
 def test_outside_paths_without_confinement_are_read_but_links_out_never(repo, tmp_path_factory):
     """An audit may name a config kept elsewhere; a link inside the repository that leads out of
     it is refused whatever the command."""
-    from trimtab.discover import discover
+    from trimtab.load.discover import discover
 
     outside = tmp_path_factory.mktemp("kept-elsewhere") / "old-run.yaml"
     outside.write_text(GOOD)

@@ -340,7 +340,7 @@ def test_an_interrupted_report_leaves_the_earlier_one_whole(repo, monkeypatch):
     report = repo.root / "report.json"
     assert repo.trimtab("check", "--format", "json", "--output", "report.json").code == 1
     earlier = report.read_bytes()
-    from trimtab import reports
+    from trimtab.report import text as reports
 
     def broken(findings, summary, code, out):
         out.write('{"tool": "trimtab", "half')

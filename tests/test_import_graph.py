@@ -96,3 +96,42 @@ def test_the_rules_use_only_the_public_api_and_the_engine_never_imports_the_rule
     g = graph()
     assert not any(m.startswith("trimtab_rules") for n, deps in g.items() if n.startswith("trimtab.")
                    for m in deps)
+
+
+# The stages in the order the pipeline runs them (README, "Where each stage lives"): a module may
+# import its own stage and the stages before it, never one after it.
+STAGES = ("common", "load", "compose", "resolve", "engine", "gate", "pipeline", "report", "adopt", "cli")
+
+
+def _stage(module: str) -> str | None:
+    parts = module.split(".")
+    if parts[0] != "trimtab" or len(parts) < 2:
+        return None
+    return parts[1] if parts[1] in STAGES else None
+
+
+def _backward(g: dict[str, set[str]]) -> list[str]:
+    out = []
+    for name, deps in sorted(g.items()):
+        here = _stage(name)
+        for dep in sorted(deps):
+            there = _stage(dep)
+            if here and there and STAGES.index(there) > STAGES.index(here):
+                out.append(f"{name} -> {dep}")
+    return out
+
+
+def test_every_stage_is_a_folder_of_its_own():
+    folders = {p.name for p in (REPO / "linter").iterdir() if (p / "__init__.py").is_file()}
+    assert folders == {s for s in STAGES if s not in ("pipeline", "cli")}
+    assert sorted(p.name for p in (REPO / "linter").glob("*.py")) == ["__init__.py", "__main__.py", "cli.py",
+                                                                      "pipeline.py"]
+
+
+def test_imports_point_from_later_stages_to_earlier_ones():
+    assert _backward(graph()) == []
+
+
+def test_the_stage_check_finds_an_import_that_points_back():
+    g = {"trimtab.load.loader": {"trimtab.resolve.model"}, "trimtab.resolve.model": {"trimtab.common.findings"}}
+    assert _backward(g) == ["trimtab.load.loader -> trimtab.resolve.model"]

@@ -71,7 +71,7 @@ KL_IDS = ["KL-1", "KL-2", "KL-3", "KL-4", "KL-5", "KL-6"]
 
 @pytest.mark.parametrize("rule_id", KL_IDS)
 def test_rules_command_shows_the_rationale(rule_id):
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     rule = Registry().rules[rule_id]
     r = run_cli("rules", rule_id)
@@ -119,7 +119,7 @@ def test_unstated_reference_is_reported_only_when_asked(tmp_path):
     ("coef", "loss", None),  # no KL word
 ])
 def test_kl_place_and_role_by_words(leaf, parent, concept):
-    from trimtab.vocabulary import word_concept
+    from trimtab.common.vocabulary import word_concept
 
     found = word_concept(leaf, parent)
     assert (found[0] if found else None) == concept
@@ -158,8 +158,8 @@ def test_explain_marks_dead_settings():
 
 
 def test_a_dead_value_is_kept_but_not_read(tmp_path):
-    from trimtab.loader import load
-    from trimtab.resolve import ResolveOptions, resolve
+    from trimtab.load.loader import load
+    from trimtab.resolve.concepts import ResolveOptions, resolve
 
     (tmp_path / "run.yaml").write_text("kl:\n  enabled: false\n  coef: 0.5\n  estimator: k9\n")
     doc = load(str(tmp_path / "run.yaml"))

@@ -23,9 +23,9 @@ SET_RULES = {"OPT-4"}
 
 
 def _models(path: Path):
-    from trimtab import settings as settings_mod
+    from trimtab.common import settings as settings_mod
     from trimtab.cli import _registry
-    from trimtab.explain import models
+    from trimtab.report.explain import models
 
     s = settings_mod.load(start=path.parent)
     runs, _problems = models(str(path), s, _registry())
@@ -120,8 +120,8 @@ def test_variables_defaults_arithmetic_and_a_sourced_script():
 ])
 def test_words_read_as_a_posix_shell_reads_them(tmp_path, script):
     """The words the last command receives, as trimtab reads them and as sh prints them."""
-    from trimtab import shell
-    from trimtab.settings import Settings
+    from trimtab.compose import shell
+    from trimtab.common.settings import Settings
 
     ref = subprocess.run(["sh", "-c", script.replace("echo", "printf '%s\\n'", 1)], capture_output=True,
                          text=True, timeout=10, env={"PATH": "/usr/bin:/bin"})

@@ -210,7 +210,7 @@ def test_a_command_line_value_is_masked_in_every_report(repo):
 
 # --- one detector ------------------------------------------------------------------------------------
 def test_mask_hides_what_sec1_reports_and_keeps_ordinary_text():
-    from trimtab.redact import MASK, mask
+    from trimtab.common.redact import MASK, mask
 
     for secret in (SK, GHP, HF, AKIA, RANDOM):
         assert mask(f"value {secret!r} is not a KL estimator") == f"value '{MASK}' is not a KL estimator"
@@ -255,7 +255,7 @@ def test_a_newline_in_a_file_name_cannot_forge_a_report_line(repo):
 
 
 def test_rules_text_shows_a_plugin_s_control_characters():
-    from trimtab.redact import visible
+    from trimtab.common.redact import visible
 
     assert visible("summary\x1b[2J\nnext") == "summary\u27e8U+001B\u27e9[2J\u27e8U+000A\u27e9next"
 
@@ -281,7 +281,7 @@ def test_known_credentials_are_replaced_as_the_standard_library_s_alternation_wo
     import random
     import re
 
-    from trimtab import redact
+    from trimtab.common import redact
 
     rng = random.Random(7)
     alphabet = "ab7_-"

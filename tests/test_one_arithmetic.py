@@ -1,5 +1,5 @@
 """One arithmetic (issue 15, item 2): the BAT and LEN rules, the ``explain`` table and the audit
-pictures read the same steps (``trimtab.arithmetic``), so they state the same numbers and agree on
+pictures read the same steps (``trimtab.resolve.arithmetic``), so they state the same numbers and agree on
 what breaks. The three disagreements users saw before each have a test here; then a property test
 (hypothesis) over generated runs compares the numbers of the three views.
 
@@ -21,12 +21,12 @@ from hypothesis import strategies as st
 from support import REPO, check_json, run_cli
 from test_audit import inside, parse
 
-from trimtab import arithmetic
-from trimtab.audit import batch_steps, token_budget
-from trimtab.check import Checker
-from trimtab.engine import Registry
-from trimtab.explain import models
-from trimtab.settings import Settings
+from trimtab.resolve import arithmetic
+from trimtab.report.audit_pictures import batch_steps, token_budget
+from trimtab.gate.runner import Checker
+from trimtab.engine.registry import Registry
+from trimtab.report.explain import models
+from trimtab.common.settings import Settings
 
 RUN = """\
 # Lowfield Labs: wren-7b on tidepool arithmetic (invented scenario).
@@ -213,10 +213,13 @@ def test_explain_audit_and_findings_state_the_same_numbers(rows):
 
 def test_the_views_import_no_arithmetic_of_their_own():
     # the rules, the explain table and the audit compute nothing themselves: no derive(), no settled()
-    # of their own, no divisibility of batch quantities outside trimtab.arithmetic
-    for rel in ("rules/bat.py", "rules/length.py", "linter/explain.py"):
+    # of their own, no divisibility of batch quantities outside trimtab.resolve.arithmetic
+    for rel in ("rules/bat.py", "rules/length.py", "linter/report/explain.py"):
         text = (REPO / rel).read_text(encoding="utf-8")
         assert "def derive" not in text and "def settled" not in text, rel
-    assert "def derive" not in (REPO / "linter/resolve.py").read_text(encoding="utf-8")
-    audit = (REPO / "linter/audit.py").read_text(encoding="utf-8")
+    assert "def derive" not in (REPO / "linter/resolve/concepts.py").read_text(encoding="utf-8")
+    audit = "".join((REPO / "linter/report" / name).read_text(encoding="utf-8")
+                    for name in ("audit.py", "audit_pictures.py", "audit_svg.py"))
     assert "model.int(" not in audit and "model.derived" not in audit.split("def batch_steps")[1].split("def _v")[0]
+    # the pictures draw the arithmetic's whole parts and remainders; they divide nothing themselves
+    assert "divmod(" not in audit and " % " not in audit.replace("k % 2", "").replace("col % 2", "").replace("t % 2", "")

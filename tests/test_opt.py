@@ -110,7 +110,7 @@ def test_two_documents_of_one_file_are_two_runs(tmp_path):
 
 @pytest.mark.parametrize("rule_id", [f"OPT-{n}" for n in range(1, 6)])
 def test_rules_command_shows_the_rationale(rule_id):
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     rule = Registry().rules[rule_id]
     out = run_cli("rules", rule_id).out

@@ -26,9 +26,9 @@ def test_trimtab_reads_every_sourced_figure_of_a_recipe_as_written(name):
     # misread would leave the rules silent for the wrong reason.
     import yaml
 
-    from trimtab.engine import Registry
-    from trimtab.explain import models
-    from trimtab.settings import Settings
+    from trimtab.engine.registry import Registry
+    from trimtab.report.explain import models
+    from trimtab.common.settings import Settings
 
     path = PUBLISHED / name
     runs, problems = models(str(path), Settings(root=PUBLISHED), Registry())

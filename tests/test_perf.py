@@ -12,9 +12,11 @@ import pytest
 import yaml
 
 from support import FIXTURES, REPO
-from trimtab import engine, loader, reports
-from trimtab.document import Document, Mapping, Scalar, Sequence, walk
-from trimtab.findings import Edit, Finding, Level, Location
+from trimtab.engine import registry as engine
+from trimtab.load import loader
+from trimtab.report import text as reports
+from trimtab.load.document import Document, Mapping, Scalar, Sequence, walk
+from trimtab.common.findings import Edit, Finding, Level, Location
 
 sys.path.insert(0, str(REPO / "tests" / "perf"))
 import bench  # (the benchmark's corpus generator)
@@ -220,7 +222,7 @@ def test_benchmark_corpus_shapes(tmp_path):
 def test_one_shape_pattern_matches_where_a_shape_does():
     import random
 
-    from trimtab import redact as secrets
+    from trimtab.common import redact as secrets
 
     rng = random.Random(5)
     alphabet = "abcXYZ019-_.:/@ \t\u2003=+"

@@ -49,7 +49,7 @@ def test_accepted_file_in_the_settings_counts_for_check_and_audit_alike(tmp_path
 
 
 def test_every_view_reads_each_file_once(tmp_path, monkeypatch):
-    from trimtab import loader
+    from trimtab.load import loader
 
     repo = _repo(tmp_path)
     real, reads = loader.load, []

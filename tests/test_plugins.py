@@ -23,7 +23,7 @@ batch:
 @pytest.fixture
 def vocabulary():
     """The vocabulary as it was before the test (a plugin's concepts are added to it)."""
-    from trimtab.vocabulary import CONCEPTS
+    from trimtab.common.vocabulary import CONCEPTS
 
     saved = dict(CONCEPTS)
     yield CONCEPTS
@@ -35,7 +35,7 @@ def _plugin(monkeypatch, name: str, source: str) -> types.ModuleType:
     """Install a plugin module under the entry-point group, as an installed distribution is."""
     import sys
 
-    from trimtab import engine
+    from trimtab.engine import registry as engine
 
     module = types.ModuleType(f"{name}_rules")
     monkeypatch.setitem(sys.modules, module.__name__, module)
@@ -84,7 +84,7 @@ def test_a_rule_needing_an_unknown_concept_is_refused_naming_plugin_and_field(tm
     ("summary", 'summary=""'),
 ])
 def test_every_field_is_checked_at_registration(tmp_path, monkeypatch, field, written):
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     fields = {"id": 'id="ACM-2"', "name": 'name="mini-batch-check"', "level": 'level="note"',
               "summary": 'summary="test rule"'}
@@ -108,7 +108,7 @@ def test_builtin_rules_are_collected_from_their_modules_and_all_valid():
     import ast
     from pathlib import Path
 
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     reg = Registry()
     assert reg.errors == []
@@ -156,7 +156,7 @@ def test_a_plugin_declares_a_concept_its_rule_needs(tmp_path, monkeypatch, vocab
 
 
 def test_a_bad_concept_is_refused_naming_plugin_and_field(monkeypatch, vocabulary):
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     _plugin(monkeypatch, "acme", CONCEPT_PLUGIN.replace('"rollout.retries", "int"', '"rollout.retries", "float"'))
     errors = Registry().errors

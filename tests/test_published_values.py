@@ -32,9 +32,9 @@ def options(rule_id: str) -> dict:
 
 
 def _models(path):
-    from trimtab.engine import Registry
-    from trimtab.explain import models
-    from trimtab.settings import Settings
+    from trimtab.engine.registry import Registry
+    from trimtab.report.explain import models
+    from trimtab.common.settings import Settings
 
     runs, problems = models(str(path), Settings(root=path.parent), Registry())
     assert problems == []

@@ -21,9 +21,9 @@ def test_published_recipes_have_no_arithmetic_error(name):
 
 
 def _models(name):
-    from trimtab.engine import Registry
-    from trimtab.explain import models
-    from trimtab.settings import Settings
+    from trimtab.engine.registry import Registry
+    from trimtab.report.explain import models
+    from trimtab.common.settings import Settings
 
     runs, problems = models(str(RECIPES / name), Settings(root=RECIPES), Registry())
     assert problems == []

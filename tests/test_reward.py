@@ -301,7 +301,7 @@ def test_a_name_found_by_name_has_its_code_scanned(tmp_path):
 
 
 def test_name_index_is_bounded(tmp_path, monkeypatch):
-    from trimtab import codescan
+    from trimtab.engine import codescan
 
     for i in range(5):
         (tmp_path / f"m{i}.py").write_text(f"def f{i}():\n    pass\n")
@@ -313,7 +313,7 @@ def test_name_index_is_bounded(tmp_path, monkeypatch):
 
 
 def test_name_index_never_follows_links_or_hidden_folders(tmp_path):
-    from trimtab import codescan
+    from trimtab.engine import codescan
 
     outside = tmp_path / "outside"
     outside.mkdir()
@@ -339,8 +339,8 @@ def test_name_index_never_follows_links_or_hidden_folders(tmp_path):
 ])
 def test_reward_forms_give_the_same_kinds(tmp_path, sources, kinds):
     from trimtab_rules._safety import kind_of
-    from trimtab.loader import load
-    from trimtab.resolve import ResolveOptions, resolve
+    from trimtab.load.loader import load
+    from trimtab.resolve.concepts import ResolveOptions, resolve
 
     (tmp_path / "run.yaml").write_text(f"rewards: {sources}\n")
     doc = load(str(tmp_path / "run.yaml"))
@@ -353,7 +353,7 @@ def test_reward_forms_give_the_same_kinds(tmp_path, sources, kinds):
 
 def test_name_index_walk_is_bounded_by_entries(tmp_path, monkeypatch):
     # a repository of many folders and no Python files (or a checker rooted at /) is not walked to the end
-    from trimtab import codescan
+    from trimtab.engine import codescan
 
     for i in range(30):
         (tmp_path / f"d{i:02d}").mkdir()

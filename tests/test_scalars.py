@@ -8,7 +8,7 @@ import pytest
 import yaml
 from ruamel.yaml import YAML
 
-from trimtab.scalars import same_value, type11, type12, typed
+from trimtab.common.scalars import same_value, type11, type12, typed
 
 SCALARS = [
     # numbers as run configs write them

@@ -34,7 +34,7 @@ def test_sec1_good():
     ("api_key_env", False), ("password_file", False), ("tokenizer", False), ("max_tokens", False),
 ])
 def test_sec1_key_words(key, expected):
-    from trimtab.redact import is_credential_key
+    from trimtab.common.redact import is_credential_key
 
     assert is_credential_key(key) is expected
 
@@ -78,7 +78,7 @@ def test_sec1_random_tokens_are_found_and_run_names_are_not():
     import random
     import string
 
-    from trimtab.redact import high_entropy as _high_entropy
+    from trimtab.common.redact import high_entropy as _high_entropy
 
     rng = random.Random(20261201)  # invented tokens, seeded
     alphabet = string.ascii_letters + string.digits

@@ -15,7 +15,7 @@ from support import run_cli
     ("trainer", "evalRollout"), ("data", "val"), ("holdout",), ("actor", "validation_sampling", "0"),
 ])
 def test_evaluation_sections_are_recognised_by_their_words(sections):
-    from trimtab.vocabulary import evaluation_section
+    from trimtab.common.vocabulary import evaluation_section
 
     assert evaluation_section(sections) is not None
 
@@ -26,7 +26,7 @@ def test_evaluation_sections_are_recognised_by_their_words(sections):
     ("test_cases",), ("interval",), ("value_model",), ("retest",), ("evalue",), ("batch",),
 ])
 def test_sections_that_are_not_evaluation_blocks(sections):
-    from trimtab.vocabulary import evaluation_section
+    from trimtab.common.vocabulary import evaluation_section
 
     # a code reward's tests and grader are part of the reward; words merely containing the
     # letters of an evaluation word (interval, value) are not evaluation words
@@ -34,15 +34,15 @@ def test_sections_that_are_not_evaluation_blocks(sections):
 
 
 def test_the_function_names_the_section_that_makes_the_block():
-    from trimtab.vocabulary import evaluation_section
+    from trimtab.common.vocabulary import evaluation_section
 
     assert evaluation_section(("trainer", "val_kwargs", "sampling")) == "val_kwargs"
 
 
 def _resolved(tmp_path: Path, text: str):
-    from trimtab.engine import Registry
-    from trimtab.explain import models
-    from trimtab.settings import load
+    from trimtab.engine.registry import Registry
+    from trimtab.report.explain import models
+    from trimtab.common.settings import load
 
     (tmp_path / ".git").mkdir(exist_ok=True)
     cfg = tmp_path / "run.yaml"

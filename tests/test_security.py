@@ -216,7 +216,7 @@ logging:
 
 
 def test_fingerprint_subject_is_a_hash(tmp_path):
-    from trimtab.findings import fingerprint
+    from trimtab.common.findings import fingerprint
     from trimtab_rules._safety import digest
 
     secret = PLANTED[0]
@@ -244,8 +244,8 @@ def test_cwe_extract_names_its_source_and_version():
 
 
 def test_every_cited_cwe_is_in_the_catalogue_with_that_name_and_may_be_mapped():
-    from trimtab.engine import Registry
-    from trimtab.sarif import CWE_NAMES
+    from trimtab.engine.registry import Registry
+    from trimtab.report.sarif import CWE_NAMES
 
     for cwe, name in CWE_NAMES.items():
         assert cwe in CWE and name == CWE[cwe]["name"], cwe  # the SARIF taxon name is the catalogue's title
@@ -301,7 +301,7 @@ def test_sarif_with_safety_findings_validates_against_the_schema():
 
 
 def test_every_safety_rule_carries_the_cautions():
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     rules = Registry().rules
     # running model-written or remote code: the usual cautions (issue 19 item 8: only these)

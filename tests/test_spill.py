@@ -17,8 +17,8 @@ from pathlib import Path
 import pytest
 
 from support import FIXTURES, run_cli
-from trimtab import spill
-from trimtab.findings import Finding, Level, Location
+from trimtab.common import spill
+from trimtab.common.findings import Finding, Level, Location
 
 
 def _items(n: int, seed: int = 3) -> list[tuple[int, int]]:
@@ -131,8 +131,8 @@ def test_opt4_groups_a_spilled_set(monkeypatch):
 
 def test_streamed_sarif_is_byte_identical_to_json_dump_of_the_log():
     """Reference: the standard library's json.dumps of the whole log (indent 2)."""
-    from trimtab import sarif
-    from trimtab.engine import Registry
+    from trimtab.report import sarif
+    from trimtab.engine.registry import Registry
 
     findings = [Finding("KL-1", Level.ERROR, "naïve \"quote\"\nline", Location("a.yaml", 3, 1),
                         related=[Location("b.yaml", 1, 2, message="there")], key_path="kl.coef",

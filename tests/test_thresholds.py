@@ -218,7 +218,7 @@ def test_random_looking_value_thresholds():
     # SEC-1's min_length 24 and min_entropy_bits 4.0 (common practice; Shannon entropy per character,
     # log2 of 16 equally frequent characters is exactly 4.0). Values built so that only the tested measure
     # changes: letters beyond f (not hexadecimal), three classes, a class switch at every character.
-    from trimtab.redact import MIN_BITS, MIN_LENGTH, high_entropy
+    from trimtab.common.redact import MIN_BITS, MIN_LENGTH, high_entropy
 
     opts = {k: v for k, v in (line.strip().split(" = ") for line in
                                   run_options("SEC-1"))}

@@ -17,11 +17,11 @@ from hypothesis import strategies as st
 
 from support import FIXTURES, check_json, expectations, run_cli
 
-from trimtab import arithmetic
-from trimtab.check import Checker
-from trimtab.engine import Registry
-from trimtab.explain import models
-from trimtab.settings import load
+from trimtab.resolve import arithmetic
+from trimtab.gate.runner import Checker
+from trimtab.engine.registry import Registry
+from trimtab.report.explain import models
+from trimtab.common.settings import load
 
 BAT9 = FIXTURES / "rules" / "BAT-9"
 ARITH = ("BAT", "SMP", "LEN")
@@ -93,8 +93,8 @@ def test_a_keys_own_words_narrow_its_readings(tmp_path, section, key, concept, r
     ("train.local_mini_batch_samples", {("completion", "gpu")}),
 ])
 def test_word_evidence_for_any_key_a_key_map_or_alias_brings(key, expected):
-    from trimtab.findings import Location
-    from trimtab.model import Value
+    from trimtab.common.findings import Location
+    from trimtab.resolve.model import Value
 
     v = Value("batch.mini", 64, Location("run.yaml", 1, 1), via="alias", key=key, raw=64)
     assert {(u.per, u.scope) for u in arithmetic.admissible(v)} == expected

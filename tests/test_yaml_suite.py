@@ -15,11 +15,11 @@ import pytest
 import yaml
 
 from support import MEASURED, bounded, run_cli, shared_path
-from trimtab import loader
-from trimtab.check import Checker
-from trimtab.document import Mapping, Scalar, Sequence, walk
-from trimtab.engine import Registry
-from trimtab.settings import Settings
+from trimtab.load import loader
+from trimtab.gate.runner import Checker
+from trimtab.load.document import Mapping, Scalar, Sequence, walk
+from trimtab.engine.registry import Registry
+from trimtab.common.settings import Settings
 
 PER_FILE_SECONDS = 10  # generous: every input here checks in milliseconds
 

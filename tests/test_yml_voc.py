@@ -68,7 +68,7 @@ def test_sft_stage_skips_rl_only_rules(tmp_path):
 
 def test_plugin_key_map_by_name(tmp_path):
     from trimtab import cli, hookimpl
-    from trimtab.engine import Registry
+    from trimtab.engine.registry import Registry
 
     class Maps:
         @hookimpl

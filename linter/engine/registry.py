@@ -13,10 +13,10 @@ from typing import Any, Callable, Iterable, Iterator, Union
 
 import pluggy
 
-from .document import Document
-from .findings import Finding, Level, Location
-from .model import RunModel
-from .vocabulary import CONCEPTS, Concept, declare
+from ..load.document import Document
+from ..common.findings import Finding, Level, Location
+from ..resolve.model import RunModel
+from ..common.vocabulary import CONCEPTS, Concept, declare
 
 hookspec = pluggy.HookspecMarker("trimtab")
 hookimpl = pluggy.HookimplMarker("trimtab")
@@ -167,7 +167,7 @@ def _close(a: str, b: str) -> bool:
 
 def validate_concept(c: Any) -> Concept:
     if not isinstance(c, Concept):
-        raise RuleError("(concept)", "a trimtab.vocabulary.Concept", c)
+        raise RuleError("(concept)", "a trimtab.common.vocabulary.Concept", c)
     if not isinstance(c.name, str) or not CONCEPT_NAME.fullmatch(c.name):
         raise RuleError("name", "a dotted lower-case name like sandbox.retries", c.name)
     if c.type not in CONCEPT_TYPES:
@@ -194,7 +194,7 @@ class Context:
         self.options = options
         self.level = level
         # set rules: every run's SetEntry (path, index, the values of the rule's needs), read back
-        # from disk on each pass over it; a set rule keeps only what it must (see trimtab.spill)
+        # from disk on each pass over it; a set rule keeps only what it must (see trimtab.common.spill)
         self.runs = runs if runs is not None else []
         self.settings = settings
 

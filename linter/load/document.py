@@ -10,8 +10,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Iterator
 
-from . import scalars
-from .findings import Location
+from ..common import scalars
+from ..common.findings import Location
 
 
 class Node:

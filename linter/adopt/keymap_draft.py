@@ -26,9 +26,9 @@ import textwrap
 from dataclasses import dataclass, field
 from typing import TextIO
 
-from .redact import for_text, mask
-from .document import Mapping, Node, Scalar, Sequence
-from .vocabulary import ALIASES, CONCEPTS, normalise_key
+from ..common.redact import for_text, mask
+from ..load.document import Mapping, Node, Scalar, Sequence
+from ..common.vocabulary import ALIASES, CONCEPTS, normalise_key
 
 # Generic synonyms of the trade, folded to one word before names are compared. Phrases first.
 PHRASES = {
@@ -414,7 +414,7 @@ def draft(runs, path: str) -> Draft:
                 d.placed.setdefault(concept, v.key)
                 taken.add(v.key)
     all_keys: dict[str, Node] = {}
-    from .shell import runs_of
+    from ..compose.shell import runs_of
 
     for m in runs:
         roots = runs_of(m.doc)
@@ -478,7 +478,7 @@ def draft(runs, path: str) -> Draft:
 
 def draft_command(outcome, output: str | None, out: TextIO, err: TextIO) -> int:
     """Draft the key map of the one file of a checked run (a pipeline Outcome with its models kept)."""
-    from .explain import not_checked, problems_of
+    from ..report.explain import not_checked, problems_of
 
     if not_checked(outcome, err):
         return 2
@@ -491,7 +491,7 @@ def draft_command(outcome, output: str | None, out: TextIO, err: TextIO) -> int:
         return 2
     d = draft(runs, shown)
     if output:
-        from .paths import write_atomic
+        from ..common.paths import write_atomic
 
         write_atomic(output, d.toml())
     d.report(out, output)

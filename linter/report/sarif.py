@@ -5,10 +5,10 @@ from pathlib import Path
 from typing import Iterable, TextIO
 from urllib.parse import quote
 
-from . import __version__
-from .engine import Rule
-from .findings import Finding, Level, Location
-from .redact import mask
+from .. import __version__
+from ..engine.registry import Rule
+from ..common.findings import Finding, Level, Location
+from ..common.redact import mask
 
 SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
 FINGERPRINT_KEY = "trimtabFingerprint/v1"
@@ -140,7 +140,7 @@ def build(findings: Iterable[Finding], rules: Iterable[Rule], root: Path, succes
 
 def write(findings: Iterable[Finding], rules, root: Path, out: TextIO, successful: bool = True) -> None:
     """The log ``build`` makes, written one result at a time (the same bytes as dumping it whole)."""
-    from .reports import dump_streamed
+    from .text import dump_streamed
 
     rules = list(rules)
     index = {r.id: i for i, r in enumerate(rules)}

@@ -20,10 +20,11 @@ import tempfile
 from pathlib import Path
 from typing import TextIO
 
-from .filtering import ACCEPTED_MAX_BYTES
-from .loader import Limits, read
-from .paths import confined, write_atomic
-from .settings import SettingsError
+from ..gate.filtering import ACCEPTED_MAX_BYTES
+from ..common.limits import Limits
+from ..load.loader import read
+from ..common.paths import confined, write_atomic
+from ..common.settings import SettingsError
 
 MARK = "written by `trimtab install-hook`"
 EXPORTED = (".yaml", ".yml", ".json", ".py", ".toml")  # read from the index in --staged mode
@@ -58,8 +59,8 @@ def staged_gone(top: Path) -> list[str]:
 
 def with_staged(args, check) -> int:
     """Run ``check(args)`` over the staged versions of the staged config files."""
-    from .discover import Refused, matches
-    from .settings import load
+    from ..load.discover import Refused, matches
+    from ..common.settings import load
 
     if args.paths or args.since or args.fix:
         raise SettingsError("--staged checks the staged config files: give no paths, --since or --fix")
@@ -184,7 +185,7 @@ def install(cwd: Path, force: bool, err: TextIO) -> int:
     hooks.mkdir(parents=True, exist_ok=True)
     if target.is_symlink():
         target.unlink()
-    from .settings import find
+    from ..common.settings import find
 
     source, root = find(cwd)
     folder = ""

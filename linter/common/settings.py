@@ -6,7 +6,7 @@ import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .loader import Limits
+from .limits import Limits
 
 
 def _tomllib():
@@ -68,7 +68,7 @@ class Settings:
     layers: list[dict] = field(default_factory=list)
     bases_key: str = ""
     defaults_key: str = ""  # the key of a defaults list (composition of named files, config groups)
-    launch: dict = field(default_factory=dict)  # [launch]: how launch scripts are read (linter/shell.py)
+    launch: dict = field(default_factory=dict)  # [launch]: how launch scripts are read (linter/compose/shell.py)
     overrides: str = ""
     include_set: bool = False  # include was written in the settings file (not the default)
 

@@ -4,15 +4,15 @@ from __future__ import annotations
 
 from typing import TextIO
 
-from . import arithmetic
-from .redact import for_text as _t
-from .vocabulary import CONCEPTS
+from ..resolve import arithmetic
+from ..common.redact import for_text as _t
+from ..common.vocabulary import CONCEPTS
 
 
 def models(path: str, settings, registry, overrides=()) -> tuple[list, list[str]]:
     """The run models of one file (one per YAML document) and its read problems, as the pipeline
     checked them."""
-    from .pipeline import Pipeline, Request
+    from ..pipeline import Pipeline, Request
 
     outcome = Pipeline(settings, registry).run(Request(paths=[path], overrides=list(overrides), confine=False,
                                                        dependants=False, keep_models=True))
@@ -42,7 +42,7 @@ def not_checked(outcome, err: TextIO) -> bool:
 
 
 def _show(value) -> str:
-    from .document import Node
+    from ..load.document import Node
 
     if isinstance(value, Node):
         return f"<{value.kind}>"
@@ -60,7 +60,7 @@ def _wrap(text: str, width: int = 96) -> str:
 
 def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
     """Explain the one file of a checked run (a pipeline Outcome with its models kept). Every text
-    that came from a file goes through ``_t`` (``trimtab.redact.for_text``) or ``_show``."""
+    that came from a file goes through ``_t`` (``trimtab.common.redact.for_text``) or ``_show``."""
     import sys
 
     if not_checked(outcome, err or sys.stderr):

@@ -35,9 +35,10 @@ import re
 import shlex
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TypeVar
 
-from .document import Document, Mapping, Node, Scalar, Sequence
-from .findings import Location
+from ..load.document import Document, Mapping, Node, Scalar, Sequence
+from ..common.findings import Location
 
 # Generic defaults (settings: [tool.trimtab.launch]). Topology words are the trade's own words for
 # machines and processes; the settings can add more.
@@ -78,7 +79,7 @@ UNKNOWN_VALUE = "compose-value-unknown"
 
 
 def is_script(shown: str, settings, data: bytes | None = None) -> bool:
-    from .discover import matches
+    from ..load.discover import matches
 
     launch = getattr(settings, "launch", None) or {}
     if matches(shown, launch.get("scripts", SCRIPTS)):
@@ -111,7 +112,7 @@ class Word:
     why_at: int = -1  # offset of the expansion that makes it unknown
     hops: list = field(default_factory=list)  # (message, file, offset): where substituted values came from
     raw: str = ""
-    t: object = None  # the Text it was read from
+    t: "Text | None" = None  # the Text it was read from
 
     def location(self, message: str = "") -> Location:
         if self.t is None:
@@ -259,11 +260,11 @@ def _mask(text: str) -> tuple[str, list[Exp]]:
             j = i + 1
             for word, strip in heredocs:
                 while j < n:
-                    e = text.find("\n", j)
-                    e = n if e < 0 else e
-                    line = text[j:e]
-                    blank(j, e)
-                    j = e + 1
+                    stop = text.find("\n", j)
+                    stop = n if stop < 0 else stop
+                    line = text[j:stop]
+                    blank(j, stop)
+                    j = stop + 1
                     if (line.lstrip("\t") if strip else line) == word:
                         break
             heredocs = []
@@ -704,14 +705,14 @@ class Reader:
                                   self._scalar(w.text, w.file, w.start, w.end, t)))
 
     def _scalar(self, text: str, file: str, start: int, end: int, t: Text, cls=None) -> Scalar:
-        from .composed import GivenScalar
+        from .nodes import GivenScalar
 
         node = (cls or GivenScalar)(text, None, None)
         _locate(node, self.texts.get(file, t), start, end, ())
         return node
 
     def _source(self, w: Word, t: Text, path: Path, depth: int) -> None:
-        from .discover import inside
+        from ..load.discover import inside
 
         if w.text is None:
             self._note(w, t, f"a sourced script is not read: {w.why}")
@@ -733,7 +734,7 @@ class Reader:
                                   f"sourced script {w.text!r} is outside the repository; trimtab reads no file "
                                   "outside the repository root", w.text))
             return
-        from . import loader
+        from ..load import loader
 
         real = found.resolve()
         shown = real.relative_to(self.root).as_posix()
@@ -748,7 +749,7 @@ class Reader:
 
     def _note(self, w: Word, t: Text, message: str, key: str = "", run=None) -> None:
         """A value known only at launch: a note of the run it belongs to (of the script without one)."""
-        from .composed import CompositionProblem
+        from .nodes import CompositionProblem
 
         at = w.why_at if w.why_at >= 0 else w.start
         loc = (w.t or t).loc(at, w.end if w.why_at < 0 else at, key=key)
@@ -920,7 +921,7 @@ class Reader:
             return
         parts = tuple(key.split("."))
         if prefix == "~":
-            from .composed import REMOVE_TAG
+            from .nodes import REMOVE_TAG
 
             node = self._scalar("", w.file, w.start, w.end, t)
             node.tag = REMOVE_TAG
@@ -936,10 +937,12 @@ class Reader:
     def _put(self, run: LaunchRoot, top: Mapping, parts: tuple, value: Word, t: Text, key: str,
              whole: Word | None = None) -> None:
         if value.text is None:
-            from .composed import Unknown
+            from .nodes import Unknown
 
-            node = self._scalar("", value.file, value.start, value.end, self.texts.get(value.file, t), Unknown)
-            node.why = value.why
+            unknown = self._scalar("", value.file, value.start, value.end, self.texts.get(value.file, t), Unknown)
+            assert isinstance(unknown, Unknown)
+            unknown.why = value.why
+            node: Node = unknown
             self._note(value, self.texts.get(value.file, t), f"{key}: {value.why}; trimtab reads the script without "
                                                              "running it", key, run)
         else:
@@ -956,7 +959,7 @@ def _short(text: str) -> str:
     return text if len(text) <= 30 else text[:27] + "..."
 
 
-def _offset(v: Var, t: Text) -> tuple:
+def _offset(v: Var, t: Text) -> tuple[int, int, str]:
     return (v.at[1], v.at[1], v.at[0]) if v.at else (0, 0, t.shown)
 
 
@@ -991,7 +994,10 @@ def _tail(w: Word, prefix: str) -> Word:
     return Word(text, start, w.end, w.file, w.why, w.why_at, w.hops, w.raw[eq + 1:] if eq >= 0 else w.raw, w.t)
 
 
-def _locate(node: Node, t: Text, start: int, end: int, path: tuple) -> Node:
+N = TypeVar("N", bound=Node)
+
+
+def _locate(node: N, t: Text, start: int, end: int, path: tuple) -> N:
     node.line, node.col = t.pos(start)
     node.end_line, node.end_col = t.pos(end)
     node.start, node.end = start, end
@@ -1001,11 +1007,11 @@ def _locate(node: Node, t: Text, start: int, end: int, path: tuple) -> Node:
 
 def _value_tree(w: Word, t: Text, path: tuple) -> Node:
     """The value the program reads from the text of an argument: YAML 1.2, as for --set."""
-    from .composed import GivenScalar
+    from .nodes import GivenScalar
 
     text = w.text or ""
     if text.lstrip()[:1] in ("[", "{"):  # a flow list or mapping
-        from . import loader
+        from ..load import loader
 
         doc = Document(path=t.shown)
         loader.parse_bytes(doc, text.encode("utf-8"), loader.Limits(max_bytes=1 << 16, max_depth=20))
@@ -1015,14 +1021,15 @@ def _value_tree(w: Word, t: Text, path: tuple) -> Node:
 
 
 def _relocate(node: Node, w: Word, t: Text, path: tuple) -> Node:
-    from .composed import GivenScalar
+    from .nodes import GivenScalar
 
     if isinstance(node, Scalar):
         return _locate(GivenScalar(node.text, node.style, node.tag), t, w.start, w.end, path)
     if isinstance(node, Sequence):
-        out = _locate(Sequence(), t, w.start, w.end, path)
-        out.items = [_relocate(it, w, t, path + (str(i),)) for i, it in enumerate(node.items)]
-        return out
+        seq = _locate(Sequence(), t, w.start, w.end, path)
+        seq.items = [_relocate(it, w, t, path + (str(i),)) for i, it in enumerate(node.items)]
+        return seq
+    assert isinstance(node, Mapping)
     out = _locate(Mapping(), t, w.start, w.end, path)
     for name, _k, v, _via in node.entries():
         out.pairs.append((_locate(GivenScalar(name, None, None), t, w.start, w.end, path),
@@ -1032,7 +1039,7 @@ def _relocate(node: Node, w: Word, t: Text, path: tuple) -> Node:
 
 def _insert(top: Mapping, parts: tuple, node: Node, t: Text, w: Word) -> None:
     """Put ``node`` at the dotted path under ``top`` (later arguments win)."""
-    from .composed import GivenScalar
+    from .nodes import GivenScalar
 
     cur = top
     for i, part in enumerate(parts[:-1]):
@@ -1075,8 +1082,8 @@ class LaunchRoot(Mapping):
 def read(path: str, shown: str, settings, data: bytes | None = None) -> Document:
     """A launch script as a Document: ``runs`` (one LaunchRoot per training command) and ``roots``
     (one mapping of every value the script writes). Never raises for what the script contains."""
-    from . import loader
-    from .composed import CompositionProblem
+    from ..load import loader
+    from .nodes import CompositionProblem
 
     limits = settings.limits
     doc = Document(path=shown, fmt="shell")
@@ -1106,7 +1113,7 @@ def read(path: str, shown: str, settings, data: bytes | None = None) -> Document
             continue
         doc.problems.append(CompositionProblem(kind, message, where.line, where.col, [], where.path, where.end_line,
                                                where.end_col, where.key_path, subject))
-    from .redact import learn  # every output masks the credentials of every file read (trimtab.redact)
+    from ..common.redact import learn  # every output masks the credentials of every file read (trimtab.common.redact)
 
     learn(doc)
     return doc
@@ -1115,7 +1122,7 @@ def read(path: str, shown: str, settings, data: bytes | None = None) -> Document
 def load(path: str, shown: str, settings) -> Document:
     """Any file trimtab checks: a launch script (by the settings' globs, or a shell's ``#!`` line
     when the name is not a config's), else a YAML or JSON config."""
-    from . import loader
+    from ..load import loader
 
     if is_script(shown, settings):
         return read(path, shown, settings)
@@ -1136,7 +1143,7 @@ def runs_of(doc: Document) -> list:
 def is_config(path: str, shown: str, settings) -> bool:
     """Is a file named on the command line one trimtab checks: YAML, JSON (by name, or by the
     settings' include globs) or a launch script (by the settings' globs or a shell's ``#!`` line)?"""
-    from .discover import matches
+    from ..load.discover import matches
 
     if shown.lower().endswith((".yaml", ".yml", ".json")) or matches(shown, settings.include):
         return True

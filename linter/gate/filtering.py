@@ -15,8 +15,8 @@ from collections.abc import Set as AbcSet
 from dataclasses import dataclass
 from pathlib import Path
 
-from .findings import Finding, Level, Location
-from .redact import mask
+from ..common.findings import Finding, Level, Location
+from ..common.redact import mask
 
 _ACCEPT = re.compile(r"(?:^|\s)#\s*trimtab:\s*accept\b(?P<body>.*)$")
 _IDS = re.compile(r"[A-Za-z]+-\d+(?:\s*,\s*[A-Za-z]+-\d+)*")  # matched whole, on the text before "--"
@@ -142,7 +142,7 @@ def write_accepted(path: Path, findings: list[Finding], keep: Iterable[dict] = (
     doc = {"trimtab_accepted": ACCEPTED_VERSION, "findings": rows}
     import json  # here, not at the top: start-up (perf)
 
-    from .paths import write_atomic
+    from ..common.paths import write_atomic
 
     write_atomic(path, json.dumps(doc, indent=2, ensure_ascii=False) + "\n")
     return len(rows)
@@ -162,7 +162,8 @@ ACCEPTED_MAX_BYTES = 64 * 1024 * 1024
 def read_accepted(path: Path) -> list[dict]:
     import json
 
-    from .loader import Limits, read
+    from ..common.limits import Limits
+    from ..load.loader import read
 
     # a regular file only, of bounded size: a device or named pipe named here never hangs the check
     raw, why = read(str(path), Limits(max_bytes=ACCEPTED_MAX_BYTES))

@@ -4,9 +4,9 @@ from __future__ import annotations
 import json
 from typing import Iterable, TextIO
 
-from . import __version__
-from .findings import Finding, Level, Location
-from .redact import for_text, mask
+from .. import __version__
+from ..common.findings import Finding, Level, Location
+from ..common.redact import for_text, mask
 
 JSON_FORMAT_VERSION = 1
 
@@ -20,7 +20,7 @@ def _where(loc: Location) -> str:
 
 def text(findings: Iterable[Finding], out: TextIO, colour: bool = False) -> None:
     """One line per finding, then its related places, suggestion and help. Every field is masked and
-    its control characters and line breaks made visible (``trimtab.redact.for_text``): nothing in a
+    its control characters and line breaks made visible (``trimtab.common.redact.for_text``): nothing in a
     file can forge a report line or send a terminal a command. A help paragraph is printed only at
     the first finding that has it (a report of twenty findings of one rule prints its help once)."""
     helped: set[str] = set()

@@ -4,8 +4,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from .document import Document, Node
-from .findings import Location
+from ..load.document import Document, Node
+from ..common.findings import Location
 
 
 def whole(x):

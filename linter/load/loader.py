@@ -13,18 +13,11 @@ import re
 import stat
 import warnings
 from typing import Any
-from dataclasses import dataclass
 
-from . import scalars
+from ..common import scalars
 from .document import Document, Mapping, Node, Problem, Scalar, Sequence, key_text
-from .findings import Location
-
-
-@dataclass(frozen=True)
-class Limits:
-    max_bytes: int = 4 * 1024 * 1024  # 4 MiB: a file costs time per value it holds (docs/hostile-input.md)
-    max_depth: int = 200
-    max_aliases: int = 1000
+from ..common.findings import Location
+from ..common.limits import Limits
 
 
 _BOMS = (
@@ -128,7 +121,7 @@ def load(path: str, shown: str | None = None, limits: Limits = Limits(), fmt: st
         return _fail(doc, "size", f"is larger than the size limit of {limits.max_bytes} bytes "
                                   "(setting limits.max_bytes)")
     parse_bytes(doc, data, limits)
-    from .redact import learn  # every output masks the credentials of every file read (trimtab.redact)
+    from ..common.redact import learn  # every output masks the credentials of every file read (trimtab.common.redact)
 
     learn(doc)
     return doc

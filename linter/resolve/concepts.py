@@ -5,14 +5,15 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import cast
 
-from .composed import Unknown
-from .document import Document, Mapping, Node, Scalar, Sequence
-from .findings import Location
+from ..compose.nodes import Unknown
+from ..load.document import Document, Mapping, Node, Scalar, Sequence
+from ..common.findings import Location
 from .arithmetic import Unit, settle
 from .model import Component, RunModel, Unused, Value
-from .settings import KeySpec
-from .vocabulary import (ALIASES, CONCEPTS, ELSEWHERE, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, SWITCHES,
-                         evaluation_section, normalise_key, section_word, switched_off, word_concept)
+from ..common.settings import KeySpec
+from ..common.vocabulary import (ALIASES, CONCEPTS, ELSEWHERE, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX,
+                                 SWITCHES, evaluation_section, normalise_key, section_word, switched_off,
+                                 word_concept)
 
 
 @dataclass

@@ -11,13 +11,14 @@ from dataclasses import dataclass, field
 from itertools import groupby
 from typing import Any
 
-from . import filtering, spill
-from .compose import Composer
-from .engine import Context, Registry, Rule, run_rule
-from .findings import Finding, Level, Location
-from .model import Value
-from .resolve import ResolveOptions, resolve
-from .settings import Settings, SettingsError
+from . import filtering
+from ..common import spill
+from ..compose.layers import Composer
+from ..engine.registry import Context, Registry, Rule, run_rule
+from ..common.findings import Finding, Level, Location
+from ..resolve.model import Value
+from ..resolve.concepts import ResolveOptions, resolve
+from ..common.settings import Settings, SettingsError
 
 
 @dataclass
@@ -98,7 +99,7 @@ class Checker:
                 raise SettingsError(f"{settings.source}: setting {settings.name('keymap')}: expected the name of a "
                                     f"published key map ({', '.join(sorted(registry.key_maps)) or 'none installed'}), "
                                     f"found {settings.keymap!r}")
-            from .settings import check_published, parse_keys
+            from ..common.settings import check_published, parse_keys
 
             check_published(settings.keymap, published)
             keys = {**parse_keys(published), **keys}
@@ -124,7 +125,7 @@ class Checker:
     def check_file(self, path: str, shown: str, keep: bool = False) -> FileResult:
         """Load, compose, resolve and run the rules on one file. ``keep``: keep its Document and
         run models in the result (for the views that show them)."""
-        from .shell import load, runs_of
+        from ..compose.shell import load, runs_of
 
         res = FileResult(shown)
         doc = load(path, shown, self.settings)
@@ -194,7 +195,7 @@ class Checker:
 
     def _resolve(self, doc, comp, shown: str, index: int):
         """The RunModel of one composed document (a file named in the settings' run_configs is a run)."""
-        from .discover import matches
+        from ..load.discover import matches
 
         opts_r = self.resolve_opts
         if self.settings.run_configs and matches(shown, self.settings.run_configs):
@@ -211,10 +212,10 @@ class Checker:
 
     def other_runs(self, path: str, shown: str) -> tuple[list[tuple[int, dict[str, Value]]], list[str], bool]:
         """What the rules over several runs need of a file that is not checked itself (another run
-        of the repository, linter/context.py): (index, values) of each of its runs, the other files
+        of the repository, linter/gate/context.py): (index, values) of each of its runs, the other files
         they were composed from, and whether that is uncertain (the file could not be read, or a
         base is missing: not to be kept in a cache)."""
-        from .shell import load, runs_of
+        from ..compose.shell import load, runs_of
 
         doc = load(path, shown, self.settings)
         if not doc.readable or shown in self.composer.base_files:
@@ -237,7 +238,7 @@ class Checker:
     def accept_set(self, found: list[Finding], checked, set_accepts: dict[str, str], files: list[tuple[str, str]]):
         """Apply the files' acceptance comments to the set-scope findings. ``checked``: the paths
         checked; ``set_accepts``: the text of those holding acceptances of set rules, by path."""
-        from .compose import load_source
+        from ..compose.layers import load_source
 
         real = {shown: path for path, shown in files}
         set_ids = {r.id for r, _o, _l in self.rules("set")}
@@ -277,7 +278,7 @@ def _known_ids(registry: Registry, options: CheckOptions) -> None:
     nothing) and pass the gate, so it stops the check with the nearest known ids."""
     import difflib
 
-    from .engine import TOOL_RULES
+    from ..engine.registry import TOOL_RULES
 
     ids = set(registry.rules) | set(TOOL_RULES)
     known = ids | {i.split("-")[0] for i in ids}

@@ -25,8 +25,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable
 
-from .redact import for_text
-from .findings import KEEP, Edit, Finding
+from ..common.redact import for_text
+from ..common.findings import KEEP, Edit, Finding
 
 _BOMS = (codecs.BOM_UTF32_LE, codecs.BOM_UTF32_BE, codecs.BOM_UTF8, codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)
 MAX_LEAVES = 200_000
@@ -61,7 +61,7 @@ class FileFix:
                                      tofile=f"b/{self.path}" if rel else self.path)
         out = []
         for line in lines:
-            # every line masked and its control characters made visible (trimtab.redact): the context
+            # every line masked and its control characters made visible (trimtab.common.redact): the context
             # lines around a fix are the file's own and can hold a credential or a terminal command
             body = line[:-1] if line.endswith("\n") else line
             out.append(for_text(body) + ("\n" if line.endswith("\n") else "\n\\ No newline at end of file\n"))
@@ -69,7 +69,7 @@ class FileFix:
 
     def write(self) -> None:
         if self.changed:
-            from .paths import write_atomic
+            from ..common.paths import write_atomic
 
             # through a link (inside the repository) to the file itself: the link stays a link
             write_atomic(os.path.realpath(self.disk), self.after)
@@ -94,7 +94,7 @@ def plan(findings: Iterable[Finding], locate: Callable[[str], Path | None]) -> l
 
 
 def _plan_file(ff: FileFix, findings: list[Finding]) -> None:
-    from . import loader
+    from ..load import loader
 
     try:
         ff.before = ff.disk.read_bytes()
@@ -181,7 +181,7 @@ def _prove(doc, text: str, chosen: list, fmt: str) -> str:
 
 def _value_scalars(doc) -> dict[int, tuple]:
     """Scalar nodes that are mapping values or sequence items (never keys), by end offset."""
-    from .document import Mapping, Scalar, Sequence, walk
+    from ..load.document import Mapping, Scalar, Sequence, walk
 
     out: dict[int, tuple] = {}
     for root in doc.roots:

@@ -21,8 +21,8 @@ import os
 import subprocess
 from pathlib import Path
 
-from .findings import Location
-from .model import Value
+from ..common.findings import Location
+from ..resolve.model import Value
 
 CACHE_VERSION = 1
 MAX_CACHE_BYTES = 256 * 1024 * 1024
@@ -166,12 +166,13 @@ def row_entries(row: dict) -> list[tuple[int, dict[str, Value]]]:
 def _stamp(checker) -> str:
     """What the cached values depend on besides the files: trimtab's code, the settings that
     shape a run, the --set values and the concepts the rules over several runs need."""
-    from . import __version__
+    from .. import __version__
 
     s = checker.settings
-    here = Path(__file__).parent
+    here = Path(__file__).parents[1]
     code = []
-    for name in ("check.py", "compose.py", "resolve.py", "vocabulary.py", "loader.py", "scalars.py", "context.py"):
+    for name in ("gate/runner.py", "compose/layers.py", "resolve/concepts.py", "common/vocabulary.py",
+                 "load/loader.py", "common/scalars.py", "gate/context.py"):
         try:
             st = (here / name).stat()
             code.append([name, st.st_mtime_ns, st.st_size])
@@ -187,8 +188,8 @@ def other_entries(checker, checked, start: Path):
     """The SetEntries of every run config of the repository that was not checked itself, found
     through the same discovery and limits, from the cache where each file (and every file its
     runs were composed from) is unchanged. A generator; the cache is written when it ends."""
-    from .check import SetEntry
-    from .discover import discover
+    from .runner import SetEntry
+    from ..load.discover import discover
 
     settings = checker.settings
     root = Path(settings.root).resolve()

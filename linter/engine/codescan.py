@@ -17,7 +17,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .paths import confined
+from ..common.paths import confined
 
 MAX_BYTES = 2_000_000  # a reward module larger than this is not read
 # A reward function named without its module is looked for in every Python file of the search roots,

@@ -20,9 +20,9 @@ from itertools import product
 from math import gcd
 from typing import Any
 
-from .findings import Location
+from ..common.findings import Location
 from .model import RunModel, Value, whole
-from .vocabulary import CONCEPTS, normalise_key
+from ..common.vocabulary import CONCEPTS, normalise_key
 
 __all__ = ["PARALLEL", "Unit", "Term", "Step", "Arithmetic", "Verdict", "of", "readings", "judge", "settle",
            "settled", "sources", "where", "related", "remainder", "lcm", "near_multiples", "near_divisors",
@@ -276,6 +276,7 @@ class Step:
     unit: str = ""
     divides: bool | None = None  # None: the step is no division, or an input is unknown
     remainder: int | None = None
+    parts: int | None = None  # a division's whole quotient, also when it does not divide
     stated: Term | None = None  # the same quantity written in the file
     concept: str = ""  # the concept the step derives
     excess: int | None = None  # token steps: by how much a budget exceeds its window (set only when it does)
@@ -410,6 +411,7 @@ class Arithmetic:
             self._add(Step("ranks", "data-parallel ranks", world // par if divides else None, terms,
                            text if divides else remainder(world, par), "ranks",
                            divides=divides if degrees else None, remainder=world % par if degrees else None,
+                           parts=world // par if degrees else None,
                            stated=self._stated("train.data_parallel"), concept="train.data_parallel"))
         else:
             self._stated("train.data_parallel")
@@ -420,7 +422,8 @@ class Arithmetic:
             k, r = divmod(gpus, rt)
             self._add(Step("engines", "rollout engine instances", k if not r and k else None,
                            [self._input(gpus_c), self._stated("rollout.tensor_parallel")],
-                           f"{gpus} / {rt}" if not r else remainder(gpus, rt), "instances", divides=not r))
+                           f"{gpus} / {rt}" if not r else remainder(gpus, rt), "instances", divides=not r,
+                           remainder=r, parts=k))
         # the counts, each in its concept's unit under this reading ----------------------------------
         group = self._stated("rollout.group_size")
         G, D = v("rollout.group_size"), v("train.data_parallel")
@@ -442,7 +445,7 @@ class Arithmetic:
             self._add(Step("prompts", "prompts per step", R // G if divides else None,
                            [self._input("batch.rollouts"), group],
                            f"{R} / {G}" if divides else remainder(R, G), "prompts", divides=divides,
-                           remainder=R % G, concept="batch.prompts"))
+                           remainder=R % G, parts=R // G, concept="batch.prompts"))
         M = v("batch.mini")
         E = v("optim.epochs")
         epochs_ok = E is not None or "optim.epochs" not in m.values
@@ -451,6 +454,7 @@ class Arithmetic:
             self._add(Step("mini", "mini-batches per step", k if not r else None,
                            [self._input("batch.rollouts"), self.terms["batch.mini"]],
                            f"{R} / {M}" if not r else remainder(R, M), "mini-batches", divides=not r, remainder=r,
+                           parts=k,
                            disputed=disputed))
             if epochs_ok:
                 e = E or 1
@@ -470,7 +474,17 @@ class Arithmetic:
             k, r = divmod(M, D)
             self._add(Step("per_rank", "mini-batch per rank", k if not r else None,
                            [self.terms["batch.mini"], self._input("train.data_parallel")],
-                           f"{M} / {D}" if not r else remainder(M, D), "completions", divides=not r, remainder=r))
+                           f"{M} / {D}" if not r else remainder(M, D), "completions", divides=not r, remainder=r,
+                           parts=k))
+            if u is not None:
+                # a mini-batch drawn as micro-batches of u on each of D ranks: no judgement of its own
+                # (per_rank and accum judge), the whole columns and what is left for the pictures
+                k3, r3 = divmod(M, u * D)
+                self._add(Step("lanes", "micro-batch columns of a mini-batch", k3 if not r3 else None,
+                               [self.terms["batch.mini"], self.terms["batch.micro_per_gpu"],
+                                self._input("train.data_parallel")],
+                               f"{M} / ({u} x {D})" if not r3 else remainder(M, u * D), "micro-batches",
+                               remainder=r3, parts=k3))
             A = self.stated("batch.grad_accum")
             if not r and u is not None:
                 k2, r2 = divmod(k, u)
@@ -478,7 +492,7 @@ class Arithmetic:
                                [self.terms["batch.mini"], self.terms["batch.micro_per_gpu"],
                                 self._input("train.data_parallel")],
                                f"{M} / ({u} x {D})" if not r2 else remainder(k, u), "micro-batches",
-                               divides=not r2, remainder=r2,
+                               divides=not r2, remainder=r2, parts=k2,
                                stated=self._stated("batch.grad_accum"), concept="batch.grad_accum"))
             elif not r and A is not None:
                 self._add(Step("accum_only", "micro-batch implied by the accumulation", k // A if k % A == 0 else None,
@@ -494,7 +508,7 @@ class Arithmetic:
                            [self._input("batch.rollouts"), self.terms["batch.micro_per_gpu"],
                             self._input("train.data_parallel")],
                            f"{R}{ep} / ({u} x {D} ranks)" if not r else remainder(per, u * D), "micro-batches",
-                           divides=not r, remainder=r, disputed=disputed))
+                           divides=not r, remainder=r, parts=k, disputed=disputed))
         if R is not None and G is not None and G > 1 and not disputed:
             if D is not None and D > 1 and R % D == 0 and R % G == 0:
                 share = R // D

@@ -75,7 +75,7 @@ class Edit:
     ``value`` is what the new text must read as, under YAML 1.1 and YAML 1.2 alike. The default
     KEEP means the fix keeps the meaning: the new text reads as the old text reads under YAML 1.2
     (a respelling, or quoting). A rule that corrects a value it can prove (a stated product that
-    disagrees with its factors) sets ``value`` to the corrected value. ``trimtab.fix`` refuses an
+    disagrees with its factors) sets ``value`` to the corrected value. ``trimtab.adopt.fix`` refuses an
     edit whose result does not read so, or that changes anything else in the file."""
 
     path: str
@@ -108,7 +108,7 @@ class Finding:
         return self.masked()
 
     def masked(self) -> "Finding":
-        """The finding with every shown text masked (``trimtab.redact.mask``): done where a finding is
+        """The finding with every shown text masked (``trimtab.common.redact.mask``): done where a finding is
         finished, in the process that read the files, so no credential travels further. The
         fingerprint is computed from the subject, never from the shown text, and does not change."""
         from .redact import mask

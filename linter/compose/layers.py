@@ -29,12 +29,12 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, TypeVar, cast
 
-from . import loader
-from .composed import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, GivenScalar,
+from ..load import loader
+from .nodes import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, GivenScalar,
                        Unknown, Unresolved)
-from .document import Document, Mapping, Node, Scalar, Sequence
-from .findings import Location
-from .paths import confined
+from ..load.document import Document, Mapping, Node, Scalar, Sequence
+from ..common.findings import Location
+from ..common.paths import confined
 
 
 # problem kinds (the CMP rules read them)
@@ -189,7 +189,7 @@ def _holds_ref(node: Node) -> bool:
     if isinstance(node, Scalar):
         return "${" in node.text
     if isinstance(node, (Mapping, Sequence)):
-        from .document import walk
+        from ..load.document import walk
 
         return any(isinstance(n, Scalar) and "${" in n.text for n in walk(node))
     return False
@@ -270,7 +270,7 @@ class Composer:
 
     # --- settings-level inputs: parsed once ----------------------------------------------------
     def _parse_given(self, key: str, text: str, added: bool = False) -> _Given:
-        from .settings import SettingsError
+        from ..common.settings import SettingsError
 
         parts = tuple(key.split("."))
         if not all(parts):
@@ -297,7 +297,7 @@ class Composer:
         return out
 
     def _load_overrides_file(self):
-        from .settings import SettingsError
+        from ..common.settings import SettingsError
 
         name = getattr(self.settings, "overrides", "") or ""
         if not name:
@@ -421,7 +421,7 @@ class Composer:
             return [("experiment", doc, cast(Mapping, root))]
         top = self._where(Path(path))[0]
         stack = [(top, doc.path)]
-        from .discover import matches
+        from ..load.discover import matches
 
         source = self._source_shown
         for i, entry in enumerate(self.layers):
@@ -1097,7 +1097,7 @@ def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> 
     if not seeds or (not layers and not key and not dkey and not getattr(settings, "overrides", "") and not any(
             s.lower().endswith((".yaml", ".yml", ".json")) for s in seeds)):
         return files
-    from .discover import discover, matches
+    from ..load.discover import discover, matches
 
     root = Path(settings.root).resolve()
     candidates, _missing = discover([], root, settings.include, settings.exclude)

@@ -7,7 +7,7 @@ import subprocess
 from functools import lru_cache
 from pathlib import Path
 
-from .paths import confined, lexically_inside
+from ..common.paths import confined, lexically_inside
 
 SKIP_DIRS = frozenset({".git", ".hg", ".svn", "__pycache__", "node_modules", ".venv", "venv", ".tox",
                        ".mypy_cache", ".pytest_cache", ".hypothesis", "build", "dist", ".eggs"})

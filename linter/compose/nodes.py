@@ -7,8 +7,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from .document import Mapping, Node, Problem, Scalar
-from .findings import Location
+from ..load.document import Mapping, Node, Problem, Scalar
+from ..common.findings import Location
 
 REMOVE_TAG = "!trimtab/remove"
 

@@ -1,0 +1,2 @@
+"""Resolve: a composed tree + key map + alias table -> `RunModel`, and the run's one arithmetic.
+Imports: compose (node types), load, common."""
