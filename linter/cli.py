@@ -93,7 +93,8 @@ def _adoption_options(c) -> None:
 
 def _adoption_commands(sub) -> None:
     m = sub.add_parser("map", help="draft a [tool.trimtab.keys] block for the keys trimtab could not place")
-    m.add_argument("config", metavar="CONFIG", help="the run config whose keys to place")
+    m.add_argument("config", metavar="CONFIG", nargs="+",
+                   help="run configs of one layout (or a folder of them) whose keys to place; one key map is drafted")
     m.add_argument("--output", metavar="FILE", help="write the draft block here (default: after the report)")
     h = sub.add_parser("install-hook", help="write a plain .git/hooks/pre-commit that checks staged configs")
     h.add_argument("--force", action="store_true", help="replace an existing pre-commit hook")
@@ -174,7 +175,7 @@ def _given_paths_exist(args) -> None:
     for p in [paths] if isinstance(paths, str) else paths or []:
         if not os.path.lexists(p):
             raise SettingsError(f"{p}: no such file or folder")
-        if args.command in ("explain", "map") and os.path.isdir(p):
+        if args.command == "explain" and os.path.isdir(p):
             raise SettingsError(f"{p}: is a folder; {args.command} takes one run config file")
 
 
@@ -495,8 +496,15 @@ def _fix(args, settings, findings, files) -> int | None:
 
 def cmd_map(args) -> int:
     from .adopt.keymap_draft import draft_command
+    from .pipeline import Pipeline
 
-    return draft_command(_one_file(args), args.output, sys.stdout, sys.stderr)
+    registry = _registry()  # first: a plugin may declare concepts the settings' key map names
+    settings = _settings(args)
+    _refuse_non_configs(args.config, settings)
+    outcome = Pipeline(settings, registry).run(
+        _request(args, paths=list(args.config), confine=False, dependants=False, keep_models=True))
+    folders = tuple(p for p in args.config if os.path.isdir(p))
+    return draft_command(outcome, args.output, sys.stdout, sys.stderr, folders)
 
 
 def cmd_install_hook(args) -> int:

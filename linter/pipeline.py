@@ -137,6 +137,8 @@ class Pipeline:
     def __init__(self, settings: Settings, registry: Registry):
         self.settings = settings
         self.registry = registry
+        self._repository_files: list[tuple[str, str]] | None = None
+        self._graph = None
 
     # --- discover --------------------------------------------------------------------------------
     def discover(self, req: Request) -> tuple[list[tuple[str, str]], list[str]]:
@@ -179,16 +181,37 @@ class Pipeline:
         skip = {Path(p).resolve() for p in own}
         return [(p, s) for p, s in files if Path(p).resolve() not in skip]
 
+    def repository_files(self) -> list[tuple[str, str]]:
+        """Every file of the repository discovery finds under the settings (once per pipeline): the
+        search for a changed base's dependants and the other runs of a check of some files read it."""
+        if self._repository_files is None:
+            from .load.discover import discover
+
+            self._repository_files, _missing = discover([], self.settings.root, self.settings.include,
+                                                        self.settings.exclude)
+        return self._repository_files
+
+    def base_graph(self):
+        """Which files of the repository build on which (compose.BaseGraph), once per pipeline."""
+        if self._graph is None:
+            from .compose.layers import BaseGraph
+
+            self._graph = BaseGraph(self.settings, self.repository_files())
+        return self._graph
+
     def _with_dependants(self, req: Request, files, changed):
         """A base among the files to check (given, or changed since a ref) brings the files built on it."""
         if not (req.paths or changed is not None):
             return files  # the whole repository is checked anyway
-        from .compose.layers import with_dependants
         from .load.discover import relpath
 
         seeds = set(changed or ()) | {s for _p, s in files}
         seeds |= {relpath(Path(p), self.settings.root.resolve()) for p in req.paths if Path(p).is_file()}
-        return with_dependants(files, seeds, self.settings)
+        graph = self.base_graph()
+        try:
+            return graph.dependants(files, seeds)
+        finally:
+            graph.save()
 
     # --- load, compose, resolve, rules, filter, gate ----------------------------------------------
     def run(self, req: Request, files: tuple[list[tuple[str, str]], list[str]] | None = None) -> Outcome:
@@ -196,6 +219,8 @@ class Pipeline:
         settings = self.settings
         files_, missing = files if files is not None else self.discover(req)
         checker = Checker(settings, self.registry, CheckOptions(req.only, req.skip, list(req.overrides)))
+        if self._graph is not None:  # the dependant search's, shared (compose.layers.Composer.named_as_base)
+            checker.composer.graph = self._graph
         # a number of workers from the settings (which the repository writes) is capped at the
         # machine's processors; one given on the command line is the user's own choice
         jobs = req.jobs if req.jobs is not None else min(settings.jobs, _cores())
@@ -209,6 +234,8 @@ class Pipeline:
         finally:
             if progress is not None:
                 progress.close()
+            if checker.composer.graph is not None:
+                checker.composer.graph.save()
         # Findings are a Stream: each pass reads them again from the run's spill (perf: a check of
         # thousands of files never holds them all), so each step below wraps the one before.
         unreadable = [Finding("YML-6", Level.ERROR, getattr(m, "reason", "cannot be read: no such file or folder"),
@@ -231,7 +258,7 @@ class Pipeline:
 
         source = self.settings.source
         start = Path(source).resolve().parent if source else Path.cwd()
-        return lambda checked: other_entries(checker, checked, start)
+        return lambda checked: other_entries(checker, checked, start, self.repository_files())
 
     def _accepted_filter(self, req: Request, findings: Iterable[Finding], checked, tally: dict) -> Iterable[Finding]:
         settings = self.settings

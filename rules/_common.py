@@ -44,7 +44,8 @@ def shown(v) -> str:
         if isinstance(text, str) and text:
             return text
         if getattr(node, "kind", "") in ("mapping", "sequence"):
-            return f"a {node.kind}"
+            raw = getattr(v, "raw", None)  # a list read as one value keeps its text in short ([loss, reward])
+            return raw if isinstance(raw, str) and raw else f"a {node.kind}"
     value = getattr(v, "value", v)
     if isinstance(value, bool):
         return str(value).lower()
@@ -135,3 +136,31 @@ def kl_state(model):
             if state == want:
                 return state, v
     return "unstated", None
+
+
+def misread(model, v) -> tuple[str, list[str], bool]:
+    """(the reader of the file a concept's value was written in, the YAML readers that misread it
+    (trimtab.common.scalars.misreaders), whether the settings name that reader). A quoted, tagged or
+    structured value, and any value of a JSON file (JSON's own grammar), is misread by none."""
+    from trimtab import Scalar
+    from trimtab.common.scalars import misreaders
+    from trimtab.common.vocabulary import CONCEPTS, fits
+
+    node = v.node
+    if not isinstance(node, Scalar) or not node.plain or node.tag:
+        return "", [], False
+    reader, stated = model.reader(node)
+    if reader == "json":
+        return reader, [], stated
+    c = CONCEPTS.get(v.concept)
+    kind = c.type if c is not None else "any"
+    if kind in ("int", "number", "bool", "str"):
+        def fit(x):
+            return fits(x, kind)
+    else:
+        # a concept that takes a name or a switch (a path, or false for none): where one reader reads a
+        # word as a boolean, null or number and another as text, the text is the misreading (no weights
+        # are named 'off'); a date fits neither
+        def fit(x):
+            return not isinstance(x, str) and fits(x, kind)
+    return reader, misreaders(node.value, reader if stated else None, fit), stated

@@ -2,8 +2,10 @@
 from __future__ import annotations
 
 from trimtab import rule
-from trimtab.common.scalars import oversized, same_value
+from trimtab.common.scalars import READER_NAMES, oversized
 from trimtab.common.vocabulary import CONCEPTS, RL_MARKERS, RL_MIN_MARKERS
+
+from ._common import misread
 
 # Enumerations whose unknown values a rule of their own area reports with its own reasoning.
 OWNED_ELSEWHERE = frozenset({"kl.estimator"})
@@ -26,20 +28,41 @@ def _type_name(t: str) -> str:
     return {"int": "an integer", "number": "a number", "bool": "true or false", "str": "text"}.get(t, t)
 
 
-@rule(id="VOC-2", name="wrong-type", level="error", summary="A concept's value has the wrong type.",
+@rule(id="VOC-2", name="wrong-type", level="error",
+      summary="A concept's value has the wrong type or shape.",
       rationale="A count that is text, a rate that is a boolean: the trainer either refuses the value or "
-      "converts it in a way the author did not intend. Values are typed as the settings' yaml_version "
-      "reads them.", rl_only=False)
+      "converts it in a way the author did not intend. Values are typed as the reader the settings name "
+      "for the file reads them (yaml_version, readers; JSON files under JSON's grammar). A list or a mapping "
+      "where one number, word or switch is expected (`group_size: [8]`, "
+      "`clip_ratio: {low: 0.2, high: 0.28}`) cannot be used either, and the rules that need the concept "
+      "would otherwise stay silent and pass the run: it is reported at its line. A list is read only where "
+      "its meaning is plain: a list of KL placements names each place (`[loss, reward]` is both). A "
+      "one-element list of a number is not read as the number, since a trainer may read a list as one "
+      "value per stage, dataset or worker: write the number, or name the key that holds it in "
+      "[tool.trimtab.keys]. `trimtab explain` lists every key that looks like a concept but was not used, "
+      "with the reason.", rl_only=False)
 def wrong_type(ctx):
+    for u in ctx.model.unused:
+        if u.kind == "shape":
+            # a list of texts (patterns, paths, templates) is often a form the trainer accepts: a warning;
+            # a list or mapping where a number or a switch is expected is an error
+            level = "warning" if CONCEPTS[u.concept].type == "str" else None
+            yield ctx.finding(f"{u.concept} = {u.shown}: {u.reason}; trimtab cannot use it, so no rule that needs "
+                              f"{u.concept} checked this run", u.location, subject=u.shown, level=level,
+                              suggestion=f"write one value, or name the key that holds it: [tool.trimtab.keys] "
+                                         f'"{u.concept}" = "{u.key}.<key>"' if u.shown.startswith("{") else
+                                         "write one value")
     for v, expected in ctx.model.mistyped:
         node = v.node
-        if node is not None and getattr(node, "plain", False) and not same_value(node.value11, node.value12):
-            continue  # YML-3 reports it with the reason (the two YAML versions disagree)
+        reader, misreaders, _stated = misread(ctx.model, v)
+        if misreaders:
+            continue  # YML-3 reports it with the reason (the readers disagree)
         if node is not None and getattr(node, "plain", False) and oversized(node.text):
             continue  # YML-5 reports it: an integer past trimtab's limit, read as text
         shown = v.node.text if hasattr(v.node, "text") else v.value
         yield ctx.finding(f"{v.concept} = {shown!s}: expected {_type_name(expected)} "
-                          f"(read under YAML {ctx.model.version})", v.location, subject=shown)
+                          f"(read under {READER_NAMES.get(reader or ctx.model.version, 'YAML ' + ctx.model.version)})",
+                          v.location, subject=shown)
 
 
 @rule(id="VOC-3", name="unknown-value", level="warning", summary="A concept's value is not one trimtab knows.",

@@ -2,7 +2,9 @@
 from __future__ import annotations
 
 from trimtab import Level, Location, rule
-from trimtab.common.scalars import same_value, type11, type12
+from trimtab.common.scalars import READER_NAMES, YAML_READERS, same_value, type11, type12
+
+from ._common import misread
 
 _PARSE_WHY = ("A run config that does not parse cannot launch; where a loader is lenient, it may read "
               "something other than what was written. Line and column are the parser's.")
@@ -111,24 +113,34 @@ def compatible_number(text: str) -> str | None:
 
 
 @rule(id="YML-3", name="yaml-version-disagreement", level="warning",
-      summary="A value a concept uses reads differently under YAML 1.1 and YAML 1.2.",
+      summary="A value a concept uses is misread by the YAML reader its file meets.",
       rationale="YAML 1.2 (core schema, YAML 1.2.2 section 10.3.2) and YAML 1.1 (type repository) type plain "
       "scalars differently: `3e-6` is a float in 1.2 and a string in 1.1 (1.1 floats need a point and a "
       "signed exponent); `on`, `off`, `yes`, `no` are booleans only in 1.1; `010` is octal 8 in 1.1 and "
-      "decimal 10 in 1.2; `1:30` is the base-60 number 90 in 1.1. A trainer's loader reads one of the "
-      "two: write the value so that both agree.",
+      "decimal 10 in 1.2; `1:30` is the base-60 number 90 in 1.1. Several widely used config libraries read "
+      "YAML 1.1 with a float fix (`1e-6` is a float, dates stay text). The settings name the reader a file "
+      "meets (yaml_version, and readers by glob): the rule then reports only a value that reader misreads "
+      "(text where the concept takes a number or a switch, or a number other than YAML 1.2 reads). When "
+      "they name none, it reports a value any of the three readers misreads. JSON files are read under "
+      "JSON's own grammar (RFC 8259) and never reported. Write the value so that every reader agrees.",
       rl_only=False)
 def version_disagreement(ctx):
-    from trimtab import Edit, Scalar
+    from trimtab import Edit
 
     m = ctx.model
     for name, v in sorted(m.values.items()):
+        reader, who, stated = misread(m, v)
+        if not who:
+            continue
         node = v.node
-        if not isinstance(node, Scalar) or not node.plain or node.tag:
-            continue
         a, b = node.value11, node.value12
-        if same_value(a, b):
-            continue
+        if stated:
+            mine = node.value(reader)
+            other = next(o for o in ("1.2", *YAML_READERS) if not same_value(node.value(o), mine))
+            said = (f"{READER_NAMES[reader]} reads {_kind(mine)}, {READER_NAMES[other]} reads "
+                    f"{_kind(node.value(other))}; {READER_NAMES[reader]} is the reader the settings name for this file")
+        else:
+            said = f"YAML 1.1 reads {_kind(a)}, YAML 1.2 reads {_kind(b)}"
         suggestion, fix = "", None
         better = compatible_number(node.text)
         if better:
@@ -138,15 +150,15 @@ def version_disagreement(ctx):
                 start = node.end - len(node.text)
                 fix = Edit(node.file, start, node.end, node.text, better)
         elif isinstance(a, bool) and isinstance(b, str):
-            if v.via and m.version == "1.1" and _expects_text(name):
+            if v.via and reader in ("1.1", "1.1+floats") and _expects_text(name):
                 suggestion = f"quote it: '{node.text}'"
                 fix = Edit(node.file, node.end - len(node.text), node.end, node.text, f"'{node.text}'")
             else:
                 suggestion = f"write {str(a).lower()} for a boolean, or quote '{node.text}' for text"
         elif isinstance(a, int) and isinstance(b, int):
             suggestion = f"write {b} (decimal), or 0o{b:o} for octal under YAML 1.2"
-        yield ctx.finding(f"{name} = {node.text}: YAML 1.1 reads {_kind(a)}, YAML 1.2 reads {_kind(b)}",
-                          v.location, subject=node.text, suggestion=suggestion, fix=fix)
+        yield ctx.finding(f"{name} = {node.text}: {said}", v.location, subject=node.text,
+                          suggestion=suggestion, fix=fix)
 
 
 def _expects_text(concept: str) -> bool:

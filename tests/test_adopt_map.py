@@ -59,13 +59,26 @@ def parse_draft(text: str):
     return live, commented
 
 
-def confirm(text: str, truth: dict[str, str]) -> str:
-    """Uncomment exactly the draft lines that name the right key (what a user does)."""
+def _truth(truth: dict, concept: str):
+    """(key, per, scope) of a truth entry: a key path, or a table with the key's unit."""
+    t = truth.get(concept)
+    if isinstance(t, dict):
+        return t["key"], t.get("per"), t.get("scope")
+    return t, None, None
+
+
+def confirm(text: str, truth: dict) -> str:
+    """Uncomment exactly the draft lines that name the right key, and the right unit where the
+    truth states one (what a user does)."""
     out = []
     for line in text.splitlines():
         m = LINE.match(line)
-        if m and m["hash"] and truth.get(m["concept"]) == m["key"].strip('"'):
-            line = line[len(m["hash"]):]
+        if m and m["hash"]:
+            key, per, scope = _truth(truth, m["concept"])
+            unit = dict(re.findall(r'(per|scope) = "([^"]+)"', m["key"]))
+            written = re.search(r'"([^"]+)"', m["key"]).group(1)
+            if key == written and (per is None or (unit.get("per"), unit.get("scope")) == (per, scope)):
+                line = line[len(m["hash"]):]
         out.append(line)
     return "\n".join(out) + "\n"
 
@@ -94,13 +107,14 @@ def check_resolves(tmp_path, source, truth):
     root, config, draft, report = draft_for(tmp_path, source)
     tomllib.loads(draft)  # the draft is valid TOML as written
     live, commented = parse_draft(draft)
+    keys = {c: _truth(truth, c)[0] for c in truth}
     # never guesses silently: every live line is right, every other right key is offered
-    assert {c: k for c, k in live.items() if truth.get(c) != k} == {}
-    missing = {c: k for c, k in truth.items() if c not in live and (c, k) not in commented}
+    assert {c: k for c, k in live.items() if keys.get(c) != k} == {}
+    missing = {c: k for c, k in keys.items() if c not in live and (c, k) not in commented}
     assert missing == {}, report
     (root / "pyproject.toml").write_text(confirm(draft, truth), encoding="utf-8")
     got = resolved_keys(root, config)
-    assert {c: got.get(c) for c in truth} == truth
+    assert {c: got.get(c) for c in truth} == keys
     return draft, report, got
 
 
@@ -117,7 +131,12 @@ def test_map_of_an_unfamiliar_layout_resolves_every_concept_once_confirmed(tmp_p
     # ambiguous ones are left commented out, with every candidate
     assert ("clip.low", "trust_region.ratio_band") in commented
     assert ("clip.low", "trust_region.ratio_band_upper") in commented
-    assert ("rollout.temperature", "decoder.heat") in commented
+    # 'heat' is a generic word for the sampling temperature: name evidence, so a live line
+    assert live["rollout.temperature"] == "decoder.heat"
+    # every batch count states its unit, here the only reading the file's numbers make consistent
+    # (64 prompts x 8 = 512 completions; 128 prompts would be 1024, more than a step holds)
+    assert '"batch.mini" = { key = "learner.update_chunk", per = "completion", scope = "global" }' in draft
+    assert "completions, global is the only reading the file's numbers make consistent" in draft
 
 
 def test_report_lists_candidates_with_why(tmp_path):
@@ -137,7 +156,8 @@ def test_map_of_the_demo_legacy_layout_agrees_with_the_demo_key_map(tmp_path):
     """The demo repository maps its old layout by hand in its pyproject.toml: the draft agrees."""
     demo = FIXTURES / "demo"
     table = tomllib.loads((demo / "pyproject.toml").read_text(encoding="utf-8"))["tool"]["trimtab"]["keys"]
-    truth = {c: (k if isinstance(k, str) else k["key"]) for c, k in table.items()}
+    truth = {c: (k if isinstance(k, str) else {"key": k["key"], "per": k.get("per"), "scope": k.get("scope")})
+             for c, k in table.items()}
     check_resolves(tmp_path, demo / "configs" / "legacy" / "heron-1b-2025.yaml", truth)
 
 
@@ -149,7 +169,7 @@ def test_map_prints_the_draft_without_output_and_places_known_keys(tmp_path):
     assert r.code == 0
     assert "2 concept(s) placed" in r.out  # by the alias table
     assert "[tool.trimtab.keys]" in r.out
-    assert '# "rollout.temperature" = "rollout.heat"' in r.out
+    assert '"rollout.temperature" = "rollout.heat"' in r.out.splitlines()[-1]
 
 
 def test_map_of_an_unreadable_file_is_a_clear_error(tmp_path):
@@ -166,10 +186,13 @@ def test_a_unit_the_key_name_states_is_offered_never_live(tmp_path):
     r = run_cli("map", "run.yaml", cwd=tmp_path)
     live, commented = parse_draft(r.out)
     assert "batch.rollouts" not in live
-    assert '# "batch.rollouts" = { key = "learner.answers_per_gpu_step", scope = "gpu" }' in r.out
+    assert ('# "batch.rollouts" = { key = "learner.answers_per_gpu_step", per = "completion", scope = "gpu" }'
+            in r.out)
     assert "the name says scope = gpu (confirm)" in r.out
     # once uncommented, the line is a valid key-map entry with its unit
     tomllib.loads(r.out[r.out.index("[tool.trimtab.keys]"):].replace("# \"batch.rollouts\"", "\"batch.rollouts\"", 1))
+    # the key names answers and a per-GPU count: never the prompts per step, however the words overlap
+    assert '"batch.prompts" =' not in r.out
 
 
 def test_an_alias_that_matches_twice_is_offered_both_ways(tmp_path):
@@ -179,3 +202,45 @@ def test_an_alias_that_matches_twice_is_offered_both_ways(tmp_path):
     assert "rollout.temperature" not in live
     assert {k for c, k in commented if c == "rollout.temperature"} == {"actor.temperature", "policy.temperature"}
     assert "rollout.temperature (sampling temperature): ambiguous: 2 candidates" in report
+
+
+def test_counts_the_alias_table_placed_are_asked_their_unit_too(tmp_path):
+    """BAT-9's bad fixture: the alias table places rollout_batch_size and mini_batch_size, and only
+    the prompt reading of both makes the numbers whole. The draft states exactly the key-map lines
+    explain gives to settle it (arithmetic.keymap_line), and with them the check has no unit note."""
+    root, _config, draft, report = draft_for(tmp_path, FIXTURES / "rules" / "BAT-9" / "bad.yaml")
+    explained = run_cli("explain", "bad.yaml", cwd=root).out
+    settle = explained[explained.index("To settle it, add to the key map:"):].splitlines()[1:3]
+    assert len(settle) == 2
+    live = [line.split("  # ", 1)[0] for line in draft.splitlines() if line.startswith('"batch.')]
+    for line in settle:
+        assert line.strip() in live
+    assert "placed by the alias table ('mini_batch_size')" in draft
+    assert "prompts, global is the only reading the file's numbers make consistent" in report
+    assert "BAT-9" in run_cli("check", "bad.yaml", cwd=root).out
+    (root / "pyproject.toml").write_text(draft, encoding="utf-8")
+    after = run_cli("check", "bad.yaml", cwd=root)
+    assert "BAT-" not in after.out, after.out
+
+
+def test_enumerated_values_trimtab_does_not_know_get_a_value_synonym_line(tmp_path):
+    """Placed by the alias table or the native layout, a value none of the concept's own is asked
+    what it means: the draft proposes values = { ... } with why, commented out until confirmed.
+    Once confirmed, the settings accept the lines and the estimator is read as the one meant."""
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "run.yaml").write_text(
+        "algorithm: grpo\nclip_ratio: 0.2\nkl:\n  kl_coef: 0.01\n  kl_estimator: low_var_kl\n  placement: in_reward\n"
+        "rollout:\n  group_size: 8\n  temperature: 1.0\nsandbox:\n  kind: subprocess\n", encoding="utf-8")
+    r = run_cli("map", "run.yaml", cwd=tmp_path)
+    draft = r.out[r.out.index("[tool.trimtab.keys]"):]
+    for line in ('# "kl.estimator" = { key = "kl.kl_estimator", values = { "low_var_kl" = "k3" } }',
+                 '# "kl.placement" = { key = "kl.placement", values = { "in_reward" = "reward" } }',
+                 '# "sandbox.kind" = { key = "sandbox.kind", values = { "subprocess" = "process" } }'):
+        assert line + "  # " in draft, line
+    assert "its words fit k3 or k2: the line says k3, confirm which" in draft
+    assert "placed by the native layout ('kind')" in draft
+    assert "KL-4" in run_cli("check", "run.yaml", cwd=tmp_path).out
+    (tmp_path / "pyproject.toml").write_text(draft.replace("# \"", "\"").replace("\n# kl.", "\n## kl.")
+                                             .replace("\n# sandbox.", "\n## sandbox."), encoding="utf-8")
+    after = run_cli("check", "run.yaml", cwd=tmp_path)
+    assert after.code == 0 and "KL-4" not in after.out and "SEC-" not in after.out, after.out + after.err

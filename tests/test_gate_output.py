@@ -62,10 +62,13 @@ def test_explain_of_an_empty_file_says_so_and_of_a_folder_is_a_usage_error(repo)
     r = run_cli("explain", "empty.yaml", cwd=repo)
     assert r.code == 0 and "empty.yaml: empty: it holds no YAML document" in r.out
     (repo / "configs").mkdir()
-    for command in ("explain", "map"):
-        r = run_cli(command, "configs", cwd=repo)
-        assert r.code == 2 and r.out == ""
-        assert r.err.strip() == f"trimtab: error: configs: is a folder; {command} takes one run config file"
+    r = run_cli("explain", "configs", cwd=repo)
+    assert r.code == 2 and r.out == ""
+    assert r.err.strip() == "trimtab: error: configs: is a folder; explain takes one run config file"
+    # map drafts one key map from a folder of one layout's configs (#18); an empty one has none
+    r = run_cli("map", "configs", cwd=repo)
+    assert r.code == 2 and r.out == ""
+    assert r.err.strip() == "trimtab: error: configs: no config to map (no file the settings include)"
 
 
 # --- 13. the audit page --------------------------------------------------------------------------

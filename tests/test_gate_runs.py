@@ -217,3 +217,45 @@ def test_a_linked_cache_folder_is_never_written_through(repo, tmp_path):
     res = check_json("configs/sweep-c.yaml", cwd=repo)
     assert opt4(res) == ["configs/sweep-c.yaml"]  # the verdict holds without a cache
     assert list(outside.iterdir()) == []
+
+
+# --- item 1's speed: what is cached, and that a cache never hides a change ----------------------
+def test_a_file_rewritten_with_its_old_size_and_time_is_read_again(repo):
+    """The other runs' content hashes are taken from the cache while a file's status (device, inode,
+    size, modification and change times) is unchanged, as git's index does; a rewrite that keeps
+    the size and sets the modification time back still changes the change time."""
+    import time
+
+    time.sleep(3.2)  # older than the cache's racy window: the statuses of this check are kept
+    assert opt4(check_json("configs/sweep-d.yaml", cwd=repo)) == []
+    (cached,) = (repo / ".git" / "trimtab").glob("runs-*.json")
+    rows = json.loads(cached.read_text(encoding="utf-8"))["files"]
+    assert all(len(r["stat"]) == 5 for name, r in rows.items() if name != "configs/sweep-d.yaml")
+    f = repo / "configs" / "sweep-f.yaml"
+    before = f.stat()
+    new = RUN.format(ckpt="/ckpt/tidepool-d")  # now writes where sweep-d writes, in as many bytes
+    assert len(new) == before.st_size
+    f.write_text(new, encoding="utf-8")
+    os.utime(f, ns=(before.st_atime_ns, before.st_mtime_ns))
+    assert opt4(check_json("configs/sweep-d.yaml", cwd=repo)) == ["configs/sweep-d.yaml"]
+
+
+def test_the_bases_each_file_names_are_cached_by_content(layered):
+    """The dependant search keeps what each file names in git's own folder, keyed by the file's
+    content: a second process, a damaged cache and a changed file give the full check's verdict."""
+    def cmp3(res) -> list[str]:
+        return [f["location"]["path"] for f in res.of("CMP-3")]
+
+    (layered / "configs" / "bases" / "grpo.yaml").unlink()
+    assert cmp3(check_json(args=["--since", "HEAD"], cwd=layered)) == ["configs/heron-wide.yaml"]
+    (cached,) = (layered / ".git" / "trimtab").glob("bases-*.json")
+    named = json.loads(cached.read_text(encoding="utf-8"))["files"]
+    assert [["here", "bases/grpo.yaml"]] in named.values()
+    assert cmp3(check_json(args=["--since", "HEAD"], cwd=layered)) == ["configs/heron-wide.yaml"]
+    cached.write_text("{damaged", encoding="utf-8")
+    assert cmp3(check_json(args=["--since", "HEAD"], cwd=layered)) == ["configs/heron-wide.yaml"]
+    # the experiment now builds on another base: the deleted one breaks nothing
+    (layered / "configs" / "bases" / "ppo.yaml").write_text(BASE, encoding="utf-8")
+    (layered / "configs" / "heron-wide.yaml").write_text(EXPERIMENT.replace("grpo", "ppo"), encoding="utf-8")
+    assert cmp3(check_json(args=["--since", "HEAD"], cwd=layered)) == []
+    assert git(layered, "status", "--porcelain", "--untracked-files=all", "--", ".git") == ""

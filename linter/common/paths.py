@@ -73,3 +73,81 @@ def write_atomic(path, data: bytes | str) -> None:
     """Write ``data`` to ``path`` at once (see ``atomic_open``)."""
     with atomic_open(path, binary=True) as fh:
         fh.write(data.encode("utf-8") if isinstance(data, str) else data)
+
+
+# --- caches: in git's own folder or the user's cache folder, never in the working tree ----------
+MAX_CACHE_BYTES = 256 * 1024 * 1024
+
+
+def cache_file(start: Path, name: str) -> Path | None:
+    """Where the cache file ``name`` is kept: git's own directory (found from ``start``, the working
+    tree), folder ``trimtab``, else the user's cache folder; None when neither can be used."""
+    import subprocess
+
+    try:
+        res = subprocess.run(["git", "rev-parse", "--git-common-dir"], cwd=start, capture_output=True,
+                             text=True, timeout=10)
+        if res.returncode == 0 and res.stdout.strip():
+            git_dir = Path(res.stdout.strip())
+            if not git_dir.is_absolute():
+                git_dir = start / git_dir
+            # a checked folder may ship its own `.git` (an archive, not a clone): a link there, or at
+            # the cache folder, would lead the write elsewhere, so no cache is kept at all
+            if (start / ".git").is_symlink() or (git_dir / "trimtab").is_symlink():
+                return None
+            return git_dir / "trimtab" / name
+    except (OSError, subprocess.SubprocessError):
+        pass
+    base = os.environ.get("XDG_CACHE_HOME") or (str(Path.home() / ".cache") if Path.home() != Path("/") else "")
+    return Path(base) / "trimtab" / name if base else None
+
+
+def read_cache(path: Path | None, version: int, stamp: str) -> dict:
+    """The ``files`` table of a JSON cache written by ``write_cache`` for this version and stamp;
+    {} when it is missing, too large, damaged or written for something else."""
+    import json
+
+    if path is None:
+        return {}
+    try:
+        if path.stat().st_size > MAX_CACHE_BYTES:
+            return {}
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError, RecursionError):
+        return {}
+    if not isinstance(data, dict) or data.get("version") != version or data.get("stamp") != stamp:
+        return {}
+    rows = data.get("files")
+    return rows if isinstance(rows, dict) else {}
+
+
+def write_cache(path: Path | None, version: int, stamp: str, rows: dict) -> None:
+    """Write a JSON cache at once; a cache that cannot be written is simply not kept."""
+    import json
+
+    if path is None:
+        return
+    try:
+        if path.parent.is_symlink():  # made a link since it was chosen: never written through
+            return
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=".cache-", suffix=".tmp", dir=path.parent)
+        try:
+            with os.fdopen(fd, "w", encoding="utf-8") as fh:
+                json.dump({"version": version, "stamp": stamp, "files": rows}, fh)
+            os.replace(tmp, path)
+        except BaseException:
+            try:
+                os.unlink(tmp)
+            except OSError:
+                pass
+            raise
+    except OSError:
+        pass
+
+
+def content_hash(data: bytes) -> str:
+    """The key a cache keeps a file's derived values under: the hash of its bytes and their count."""
+    import hashlib
+
+    return hashlib.sha256(data).hexdigest() + f":{len(data)}"

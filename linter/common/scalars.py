@@ -1,9 +1,16 @@
-"""Typing of plain scalars from their raw text, under YAML 1.2 and under YAML 1.1.
+"""Typing of plain scalars from their raw text, under each reader a file may meet.
 
-YAML 1.2: the core schema (YAML 1.2.2, section 10.3.2). YAML 1.1: the implicit types of the
-YAML 1.1 type repository (bool, int, float, null, timestamp), in the form most loaders of
-that version implement them (exponent sign required, a digit before the point, ``_`` allowed,
-base-60 numbers, ``0``-prefixed octal).
+The readers (settings ``yaml_version`` and ``readers``; tests/test_dialects.py checks each against
+a library that implements it):
+
+- ``"1.2"``: the YAML 1.2 core schema (YAML 1.2.2, section 10.3.2).
+- ``"1.1"``: the implicit types of the YAML 1.1 type repository (bool, int, float, null,
+  timestamp), in the form most loaders of that version implement them (exponent sign required, a
+  digit before the point, ``_`` allowed, base-60 numbers, ``0``-prefixed octal).
+- ``"1.1+floats"``: YAML 1.1 with the float fix several widely used config libraries ship: a float
+  may have an exponent without a point (``1e-6``) or without its sign (``1.0e5``), and dates and
+  timestamps stay text.
+- ``"json"``: JSON's own grammar (RFC 8259, section 6 for numbers; ``true``, ``false``, ``null``).
 """
 from __future__ import annotations
 
@@ -130,15 +137,7 @@ def type11(text: str):
             v = _whole(body, 10)
         return text if v is None else sign * v
     if _N11_FLOAT.fullmatch(text):
-        clean = text.replace("_", "").lower()
-        if clean.endswith(".inf"):
-            return -math.inf if clean[0] == "-" else math.inf
-        if clean == ".nan":
-            return math.nan
-        if ":" in clean:
-            sign = -1 if clean[0] == "-" else 1
-            return sign * _sexagesimal(clean.lstrip("+-"), float)
-        return float(clean)
+        return _float11(text)
     m = _N11_DATE.fullmatch(text)
     if m:
         import datetime  # rare: only dates and timestamps need it (start-up)
@@ -168,6 +167,64 @@ def type11(text: str):
     return text
 
 
+def _float11(text: str) -> float:
+    """A YAML 1.1 float's value (the text matched a float pattern)."""
+    clean = text.replace("_", "").lower()
+    if clean.endswith(".inf"):
+        return -math.inf if clean[0] == "-" else math.inf
+    if clean == ".nan":
+        return math.nan
+    if ":" in clean:
+        sign = -1 if clean[0] == "-" else 1
+        return sign * _sexagesimal(clean.lstrip("+-"), float)
+    return float(clean)
+
+
+# --- YAML 1.1 with the float fix ----------------------------------------------------------------
+# The float pattern such config libraries add after the YAML 1.1 ones (so a 1.1 reading that is
+# not text still wins): the exponent's sign is optional, and an exponent needs no point.
+_N11F_FLOAT = re.compile(
+    r"[-+]?[0-9]+(?:_[0-9]+)*\.[0-9_]*(?:[eE][-+]?[0-9]+)?|[-+]?[0-9]+(?:_[0-9]+)*(?:[eE][-+]?[0-9]+)"
+    r"|\.[0-9]+(?:_[0-9]+)*(?:[eE][-+][0-9]+)?|[-+]?[0-9]+(?:_[0-9]+)*(?::[0-5]?[0-9])+\.[0-9_]*"
+    r"|[-+]?\.(?:inf|Inf|INF)|\.(?:nan|NaN|NAN)"
+)
+
+
+def type11f(text: str):
+    """The value of a plain scalar under YAML 1.1 with the float fix (dates and timestamps stay text)."""
+    value = type11(text)
+    if isinstance(value, str):
+        return _float11(text) if _N11F_FLOAT.fullmatch(text) else value
+    if value is None or isinstance(value, (bool, int, float)):
+        return value
+    return text  # a date or timestamp: such readers drop those types
+
+
+# --- JSON (RFC 8259) ------------------------------------------------------------------------------
+_JSON_NUMBER = re.compile(r"(-?)(0|[1-9][0-9]*)(\.[0-9]+)?([eE][-+]?[0-9]+)?")
+_JSON_WORDS = {"true": True, "false": False, "null": None}
+
+
+def typejson(text: str):
+    """The value of a JSON literal or number as written (RFC 8259, sections 3 and 6): an integer
+    has neither fraction nor exponent; any other number is a float."""
+    if text in _JSON_WORDS:
+        return _JSON_WORDS[text]
+    m = _JSON_NUMBER.fullmatch(text)
+    if m is None:
+        return text
+    if m[3] is None and m[4] is None:
+        v = _whole(m[2], 10)
+        return text if v is None else -v if m[1] else v
+    return float(text)
+
+
+READERS = {"1.2": type12, "1.1": type11, "1.1+floats": type11f, "json": typejson}
+# How each reader is named in messages
+READER_NAMES = {"1.2": "YAML 1.2", "1.1": "YAML 1.1", "1.1+floats": "YAML 1.1 with the float fix",
+                "json": "JSON"}
+
+
 _EXPLICIT = {
     "tag:yaml.org,2002:str": str,
     "tag:yaml.org,2002:int": "int",
@@ -188,7 +245,7 @@ def typed(text: str, plain: bool, tag: str | None, version: str):
 
 
 def _typed(text: str, plain: bool, tag: str | None, version: str):
-    reader = type12 if version == "1.2" else type11
+    reader = READERS.get(version, type11)
     if tag and tag != "?" and tag != "!" and tag in _EXPLICIT:
         kind = _EXPLICIT[tag]
         if kind is str:
@@ -212,3 +269,37 @@ def same_value(a, b) -> bool:
     if isinstance(a, float) and math.isnan(a) and math.isnan(b):
         return True
     return a == b
+
+
+YAML_READERS = ("1.1", "1.1+floats", "1.2")
+
+
+def _number(x) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool)
+
+
+def misreaders(read, reader: str | None, fits) -> list[str]:
+    """The YAML readers that read a plain scalar other than it is meant, of ``reader`` (the one the
+    settings name for its file) or, when None, of every YAML reader the file may meet. ``read``:
+    reader -> the scalar's value under it (``Scalar.value``).
+
+    A reader misreads a value that the readers do not all read alike when its reading does not fit
+    the concept (``fits``: the concept's type) while another reader's does (``3e-6`` as text for a
+    rate under YAML 1.1; ``off`` as text for a switch under YAML 1.2), or when it reads a number
+    other than the YAML 1.2 core schema does and both fit (``010`` as octal 8 under YAML 1.1).
+    A reader whose reading is the one that fits sees nothing wrong, whatever the others read."""
+    readings = {r: read(r) for r in YAML_READERS}
+    core = readings["1.2"]
+    out = []
+    for r in (YAML_READERS if reader is None else (reader,)):
+        mine = readings.get(r)
+        if mine is None:
+            continue
+        others = [v for o, v in readings.items() if o != r]
+        if all(same_value(mine, v) for v in others):
+            continue
+        if not fits(mine) and any(fits(v) for v in others):
+            out.append(r)
+        elif fits(mine) and _number(mine) and _number(core) and fits(core) and not same_value(mine, core):
+            out.append(r)
+    return out

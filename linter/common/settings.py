@@ -55,7 +55,9 @@ class Settings:
     include: list[str] = field(default_factory=lambda: list(DEFAULT_INCLUDE))
     exclude: list[str] = field(default_factory=list)
     gate: str = "warning"
-    yaml_version: str = "1.1"
+    yaml_version: str = "1.1"  # the reader YAML files meet (scalars.READERS) unless readers names another
+    yaml_version_set: bool = False  # written in the settings: the reader is known, not assumed
+    readers: dict[str, str] = field(default_factory=dict)  # glob -> the reader those files meet (first match)
     run_configs: list[str] = field(default_factory=list)
     keymap: str = ""
     keys: dict[str, KeySpec] = field(default_factory=dict)
@@ -246,10 +248,12 @@ def _check_concepts(table: dict, path: Path, prefix: str) -> None:
 def build(table: dict, root: Path, path: Path | None = None, prefix: str = "") -> Settings:
     s = Settings(root=root, source=path, table=prefix)
     for name in ("include", "exclude", "gate", "yaml_version", "run_configs", "keymap", "search_roots",
-                 "import_depth", "accepted", "jobs", "rules", "layers", "bases_key", "overrides", "defaults_key", "launch"):
+                 "import_depth", "accepted", "jobs", "rules", "layers", "bases_key", "overrides", "defaults_key", "launch",
+                 "readers"):
         if name in table:
             setattr(s, name, table[name])
     s.include_set = "include" in table
+    s.yaml_version_set = "yaml_version" in table
     if "limits" in table:
         s.limits = Limits(**{**Limits().__dict__, **table["limits"]})
     s.keys = parse_keys(table.get("keys", {}))

@@ -186,6 +186,21 @@ def section_word(name: str) -> str:
 
 
 # Fields of one reward component (reward.sources items).
+def fits(value, expected: str) -> bool:
+    """Does a value have a concept's type (int, number, bool, str; any other type takes anything but a
+    date, which no concept means)?"""
+    if expected == "int":
+        return isinstance(value, int) and not isinstance(value, bool) or (
+            isinstance(value, float) and value.is_integer())
+    if expected == "number":
+        return isinstance(value, (int, float)) and not isinstance(value, bool)
+    if expected == "bool":
+        return isinstance(value, bool)
+    if expected == "str":
+        return isinstance(value, str)
+    return value is None or isinstance(value, (str, int, float, bool, list, dict))
+
+
 def declare(concept: Concept) -> Concept:
     """Add a plugin's concept to the vocabulary (validated by the plugin registry)."""
     CONCEPTS.setdefault(concept.name, concept)
@@ -347,6 +362,11 @@ def _aliases() -> dict[str, tuple[Alias, ...]]:
 
 
 ALIASES = _aliases()
+
+# Names that hold keys rather than a value: a mapping written under one of them is a section
+# (``sampling: {temperature: ...}``), never a wrong-shaped value of the concept the word also names.
+SECTION_WORDS = frozenset(ROLLOUT + CRITIC + REF + ELSEWHERE + SANDBOX + MODEL + CKPT) | frozenset(
+    w for found in ALIASES.values() for a in found for w in a.under)
 
 
 def normalise_key(key: str) -> str:

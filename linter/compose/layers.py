@@ -35,6 +35,7 @@ from .nodes import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, G
 from ..load.document import Document, Mapping, Node, Scalar, Sequence
 from ..common.findings import Location
 from ..common.paths import confined
+from ..load.discover import matches
 
 
 # problem kinds (the CMP rules read them)
@@ -266,6 +267,8 @@ class Composer:
         if self.overrides_doc is not None:
             self.base_files.add(self.overrides_doc.path)
         self._places: dict[str, tuple] = {}
+        # which files build on which (named_as_base): shared with the pipeline's search, when it gives one
+        self.graph: BaseGraph | None = None
         self._source_shown = self._shown(Path(settings.source)) if getattr(settings, "source", None) else "settings"
 
     # --- settings-level inputs: parsed once ----------------------------------------------------
@@ -327,7 +330,9 @@ class Composer:
             return False
         memo = self.__dict__.setdefault("_named_as_base", {})
         if shown not in memo:
-            memo[shown] = any(s != shown for _p, s in with_dependants([], {shown}, self.settings))
+            if self.graph is None:
+                self.graph = BaseGraph(self.settings)
+            memo[shown] = any(s != shown for _p, s in self.graph.dependants([], {shown}))
         return memo[shown]
 
     def _shown(self, path: Path) -> str:
@@ -1085,105 +1090,245 @@ class _Interp:
 
 
 # --- which files build on which: for pre-commit and CI ------------------------------------------
-def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings) -> list[tuple[str, str]]:
-    """``files`` plus every file of the repository whose bases (direct or through other bases)
-    include one of ``seeds`` (shown paths, e.g. the files changed in a commit)."""
-    layers = list(getattr(settings, "layers", []) or [])
-    key = getattr(settings, "bases_key", "") or ""
-    dkey = getattr(settings, "defaults_key", "") or ""
-    from .shell import SCRIPTS
+NAMES_VERSION = 1
 
-    scripts = (getattr(settings, "launch", None) or {}).get("scripts", SCRIPTS)
-    if not seeds or (not layers and not key and not dkey and not getattr(settings, "overrides", "") and not any(
-            s.lower().endswith((".yaml", ".yml", ".json")) for s in seeds)):
-        return files
-    from ..load.discover import discover, matches
 
-    root = Path(settings.root).resolve()
-    candidates, _missing = discover([], root, settings.include, settings.exclude)
-    have = {shown for _p, shown in files}
-    out = list(files)
-    overrides = getattr(settings, "overrides", "") or ""
-    if overrides and settings.path("overrides", root).relative_to(root).as_posix() in seeds:
-        # the overrides file applies to every run: all of them are checked again
-        by_shown = {shown: disk for disk, shown in candidates}
-        by_shown.update({shown: disk for disk, shown in files})
-        return sorted(((disk, shown) for shown, disk in by_shown.items()), key=lambda kv: kv[1])
-    memo: dict[str, set[str]] = {}
+class BaseGraph:
+    """Which files of the repository build on which: the bases each file names (under the bases
+    key, in a defaults list, in a launch script's training commands, read, never run) and the
+    settings' layers. What a file names depends on its content only, so it is kept in a cache
+    keyed by the file's content hash, in git's own folder or the user's cache folder (never in
+    the working tree; ``paths.cache_file``); a file is parsed for it once per content, and each
+    file once per process. ``candidates``: the repository's files as discovery finds them (found
+    here when not given)."""
 
-    def shown_of(p: Path) -> str | None:
-        real = confined(p, root)
-        return real.relative_to(root).as_posix() if real is not None else None
+    def __init__(self, settings, candidates: list[tuple[str, str]] | None = None):
+        from .shell import SCRIPTS
 
-    def named(real: Path) -> list[Path]:
-        shown = shown_of(real)
-        if shown is not None and matches(shown, scripts):
-            return script_bases(real, shown)
-        if not key and not dkey:
-            return []
-        # a regular file within the size limit only: a named pipe or a huge file is no base
-        data, _why = loader.read(str(real), settings.limits)
+        self.settings = settings
+        self.root = Path(settings.root).resolve()
+        self.layers = list(getattr(settings, "layers", []) or [])
+        self.key = getattr(settings, "bases_key", "") or ""
+        self.dkey = getattr(settings, "defaults_key", "") or ""
+        self.scripts = (getattr(settings, "launch", None) or {}).get("scripts", SCRIPTS)
+        self._candidates = candidates
+        self._named: dict[str, list[tuple[Path, str | None, bool]]] = {}  # real path -> its bases
+        self._places: dict[str, tuple[Path, str | None, bool]] = {}
+        self._cache: dict | None = None
+        self._cache_path: Path | None = None
+        self._dirty = False
+
+    @property
+    def candidates(self) -> list[tuple[str, str]]:
+        if self._candidates is None:
+            from ..load.discover import discover
+
+            self._candidates, _missing = discover([], self.root, self.settings.include, self.settings.exclude)
+        return self._candidates
+
+    # --- the cache of what each content names ------------------------------------------------
+    def _stamp(self) -> str:
+        import hashlib
+        import json
+
+        from .. import __version__
+
+        here = Path(__file__).parents[1]
+        code = []
+        for name in ("compose/layers.py", "compose/shell.py", "load/loader.py", "load/document.py"):
+            try:
+                st = (here / name).stat()
+                code.append([name, st.st_mtime_ns, st.st_size])
+            except OSError:
+                code.append([name])
+        s = self.settings
+        parts = [NAMES_VERSION, __version__, code, self.key, self.dkey, self.scripts,
+                 getattr(s, "launch", None) or {}, repr(getattr(s, "limits", None))]
+        return hashlib.sha256(json.dumps(parts, default=repr, sort_keys=True).encode("utf-8", "surrogateescape")
+                              ).hexdigest()
+
+    def _known(self) -> dict:
+        if self._cache is None:
+            from ..common.paths import cache_file, read_cache
+
+            source = getattr(self.settings, "source", None)
+            start = Path(source).resolve().parent if source else self.root
+            import hashlib
+
+            where = hashlib.sha256(str(start).encode("utf-8", "surrogateescape")).hexdigest()[:24]
+            self._cache_path = cache_file(start, f"bases-{where}.json")
+            self._cache = read_cache(self._cache_path, NAMES_VERSION, self._stamp())
+        return self._cache
+
+    def save(self) -> None:
+        """Keep what was learnt for the next process (a cache that cannot be written is not kept)."""
+        if self._dirty and self._cache is not None:
+            from ..common.paths import write_cache
+
+            write_cache(self._cache_path, NAMES_VERSION, self._stamp(), self._cache)
+            self._dirty = False
+
+    # --- what one file names -------------------------------------------------------------------
+    def _shown_of(self, p: Path) -> str | None:
+        real = confined(p, self.root)
+        return real.relative_to(self.root).as_posix() if real is not None else None
+
+    def _written(self, disk: str, script: bool) -> list | None:
+        """What a file names as written, from the cache for its content: [["here", text]] (a path
+        relative to the file's folder) and [["script", text, [[group, option], ...]]] (a launch
+        script's base: the repository's file of that name, else the script folder's; a group's
+        option is a file beside it); None when the file cannot be read."""
+        settings = self.settings
+        data, _why = loader.read(disk, settings.limits)
         if not data or len(data) > settings.limits.max_bytes:
+            return None
+        if not script and not any(k and k.encode("utf-8") in data for k in (self.key, self.dkey)):
             return []
-        if not any(k and k.encode("utf-8") in data for k in (key, dkey)):
-            return []
-        doc = load_source(real, shown or real.as_posix(), settings.limits)
-        out_paths = []
+        from ..common.paths import content_hash
+
+        known = self._known()
+        h = content_hash(data)
+        hit = known.get(h)
+        if isinstance(hit, list) and all(isinstance(e, list) and e and e[0] in ("here", "script") for e in hit):
+            return hit
+        real = Path(disk).resolve()
+        shown = self._shown_of(real) or real.as_posix()
+        written = self._script_names(disk, shown, data) if script else self._doc_names(real, shown)
+        known[h] = written
+        self._dirty = True
+        return written
+
+    def _doc_names(self, real: Path, shown: str) -> list:
+        key, dkey = self.key, self.dkey
+        doc = load_source(real, shown, self.settings.limits)
+        out: list = []
         for r in doc.roots:
             v = r.get(key) if key and isinstance(r, Mapping) else None
             items = v.items if isinstance(v, Sequence) else [v] if v is not None else []
-            out_paths += [real.parent / it.text.strip() for it in items if isinstance(it, Scalar)]
+            out += [["here", it.text.strip()] for it in items if isinstance(it, Scalar)]
             d = r.get(dkey) if dkey and isinstance(r, Mapping) else None
             for it in (d.items if isinstance(d, Sequence) else []):
                 e = _entry(it)
                 if isinstance(e, dict) and e["option"] is not None:
                     rel = e["option"] if e["group"] is None else f"{e['group']}/{e['option']}"
-                    out_paths.append(real.parent / (rel if Path(rel).suffix else rel + ".yaml"))
-        return out_paths
+                    out.append(["here", rel if Path(rel).suffix else rel + ".yaml"])
+        return out
 
-    def script_bases(real: Path, shown: str) -> list[Path]:
+    def _script_names(self, disk: str, shown: str, data: bytes) -> list:
         """The base configs a launch script's training commands name (read, never run)."""
         from .shell import read
 
-        out_paths = []
-        for r in read(str(real), shown, settings).runs:
+        out: list = []
+        for r in read(disk, shown, self.settings, data=data).runs:
             names = [w.text for w in r.bases if w.text is not None]
             if r.config_name is not None and r.config_name.text is not None:
                 folder = r.config_dir.text if r.config_dir is not None and r.config_dir.text else ""
                 name = r.config_name.text if Path(r.config_name.text).suffix else r.config_name.text + ".yaml"
                 names.append(str(Path(folder) / name))
-            for text in names:
-                first = root / text
-                base = first if first.is_file() else real.parent / text
-                out_paths.append(base)
-                for _prefix, group, _pkg, value, _whole in r.choices:  # group=option: that group's file
-                    if value is not None and value.text:
-                        out_paths.append(base.parent / group / (value.text + ".yaml"))
-        return out_paths
+            choices = [[group, value.text] for _prefix, group, _pkg, value, _whole in r.choices
+                       if value is not None and value.text]
+            out += [["script", text, choices] for text in names]
+        return out
 
-    def closure(real: Path, shown: str, depth: int = 0) -> set[str]:
-        if shown in memo:
-            return memo[shown]
-        memo[shown] = set()  # cycle guard
-        acc: set[str] = set()
-        nxt = list(named(real))
-        if depth == 0:
-            nxt += [root / b for e in layers if matches(shown, [e.get("files", "")]) for b in e.get("bases", [])]
-        for b in nxt:
-            s = shown_of(b)
-            if s is None or s == shown:
+    def named(self, disk: str, shown: str | None = None) -> list[tuple[Path, str | None, bool]]:
+        """The bases a file names (and, for a file checked itself, the settings' layers give it):
+        (path, shown path or None when it leaves the repository, is it a file) each. ``shown``:
+        the file's path as discovery shows it (a file given by discovery), else None."""
+        memo_key = disk if shown is None else f"{disk}\0{shown}"
+        hit = self._named.get(memo_key)
+        if hit is not None:
+            return hit
+        root = self.root
+        if shown is not None and not os.path.islink(disk):
+            real_shown: str | None = shown  # discovery walks real folders: only the file may be a link
+        else:
+            real_shown = self._shown_of(Path(disk))
+        script = real_shown is not None and matches(real_shown, self.scripts)
+        paths: list[Path] = []
+        if script or self.key or self.dkey:
+            written = self._written(disk, script) or []
+            if written:
+                # a file discovery found (not a link) lies in a real folder; else its link is followed
+                folder = Path(disk).parent if real_shown is shown else Path(disk).resolve().parent
+                for entry in written:
+                    if entry[0] == "here":
+                        paths.append(folder / entry[1])
+                        continue
+                    first = root / entry[1]
+                    base = first if first.is_file() else folder / entry[1]
+                    paths.append(base)
+                    paths += [base.parent / group / (option + ".yaml") for group, option in entry[2]]
+        if shown is not None:
+            paths += [root / b for e in self.layers if matches(shown, [e.get("files", "")]) for b in e.get("bases", [])]
+        out = [self._place(b) for b in paths]
+        self._named[memo_key] = out
+        return out
+
+    def _place(self, b: Path) -> tuple[Path, str | None, bool]:
+        """A named base: (its path with every link followed, its shown path or None when it leaves the
+        repository, is it a file); once per path written (many files name the same base)."""
+        key = str(b)
+        hit = self._places.get(key)
+        if hit is None:
+            real = confined(b, self.root)
+            shown = real.relative_to(self.root).as_posix() if real is not None else None
+            hit = self._places[key] = (real if real is not None else b, shown, real is not None and real.is_file())
+        return hit
+
+    def closure(self, disk: str, shown: str) -> set[str]:
+        """Every file the file at ``disk`` builds on, directly or through other bases."""
+        memo: dict[str, set[str]] = {}
+
+        def walk(disk: str, shown: str, top: str | None, depth: int) -> set[str]:
+            if shown in memo:
+                return memo[shown]
+            memo[shown] = set()  # cycle guard
+            acc: set[str] = set()
+            for real, s, is_file in self.named(disk, top):
+                if s is None or s == shown:
+                    continue
+                acc.add(s)
+                if depth < _MAX_DEPTH and is_file:
+                    acc |= walk(str(real), s, None, depth + 1)
+            memo[shown] = acc
+            return acc
+
+        return walk(disk, shown, shown, 0)
+
+    def dependants(self, files: list[tuple[str, str]], seeds: set[str]) -> list[tuple[str, str]]:
+        """``files`` plus every file of the repository whose bases (direct or through other bases)
+        include one of ``seeds`` (shown paths, e.g. the files changed in a commit)."""
+        settings = self.settings
+        if not seeds or (not self.layers and not self.key and not self.dkey and not getattr(settings, "overrides", "")
+                         and not any(s.lower().endswith((".yaml", ".yml", ".json")) for s in seeds)):
+            return files
+        root = self.root
+        candidates = self.candidates
+        have = {shown for _p, shown in files}
+        out = list(files)
+        overrides = getattr(settings, "overrides", "") or ""
+        if overrides and settings.path("overrides", root).relative_to(root).as_posix() in seeds:
+            # the overrides file applies to every run: all of them are checked again
+            by_shown = {shown: disk for disk, shown in candidates}
+            by_shown.update({shown: disk for disk, shown in files})
+            return sorted(((disk, shown) for shown, disk in by_shown.items()), key=lambda kv: kv[1])
+        for disk, shown in candidates:
+            if shown in have:
                 continue
-            acc.add(s)
-            if depth < _MAX_DEPTH and b.is_file():
-                acc |= closure(b.resolve(), s, depth + 1)
-        memo[shown] = acc
-        return acc
+            if self.closure(disk, shown) & seeds:
+                out.append((disk, shown))
+                have.add(shown)
+        return sorted(out, key=lambda kv: kv[1])
 
-    for disk, shown in candidates:
-        if shown in have:
-            continue
-        memo.clear()
-        if closure(Path(disk).resolve(), shown) & seeds:
-            out.append((disk, shown))
-            have.add(shown)
-    return sorted(out, key=lambda kv: kv[1])
+
+def with_dependants(files: list[tuple[str, str]], seeds: set[str], settings,
+                    graph: BaseGraph | None = None) -> list[tuple[str, str]]:
+    """``files`` plus every file of the repository whose bases (direct or through other bases)
+    include one of ``seeds`` (shown paths, e.g. the files changed in a commit); ``BaseGraph``."""
+    own = graph is None
+    graph = graph or BaseGraph(settings)
+    try:
+        return graph.dependants(files, seeds)
+    finally:
+        if own:
+            graph.save()

@@ -78,3 +78,6 @@ class GivenScalar(Scalar):
     @property
     def value11(self):
         return self.value12
+
+    def value(self, version: str = "1.2"):
+        return self.value12

@@ -413,15 +413,17 @@ def crash_finding(rule: Rule, path: str | None, exc: BaseException) -> Finding:
 
 def run_rule(rule: Rule, ctx: Context, path: str | None) -> tuple[list[Finding], bool]:
     """(findings, crashed). A rule that asked for a concept whose value is known only at launch
-    (``RunModel.unknown``) reports nothing on that run: its answer would rest on a guess (the run's
-    CMP-9 note says what is unknown)."""
+    (``RunModel.unknown``), or is written with a shape trimtab cannot use (``RunModel.unusable``),
+    reports nothing on that run: its answer would rest on a guess (the run's CMP-9 note says what
+    is unknown, VOC-2 what cannot be used)."""
     try:
         model = ctx.model
-        if model is not None and model.unknown:
+        guarded = model is not None and bool(model.unknown or model.unusable)
+        if guarded:
             model.touched = set()
         out = rule.check(ctx)
         found = [f.finish() for f in (out or ())]
-        if model is not None and model.unknown and model.touched and rule.id != "CMP-9":
+        if guarded and model.touched and rule.id not in ("CMP-9", "VOC-2"):
             return [], False
         return found, False
     except Exception as exc:

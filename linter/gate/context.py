@@ -18,51 +18,29 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import subprocess
+import time
 from pathlib import Path
 
+from ..common import paths
 from ..common.findings import Location
 from ..resolve.model import Value
 
 CACHE_VERSION = 1
-MAX_CACHE_BYTES = 256 * 1024 * 1024
+RACY_NS = 3_000_000_000  # a status newer than this before the read is not trusted (coarse file system clocks)
 
 
 def cache_file(start: Path, key: str) -> Path | None:
-    """Where the cache ``key`` is kept: git's own directory (found from ``start``, the working
-    tree), else the user's cache folder; None when neither can be used."""
-    name = f"runs-{key}.json"
-    try:
-        res = subprocess.run(["git", "rev-parse", "--git-common-dir"], cwd=start, capture_output=True,
-                             text=True, timeout=10)
-        if res.returncode == 0 and res.stdout.strip():
-            git_dir = Path(res.stdout.strip())
-            if not git_dir.is_absolute():
-                git_dir = start / git_dir
-            # a checked folder may ship its own `.git` (an archive, not a clone): a link there, or at
-            # the cache folder, would lead the write elsewhere, so no cache is kept at all
-            if (start / ".git").is_symlink() or (git_dir / "trimtab").is_symlink():
-                return None
-            return git_dir / "trimtab" / name
-    except (OSError, subprocess.SubprocessError):
-        pass
-    base = os.environ.get("XDG_CACHE_HOME") or (str(Path.home() / ".cache") if Path.home() != Path("/") else "")
-    return Path(base) / "trimtab" / name if base else None
+    """Where the cache of other runs ``key`` is kept (``paths.cache_file``)."""
+    return paths.cache_file(start, f"runs-{key}.json")
 
 
 def digest(path: Path, limit: int) -> str | None:
-    """The content hash of a file (its first ``limit`` bytes and its size), or None when unreadable."""
-    import stat
+    """The content hash of a file (its first ``limit`` + 1 bytes and their count), or None when it
+    cannot be read (a named pipe or a device is never opened: ``loader.read``)."""
+    from ..load.loader import Limits, read
 
-    try:
-        if not stat.S_ISREG(os.stat(path).st_mode):  # a named pipe or a device: never opened
-            return None
-        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
-        with os.fdopen(fd, "rb") as fh:
-            data = fh.read(limit + 1)
-    except OSError:
-        return None
-    return hashlib.sha256(data).hexdigest() + f":{len(data)}"
+    data, why = read(str(path), Limits(max_bytes=limit))
+    return None if why or data is None else paths.content_hash(data)
 
 
 # --- values <-> JSON ------------------------------------------------------------------------
@@ -95,23 +73,32 @@ class RunCache:
 
     def __init__(self, path: Path | None, stamp: str):
         self.path, self.stamp = path, stamp
-        self.rows: dict[str, dict] = {}
+        self.rows: dict[str, dict] = paths.read_cache(path, CACHE_VERSION, stamp)
         self.dirty = False
-        if path is not None:
-            self.rows = self._read(path, stamp)
+        self.status: dict[str, list] = {}  # shown path -> its status when it was read and hashed here
 
-    @staticmethod
-    def _read(path: Path, stamp: str) -> dict:
+    def content(self, shown: str, disk, limit: int) -> str | None:
+        """The content hash of a file: the one its row holds while the file's status (device, inode,
+        size, modification and change times) is the one recorded when it was hashed, as git's index
+        does; else the file is read and hashed now. A status is recorded only when the file's last
+        change is older than RACY_NS before it was read (a change within the file system's time
+        resolution of the read could otherwise keep the same status)."""
         try:
-            if path.stat().st_size > MAX_CACHE_BYTES:
-                return {}
-            data = json.loads(path.read_text(encoding="utf-8"))
-        except (OSError, ValueError, RecursionError):
-            return {}
-        if not isinstance(data, dict) or data.get("version") != CACHE_VERSION or data.get("stamp") != stamp:
-            return {}
-        rows = data.get("files")
-        return rows if isinstance(rows, dict) else {}
+            st = os.stat(disk)
+        except OSError:
+            return None
+        status = [st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns]
+        row = self.rows.get(shown)
+        if isinstance(row, dict) and row.get("stat") == status and isinstance(row.get("hash"), str):
+            return row["hash"]
+        now = time.time_ns()
+        own = digest(Path(disk), limit)
+        if own is not None and max(st.st_mtime_ns, st.st_ctime_ns) + RACY_NS < now:
+            self.status[shown] = status
+            if isinstance(row, dict) and row.get("hash") == own:
+                row["stat"] = status  # the same content: known by its status from now on
+                self.dirty = True
+        return own
 
     def get(self, shown: str, own: str, hashes) -> dict | None:
         """The row of a file whose content (``own``) and composed-from files (``hashes(shown)``
@@ -125,32 +112,15 @@ class RunCache:
         return row
 
     def put(self, shown: str, row: dict) -> None:
+        if shown in self.status:
+            row["stat"] = self.status[shown]
         self.rows[shown] = row
         self.dirty = True
 
     def save(self) -> None:
         """Write the cache (atomically); a cache that cannot be written is simply not kept."""
-        if self.path is None or not self.dirty:
-            return
-        import tempfile
-
-        try:
-            if self.path.parent.is_symlink():  # made a link since it was chosen: never written through
-                return
-            self.path.parent.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(prefix=".runs-", suffix=".tmp", dir=self.path.parent)
-            try:
-                with os.fdopen(fd, "w", encoding="utf-8") as fh:
-                    json.dump({"version": CACHE_VERSION, "stamp": self.stamp, "files": self.rows}, fh)
-                os.replace(tmp, self.path)
-            except BaseException:
-                try:
-                    os.unlink(tmp)
-                except OSError:
-                    pass
-                raise
-        except OSError:
-            pass
+        if self.dirty:
+            paths.write_cache(self.path, CACHE_VERSION, self.stamp, self.rows)
 
 
 def entries_row(own: str, deps: dict, runs: list[tuple[int, dict[str, Value]]]) -> dict:
@@ -172,7 +142,7 @@ def _stamp(checker) -> str:
     here = Path(__file__).parents[1]
     code = []
     for name in ("gate/runner.py", "compose/layers.py", "resolve/concepts.py", "common/vocabulary.py",
-                 "load/loader.py", "common/scalars.py", "gate/context.py"):
+                 "load/loader.py", "common/scalars.py", "gate/context.py", "compose/shell.py"):
         try:
             st = (here / name).stat()
             code.append([name, st.st_mtime_ns, st.st_size])
@@ -180,20 +150,24 @@ def _stamp(checker) -> str:
             code.append([name])
     parts = [CACHE_VERSION, __version__, code, sorted({c for r, _o, _l in checker.rules("set") for c in r.needs}),
              [list(o) for o in checker.options.overrides], repr(checker.resolve_opts), list(s.run_configs),
-             s.layers, s.bases_key, s.overrides, repr(s.limits), list(s.include), list(s.exclude)]
+             s.layers, s.bases_key, s.defaults_key, s.launch, s.overrides, repr(s.limits), list(s.include),
+             list(s.exclude)]
     return hashlib.sha256(json.dumps(parts, default=repr, sort_keys=True).encode("utf-8", "surrogateescape")).hexdigest()
 
 
-def other_entries(checker, checked, start: Path):
+def other_entries(checker, checked, start: Path, files=None):
     """The SetEntries of every run config of the repository that was not checked itself, found
-    through the same discovery and limits, from the cache where each file (and every file its
-    runs were composed from) is unchanged. A generator; the cache is written when it ends."""
+    through the same discovery and limits (``files``: that discovery's result, when it was made
+    already), from the cache where each file (and every file its runs were composed from) is
+    unchanged. A generator; the cache is written when it ends."""
     from .runner import SetEntry
-    from ..load.discover import discover
 
     settings = checker.settings
     root = Path(settings.root).resolve()
-    files, _missing = discover([], root, settings.include, settings.exclude)
+    if files is None:
+        from ..load.discover import discover
+
+        files, _missing = discover([], root, settings.include, settings.exclude)
     limit = settings.limits.max_bytes
     stamp = _stamp(checker)
     # one cache per settings folder (the stamp inside it says what it was built for: a mismatch rebuilds it)
@@ -203,13 +177,13 @@ def other_entries(checker, checked, start: Path):
 
     def hash_of(shown: str) -> str | None:
         if shown not in hashes:
-            hashes[shown] = digest(root / shown, limit)
+            hashes[shown] = cache.content(shown, root / shown, limit)
         return hashes[shown]
 
     for disk, shown in files:
         if shown in checked:
             continue
-        own = hashes[shown] = digest(Path(disk), limit)
+        own = hashes[shown] = cache.content(shown, disk, limit)
         runs = None
         row = cache.get(shown, own, hash_of) if own else None
         if row is not None:

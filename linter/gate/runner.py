@@ -5,6 +5,7 @@ few values the cross-file rules need, never documents.
 """
 from __future__ import annotations
 
+import gc
 from collections.abc import Iterable, Iterator
 from collections.abc import Set as AbcSet
 from dataclasses import dataclass, field
@@ -16,6 +17,7 @@ from ..common import spill
 from ..compose.layers import Composer
 from ..engine.registry import Context, Registry, Rule, run_rule
 from ..common.findings import Finding, Level, Location
+from ..resolve import arithmetic
 from ..resolve.model import Value
 from ..resolve.concepts import ResolveOptions, resolve
 from ..common.settings import Settings, SettingsError
@@ -103,7 +105,8 @@ class Checker:
 
             check_published(settings.keymap, published)
             keys = {**parse_keys(published), **keys}
-        self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version)
+        self.resolve_opts = ResolveOptions(keys=keys, version=settings.yaml_version,
+                                           readers=tuple(settings.readers.items()), stated=settings.yaml_version_set)
         self.composer = Composer(settings, self.options.overrides)
 
     def _wanted(self, rule_id: str) -> bool:
@@ -124,7 +127,21 @@ class Checker:
 
     def check_file(self, path: str, shown: str, keep: bool = False) -> FileResult:
         """Load, compose, resolve and run the rules on one file. ``keep``: keep its Document and
-        run models in the result (for the views that show them)."""
+        run models in the result (for the views that show them).
+
+        perf: the cyclic collector is paused for the whole file. A file's check makes thousands of
+        objects that live as long as the check (its tree, its run models): each collection while it
+        runs would scan them all again for nothing. What a check leaves for the collector (no cycle of
+        its own: see arithmetic.release) is collected by the first collection after it."""
+        paused = gc.isenabled()
+        gc.disable()
+        try:
+            return self._check_file(path, shown, keep)
+        finally:
+            if paused:
+                gc.enable()
+
+    def _check_file(self, path: str, shown: str, keep: bool) -> FileResult:
         from ..compose.shell import load, runs_of
 
         res = FileResult(shown)
@@ -149,8 +166,10 @@ class Checker:
                     self._run(r, Context(r, None, src, opts, level, settings=self.settings), src.path, res)
         if as_run:
             set_rules = self.rules("set")
+            models = []
             for index, comp in enumerate(composed):
                 model = self._resolve(doc, comp, shown, index)
+                models.append(model)
                 if keep:
                     res.kept.models.append(model)
                 if not model.is_rl:
@@ -175,6 +194,9 @@ class Checker:
                     _name_run(res.findings[start:], shown)
                 if set_rules:
                     res.entries.append(SetEntry(shown, index, self.set_values(model)))
+            if not keep:
+                for model in models:
+                    arithmetic.release(model)  # perf: no cycle left for the collector to find
         if doc.readable:
             res.skipped = res.runs == 0
         # Acceptances of set-scope rules are applied once the whole set has been checked (accept_set).
@@ -199,7 +221,7 @@ class Checker:
 
         opts_r = self.resolve_opts
         if self.settings.run_configs and matches(shown, self.settings.run_configs):
-            opts_r = ResolveOptions(opts_r.keys, opts_r.version, True)
+            opts_r = ResolveOptions(opts_r.keys, opts_r.version, True, opts_r.readers, opts_r.stated)
         model = resolve(doc, comp.root, opts_r, index)
         model.settings = self.settings
         model.files = comp.files
@@ -219,7 +241,9 @@ class Checker:
 
         doc = load(path, shown, self.settings)
         if not doc.readable or shown in self.composer.base_files:
-            return [], [], not doc.readable
+            # a file that cannot be parsed stays so while its content is the same; one that could
+            # not be read (or changed while it was read) is not known yet
+            return [], [], any(p.kind == "io" for p in doc.problems)
         runs, files = [], set()
         for index, root in enumerate(runs_of(doc)):
             comp = self.composer.compose(doc, root, path)
@@ -428,8 +452,6 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
         import multiprocessing
         from concurrent.futures import ProcessPoolExecutor
 
-        import gc
-
         _WORKER = checker
         ctx = multiprocessing.get_context("fork")
         chunk = max(1, min(64, len(files) // (jobs * 8) or 1))
@@ -444,8 +466,14 @@ def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=
             gc.unfreeze()
         _WORKER = None
     else:
-        for path, shown in files:
-            results.append(checker.check_file(path, shown, keep))
+        # perf: what exists before the first file (modules, rules, settings) lives as long as the
+        # process: the collector need not scan it again at every full collection
+        gc.freeze()
+        try:
+            for path, shown in files:
+                results.append(checker.check_file(path, shown, keep))
+        finally:
+            gc.unfreeze()
     if others is not None and checker.rules("set"):
         results.entries.extend(others(results.checked))
     set_findings, set_crashed = checker.check_set(results.entries)

@@ -48,8 +48,12 @@ def _glob_re(pattern: str) -> re.Pattern:
     return re.compile("".join(out) + r"\Z", re.DOTALL)
 
 
+def _pattern(p: str) -> re.Pattern:
+    return _glob_re(p.lstrip("./") if p.startswith("./") else p)
+
+
 def matches(rel: str, patterns) -> bool:
-    return any(_glob_re(p.lstrip("./") if p.startswith("./") else p).match(rel) for p in patterns)
+    return any(_pattern(p).match(rel) for p in patterns)
 
 
 def relpath(path: Path, root: Path) -> str:
@@ -139,26 +143,44 @@ def discover(paths: list[str], root: Path, include: list[str], exclude: list[str
 def _walk(top: Path, root: Path, include, exclude, found: dict, missing: list | None = None,
           used: set | None = None) -> None:
     top_res = top.resolve()  # perf: once per walk, not twice per file (a system call per path part)
+    # perf: the shown path of a file is its folder's plus its name wherever the folder, as written,
+    # lies under the root (relpath's first reading); the folder's is computed once per folder
+    root_abs = Path(os.path.abspath(root))
+    inc = [(p, _pattern(p)) for p in include]
+    exc = [_pattern(p) for p in exclude]
     for dirpath, dirnames, filenames in os.walk(top):
         dirnames[:] = sorted(d for d in dirnames if d not in SKIP_DIRS and not d.endswith(".egg-info"))
+        if not filenames:
+            continue
+        here = Path(dirpath)
+        lexical = Path(os.path.abspath(here)).is_relative_to(root_abs)
+        dir_shown = _prefix(relpath(here, root)) if lexical else None
+        dir_top = _prefix(relpath(here, top_res)) if lexical and top_res != root else None
+        dir_logical = _prefix(Path(os.path.relpath(here, top)).as_posix())
         for name in sorted(filenames):
-            full = Path(dirpath) / name
-            shown = relpath(full, root)
-            rel_top = relpath(full, top_res) if top_res != root else shown
-            logical = Path(os.path.relpath(full, top)).as_posix()
-            hit = [p for p in include if matches(shown, [p]) or matches(rel_top, [p]) or matches(logical, [p])]
-            if not hit or matches(shown, exclude):
+            disk = os.path.join(dirpath, name)
+            shown = dir_shown + name if dir_shown is not None else relpath(Path(disk), root)
+            rel_top = shown if top_res == root else (
+                dir_top + name if dir_top is not None else relpath(Path(disk), top_res))
+            logical = dir_logical + name
+            spellings = {shown, rel_top, logical}
+            hit = [p for p, rx in inc if any(rx.match(s) for s in spellings)]
+            if not hit or any(rx.match(shown) for rx in exc):
                 continue
             if used is not None:
                 used.update(hit)
             # os.walk does not follow links into folders, so only a file that is itself a link
             # can lead out of the repository (and only it costs a resolve)
-            if os.path.islink(full) and full.exists() and not inside(full, root):
+            if os.path.islink(disk) and os.path.exists(disk) and not inside(Path(disk), root):
                 if missing is not None:
-                    missing.append(_outside(full, root, shown))
+                    missing.append(_outside(Path(disk), root, shown))
                 continue
-            disk = str(full)
             found.setdefault(disk, disk if disk == shown else shown)  # perf: one string when equal
+
+
+def _prefix(rel: str) -> str:
+    """A folder's relative path as the prefix of its files' ("" for the folder itself)."""
+    return "" if rel == "." else rel + "/"
 
 
 def changed_since(ref: str, root: Path) -> list[str]:

@@ -60,7 +60,12 @@ class Scalar(Node):
         return self._v11
 
     def value(self, version: str = "1.2"):
-        return self.value12 if version == "1.2" else self.value11
+        """The value under one reader (scalars.READERS): "1.2", "1.1", "1.1+floats", "json"."""
+        if version == "1.2":
+            return self.value12
+        if version == "1.1":
+            return self.value11
+        return scalars.typed(self.text, self.plain, self.tag, version)
 
     def __repr__(self) -> str:
         return f"Scalar({self.text!r}@{self.line}:{self.col})"

@@ -36,6 +36,9 @@ class _Backend:
 
     def __init__(self):
         self.name, self.compose_all, self.errors = self._pick()
+        # perf: PyYAML's parsers (libyaml's or the pure one) also give the parser's events, from
+        # which the located tree is built directly (_EventBuilder); ruamel.yaml's node graph is read
+        self.events_loader = getattr(self.compose_all, "loader", None)
 
     @staticmethod
     def _pick():
@@ -55,6 +58,7 @@ class _Backend:
                 def compose_all(text, _loader=loader):
                     return yaml.compose_all(text, Loader=_loader)
 
+                compose_all.loader = loader  # type: ignore[attr-defined]
                 return name, compose_all, (yaml.YAMLError,)
         from ruamel.yaml import YAML
         from ruamel.yaml.error import YAMLError as RuamelError
@@ -213,7 +217,10 @@ def parse_bytes(doc: Document, data: bytes, limits: Limits) -> Document:
             gc.enable()
 
 
-def _compose(doc: Document, text: str, limits: Limits) -> Document:
+def _compose(doc: Document, text: str, limits: Limits, events: bool = True) -> Document:
+    """Build the located tree: from the parser's events where the parser gives them (``events``;
+    False reads the parser's composed node graph instead, as with ruamel.yaml, which the tests use
+    to prove both trees the same)."""
     be = backend()
     source = text
     if doc.fmt == "json":
@@ -221,6 +228,8 @@ def _compose(doc: Document, text: str, limits: Limits) -> Document:
         # string; YAML refuses a tab before a top-level value. A space for each tab keeps every
         # column where it was.
         source = text.replace("\t", " ")
+    if events and be.events_loader is not None:
+        return _compose_events(doc, source, limits, be)
     try:
         with warnings.catch_warnings():  # a parser's own warnings (a reused anchor) are not output
             warnings.simplefilter("ignore")
@@ -245,6 +254,30 @@ def _compose(doc: Document, text: str, limits: Limits) -> Document:
         if root is None:
             break
         doc.roots.append(root)
+    builder.finish()
+    doc.aliases = builder.aliases
+    return doc
+
+
+def _compose_events(doc: Document, source: str, limits: Limits, be: _Backend) -> Document:
+    """The located tree built from the parser's events (perf and memory: the parser's node graph
+    is never made; see _EventBuilder). A parse error anywhere leaves no tree, as a composer's would."""
+    builder = _EventBuilder(doc, limits, be.name)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            roots = builder.run(be.events_loader(source))
+    except be.errors as exc:
+        _parse_problem(doc, exc, limits)
+        if doc.fmt == "json" and doc.problems and doc.problems[-1].kind == "parse":
+            p = doc.problems[-1]
+            p.message = p.message.replace("cannot be parsed as YAML: ", "is valid JSON, but the YAML reader "
+                                          "cannot follow it (a key longer than 1024 characters?): ", 1)
+        return doc
+    except Exception as exc:  # a reader defect must not become a traceback: say so, located at the file
+        return _fail(doc, "parse", f"cannot be read: the YAML reader failed ({type(exc).__name__}: {exc})")
+    doc.problems.extend(builder.problems)
+    doc.roots.extend(roots)
     builder.finish()
     doc.aliases = builder.aliases
     return doc
@@ -412,6 +445,7 @@ class _Builder:
         self.doc = doc
         self.limits = limits
         self.engine = engine
+        self.problems: list[Problem] = doc.problems  # the event builder keeps its own until the end
         self.memo: dict[int, Node] = {}
         self.aliases = 0
         self.numbers = 0
@@ -533,7 +567,7 @@ class _Builder:
             if isinstance(k, Scalar):
                 if name in first:
                     prev = first[name]
-                    self.doc.problems.append(Problem(
+                    self.problems.append(Problem(
                         "duplicate-key", f"key '{name}' is written twice in one mapping; which value "
                         "wins depends on the loader", k.line, k.col,
                         [Location(self.doc.path, prev.line, prev.col, message=f"first '{name}' here")]))
@@ -547,7 +581,7 @@ class _Builder:
             return  # a file of thousands of them: the first few are reported
         text = node.text
         shown = text if len(text) <= 24 else f"{text[:12]}...{text[-6:]}"
-        self.doc.problems.append(Problem(
+        self.problems.append(Problem(
             "number", f"the integer {shown} ({len(text)} characters) is past trimtab's limit (10^30): it is "
             "read as text, and nothing that depends on it is checked", node.line, node.col))
 
@@ -558,7 +592,7 @@ class _Builder:
                 for _name, k, v, _via in src.entries():
                     node.merged.append((k, v, key))
             else:
-                self.doc.problems.append(Problem(
+                self.problems.append(Problem(
                     "merge", "a merge key '<<' must refer to a mapping or a list of mappings",
                     key.line, key.col))
                 return
@@ -566,4 +600,185 @@ class _Builder:
     def _stop(self, kind: str, message: str, raw) -> None:
         if not self.failed:
             self.failed = True
-            self.doc.problems.append(Problem(kind, message, raw.start_mark.line + 1, raw.start_mark.column + 1))
+            self.problems.append(Problem(kind, message, raw.start_mark.line + 1, raw.start_mark.column + 1))
+
+
+class _Frame:
+    """A collection being built from events: its node, key path and depth, and for a mapping the
+    key waiting for its value and the first node of each key name (duplicates)."""
+    __slots__ = ("node", "path", "depth", "is_map", "flow", "key", "first")
+
+    def __init__(self, node, path: tuple, depth: int, is_map: bool, flow: bool):
+        self.node = node
+        self.path = path
+        self.depth = depth
+        self.is_map = is_map
+        self.flow = flow
+        self.key: Node | None = None
+        self.first: dict[str, Node] = {}
+
+
+class _EventBuilder(_Builder):
+    """The located tree built from the parser's events, without the parser's node graph.
+
+    The same tree as _Builder makes from the composed graph (tests/test_tree_identity.py proves it
+    on every YAML and JSON file of the repository): each node's marks are its event's (a
+    collection ends at its end event), its anchor and tag are the event's own, and what a composer
+    refuses (an undefined alias, an anchor defined twice) is refused with the composer's error.
+    perf: no graph of parser nodes is made and let go (half the memory of a large file), and a
+    loop over events replaces the recursion over nodes. Problems are kept apart until the stream
+    has been read whole: a parse error anywhere leaves only that error, as with a composer."""
+
+    def __init__(self, doc: Document, limits: Limits, engine: str = ""):
+        super().__init__(doc, limits, engine)
+        self.problems = []
+        self.anchors: dict[str, tuple[Node | None, Any]] = {}
+
+    def run(self, parser) -> list[Node]:
+        import yaml
+        from yaml.composer import ComposerError
+
+        scalar_ev, alias_ev = yaml.ScalarEvent, yaml.AliasEvent
+        map_start, seq_start = yaml.MappingStartEvent, yaml.SequenceStartEvent
+        map_end, seq_end = yaml.MappingEndEvent, yaml.SequenceEndEvent
+        doc_start = yaml.DocumentStartEvent
+        limits, shown = self.limits, self.doc.path
+        max_depth, max_aliases = limits.max_depth, limits.max_aliases
+        roots: list[Node] = []
+        stack: list[_Frame] = []
+        get = parser.get_event
+        try:
+            while True:
+                ev = get()
+                if ev is None:
+                    break
+                cls = type(ev)
+                if cls is doc_start:
+                    self.anchors = {}
+                    continue
+                if not (cls is scalar_ev or cls is map_start or cls is seq_start or cls is alias_ev):
+                    if (cls is map_end or cls is seq_end) and stack:
+                        frame = stack.pop()
+                        if self.failed:
+                            continue
+                        node = frame.node
+                        em = ev.end_mark
+                        node.end_line, node.end_col, node.end = em.line + 1, em.column + 1, em.index
+                        self._attach(node, stack, roots)
+                    continue
+                if self.failed:  # nothing more is built; what a composer refuses is still refused
+                    if cls is alias_ev:
+                        if ev.anchor not in self.anchors:
+                            raise ComposerError(None, None, "found undefined alias", ev.start_mark)
+                        continue
+                    if ev.anchor is not None:
+                        self._anchor(ev.anchor, None, ev.start_mark, ComposerError)
+                    if cls is not scalar_ev:
+                        stack.append(_Frame(None, (), 0, False, False))
+                    continue
+                # where the new node goes: its key path, depth and role
+                if stack:
+                    parent = stack[-1]
+                    depth = parent.depth + 1
+                    if parent.is_map:
+                        if parent.key is None:
+                            path, role = parent.path, "key" if parent.flow else ""
+                        else:
+                            path = parent.path + (key_text(parent.key),)
+                            role = "value" if parent.flow else ""
+                    else:
+                        path, role = parent.path + (str(len(parent.node.items)),), ""
+                else:
+                    path, depth, role = (), 0, ""
+                if cls is alias_ev:
+                    hit = self.anchors.get(ev.anchor)
+                    if hit is None:
+                        raise ComposerError(None, None, "found undefined alias", ev.start_mark)
+                    target = hit[0]
+                    self.aliases += 1
+                    if self.aliases > max_aliases:
+                        self._stop_at("aliases", f"uses more than {max_aliases} alias references "
+                                                 "(setting limits.max_aliases)", target.line, target.col)
+                        continue
+                    self._attach(target, stack, roots)
+                    continue
+                sm = ev.start_mark
+                if depth > max_depth:
+                    self._stop_at("depth", f"nests deeper than {max_depth} levels (setting limits.max_depth)",
+                                  sm.line + 1, sm.column + 1)
+                    if ev.anchor is not None:
+                        self._anchor(ev.anchor, None, sm, ComposerError)
+                    if cls is not scalar_ev:
+                        stack.append(_Frame(None, (), 0, False, False))
+                    continue
+                anchor = ev.anchor
+                if cls is scalar_ev:
+                    value = ev.value
+                    node = Scalar(value, ev.style or None, ev.tag)
+                    em = ev.end_mark
+                    node.line, node.col, node.start = sm.line + 1, sm.column + 1, sm.index
+                    node.end_line, node.end_col, node.end = em.line + 1, em.column + 1, em.index
+                    node.path, node.anchor, node.file = path, anchor, shown
+                    if anchor is not None:
+                        self._anchor(anchor, node, sm, ComposerError)
+                    if len(value) > scalars.MAX_INT_TEXT and node.style is None and node.tag is None \
+                            and scalars.oversized(value):
+                        self._oversized(node)
+                    if role and not value and node.style is None and sm.index == em.index and anchor is None:
+                        self.empties.append((node, role))
+                    self._attach(node, stack, roots)
+                    continue
+                coll: Node = Mapping() if cls is map_start else Sequence()
+                coll.line, coll.col, coll.start = sm.line + 1, sm.column + 1, sm.index
+                coll.path, coll.anchor, coll.file = path, anchor, shown
+                if anchor is not None:
+                    self._anchor(anchor, coll, sm, ComposerError)
+                stack.append(_Frame(coll, path, depth, cls is map_start, bool(ev.flow_style)))
+        finally:
+            dispose = getattr(parser, "dispose", None)
+            if dispose is not None:
+                dispose()
+        return roots
+
+    def _anchor(self, name: str, node: Node | None, mark, error) -> None:
+        seen = self.anchors.get(name)
+        if seen is not None:
+            raise error("found duplicate anchor; first occurrence", seen[1], "second occurrence", mark)
+        self.anchors[name] = (node, mark)
+
+    def _attach(self, node: Node, stack: list, roots: list) -> None:
+        """A finished node joins its parent (a mapping's key waits for its value) or the roots."""
+        if not stack:
+            if not self.failed:
+                roots.append(node)
+            return
+        parent = stack[-1]
+        if not parent.is_map:
+            parent.node.items.append(node)
+            return
+        k = parent.key
+        if k is None:
+            parent.key = node
+            return
+        parent.key = None
+        mapping = parent.node
+        mapping.pairs.append((k, node))
+        name = key_text(k)
+        if name == "<<" and isinstance(k, Scalar) and k.style is None:
+            self._merge(mapping, k, node)
+            return
+        if isinstance(k, Scalar):
+            first = parent.first
+            if name in first:
+                prev = first[name]
+                self.problems.append(Problem(
+                    "duplicate-key", f"key '{name}' is written twice in one mapping; which value "
+                    "wins depends on the loader", k.line, k.col,
+                    [Location(self.doc.path, prev.line, prev.col, message=f"first '{name}' here")]))
+            else:
+                first[name] = k
+
+    def _stop_at(self, kind: str, message: str, line: int, col: int) -> None:
+        if not self.failed:
+            self.failed = True
+            self.problems.append(Problem(kind, message, line, col))

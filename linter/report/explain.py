@@ -115,15 +115,13 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
                 out.write(f"  {name:<{width}}  {_show(v.value):<16}  = {_t(v.note)}  from "
                           f"{', '.join(map(_t, v.inputs))}{extra}\n")
         out.write("\n".join(_t(line) for line in arithmetic.render(m).split("\n")))
-        if m.ambiguous:
-            out.write("\nAmbiguous (set them in [tool.trimtab.keys]):\n")
-            for name, locs in sorted(m.ambiguous.items()):
-                out.write(f"  {name}: " + "; ".join(f"{_t(l.key_path)} at {_t(l.label())}" for l in locs) + "\n")
         if m.unused:
-            out.write("\nLook like concepts, not used:\n")
+            out.write("\nLook like concepts, not used (why):\n")
             seen = set()
             for u in sorted(m.unused, key=lambda u: (u.location.path or "", u.location.line, u.location.col, u.concept)):
-                line = f"  {_t(u.location.label())}  {_t(u.key)}  {u.concept}: {_t(u.reason)}\n"
+                what = f" = {u.shown}" if u.shown else ""
+                why = u.reason + (" (VOC-2)" if u.kind == "shape" else "")
+                line = f"  {_t(u.location.label())}  {_t(u.key)}{_t(what)}  {u.concept}: {_t(why)}\n"
                 if line not in seen:
                     seen.add(line)
                     out.write(line)
@@ -131,7 +129,8 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
             out.write("\nKnown only at launch (left out of the checks):\n")
             for name, v in sorted(m.unknown.items()):
                 out.write(f"  {name}  {_t(v.location.label())}  {_t(v.key)}: {_t(v.note)}\n")
+        shaped = {u.concept for u in m.unused if u.kind == "shape"}
         missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous and c not in m.unknown
-                   and c not in m.dead]
+                   and c not in shaped and c not in m.dead]
         out.write("\nNot found:\n" + _wrap(", ".join(missing)) + "\n")
     return 0

@@ -602,6 +602,14 @@ def of(model: RunModel, reading: Reading | None = None) -> Arithmetic:
     return found
 
 
+def release(model: RunModel) -> None:
+    """Drop the arithmetic kept on a run model once nothing will ask for it again. Each Arithmetic
+    (and the verdict over them) refers back to its model: left in place, that cycle keeps the model,
+    and through it the whole document tree, alive until the cyclic collector scans them all (perf)."""
+    model.__dict__.pop("_arithmetic", None)
+    model.__dict__.pop("_verdict", None)
+
+
 def settled(model: RunModel, concept: str):
     """The positive whole value of a concept under the run's usual reading (see ``Arithmetic.value``)."""
     return of(model).value(concept)

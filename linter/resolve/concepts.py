@@ -12,8 +12,8 @@ from .arithmetic import Unit, settle
 from .model import Component, RunModel, Unused, Value
 from ..common.settings import KeySpec
 from ..common.vocabulary import (ALIASES, CONCEPTS, ELSEWHERE, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX,
-                                 SWITCHES, evaluation_section, normalise_key, section_word, switched_off,
-                                 word_concept)
+                                 SECTION_WORDS, SWITCHES, Concept, evaluation_section, fits, normalise_key, section_word,
+                                 switched_off, word_concept)
 
 
 @dataclass
@@ -21,6 +21,8 @@ class ResolveOptions:
     keys: dict[str, KeySpec] = field(default_factory=dict)
     version: str = "1.1"
     force_rl: bool = False
+    readers: tuple = ()  # (glob, reader) from the settings, the first match wins
+    stated: bool = False  # the settings name the reader (yaml_version written)
 
 
 # Field words inside one reward component (generic).
@@ -37,7 +39,8 @@ _FIELD_WORDS = {
 
 
 def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> RunModel:
-    model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version)
+    model = RunModel(doc=doc, index=index, version="1.2" if doc.fmt == "json" else opts.version,
+                     readers=opts.readers, reader_named=opts.stated)
     # A composed run's root carries, per dotted key path, the places a value passed through.
     model.chains = getattr(root, "chains", None) or {}
     model.roles = getattr(root, "roles", None) or {}
@@ -61,6 +64,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     sections: dict[tuple, list[str]] = {}
     inside: dict[tuple, bool] = {}
     evals: dict[tuple, str | None] = {}
+    misshapen: dict[str, list[tuple[int, tuple, Node, str]]] = {}
     for path, node, _chain in leaves:
         if id(node) in taken:
             continue
@@ -81,17 +85,23 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             evals[section] = evaluation_section(section)
         in_eval = evals[section]
         for alias in aliases:
-            if alias.concept in mapped:
-                continue
             if alias.under and (not parents or parents[-1] not in alias.under):
+                continue
+            if alias.concept == "reward.sources" and isinstance(node, Scalar):
+                continue
+            shape = "" if alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
+                _shape(alias.concept, node, leaf, model.version)
+            if shape == "section":
+                continue  # a section named like the concept holds keys, not its value
+            if alias.concept in mapped:
+                model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
+                                           f"the key map names {opts.keys[alias.concept].key}", "keymap"))
                 continue
             if in_eval is not None:
                 # an evaluation, validation or test block samples for another loop: its keys never
                 # compete with the training run's. Only a sandbox (where generated code runs, in
                 # any loop) is taken from one, and only when the training run states none.
                 if not alias.concept.startswith("sandbox."):
-                    if isinstance(node, Mapping) and CONCEPTS[alias.concept].type not in ("list", "any"):
-                        continue  # a section of the block, not a value
                     model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
                                                f"in the evaluation section '{in_eval}'", "evaluation"))
                     continue
@@ -100,11 +110,9 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                 continue
             else:
                 strength = 2 if alias.under else 1
-            if alias.concept == "reward.sources" and isinstance(node, Scalar):
+            if shape:  # a value of the wrong shape: used only if no key of the right shape matches
+                misshapen.setdefault(alias.concept, []).append((strength, path, node, shape))
                 continue
-            if isinstance(node, (Mapping, Sequence)) and CONCEPTS[alias.concept].type not in ("list", "any"):
-                if not (alias.concept == "sandbox.kind" and isinstance(node, Mapping)):
-                    continue
             candidates.setdefault(alias.concept, []).append((strength, path, node))
             matched = True
         if not matched and kl_words and in_eval is None:
@@ -124,8 +132,16 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                     distinct[id(n)] = (p, n)
             if len(distinct) > 1:
                 model.ambiguous[concept] = [doc.loc(n, ".".join(p)) for p, n in distinct.values()]
+                for p, n in distinct.values():
+                    model.unused.append(Unused(concept, ".".join(p), doc.loc(n), f"ambiguous: {len(distinct)} keys "
+                                               "match as closely; name one in [tool.trimtab.keys]", "ambiguous"))
                 continue
             path, node = next(iter(distinct.values()))
+            for s, p, n in found:
+                if s < best:
+                    why = "in an evaluation section; the training run's" if s == 0 else "matches less closely than"
+                    model.unused.append(Unused(concept, ".".join(p), doc.loc(n), f"{why} {'.'.join(path)} is read",
+                                               "lost"))
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
             via = "native" if ".".join(path) == concept else "alias"  # the concept's own path is the native layout
@@ -134,6 +150,12 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         hit = native.get(concept)
         if hit is not None:
             _store(model, concept, hit[1], "native", concept, chain=chains.get(hit[0]), synonyms=opts.keys.get(concept))
+    for concept, wrong in misshapen.items():
+        _misshapen(model, concept, wrong)
+    for u in model.unused:
+        if isinstance(u.node, (Mapping, Sequence)):
+            _at_key(model, root, u)
+    model.unusable = {u.concept for u in model.unused if u.kind == "shape"}
     settle(model)  # the run's arithmetic: counts in their concepts' units, derived quantities
     _liveness(model)
     markers = sum(1 for c in RL_MARKERS if c in model.values)
@@ -265,6 +287,114 @@ def _at(root: Node, key: str) -> Node | None:
     return node
 
 
+_EXPECTED = {"int": "a whole number", "number": "a number", "bool": "true or false", "str": "a word or text"}
+
+
+def _shape(concept: str, node: Node, leaf: str, version: str, named: bool = False) -> str:
+    """How a value's shape fits its concept: "" when it fits (or is a list trimtab understands, see
+    ``_combined``); "section" for a mapping that holds keys rather than the concept's value (found
+    by an alias word that is also a section word, or standing for a word or a switch); otherwise
+    the reason the value cannot be used. ``named``: the key map names the key, so a mapping there
+    is the value, never a section.
+
+    A one-element list of a number (``group_size: [8]``) is not read as the number: a trainer may
+    read a list as one value per stage, dataset or worker, or refuse it, so the number trimtab
+    would compute with is a guess; it is reported (VOC-2) instead."""
+    if not isinstance(node, (Mapping, Sequence)):
+        return ""
+    c = CONCEPTS[concept]
+    if c.type in ("list", "any"):
+        return ""
+    expected = _EXPECTED.get(c.type, c.type)
+    if isinstance(node, Mapping):
+        if not named and (c.type in ("str", "bool") or leaf in SECTION_WORDS):
+            return "section"
+        return f"a mapping where {expected} is expected"
+    if _combined(c, node, version) is not None or _counted(c, leaf, node) is not None:
+        return ""
+    return f"a list where {expected} is expected"
+
+
+# Plain plural nouns whose list is the things themselves (``gpus: [0, 1, 2, 3]``, ``nodes: [a, b]``).
+_COUNTED_WORDS = frozenset({"nodes", "gpus", "hosts", "devices"})
+
+
+def _counted(c: Concept, leaf: str, node: Node) -> int | None:
+    """A list of the things a count counts, written at a key that is their plain plural noun:
+    the list's length is the count (``gpus: [0, 1, 2, 3]`` is 4 GPUs). None otherwise."""
+    if c.unit not in ("nodes", "GPUs") or leaf not in _COUNTED_WORDS or not isinstance(node, Sequence):
+        return None
+    if not node.items or not all(isinstance(it, Scalar) for it in node.items):
+        return None
+    return len(node.items)
+
+
+def _combined(c: Concept, node: Node, version: str) -> str | None:
+    """A list of an enumeration's values read as one value: all of the parts that the enumeration
+    names together as "both" (``placement: [loss, reward]`` is both) or one of them alone
+    (``[loss]``); None for any other list."""
+    if "both" not in c.values or not isinstance(node, Sequence) or not node.items:
+        return None
+    words = set()
+    for item in node.items:
+        value = item.value(version) if isinstance(item, Scalar) else None
+        if not isinstance(value, str):
+            return None
+        words.add(value.strip().lower())
+    parts = set(c.values) - {"both", "none"}
+    if not words <= parts:
+        return None
+    return "both" if words == parts else next(iter(words))
+
+
+def _at_key(model: RunModel, root: Node, u: Unused) -> None:
+    """A block list or mapping is reported at its key's line (the value starts on the next one)."""
+    parent, _dot, name = u.key.rpartition(".")
+    holder = _at(root, parent) if parent else root
+    if not isinstance(holder, Mapping):
+        return
+    for word, k, v, _via in holder.entries():
+        if word == name and v is u.node and isinstance(k, Scalar) and k.line < u.node.line:
+            loc = model.doc.loc(k)
+            u.location = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, "", u.key)
+            return
+
+
+def _compact(node: Node, version: str, width: int = 40) -> str:
+    """A list or mapping in short, as written (``[8]``, ``{low, high}``)."""
+    if isinstance(node, Sequence):
+        text = "[" + ", ".join(it.text if isinstance(it, Scalar) else f"<{it.kind}>" for it in node.items[:8]) + \
+            (", ..." if len(node.items) > 8 else "") + "]"
+    elif isinstance(node, Mapping):
+        names = [n for n, _k, _v, _via in node.entries()]
+        text = "{" + ", ".join(names[:8]) + (", ..." if len(names) > 8 else "") + "}"
+    else:
+        return str(scalar_value(node, version))
+    return text if len(text) <= width else text[:width - 3] + "..."
+
+
+def _misshapen(model: RunModel, concept: str, wrong: list[tuple[int, tuple, Node, str]]) -> None:
+    """The keys that matched ``concept`` with a value of the wrong shape: when another key gave
+    the concept its value (or several did, ambiguously), they are listed as not used; otherwise
+    the closest ones are reported (VOC-2) rather than dropped in silence."""
+    used = model.values.get(concept)
+    reported = {u.key for u in model.unused if u.kind == "shape" and u.concept == concept}
+    best = max(s for s, _p, _n, _why in wrong)
+    for s, path, node, why in wrong:
+        key = ".".join(path)
+        if key in reported:
+            continue  # the concept's own dotted path: reported when it was read
+        loc = model.doc.loc(node)
+        shown = _compact(node, model.version)
+        if used is not None:
+            model.unused.append(Unused(concept, key, loc, f"{why}; {concept} is read from {used.key}", "lost", shown,
+                                       node))
+        elif concept in model.ambiguous or concept in model.unknown or reported or s < best:
+            model.unused.append(Unused(concept, key, loc, f"{why}; not used", "lost", shown, node))
+        else:
+            model.unused.append(Unused(concept, key, loc, why, "shape", shown, node))
+
+
 def scalar_value(node: Node, version: str):
     if isinstance(node, Scalar):
         return node.value(version)
@@ -300,13 +430,31 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
         model.components = _components(model, node, spec, key)
         return
     if isinstance(node, (Mapping, Sequence)):
-        if CONCEPTS[concept].type == "any":
+        c = CONCEPTS[concept]
+        if c.type == "any":
             model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
+            return
+        combined = _combined(c, node, model.version)
+        if combined is not None:  # a list that names one value of an enumeration (placement: [loss, reward])
+            shown = _compact(node, model.version)
+            model.values[concept] = Value(concept, combined, loc, node, via, key, chain,
+                                          note=f"the list {shown} read as {combined}", raw=shown)
+            return
+        leaf = normalise_key(key.rsplit(".", 1)[-1])
+        count = _counted(c, leaf, node)
+        if count is not None:  # the list of the things themselves (gpus: [0, 1, 2, 3])
+            shown = _compact(node, model.version)
+            model.values[concept] = Value(concept, count, loc, node, via, key, chain,
+                                          note=f"the list {shown} counted: {count}", raw=count)
+            return
+        why = _shape(concept, node, leaf, model.version, named=via == "keymap")
+        if why and why != "section" and c.type != "list":
+            model.unused.append(Unused(concept, key, loc, why, "shape", _compact(node, model.version), node))
         return
     if isinstance(node, Unknown):  # known only at launch: out of the run, never reasoned about
         model.unknown[concept] = Value(concept, None, loc, node, via, key, chain, note=node.why)
         return
-    value = cast(Scalar, node).value(model.version)
+    value = model.read(node)
     v = Value(concept, value, loc, node, via, key, chain, raw=value)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
@@ -326,16 +474,7 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
 
 
 def _fits(value, expected: str) -> bool:
-    if expected == "int":
-        return isinstance(value, int) and not isinstance(value, bool) or (
-            isinstance(value, float) and value.is_integer())
-    if expected == "number":
-        return isinstance(value, (int, float)) and not isinstance(value, bool)
-    if expected == "bool":
-        return isinstance(value, bool)
-    if expected == "str":
-        return isinstance(value, str)
-    return True
+    return fits(value, expected) or expected not in ("int", "number", "bool", "str")
 
 
 def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:
@@ -357,7 +496,7 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                                         doc.loc(name_node), name_node, "component")
             comp.location = doc.loc(name_node)
         if isinstance(item, Scalar):
-            val = item.value(model.version)
+            val = model.read(item)
             if name_node is not None and isinstance(val, (int, float)) and not isinstance(val, bool):
                 # a mapping of name -> weight: the name is the reward, the number its weight
                 comp.fields["weight"] = Value("weight", val, doc.loc(item), item, "component",
@@ -369,14 +508,14 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
             for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
                 if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
                                                    for a in ALIASES.get(normalise_key(word), ())):
-                    comp.fields["trust_remote_code"] = Value("trust_remote_code", sub.value(model.version),
+                    comp.fields["trust_remote_code"] = Value("trust_remote_code", model.read(sub),
                                                              doc.loc(sub), sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
                     sub = item.get(w)
                     if sub is not None:
-                        val = sub.value(model.version) if isinstance(sub, Scalar) else sub
+                        val = model.read(sub) if isinstance(sub, Scalar) else sub
                         comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
                                                         _chain(model, f"{at}.{w}"))
                         break
@@ -411,7 +550,7 @@ def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
         if normalise_key(word) not in SANDBOX:
             continue
         if isinstance(sub, Scalar):
-            comp.fields["sandbox.kind"] = Value("sandbox.kind", sub.value(model.version), model.doc.loc(sub), sub,
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", model.read(sub), model.doc.loc(sub), sub,
                                                 "component", word)
             return
         if not isinstance(sub, Mapping):
@@ -421,7 +560,7 @@ def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
                 continue
             for alias in ALIASES.get(normalise_key(name), ()):
                 if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
-                    comp.fields[alias.concept] = Value(alias.concept, v.value(model.version), model.doc.loc(v), v,
+                    comp.fields[alias.concept] = Value(alias.concept, model.read(v), model.doc.loc(v), v,
                                                        "component", f"{word}.{name}")
                     break
         return

@@ -4,7 +4,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from ..load.document import Document, Node
+from ..load.document import Document, Node, Scalar
 from ..common.findings import Location
 
 
@@ -53,8 +53,10 @@ class Unused:
     concept: str
     key: str  # the key path in the user's file
     location: Location
-    reason: str  # "evaluation section 'eval'", "wrong shape: a list where a whole number is expected", ...
-    kind: str = ""  # evaluation, shape, section, lost, keymap
+    reason: str  # "in the evaluation section 'eval'", "a list where a whole number is expected", ...
+    kind: str = ""  # evaluation; shape (reported: VOC-2); lost (another key was read); ambiguous; keymap
+    shown: str = ""  # the value as written, in short (a list or mapping)
+    node: Any = None  # the value's node
 
 
 @dataclass
@@ -86,19 +88,43 @@ class RunModel:
     unused: list[Unused] = field(default_factory=list)  # keys that look like a concept but were not used
     is_rl: bool = False
     version: str = "1.1"  # the YAML version the user's loader reads concept values under
+    readers: tuple = ()  # (glob, reader): the settings' readers table, the first match wins
+    reader_named: bool = False  # the settings name the reader of files no glob matches
     settings: Any = None
     files: list[str] = field(default_factory=list)  # every file this run was composed from
     chains: dict[str, list[Location]] = field(default_factory=dict)  # key path -> origin chain (compose)
     roles: dict[str, str] = field(default_factory=dict)  # key path -> the layer its value came from (compose)
     notes: list = field(default_factory=list)  # values known only at launch (compose problems, note level)
     unknown: dict[str, Value] = field(default_factory=dict)  # concepts whose value is known only at launch
-    touched: set = field(default_factory=set)  # unknown concepts a rule asked for (engine.run_rule)
+    touched: set = field(default_factory=set)  # unknown or unusable concepts a rule asked for (engine.run_rule)
+    unusable: set = field(default_factory=set)  # concepts written with a value of the wrong shape (VOC-2)
     # concepts written but not read, because a switch turns their mechanism off -> the switch's Value
     dead: dict[str, Value] = field(default_factory=dict)
 
     @property
     def path(self) -> str:
         return self.doc.path
+
+    def reader(self, node) -> tuple[str, bool]:
+        """(the reader the file a node was written in meets, whether the settings name it): JSON
+        for a .json file, else the first of the settings' readers whose glob matches the file, else
+        yaml_version (named when written in the settings, else the default, assumed)."""
+        shown = getattr(node, "file", None) or self.doc.path
+        if shown.lower().endswith(".json") or shown == self.doc.path and self.doc.fmt == "json":
+            return "json", True
+        if self.readers:
+            from ..load.discover import matches
+
+            for glob, reader in self.readers:
+                if matches(shown, (glob,)):
+                    return reader, True
+        return self.version, self.reader_named
+
+    def read(self, node):
+        """A node's value as its file's reader reads it (a scalar; other nodes as they are)."""
+        if isinstance(node, Scalar):
+            return node.value(self.reader(node)[0])
+        return node
 
     @property
     def stage(self) -> str:
@@ -111,12 +137,12 @@ class RunModel:
         if self.dead and concept in self.dead:
             return None
         v = self.values.get(concept)
-        if v is None and self.unknown and concept in self.unknown:
+        if v is None and (self.unknown and concept in self.unknown or self.unusable and concept in self.unusable):
             self.touched.add(concept)
         return v if v is not None else self.derived.get(concept)
 
     def stated(self, concept: str) -> Value | None:
-        if self.unknown and concept in self.unknown:
+        if self.unknown and concept in self.unknown or self.unusable and concept in self.unusable:
             self.touched.add(concept)
         return self.values.get(concept)
 

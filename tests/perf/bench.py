@@ -15,16 +15,20 @@ interleaved with it so that the load of the machine falls on both alike:
   start-up     `trimtab check ONE_FILE` as a whole process / a process that only starts Python,
                imports PyYAML and composes the same file with the libyaml loader      target <= 3x
   throughput   `trimtab check --jobs 1` over N files / composing the same N files with the
-               libyaml loader in one Python process                                   target <= 4x
+               libyaml loader in one Python process                                   target <= 2.5x
   parallel     `--jobs 1` / `--jobs 2` over the same N files, identical findings      target >= 1.7x
   memory       peak resident memory of `trimtab check` over N and 4N files            target <= 150 MB
                and its growth from N to 4N files                                      target < 10%
-  pathological a nested-alias bomb and a 100,000-line file (time and peak memory against composing
-               them with libyaml), and the time of 100,000 lines against 25,000 lines target <= 4.5x
+  pathological a nested-alias bomb (time and peak memory against composing it with libyaml, a guide);
+               a 100,000-line file: time against its libyaml compose               target <= 1.5x
+               and peak memory                                                    target <= 150 MB;
+               the time of 100,000 lines against 25,000 lines                     target <= 4.5x
   hook         a commit that touches one config in a git repository of N run configs: `trimtab check
                ONE_FILE` (as the pre-commit framework calls it) and `check --since HEAD`, which judge the
-               file against every run of the repository (rules over several runs), with the cache of
-               the other runs warm and cold; against start-up           reported, guide about 1 s
+               file against every run of the repository (rules over several runs), with the caches of
+               the other runs and of the bases each file names warm and cold; in the corpus as written
+               and with every YAML run built on a shared base (a bases key in the settings); against
+               start-up                                                 reported, guide about 1 s
 
 Peak resident memory is the child's own high-water mark, taken from os.wait4's resource usage of
 exactly that child (ru_maxrss; with --jobs it is the largest of the process and its workers).
@@ -324,6 +328,67 @@ def alias_config(rng: random.Random, i: int, defect: str) -> str:
     return "\n".join(lines) + "\n"
 
 
+def sectioned_config(rng: random.Random, i: int, defect: str, module_present: bool = True) -> str:
+    """About 180 lines in the shape of run configs found in the wild (#20): 20 mappings pulling their
+    defaults through a ``<<`` merge key, 30 flow-mapping lines, and four reward components whose
+    module exists under ``rewards/`` (``module_present``) or does not (a module nobody wrote)."""
+    model, team = rng.choice(MODELS), rng.choice(TEAMS)
+    group = rng.choice((4, 8, 16))
+    prompts = rng.choice((32, 64, 128))
+    lr = "2e-6" if defect == "yaml-version" else rng.choice(("1.0e-6", "5.0e-7"))
+    est = "grpoo" if defect == "unknown-value" else rng.choice(ESTIMATORS)
+    lines = [
+        f"# {team}: {model} on {rng.choice(TASKS)}, sweep arm {i}",
+        "stage_defaults: &stage_defaults",
+        "  precision: bf16",
+        "  offload: false",
+        "  checkpointing: true",
+        f"  seed: {rng.randint(1, 9999)}",
+        "run:",
+        f"  name: {model}-arm-{i}",
+        f"  estimator: {est}",
+        "model:",
+        f"  source: {team}/{model}-base",
+        f"  revision: {rng.getrandbits(160):040x}",
+        "rollout:",
+        f"  group_size: {'many' if defect == 'wrong-type' else group}",
+        f"  temperature: {rng.choice(('1.0', '0.9'))}",
+        "batch:",
+        f"  prompts: {prompts}",
+        f"  mini: {prompts * group}",
+        "kl:",
+        f"  coef: {rng.choice(('0.02', '0.001'))}",
+        "  estimator: k3",
+        "optim:",
+        f"  lr: {lr}",
+        "  grad_clip: 1.0",
+    ]
+    roles = ("actor", "critic", "reference", "rollout_worker", "reward_worker", "trainer", "sampler",
+             "scorer", "evaluator", "logger", "dataloader", "tokenizer_pool", "checkpointer", "profiler",
+             "scheduler", "offloader", "collector", "replay", "monitor", "exporter")
+    lines.append("workers:")
+    for role in roles:  # 20 mappings that pull their defaults through a merge key
+        lines += [f"  {role}:", "    <<: *stage_defaults", f"    replicas: {rng.choice((1, 2, 4))}",
+                  f"    memory_gb: {rng.choice((16, 32, 80))}"]
+    lines.append("stages:")  # 30 flow-mapping lines
+    for j in range(30):
+        lines.append(f"  s{j:02d}: {{steps: {rng.choice((50, 100, 200))}, lr_scale: {rng.choice(('1.0', '0.5'))}, "
+                     f"warmup: {rng.choice((0, 10))}, tag: {rng.choice(TASKS)}}}")
+    lines += ["reward:", "  sources:"]
+    package = "rewards" if module_present else "rewards_unwritten"
+    for j in range(4):  # four components, each a function in a module
+        lines += ["    - kind: rule", f"      ref: {package}.{rng.choice(TASKS).replace('-', '_')}:score_{j}",
+                  f"      weight: {rng.choice(('1.0', '0.5', '0.25'))}"]
+    lines += _sandbox(rng, "sandbox")
+    if defect == "duplicate-key":
+        lines.insert(14, "  temperature: 0.7")
+    lines += ["data:", "  datasets:"]
+    lines += _datasets(rng, max(2, (180 - len(lines)) // 6))
+    if defect == "parse":
+        lines.insert(rng.randint(20, len(lines) - 5), "  broken: {unclosed: map")
+    return "\n".join(lines) + "\n"
+
+
 def other_yaml(rng: random.Random, i: int) -> str:
     """YAML in the repository that is not a run config (skipped silently)."""
     lines = ["name: nightly", "on:", "  schedule:", "    - cron: '0 3 * * *'", "jobs:"]
@@ -337,8 +402,9 @@ DEFECTS = ("duplicate-key", "yaml-version", "unknown-value", "wrong-type", "pars
 
 
 def make_corpus(root: Path, count: int, seed: int = 1) -> list[Path]:
-    """``count`` files under ``root``: ~45% native, ~45% generic-alias layout, ~4% JSON, ~6% not run
-    configs; about one file in eight carries a defect."""
+    """``count`` files under ``root``: ~30% native, ~30% generic-alias layout, ~30% the shapes of #20
+    (merge keys, flow mappings, four rewards, a quarter of them naming a module that does not exist),
+    ~4% JSON, ~6% not run configs; about one file in eight carries a defect."""
     rng = random.Random(seed)
     (root / ".git").mkdir(parents=True, exist_ok=True)  # a repository root: settings search stops
     _reward_modules(root)
@@ -355,8 +421,11 @@ def make_corpus(root: Path, count: int, seed: int = 1) -> list[Path]:
             import yaml  # the JSON twin of a native config
 
             text = json.dumps(yaml.safe_load(native_config(rng, i, "")), indent=2, default=str) + "\n"
-        elif roll < 0.55:
+        elif roll < 0.40:
             path, text = folder / f"run-{i:05d}.yaml", native_config(rng, i, defect)
+        elif roll < 0.70:  # the shapes of #20: merges, flow mappings, four rewards; some modules missing
+            path = folder / f"arm-{i:05d}.yaml"
+            text = sectioned_config(rng, i, defect, module_present=rng.random() < 0.75)
         else:
             path, text = folder / f"run-{i:05d}.yml", alias_config(rng, i, defect)
         path.write_text(text, encoding="utf-8")
@@ -494,10 +563,24 @@ def findings_of(report: Path) -> list:
 
 
 def hook_figures(table, tt, py, root: Path, n: int, repeat: int, clock: str) -> None:
-    """One changed config in a git repository of ``n`` run configs, checked as a hook checks it."""
-    repo = root / "hook"
+    """One changed config in a git repository of ``n`` run configs, checked as a hook checks it: in
+    the corpus as written, and with every YAML run built on a shared base (settings name a bases key,
+    so the search for the configs that build on a changed file reads every file)."""
+    for bases in (False, True):
+        _hook_repo(table, tt, py, root / ("hook-bases" if bases else "hook"), n, repeat, clock, bases)
+
+
+def _hook_repo(table, tt, py, repo: Path, n: int, repeat: int, clock: str, bases: bool) -> None:
     make_corpus(repo, n, seed=3)
     shutil.rmtree(repo / ".git")
+    label = "hook, bases" if bases else "hook"
+    if bases:
+        (repo / "pyproject.toml").write_text('[tool.trimtab]\nbases_key = "inherit"\n', encoding="utf-8")
+        shared = repo / "configs" / "shared"
+        shared.mkdir()
+        (shared / "team.yaml").write_text("logging:\n  every: 10\n  backends: [stdout]\n", encoding="utf-8")
+        for path in (repo / "configs").rglob("run-*.y*ml"):
+            path.write_text("inherit: ../../shared/team.yaml\n" + path.read_text(encoding="utf-8"), encoding="utf-8")
     env = dict(os.environ, GIT_AUTHOR_NAME="bench", GIT_AUTHOR_EMAIL="bench@example.invalid",
                GIT_COMMITTER_NAME="bench", GIT_COMMITTER_EMAIL="bench@example.invalid")
     for cmd in (["git", "init", "-q"], ["git", "add", "-A"], ["git", "commit", "-q", "-m", "corpus"]):
@@ -511,12 +594,13 @@ def hook_figures(table, tt, py, root: Path, n: int, repeat: int, clock: str) -> 
     cold = measure(tt + ["check", rel], repo)
     a, b = paired(tt + ["check", rel], [py, "-c", REF_ONE, rel], repo, repeat)
     m, r = median(a, clock), median(b, clock)
-    table.add(f"hook: 1 changed of {n} configs, cache cold", getattr(cold, clock), r, getattr(cold, clock) / r,
+    table.add(f"{label}: 1 changed of {n} configs, cache cold", getattr(cold, clock), r, getattr(cold, clock) / r,
               "(reported)", True, counted=False)
-    table.add(f"hook: 1 changed of {n} configs, cache warm", m, r, m / r, "about 1 s", m <= 1.0, counted=False)
+    table.add(f"{label}: 1 changed of {n} configs, cache warm", m, r, m / r, "about 1 s", m <= 1.0, counted=False)
     a, _b = paired(tt + ["check", "--since", "HEAD"], [py, "-c", REF_ONE, rel], repo, repeat)
     m = median(a, clock)
-    table.add(f"hook: --since HEAD, {n} configs, cache warm", m, r, m / r, "about 1 s", m <= 1.0, counted=False)
+    table.add(f"{label}: --since HEAD, {n} configs, cache warm", m, r, m / r, "about 1 s", m <= 1.0,
+              counted=False)
 
 
 def main(argv=None) -> int:
@@ -570,7 +654,7 @@ def main(argv=None) -> int:
             if "throughput" in wanted:
                 a, b = paired(j1, [py, "-c", REF_MANY, "configs"], small, args.repeat)
                 m, r = median(a, clock), median(b, clock)
-                table.add(f"throughput: {n} files, --jobs 1", m, r, m / r, "<= 4x", m / r <= 4)
+                table.add(f"throughput: {n} files, --jobs 1", m, r, m / r, "<= 2.5x", m / r <= 2.5)
             if "parallel" in wanted:
                 report2 = root / "report2.json"
                 j2 = tt + ["check", "--jobs", "2", "--format", "json", "--output", str(report2), "configs"]
@@ -624,11 +708,10 @@ def main(argv=None) -> int:
             long_file(full, args.big_lines)
             a, b = paired(tt + ["check", str(full)], [py, "-c", REF_ONE, str(full)], patho, args.repeat)
             m, r = median(a, clock), median(b, clock)
-            table.add(f"pathological: {args.big_lines} lines, time", m, r, m / r, "<= 4x", m / r <= 4,
-                      counted=False)
+            table.add(f"pathological: {args.big_lines} lines, time", m, r, m / r, "<= 1.5x", m / r <= 1.5)
             mr, rr = median(a, "rss"), median(b, "rss")
             table.add(f"pathological: {args.big_lines} lines, peak RSS", mr, rr, mr / rr, "<= 150 MB",
-                      mr <= 150 * MB, unit="MB", counted=False)
+                      mr <= 150 * MB, unit="MB")
             q, _ = paired(tt + ["check", str(quarter)], [py, "-c", REF_ONE, str(quarter)], patho, args.repeat,
                           warm=False)
             mq = median(q, clock)
