@@ -61,7 +61,9 @@ CONCEPTS: dict[str, Concept] = {c.name: c for c in (
     _C("kl.coef", "number", "", "KL coefficient (beta)"),
     _C("kl.estimator", "str", "", "KL estimator", values=("k1", "k2", "k3")),
     _C("kl.placement", "str", "", "where the KL term goes", values=("loss", "reward", "both", "none")),
-    _C("kl.controller", "str", "", "how the KL coefficient is set over the run", values=("fixed", "adaptive")),
+    # not an enumeration: besides fixed and adaptive, trainers name controllers in their own words; only
+    # "fixed" (and its synonyms in SWITCHES) is reasoned about
+    _C("kl.controller", "str", "", "how the KL coefficient is set over the run (fixed, adaptive, ...)"),
     _C("kl.loss_enabled", "bool", "", "a KL term added to the loss switched on"),
     _C("kl.loss_coef", "number", "", "coefficient of the KL term in the loss"),
     _C("kl.reward_enabled", "bool", "", "a KL penalty subtracted from the reward switched on"),
@@ -153,6 +155,10 @@ _KL_PLACES = {"loss": "kl.loss", "reward": "kl.reward"}
 _COEF_WORDS = frozenset({"coef", "coeff", "coefficient", "beta", "weight"})
 _SWITCH_WORDS = frozenset({"use", "enable", "enabled", "apply"})
 _FILLER = frozenset({"kl", "in", "to", "the", "as"})
+
+
+# The concepts only word_concept reaches (a key map draft proposes them only for keys it reads so).
+WORD_CONCEPTS = frozenset({"kl.loss_coef", "kl.loss_enabled", "kl.reward_coef", "kl.reward_enabled"})
 
 
 def word_concept(leaf: str, parent: str = "") -> tuple[str, str] | None:
@@ -350,7 +356,7 @@ def _aliases() -> dict[str, tuple[Alias, ...]]:
     add("privileged", "sandbox.privileged", under=SANDBOX)
     add("model_path model_name pretrained_model base_model policy_model model_name_or_path", "model.source",
         not_under=ELSEWHERE + CRITIC + REF)
-    add("path name source", "model.source", under=MODEL)
+    add("path name source", "model.source", under=MODEL, not_under=ELSEWHERE + CRITIC + REF)
     add("revision model_revision", "model.revision", not_under=ELSEWHERE + CRITIC + REF + ("reward",))
     add("trust_remote_code", "model.trust_remote_code", not_under=ELSEWHERE)
     add("save_steps save_every checkpoint_every save_interval save_freq checkpoint_interval", "checkpoint.every")

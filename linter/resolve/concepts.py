@@ -432,6 +432,11 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     if isinstance(node, (Mapping, Sequence)):
         c = CONCEPTS[concept]
         if c.type == "any":
+            inner = _source_field(node)
+            if inner is not None:
+                # a model's section: its path says what is loaded (a null path is no model named)
+                _store_value(model, concept, inner[1], via, f"{key}.{inner[0]}" if key else inner[0], spec, synonyms)
+                return
             model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
             return
         combined = _combined(c, node, model.version)
@@ -471,6 +476,20 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     expected = CONCEPTS[concept].type
     if v.value is not None and not _fits(v.value, expected):
         model.mistyped.append((v, expected))
+
+
+# Words of the field that names what a model section loads (generic).
+_SOURCE_WORDS = ("path", "model_path", "source", "name_or_path", "model_name_or_path", "model_name", "name")
+
+
+def _source_field(node: Node) -> tuple[str, Node] | None:
+    """(word, node) of the field of a model section that names its weights, or None."""
+    if not isinstance(node, Mapping):
+        return None
+    for word, _k, sub, _via in node.entries():
+        if normalise_key(word) in _SOURCE_WORDS and isinstance(sub, (Scalar, Unknown)):
+            return word, sub
+    return None
 
 
 def _fits(value, expected: str) -> bool:
