@@ -89,6 +89,9 @@ def _adoption_options(c) -> None:
     c.add_argument("--diff", action="store_true", help="with --fix: print the fixes as a unified diff, write nothing")
     c.add_argument("--staged", action="store_true",
                    help="check the staged (index) version of the staged config files, as a git hook does")
+    c.add_argument("--with-staged-deletions", action="store_true",
+                   help="also check again every config that builds on a file the staged changes delete or rename "
+                        "(a hook framework passes no deleted file); given no paths, only those configs are checked")
 
 
 def _adoption_commands(sub) -> None:
@@ -129,6 +132,10 @@ def main(argv: list[str] | None = None) -> int:
                 from .adopt.hook import with_staged
 
                 return with_staged(args, cmd_check)
+            if args.with_staged_deletions:
+                from .adopt.hook import with_staged_deletions
+
+                return with_staged_deletions(args, cmd_check)
             return cmd_check(args)
         if args.command == "map":
             return cmd_map(args)

@@ -164,3 +164,10 @@ def misread(model, v) -> tuple[str, list[str], bool]:
         def fit(x):
             return not isinstance(x, str) and fits(x, kind)
     return reader, misreaders(node.value, reader if stated else None, fit), stated
+
+
+def toml_key(text: str) -> str:
+    """A value as written, as a TOML key of a key map's ``values`` table: bare when it can be, else a
+    basic string."""
+    bare = text and all(ch.isascii() and (ch.isalnum() or ch in "_-") for ch in text)
+    return text if bare else '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'

@@ -2,7 +2,6 @@
 run, the cautions every safety finding carries, and masking of values that must not be shown."""
 from __future__ import annotations
 
-import hashlib
 import re
 from dataclasses import dataclass
 
@@ -139,6 +138,8 @@ def mask(value: str) -> str:
 
 def digest(value: str) -> str:
     """A stable subject for a fingerprint that does not contain the value."""
+    import hashlib  # here, not at the top: only a finding about a secret needs it (start-up)
+
     return "sha256:" + hashlib.sha256(value.encode("utf-8", "surrogatepass")).hexdigest()[:24]
 
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 from trimtab import rule
 
 from ._common import (KL_COEFS, KL_MECHANISMS, anchor, clipped, estimator, is_off, kl_mechanisms, kl_state, num, shown,
-                      unresolved)
+                      toml_key, unresolved)
 
 _ESTIMATORS = {
     "k1": "log ratio, unbiased, high variance",
@@ -164,7 +164,7 @@ def kl_estimator(ctx):
         # k3 the unbiased low-variance one): the trainer's own vocabulary, which trimtab cannot settle
         # alone; the key map's value synonyms say what it means
         written = v.node.text.strip() if hasattr(v.node, "text") else name
-        line = (f'[tool.trimtab.keys] "kl.estimator" = {{ key = "{v.key}", values = {{ {_toml_key(written)} = '
+        line = (f'[tool.trimtab.keys] "kl.estimator" = {{ key = "{v.key}", values = {{ {toml_key(written)} = '
                 f'"{described[0]}" }} }}')
         yield ctx.finding(f"kl.estimator = {shown(v)} describes {' or '.join(described)} in words "
                           f"({_K_SOURCE}); trimtab reads it once the key map says which", v.location,
@@ -197,11 +197,6 @@ def _in_words(squeezed: str) -> tuple[str, ...]:
         if any(stem in squeezed for stem in stems):
             return which
     return ()
-
-
-def _toml_key(text: str) -> str:
-    bare = text and all(ch.isascii() and (ch.isalnum() or ch in "_-") for ch in text)
-    return text if bare else '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
 
 @rule(id="KL-5", name="kl-coef-range", level="warning", summary="The KL coefficient is outside the usual range.",

@@ -65,7 +65,8 @@ def _off(v) -> bool:
       "and failures are routine at cluster scale (common practice). Reported when the checkpoint "
       "interval is not shorter than the run (the first checkpoint would be the last step), or when "
       "checkpoints are off (0 or false) for a run longer than the option long_run_steps (default 1000 "
-      "steps, common practice: hours of cluster time).",
+      "steps, common practice: hours of cluster time). An interval below 1 is a share of the run's total "
+      "steps (a documented convention of the trade, common practice), so it is always shorter than the run.",
       options={"long_run_steps": 1000}, rl_only=False)
 def checkpoint_durability(ctx):
     m = ctx.model

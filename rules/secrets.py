@@ -18,7 +18,10 @@ from ._safety import CAUTIONS, digest, kind_of, label, locate, mask, safe_url, s
       "credential shapes under any key, and at random-looking values: at least min_length characters "
       "(default 24), at least min_entropy_bits of Shannon entropy per character (default 4.0; common "
       "practice), upper case, lower case and digits mixed, and a character class that changes at 45 in "
-      "100 characters or more (words and numbers in run names change it far less often). "
+      "100 characters or more (words and numbers in run names change it far less often). The key's meaning "
+      "is weighed with the value's shape: under a key that names a run, experiment, project, group, tag or "
+      "description a random-looking value is a name, not a credential (a well-known credential shape there "
+      "still is one); under a key that means a secret any literal value is one. "
       "Every file a run is composed from is looked at: its bases, the overrides file and the settings' "
       "layers, each reported at the line in that file. "
       "The value is never shown: findings give the key and a masked form, and every output of trimtab "
@@ -35,7 +38,7 @@ def literal_credential(ctx):
         shown = mask(text)
         if "://" in text and "@" in text:
             shown = safe_url(text) + ", user information masked"
-        yield ctx.finding(f"literal credential: {why} (masked: {shown})", ctx.doc.loc(node), subject=digest(text),
+        yield ctx.finding(f"literal credential, {why} (masked: {shown})", ctx.doc.loc(node), subject=digest(text),
                           suggestion="read it at run time from an environment variable or a secret store, "
                                      "and rotate it")
 

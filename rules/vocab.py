@@ -5,7 +5,7 @@ from trimtab import rule
 from trimtab.common.scalars import READER_NAMES, oversized
 from trimtab.common.vocabulary import CONCEPTS, RL_MARKERS, RL_MIN_MARKERS
 
-from ._common import misread
+from ._common import misread, toml_key
 
 # Enumerations whose unknown values a rule of their own area reports with its own reasoning.
 OWNED_ELSEWHERE = frozenset({"kl.estimator"})
@@ -75,8 +75,14 @@ def unknown_value(ctx):
         if not c or not c.values or name in OWNED_ELSEWHERE or not isinstance(v.value, str):
             continue
         if v.value.strip().lower() not in c.values:
+            # if it is the trainer's own word for one of them, the key map's value synonyms say which
+            written = v.node.text.strip() if hasattr(v.node, "text") else str(v.value)
+            key = v.key or name
             yield ctx.finding(f"{name} = {v.value!r} is not one of {', '.join(c.values)}", v.location,
-                              subject=v.value)
+                              subject=v.value,
+                              suggestion=(f"if it is your trainer's word for one of them: [tool.trimtab.keys] "
+                                          f'"{name}" = {{ key = "{key}", values = {{ {toml_key(written)} = '
+                                          f'"<one of {", ".join(c.values)}>" }} }}'))
 
 
 

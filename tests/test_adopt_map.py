@@ -2,6 +2,7 @@
 commented-out lines for the right keys are confirmed, every concept the file holds resolves."""
 from __future__ import annotations
 
+import json
 import re
 import shutil
 import sys
@@ -244,3 +245,15 @@ def test_enumerated_values_trimtab_does_not_know_get_a_value_synonym_line(tmp_pa
                                              .replace("\n# sandbox.", "\n## sandbox."), encoding="utf-8")
     after = run_cli("check", "run.yaml", cwd=tmp_path)
     assert after.code == 0 and "KL-4" not in after.out and "SEC-" not in after.out, after.out + after.err
+
+
+def test_a_json_config_is_weighed_under_json_grammar(tmp_path):
+    """json.dumps writes 1e-06 for a small float; JSON's own number grammar (RFC 8259, section 6)
+    reads it as a number, so the learning rate is a candidate of the right type (YAML 1.1 would read
+    the same text as a string)."""
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "run.json").write_text(json.dumps({"learner": {"step_size": 1e-06, "passes": 2}}), encoding="utf-8")
+    assert '"step_size": 1e-06' in (tmp_path / "run.json").read_text(encoding="utf-8")
+    r = run_cli("map", "run.json", cwd=tmp_path)
+    assert r.code == 0, r.err
+    assert '"optim.lr" = "learner.step_size"  # ' in r.out and "type number; 1e-06 within" in r.out

@@ -214,3 +214,33 @@ def test_sandbox_findings_name_up_to_three_code_rewards(tmp_path, n):
     (f,) = check_json(tmp_path / "run.yaml").of("EXE-3")
     named = [r["message"] for r in f["related"] if r["message"].startswith("the code-executing reward")]
     assert named == [f"the code-executing reward: reward 'tests_{i}'" for i in range(min(n, 3))]
+
+
+def test_missing_reward_modules_are_looked_for_once_per_process(tmp_path, monkeypatch):
+    """Issue 20: a run whose reward module is missing costs no more than one where it exists: the
+    scanner keeps a miss as it keeps a hit, and looks again once a folder it searched changes."""
+    from trimtab.engine.codescan import Reference, Scanner
+
+    (tmp_path / "rewards").mkdir()
+    sc = Scanner(tmp_path)
+    looked = []
+    real_locate = sc._locate
+    monkeypatch.setattr(sc, "_locate", lambda ref: looked.append(ref) or real_locate(ref))
+    ref = Reference("rewards.tide:score", module="rewards.tide", function="score")
+    dotted = Reference("rewards.tide.score", module="rewards.tide", function="score", dotted=True)
+    for _ in range(3):
+        assert sc.locate(ref).status == "no-module"
+        assert sc.locate(dotted).status == "no-module"
+    assert looked == [ref, dotted]  # one search each, then the cached miss
+    # the module appears (its folder changes): found, in both spellings
+    (tmp_path / "rewards" / "tide.py").write_text("def score(completion, answer):\n    return 1.0\n")
+    os.utime(tmp_path / "rewards", ns=(0, 10**18))  # a coarse clock could keep the folder's time
+    assert sc.locate(ref).status == "ok"
+    assert sc.locate(dotted).status == "ok"
+    # a package folder made where the dotted reading looks (rewards/tide/score.py) is noticed too
+    (tmp_path / "rewards" / "tide.py").unlink()
+    os.utime(tmp_path / "rewards", ns=(0, 2 * 10**18))
+    assert sc.locate(dotted).status == "no-module"
+    (tmp_path / "rewards" / "tide").mkdir()
+    (tmp_path / "rewards" / "tide" / "score.py").write_text("x = 1\n")
+    assert sc.locate(dotted).status == "ok"

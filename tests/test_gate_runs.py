@@ -179,6 +179,44 @@ def test_deleted_or_renamed_base_fails_staged_and_since(layered, how):
     assert since.code == 1 and [f["location"]["path"] for f in since.of("CMP-3")] == ["configs/heron-wide.yaml"]
 
 
+def test_pre_commit_delete_only_commit_checks_the_configs_built_on_the_base(layered, tmp_path):
+    """A real `pre-commit run` of a commit that only deletes a base: the framework passes no file
+    (it lists added, copied, modified and renamed files only), so the hook runs because the
+    manifest says always_run, and its entry checks the configs built on the deleted file. The hook
+    is this checkout's manifest entry, run as a local hook with this environment's trimtab."""
+    import yaml
+
+    trimtab = Path(sys.executable).parent / "trimtab"
+    if not trimtab.exists():
+        pytest.skip(f"{trimtab} not installed")
+    pytest.importorskip("pre_commit")
+    (hook,) = yaml.safe_load((Path(__file__).resolve().parents[1] / ".pre-commit-hooks.yaml").read_text())
+    assert hook["always_run"] is True and hook["entry"].startswith("trimtab check")
+    entry = str(trimtab) + hook["entry"][len("trimtab"):]
+    (layered / ".pre-commit-config.yaml").write_text(yaml.safe_dump({"repos": [{"repo": "local", "hooks": [{
+        "id": "trimtab", "name": "trimtab", "entry": entry, "language": "system", "types_or": hook["types_or"],
+        "always_run": hook["always_run"], "require_serial": hook["require_serial"]}]}]}), encoding="utf-8")
+    git(layered, "add", ".pre-commit-config.yaml")
+    git(layered, "commit", "-q", "-m", "hook")
+    env = dict(os.environ, PRE_COMMIT_HOME=str(tmp_path / "pre-commit-home"))
+
+    def pre_commit():
+        res = subprocess.run([sys.executable, "-m", "pre_commit", "run", "--verbose"], cwd=layered, env=env,
+                             capture_output=True, text=True, timeout=600)
+        return res.returncode, res.stdout + res.stderr
+
+    code, out = pre_commit()  # nothing staged: nothing to check, and the hook says so
+    assert code == 0 and "0 file(s) checked" in out, out
+    git(layered, "rm", "-q", "configs/bases/grpo.yaml")
+    code, out = pre_commit()
+    assert code == 1 and "configs/heron-wide.yaml" in out and "CMP-3" in out, out
+    # a commit that deletes the base and changes an unrelated file: the same
+    (layered / "configs" / "other.yaml").write_text(BASE, encoding="utf-8")
+    git(layered, "add", "configs/other.yaml")
+    code, out = pre_commit()
+    assert code == 1 and "configs/heron-wide.yaml" in out and "CMP-3" in out, out
+
+
 # --- item 4: a config trimtab cannot read as a run ----------------------------------------------
 VOC4 = FIXTURES / "rules" / "VOC-4"
 

@@ -120,7 +120,9 @@ def test_a_random_run_name_is_not_echoed(repo):
                                          "    endpoint: http://grader.lowfield.internal/score\n")
     found = outputs(repo)
     assert_hidden(found, RANDOM)
-    assert any(f["rule"] == "SEC-1" and f["location"]["line"] == 7 for f in json_findings(repo))
+    # a name is no credential (issue #16, class 7: SEC-1 weighs the key's meaning), but every output
+    # still masks a random-looking value wherever it appears (trimtab.common.redact.mask, one place)
+    assert not any(f["rule"] == "SEC-1" for f in json_findings(repo))
 
 
 # --- explain printed names and query strings ------------------------------------------------------

@@ -1,6 +1,7 @@
 """The hook through the pre-commit framework, end to end: this checkout is installed as a hook
 repository (by its .pre-commit-hooks.yaml) in a throwaway git repository; a commit of a config
-with a defect is refused with the located finding, a clean one passes."""
+with a defect is refused with the located finding, a clean one passes, and a commit that only
+deletes a base the other configs build on is refused."""
 from __future__ import annotations
 
 import os
@@ -84,3 +85,16 @@ def test_commit_refused_with_located_finding_then_clean_commit_passes(tmp_path):
     sh("git", "add", "run.yaml")
     passed = sh("git", "commit", "-qm", "clean config", check=False)
     assert passed.returncode == 0, passed.stdout + passed.stderr
+    # a commit that only deletes a base (issue 19): the framework passes the hook no file; the
+    # manifest runs it anyway and its entry checks again the configs built on the deleted base
+    (work / "trimtab.toml").write_text('bases_key = "inherit"\n')
+    (work / "bases").mkdir()
+    (work / "bases" / "grpo.yaml").write_text(GOOD)
+    (work / "wide.yaml").write_text("inherit: bases/grpo.yaml\nrun:\n  seed: 2\n")
+    sh("git", "add", "trimtab.toml", "bases/grpo.yaml", "wide.yaml")
+    layered = sh("git", "commit", "-qm", "layered", check=False)
+    assert layered.returncode == 0, layered.stdout + layered.stderr
+    sh("git", "rm", "-q", "bases/grpo.yaml")
+    refused = sh("git", "commit", "-qm", "drop the base", check=False)
+    output = refused.stdout + refused.stderr
+    assert refused.returncode != 0 and "wide.yaml" in output and "CMP-3" in output, output

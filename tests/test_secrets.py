@@ -20,6 +20,9 @@ def test_sec1_bad():
         assert f["level"] == "error" and f["cwe"] == 798
         assert "masked" in f["message"]
         assert "security policy and local rules" in f["help"] and "rotate" in f["help"]
+    # the key is named in the clear (the message's own words are never read as a key and its secret)
+    keyed = [f["message"] for f in res.of("SEC-1") if "holds a literal value" in f["message"]]
+    assert keyed and all("key '" in m and "*" not in m.split("holds")[0] for m in keyed), keyed
 
 
 def test_sec1_good():

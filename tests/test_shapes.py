@@ -91,3 +91,11 @@ def test_explain_lists_keys_not_used_with_the_reason(tmp_path):
         "run.yaml:11:10  eval.top_p  rollout.top_p: in the evaluation section 'eval'",
     ]
     assert "rollout.group_size" not in res.out.split("Not found:", 1)[1]
+
+
+def test_a_list_of_placements_may_use_the_key_maps_value_synonyms(tmp_path):
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "trimtab.toml").write_text('[keys]\n"kl.placement" = { key = "penalty.where", values = '
+                                           '{ in_objective = "loss", in_return = "reward" } }\n', encoding="utf-8")
+    m = _resolved(tmp_path, "penalty:\n  where: [in_objective, in_return]\n")
+    assert m.values["kl.placement"].value == "both" and m.unused == []

@@ -109,3 +109,18 @@ def test_fixtures_of_the_synonym_exist():
     # the harness (tests/test_fixtures.py) checks them; this names them for the reader
     assert (RULE_FIXTURES / "KL-4" / "good-synonym" / "trimtab.toml").is_file()
     assert (RULE_FIXTURES / "KL-4" / "bad-words" / "run.yaml").is_file()
+
+
+def test_an_unknown_value_names_the_synonym_line(tmp_path):
+    repo = _repo(tmp_path, "", RUN + "sandbox:\n  kind: jail cell\n")
+    [f] = check_json("run.yaml", cwd=repo).of("VOC-3")
+    assert f["suggestion"] == ("if it is your trainer's word for one of them: [tool.trimtab.keys] "
+                               '"sandbox.kind" = { key = "sandbox.kind", values = { "jail cell" = '
+                               '"<one of none, process, container, vm, remote>" } }')
+    # the line, with the value it means chosen, is valid settings and settles it
+    line = f["suggestion"].split("[tool.trimtab.keys] ", 1)[1].replace("<one of none, process, container, vm, remote>",
+                                                                        "container")
+    (repo / "trimtab.toml").write_text("[keys]\n" + line + "\n", encoding="utf-8")
+    r = check_json("run.yaml", cwd=repo)
+    assert r.code in (0, 1), r.err
+    assert r.of("VOC-3") == []

@@ -124,6 +124,35 @@ def with_staged(args, check) -> int:
         shutil.rmtree(tmp, ignore_errors=True)
 
 
+def with_staged_deletions(args, check) -> int:
+    """Run ``check(args)`` over the paths given (as a hook framework gives the staged files it
+    kept) and every config that builds on a file the staged changes delete or rename: the framework
+    passes no deleted file, so a commit that only deletes a base would otherwise check nothing.
+    Given no paths, only those configs are checked (not the whole repository)."""
+    from ..common.settings import load
+
+    if args.staged or args.since or args.fix:
+        raise SettingsError("--with-staged-deletions checks the paths given and the configs built on the files "
+                            "the staged changes delete: give no --staged, --since or --fix")
+    settings = load(Path(args.settings) if args.settings else None)
+    root = settings.root.resolve()
+    try:
+        top = Path(_git(["rev-parse", "--show-toplevel"], root).decode().strip())
+        gone = staged_gone(top)
+    except GitError as exc:
+        raise SettingsError(f"--with-staged-deletions needs a git repository: {exc}") from None
+    shown = []
+    for rel in gone:
+        try:
+            shown.append(Path(os.path.normpath(top / rel)).relative_to(root).as_posix())
+        except ValueError:
+            continue  # outside the settings folder: no config of it can name the file
+    args.staged_changed = shown
+    if not args.paths:
+        args.staged_files = []  # nothing given: the configs built on the deleted files only
+    return check(args)
+
+
 def _copy_accepted(settings, root: Path, mirror: Path) -> None:
     """Copy the working tree's accepted-findings file into the mirror when the index has none.
     Both ends are confined (the setting is written by the repository): a path that leaves the

@@ -652,10 +652,11 @@ def draft(runs: list[RunModel], path: str) -> Draft:
                 continue
             all_keys.setdefault(key, node)
             seen_in.setdefault(key, []).append(node.text.strip() if isinstance(node, Scalar) else f"<{node.kind}>")
+            reader = m.reader(node)[0]  # the reader the file meets (JSON, YAML 1.1 or 1.2, ...)
             for concept in CONCEPTS:
                 if concept in d.placed:
                     continue
-                c = score(concept, p, node, m.version)
+                c = score(concept, p, node, reader)
                 if c is None:
                     continue
                 prev = candidates.get((c.concept, key))
@@ -737,12 +738,12 @@ def _questions(d: Draft, placed_values: dict[str, list[tuple[RunModel, Value]]])
         c = CONCEPTS[concept]
         counted = concept in COUNTED and v.unit is None and v.via == "alias"  # native: trimtab's own unit
         unknown = (c.values and isinstance(v.value, str) and v.value.strip().lower() not in c.values
-                   and not _late(v.node, m.version))
+                   and not _late(v.node, m.reader(v.node)[0]))
         if not counted and not unknown:
             continue
         how = "the alias table" if v.via == "alias" else "the native layout"
         cand = Candidate(concept, v.key, v.node, 0.0, [f"placed by {how} ('{v.key.rsplit('.', 1)[-1]}')"],
-                         placed=True, late=_late(v.node, m.version),
+                         placed=True, late=_late(v.node, m.reader(v.node)[0]),
                          value_text=v.node.text.strip())
         if unknown:
             cand.proposal = (str(v.value).strip(), value_fits(concept, str(v.value)))
@@ -767,7 +768,7 @@ def _value_at(m: RunModel, root: Node, concept: str, key: str) -> Value | None:
         node = next((v for name, _k, v, _via in node.entries() if name == part), None)
     if not isinstance(node, Scalar):
         return None
-    value = node.value(m.version)
+    value = m.read(node)
     return Value(concept, value, Location(m.path, node.line, node.col), node, "alias", key, raw=value)
 
 
@@ -796,7 +797,8 @@ def _unit_options(cand: Candidate, d: Draft, runs: list[RunModel]) -> list[UnitO
         if not isinstance(written, (int, float)) or isinstance(written, bool):
             found = {u: UnitOption(u, "unknown", f"value {SET_ELSEWHERE}") for u in units}
         else:
-            verdict = judge(RunModel(doc=m.doc, index=m.index, values=values, version=m.version,
+            verdict = judge(RunModel(doc=m.doc, index=m.index, values=values, version=m.version, readers=m.readers,
+                                     reader_named=m.reader_named,
                                      settings=m.settings))
             found = _by_unit(cand.concept, units, verdict)
         if words and len(units) == 1:

@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import errno
 import os
-import tempfile
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -52,6 +51,8 @@ def atomic_open(path, binary: bool = False):
         umask = os.umask(0)
         os.umask(umask)
         mode = 0o666 & ~umask
+    import tempfile  # here, not at the top: a check that writes no file never imports it (start-up)
+
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".trimtab-tmp", dir=path.parent)
     try:
         with (os.fdopen(fd, "wb") if binary else os.fdopen(fd, "w", encoding="utf-8")) as fh:
@@ -131,6 +132,8 @@ def write_cache(path: Path | None, version: int, stamp: str, rows: dict) -> None
         if path.parent.is_symlink():  # made a link since it was chosen: never written through
             return
         path.parent.mkdir(parents=True, exist_ok=True)
+        import tempfile
+
         fd, tmp = tempfile.mkstemp(prefix=".cache-", suffix=".tmp", dir=path.parent)
         try:
             with os.fdopen(fd, "w", encoding="utf-8") as fh:

@@ -88,6 +88,23 @@ def shape_of(text: str) -> str:
     return next((name for name, pat in _patterns()[3] if pat.search(text)), "")
 
 
+# Keys whose words mean a name, a label or a text for people (run and experiment names, projects,
+# groups, tags, descriptions): their values are chosen to tell runs apart, so a random-looking one is
+# no sign of a credential. A well-known credential shape under such a key still is one.
+_LABEL_WORDS = {"name", "names", "title", "tag", "tags", "label", "labels", "description", "desc", "notes",
+                "note", "comment", "comments", "project", "experiment", "group", "run", "job", "alias"}
+_LABEL_IDS = {"run_id", "experiment_id", "exp_id", "job_id", "group_id", "project_id", "trial_id", "sweep_id"}
+
+
+@functools.lru_cache(maxsize=4096)
+def is_label_key(key: str) -> bool:
+    """Does a key mean a name, label or description (``run_name``, ``experiment``, ``tags``)?"""
+    k = key.strip().lower().replace("-", "_").replace(" ", "_").replace(".", "_")
+    if not k or is_credential_key(key):
+        return False
+    return k in _LABEL_IDS or k.split("_")[-1] in _LABEL_WORDS
+
+
 @functools.lru_cache(maxsize=4096)
 def is_credential_key(key: str) -> bool:
     k = key.strip().lower().replace("-", "_").replace(" ", "_")
@@ -151,7 +168,8 @@ def reason(key: str, node, min_length: int = MIN_LENGTH, min_bits: float = MIN_B
     shape = shape_of(text)
     if shape:
         return f"the value of {key!r} has the shape of {shape}" if key else f"a value has the shape of {shape}"
-    if high_entropy(text.strip(), min_length, min_bits):
+    if high_entropy(text.strip(), min_length, min_bits) and not is_label_key(key):
+        # weighed with the key's meaning: a random-looking name or tag is a name (see is_label_key)
         return f"the value of {key!r} looks like a credential (high entropy)"
     return ""
 

@@ -165,17 +165,78 @@ def _kind(value) -> str:
 
 
 _VALIDATOR = None
+_SCHEMA = None
+
+
+def _schema() -> dict:
+    global _SCHEMA
+    if _SCHEMA is None:  # read once per process
+        import json
+
+        _SCHEMA = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))
+    return _SCHEMA
+
+
+# The keywords surely_valid understands (annotations and the ones it checks); any other makes it unsure.
+_ANNOTATIONS = frozenset({"$schema", "$id", "title", "description", "$comment", "default", "examples"})
+_CHECKED = frozenset({"type", "enum", "properties", "additionalProperties", "items", "anyOf", "minLength",
+                      "minimum", "maximum", "required"})
+_TYPES = {"string": (str,), "array": (list,), "object": (dict,), "boolean": (bool,), "integer": (int,),
+          "number": (int, float)}
+
+
+def surely_valid(schema, value) -> bool:
+    """True only when ``value`` certainly satisfies ``schema`` (the subset of JSON Schema draft 7 the
+    settings schema is written in); False when it does not, or when this check cannot be sure (a
+    keyword it does not know, a float where an integer is asked, a value of another kind). The fast
+    path of ``validate``: start-up does not import jsonschema for settings that are plainly valid;
+    whenever this says False, jsonschema decides and words the message."""
+    if schema is True:
+        return True
+    if not isinstance(schema, dict) or not set(schema) <= _ANNOTATIONS | _CHECKED:
+        return False
+    t = schema.get("type")
+    if t is not None:
+        names = [t] if isinstance(t, str) else t
+        if not isinstance(names, list) or not any(
+                n in _TYPES and isinstance(value, _TYPES[n]) and not isinstance(value, bool) or
+                n == "boolean" and isinstance(value, bool) for n in names):
+            return False
+    if "enum" in schema and not any(type(value) is type(e) and value == e for e in schema["enum"]):
+        return False
+    if "minLength" in schema and not (isinstance(value, str) and len(value) >= schema["minLength"]):
+        return False
+    for bound, ok in (("minimum", lambda v, b: v >= b), ("maximum", lambda v, b: v <= b)):
+        if bound in schema:
+            if not (isinstance(value, (int, float)) and not isinstance(value, bool) and ok(value, schema[bound])):
+                return False
+    if "items" in schema and not (isinstance(value, list) and all(surely_valid(schema["items"], v) for v in value)):
+        return False
+    if "required" in schema and not (isinstance(value, dict) and all(k in value for k in schema["required"])):
+        return False
+    if "properties" in schema or "additionalProperties" in schema:
+        if not isinstance(value, dict):
+            return False
+        props = schema.get("properties", {})
+        extra = schema.get("additionalProperties", True)
+        for k, v in value.items():
+            sub = props.get(k, extra)
+            if sub is False or not surely_valid(sub, v):
+                return False
+    if "anyOf" in schema and not any(surely_valid(sub, value) for sub in schema["anyOf"]):
+        return False
+    return True
 
 
 def validate(table: dict, path: Path, prefix: str) -> None:
-    import json
-
+    if surely_valid(_schema(), table):  # perf: no jsonschema at start-up for plainly valid settings
+        _check_concepts(table, path, prefix)
+        return
     import jsonschema
 
     global _VALIDATOR
     if _VALIDATOR is None:  # built once per process
-        schema = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))
-        _VALIDATOR = jsonschema.Draft7Validator(schema)
+        _VALIDATOR = jsonschema.Draft7Validator(_schema())
     validator = _VALIDATOR
     errors = sorted(validator.iter_errors(table), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))
     if not errors:

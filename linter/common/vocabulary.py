@@ -20,6 +20,7 @@ class Concept:
     per: str = ""  # "prompt" or "completion" for batch quantities
     scope: str = ""  # "global" or "gpu" for batch quantities
     values: tuple = ()  # allowed values of an enumeration, lower case
+    share: bool = False  # an interval in steps where a value below 1 is a share of the run's total steps
 
 
 _C = Concept
@@ -100,7 +101,8 @@ CONCEPTS: dict[str, Concept] = {c.name: c for c in (
     _C("model.source", "str", "", "policy weights"),
     _C("model.revision", "str", "", "pinned revision of the policy weights"),
     _C("model.trust_remote_code", "bool", "", "run code shipped with the weights"),
-    _C("checkpoint.every", "int", "steps", "checkpoint interval (0 or false: off)"),
+    _C("checkpoint.every", "int", "steps", "checkpoint interval (0 or false: off; below 1: a share of the run)",
+       share=True),
     _C("checkpoint.dir", "str", "", "checkpoint directory"),
     _C("output.dir", "str", "", "output directory"),
 )}
@@ -205,6 +207,14 @@ def fits(value, expected: str) -> bool:
     if expected == "str":
         return isinstance(value, str)
     return value is None or isinstance(value, (str, int, float, bool, list, dict))
+
+
+def share_of_run(concept: str, value) -> bool:
+    """Is ``value`` a share of the run's total steps: an interval concept (``share``) written as a
+    number strictly between 0 and 1? A documented convention of the trade (common practice): an
+    interval below 1 counts as that share of the total training steps."""
+    c = CONCEPTS.get(concept)
+    return (c is not None and c.share and isinstance(value, float) and 0 < value < 1)
 
 
 def declare(concept: Concept) -> Concept:

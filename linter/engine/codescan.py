@@ -259,13 +259,24 @@ class Scanner:
         return "missing", None, "", tried
 
     def locate(self, ref: Reference) -> Located:
+        """Where a reference leads, cached for the process: a found module while its file is
+        unchanged, a missing one (misses cost as much to look for as hits) while every folder it
+        was looked for in is unchanged (a file added there changes the folder)."""
         hit = self._located.get(ref)
-        if hit is not None and hit[1].real is not None and _signature(hit[1].real) == hit[0]:
+        if hit is not None and hit[0] == self._sign(hit[1], ref):
             return hit[1]
         found = self._locate(ref)
-        if found.real is not None:  # found files are cached; a missing one is looked for again
-            self._located[ref] = (_signature(found.real), found)
+        if found.real is not None or found.status in ("no-module", "bad-root"):
+            self._located[ref] = (self._sign(found, ref), found)
         return found
+
+    def _sign(self, found: Located, ref: Reference) -> tuple:
+        if found.real is not None:
+            return _signature(found.real)
+        # a miss: the folders of every candidate looked at (both readings of a dotted name)
+        refs = [ref, Reference(ref.text, module=ref.text, dotted=True)] if ref.dotted else [ref]
+        folders = {p.parent for r in refs for p, _shown in self._candidates(r)}
+        return ("missing",) + tuple(_folder_signature(f) for f in sorted(folders))
 
     def _locate(self, ref: Reference) -> Located:
         if not self.roots:
@@ -462,6 +473,15 @@ def _signature(real: Path) -> tuple:
     except OSError:
         return ()
     return (st.st_size, st.st_mtime_ns, st.st_ino)
+
+
+def _folder_signature(folder: Path) -> tuple:
+    """A folder's identity and modification time (a name added or removed in it changes it)."""
+    try:
+        st = os.stat(folder)
+    except OSError:
+        return ()
+    return (st.st_ino, st.st_mtime_ns, st.st_mode)
 
 
 def _has_link(lexical: Path, root: Path) -> bool:

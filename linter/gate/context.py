@@ -15,8 +15,6 @@ other settings) is treated as absent.
 """
 from __future__ import annotations
 
-import hashlib
-import json
 import os
 import time
 from pathlib import Path
@@ -136,6 +134,9 @@ def row_entries(row: dict) -> list[tuple[int, dict[str, Value]]]:
 def _stamp(checker) -> str:
     """What the cached values depend on besides the files: trimtab's code, the settings that
     shape a run, the --set values and the concepts the rules over several runs need."""
+    import hashlib
+    import json
+
     from .. import __version__
 
     s = checker.settings
@@ -160,6 +161,8 @@ def other_entries(checker, checked, start: Path, files=None):
     through the same discovery and limits (``files``: that discovery's result, when it was made
     already), from the cache where each file (and every file its runs were composed from) is
     unchanged. A generator; the cache is written when it ends."""
+    import hashlib
+
     from .runner import SetEntry
 
     settings = checker.settings
@@ -169,6 +172,9 @@ def other_entries(checker, checked, start: Path, files=None):
 
         files, _missing = discover([], root, settings.include, settings.exclude)
     limit = settings.limits.max_bytes
+    others = [(disk, shown) for disk, shown in files if shown not in checked]
+    if not others:
+        return  # every run of the repository was checked itself: no cache to read (perf: start-up)
     stamp = _stamp(checker)
     # one cache per settings folder (the stamp inside it says what it was built for: a mismatch rebuilds it)
     where = cache_file(start, hashlib.sha256(str(start).encode("utf-8", "surrogateescape")).hexdigest()[:24])
@@ -180,9 +186,7 @@ def other_entries(checker, checked, start: Path, files=None):
             hashes[shown] = cache.content(shown, root / shown, limit)
         return hashes[shown]
 
-    for disk, shown in files:
-        if shown in checked:
-            continue
+    for disk, shown in others:
         own = hashes[shown] = cache.content(shown, disk, limit)
         runs = None
         row = cache.get(shown, own, hash_of) if own else None

@@ -3,7 +3,6 @@ from __future__ import annotations
 
 import os
 import re
-import subprocess
 from functools import lru_cache
 from pathlib import Path
 
@@ -188,6 +187,8 @@ def changed_since(ref: str, root: Path) -> list[str]:
     Raises ValueError with git's own message when the ref cannot be used. Names are read
     NUL-separated (any byte of a file name survives: no quoting), and the ref can never reach
     git as an option."""
+    import subprocess  # here, not at the top: a check without --since never runs git for it (start-up)
+
     def git(*args):
         return subprocess.run(["git", *args], cwd=root, capture_output=True)
 

@@ -1,7 +1,6 @@
 """Report: findings -> human text or JSON (the JSON schema ships as report.schema.json)."""
 from __future__ import annotations
 
-import json
 from typing import Iterable, TextIO
 
 from .. import __version__
@@ -86,6 +85,8 @@ def dump_streamed(doc: dict, slot: tuple, items: Iterable[dict], out: TextIO) ->
     """Write ``doc`` as ``json.dump(doc, out, indent=2, ensure_ascii=False)`` would, with the list
     at ``slot`` (keys and list indexes, e.g. ``("runs", 0, "results")``) taken from ``items`` one
     at a time (perf: thousands of findings are never held at once, as objects or as dicts)."""
+    import json  # here, not at the top: a text report never imports it (start-up)
+
     holder = doc
     for key in slot[:-1]:
         holder = holder[key]

@@ -13,7 +13,7 @@ from .model import Component, RunModel, Unused, Value
 from ..common.settings import KeySpec
 from ..common.vocabulary import (ALIASES, CONCEPTS, ELSEWHERE, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX,
                                  SECTION_WORDS, SWITCHES, Concept, evaluation_section, fits, normalise_key, section_word,
-                                 switched_off, word_concept)
+                                 share_of_run, switched_off, word_concept)
 
 
 @dataclass
@@ -90,7 +90,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             if alias.concept == "reward.sources" and isinstance(node, Scalar):
                 continue
             shape = "" if alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
-                _shape(alias.concept, node, leaf, model.version)
+                _shape(alias.concept, node, leaf, model.version, synonyms=opts.keys.get(alias.concept))
             if shape == "section":
                 continue  # a section named like the concept holds keys, not its value
             if alias.concept in mapped:
@@ -290,7 +290,8 @@ def _at(root: Node, key: str) -> Node | None:
 _EXPECTED = {"int": "a whole number", "number": "a number", "bool": "true or false", "str": "a word or text"}
 
 
-def _shape(concept: str, node: Node, leaf: str, version: str, named: bool = False) -> str:
+def _shape(concept: str, node: Node, leaf: str, version: str, named: bool = False,
+           synonyms: KeySpec | None = None) -> str:
     """How a value's shape fits its concept: "" when it fits (or is a list trimtab understands, see
     ``_combined``); "section" for a mapping that holds keys rather than the concept's value (found
     by an alias word that is also a section word, or standing for a word or a switch); otherwise
@@ -310,7 +311,7 @@ def _shape(concept: str, node: Node, leaf: str, version: str, named: bool = Fals
         if not named and (c.type in ("str", "bool") or leaf in SECTION_WORDS):
             return "section"
         return f"a mapping where {expected} is expected"
-    if _combined(c, node, version) is not None or _counted(c, leaf, node) is not None:
+    if _combined(c, node, version, synonyms) is not None or _counted(c, leaf, node) is not None:
         return ""
     return f"a list where {expected} is expected"
 
@@ -329,15 +330,17 @@ def _counted(c: Concept, leaf: str, node: Node) -> int | None:
     return len(node.items)
 
 
-def _combined(c: Concept, node: Node, version: str) -> str | None:
+def _combined(c: Concept, node: Node, version: str, synonyms: KeySpec | None = None) -> str | None:
     """A list of an enumeration's values read as one value: all of the parts that the enumeration
     names together as "both" (``placement: [loss, reward]`` is both) or one of them alone
-    (``[loss]``); None for any other list."""
+    (``[loss]``); None for any other list. Each item may be a value synonym of the key map."""
     if "both" not in c.values or not isinstance(node, Sequence) or not node.items:
         return None
     words = set()
     for item in node.items:
         value = item.value(version) if isinstance(item, Scalar) else None
+        meant = synonyms.meaning(value) if synonyms is not None else None
+        value = meant if meant is not None else value
         if not isinstance(value, str):
             return None
         words.add(value.strip().lower())
@@ -439,7 +442,7 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
                 return
             model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
             return
-        combined = _combined(c, node, model.version)
+        combined = _combined(c, node, model.version, synonyms)
         if combined is not None:  # a list that names one value of an enumeration (placement: [loss, reward])
             shown = _compact(node, model.version)
             model.values[concept] = Value(concept, combined, loc, node, via, key, chain,
@@ -452,7 +455,7 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
             model.values[concept] = Value(concept, count, loc, node, via, key, chain,
                                           note=f"the list {shown} counted: {count}", raw=count)
             return
-        why = _shape(concept, node, leaf, model.version, named=via == "keymap")
+        why = _shape(concept, node, leaf, model.version, named=via == "keymap", synonyms=synonyms)
         if why and why != "section" and c.type != "list":
             model.unused.append(Unused(concept, key, loc, why, "shape", _compact(node, model.version), node))
         return
@@ -474,7 +477,9 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
         v.unit = Unit(spec.per or c.per, spec.scope or c.scope)  # the key map states the unit
     model.values[concept] = v
     expected = CONCEPTS[concept].type
-    if v.value is not None and not _fits(v.value, expected):
+    if share_of_run(concept, v.value):
+        v.note = f"a share of the run: {v.value:g} of the total steps"
+    elif v.value is not None and not _fits(v.value, expected):
         model.mistyped.append((v, expected))
 
 
