@@ -121,7 +121,8 @@ def compatible_number(text: str) -> str | None:
       "YAML 1.1 with a float fix (`1e-6` is a float, dates stay text). The settings name the reader a file "
       "meets (yaml_version, and readers by glob): the rule then reports only a value that reader misreads "
       "(text where the concept takes a number or a switch, or a number other than YAML 1.2 reads). When "
-      "they name none, it reports a value any of the three readers misreads. JSON files are read under "
+      "they name none, a value any of the three readers misreads is a note: the reader is not known, so the "
+      "misreading is a possibility, and naming the reader settles it. JSON files are read under "
       "JSON's own grammar (RFC 8259) and never reported. Write the value so that every reader agrees.",
       rl_only=False)
 def version_disagreement(ctx):
@@ -140,7 +141,9 @@ def version_disagreement(ctx):
             said = (f"{READER_NAMES[reader]} reads {_kind(mine)}, {READER_NAMES[other]} reads "
                     f"{_kind(node.value(other))}; {READER_NAMES[reader]} is the reader the settings name for this file")
         else:
-            said = f"YAML 1.1 reads {_kind(a)}, YAML 1.2 reads {_kind(b)}"
+            # which reader meets the file is not stated: the misreading is a possibility, not a fact
+            said = (f"YAML 1.1 reads {_kind(a)}, YAML 1.2 reads {_kind(b)}; the settings name no reader for this "
+                    "file (yaml_version, or readers by glob): name it to know whether this is misread")
         suggestion, fix = "", None
         better = compatible_number(node.text)
         if better:
@@ -158,7 +161,7 @@ def version_disagreement(ctx):
         elif isinstance(a, int) and isinstance(b, int):
             suggestion = f"write {b} (decimal), or 0o{b:o} for octal under YAML 1.2"
         yield ctx.finding(f"{name} = {node.text}: {said}", v.location, subject=node.text,
-                          suggestion=suggestion, fix=fix)
+                          suggestion=suggestion, fix=fix, level=None if stated else "note")
 
 
 def _expects_text(concept: str) -> bool:

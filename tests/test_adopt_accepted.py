@@ -68,6 +68,7 @@ def stale_fp(root: Path, rule_id: str) -> str:
 
 def test_round_trip(tmp_path):
     root = repo(tmp_path)
+    (root / "trimtab.toml").write_text('yaml_version = "1.1"\n', encoding="utf-8")  # YML-3 warns
     before = check_json(cwd=root)
     assert found(before) == [("VOC-2", 4, 9), ("YML-2", 8, 3), ("YML-3", 10, 7)]
     assert before.code == 1
@@ -142,6 +143,7 @@ def test_settings_entry_and_partial_runs(tmp_path):
 
 def test_a_new_finding_in_an_accepted_file_still_fails(tmp_path):
     root = repo(tmp_path)
+    (root / "trimtab.toml").write_text('yaml_version = "1.1"\n', encoding="utf-8")  # YML-3 warns
     check_json(args=["--write-accepted", "accepted.json"], cwd=root)
     (root / "configs" / "wren-7b.yaml").write_text(LEGACY + "kl:\n  coef: 1e-3\n", encoding="utf-8")
     r = check_json(args=["--accepted", "accepted.json"], cwd=root)

@@ -147,7 +147,8 @@ def test_settings_in_a_sub_folder_are_found_by_the_hook(tmp_path, monkeypatch):
 
 def test_staged_bases_are_read_from_the_index_and_shown_by_their_own_names(repo):
     repo, env = repo
-    (repo / "pyproject.toml").write_text('[tool.trimtab]\nbases_key = "inherit"\ninclude = ["configs/*.yaml"]\n',
+    (repo / "pyproject.toml").write_text('[tool.trimtab]\nbases_key = "inherit"\ninclude = ["configs/*.yaml"]\n'
+                                         'yaml_version = "1.1"\n',
                                          encoding="utf-8")
     (repo / "bases").mkdir()
     base = repo / "bases" / "optim.yaml"

@@ -606,7 +606,7 @@ class _Builder:
 class _Frame:
     """A collection being built from events: its node, key path and depth, and for a mapping the
     key waiting for its value and the first node of each key name (duplicates)."""
-    __slots__ = ("node", "path", "depth", "is_map", "flow", "key", "first")
+    __slots__ = ("node", "path", "depth", "is_map", "flow", "key", "name", "first")
 
     def __init__(self, node, path: tuple, depth: int, is_map: bool, flow: bool):
         self.node = node
@@ -615,6 +615,7 @@ class _Frame:
         self.is_map = is_map
         self.flow = flow
         self.key: Node | None = None
+        self.name = ""  # the waiting key's text
         self.first: dict[str, Node] = {}
 
 
@@ -684,7 +685,7 @@ class _EventBuilder(_Builder):
                         if parent.key is None:
                             path, role = parent.path, "key" if parent.flow else ""
                         else:
-                            path = parent.path + (key_text(parent.key),)
+                            path = parent.path + (parent.name,)
                             role = "value" if parent.flow else ""
                     else:
                         path, role = parent.path + (str(len(parent.node.items)),), ""
@@ -759,11 +760,12 @@ class _EventBuilder(_Builder):
         k = parent.key
         if k is None:
             parent.key = node
+            parent.name = key_text(node)
             return
         parent.key = None
         mapping = parent.node
         mapping.pairs.append((k, node))
-        name = key_text(k)
+        name = parent.name
         if name == "<<" and isinstance(k, Scalar) and k.style is None:
             self._merge(mapping, k, node)
             return
