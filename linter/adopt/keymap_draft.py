@@ -35,7 +35,7 @@ from typing import TextIO
 
 from ..common.findings import Location
 from ..common.redact import for_text, mask
-from ..common.vocabulary import ALIASES, CONCEPTS, evaluation_section, normalise_key
+from ..common.vocabulary import ALIASES, CONCEPTS, WORD_CONCEPTS, evaluation_section, normalise_key, word_concept
 from ..load.document import Mapping, Node, Scalar, Sequence
 from ..resolve.arithmetic import COUNTED, Unit, admissible, breaks, judge
 from ..resolve.model import RunModel, Value
@@ -528,6 +528,10 @@ def score(concept: str, path: tuple[str, ...], node: Node, version: str) -> Cand
     leaf = path[-1]
     leaf_words = _fold(_split(leaf))
     parents = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
+    if concept in WORD_CONCEPTS:  # a KL term's place and role are read from the key's words, or not at all
+        found = word_concept(normalise_key(leaf), parents[-1] if parents else "")
+        if found is None or found[0] != concept:
+            return None
     for word, unit in UNIT_WORDS.items():
         if (word in leaf_words) != (c.unit == unit):
             return None  # a count of tokens is a length, and a length is a count of tokens
