@@ -7,6 +7,7 @@ it is counted once, and that its strength is in the range published recipes use.
 from __future__ import annotations
 
 from trimtab import rule
+from trimtab.common.vocabulary import described_values
 
 from ._common import (KL_COEFS, KL_MECHANISMS, anchor, clipped, estimator, is_off, kl_mechanisms, kl_state, num, shown,
                       toml_key, unresolved)
@@ -158,7 +159,7 @@ def kl_estimator(ctx):
     if name in _ESTIMATORS:
         return
     squeezed = "".join(ch for ch in name if ch.isalnum())
-    described = _in_words(squeezed)
+    described = described_values("kl.estimator", name)  # the one table of descriptive words (vocabulary)
     if described:
         # a name that describes an estimator in words (Schulman 2020: k1 naive, k2 and k3 low variance,
         # k3 the unbiased low-variance one): the trainer's own vocabulary, which trimtab cannot settle
@@ -177,26 +178,6 @@ def kl_estimator(ctx):
                       "(arXiv:2402.03300)")
     yield ctx.finding(f"kl.estimator = {shown(v)} is not a KL estimator: expected k1, k2 or k3", v.location,
                       subject=name, suggestion=suggestion)
-
-
-# Words that describe an estimator rather than name it (letters and digits only, lower case), after
-# Schulman 2020 (from memory): k1 is the naive log-ratio estimator; k2 (half the squared log ratio) is
-# low-variance but biased; k3 ((r - 1) - log r) is unbiased and low-variance. "Low variance" alone fits
-# k2 and k3; "unbiased" with "low variance" fits k3 only.
-_WORDS = (
-    (("unbiasedlowvar", "lowvarunbiased"), ("k3",)),
-    (("lowvar",), ("k3", "k2")),
-    (("squared", "mse", "halfsq", "sqlog"), ("k2",)),
-    (("naive", "logratio"), ("k1",)),
-)
-
-
-def _in_words(squeezed: str) -> tuple[str, ...]:
-    """The estimators a name describes in words (most likely first), or ()."""
-    for stems, which in _WORDS:
-        if any(stem in squeezed for stem in stems):
-            return which
-    return ()
 
 
 @rule(id="KL-5", name="kl-coef-range", level="warning", summary="The KL coefficient is outside the usual range.",

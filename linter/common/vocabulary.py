@@ -456,3 +456,39 @@ def evaluation_section(sections) -> str | None:
         if any(w in EVAL_WEAK_WORDS for w in words) and not any(w in CODE_TEST_WORDS for w in words):
             return name
     return None
+
+
+# Words that describe a value of an enumerated concept instead of naming it (generic words of the
+# trade): (the value it means, the word sets that describe it). A value whose words hold one set
+# describes that value; the longest set said decides, and a value two values' sets describe alike
+# fits both (most likely first), and the draft says so.
+# KL estimators after Schulman 2020, "Approximating KL Divergence" (from memory): k1 is the naive
+# log-ratio estimator (unbiased, high variance); k2, half the squared log ratio, has low variance
+# but a bias; k3, (r - 1) - log r, is unbiased with low variance.
+VALUE_WORDS: dict[str, tuple[tuple[str, tuple[str, ...]], ...]] = {
+    "kl.estimator": (("k3", ("low var", "low variance", "lowvar", "unbiased low var", "unbiased low variance")),
+                     ("k2", ("squared", "mse", "sq", "low var", "low variance", "lowvar")),
+                     ("k1", ("naive", "log ratio", "logratio", "plain"))),
+    "kl.placement": (("reward", ("reward", "rewards", "in reward")), ("loss", ("loss", "in loss", "objective")),
+                     ("both", ("reward loss", "loss reward")), ("none", ("off", "disabled"))),
+    "sandbox.kind": (("process", ("subprocess", "local process", "process")),
+                     ("container", ("container", "containerised", "containerized")),
+                     ("vm", ("virtual machine", "microvm", "vm")), ("remote", ("remote", "service", "http", "api")),
+                     ("none", ("off", "disabled", "unsandboxed"))),
+    "run.estimator": (("grpo", ("group relative", "group norm", "group normalised", "group normalized")),
+                      ("rloo", ("leave one out", "loo")), ("reinforce", ("policy gradient", "vanilla pg")),
+                      ("ppo", ("clipped surrogate",))),
+    "run.stage": (("rl", ("reinforcement",)), ("sft", ("supervised",)), ("distill", ("distillation",))),
+}
+
+
+def described_values(concept: str, written: str) -> tuple[str, ...]:
+    """The values of an enumerated concept that a value unknown to trimtab describes in words."""
+    words = set(re.split(r"[^a-z0-9]+", re.sub(r"([a-z0-9])([A-Z])", r"\1_\2", written).lower())) - {""}
+    found: dict[str, int] = {}
+    for meant, phrases in VALUE_WORDS.get(concept, ()):
+        said = [len(p.split()) for p in phrases if set(p.split()) <= words]
+        if said:
+            found[meant] = max(said)
+    most = max(found.values(), default=0)
+    return tuple(m for m, n in found.items() if n == most)  # the most specific description wins
