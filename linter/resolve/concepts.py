@@ -90,7 +90,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             if alias.concept == "reward.sources" and isinstance(node, Scalar):
                 continue
             shape = "" if alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
-                _shape(alias.concept, node, leaf, model.version, synonyms=opts.keys.get(alias.concept))
+                _shape(alias.concept, node, leaf, model.reader(node)[0], synonyms=opts.keys.get(alias.concept))
             if shape == "section":
                 continue  # a section named like the concept holds keys, not its value
             if alias.concept in mapped:
@@ -116,7 +116,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             candidates.setdefault(alias.concept, []).append((strength, path, node))
             matched = True
         if not matched and kl_words and in_eval is None:
-            _by_words(leaf, path, node, parents, candidates, mapped, model.version)
+            _by_words(leaf, path, node, parents, candidates, mapped, model.reader(node)[0])
     native = {".".join(p): (p, n) for p, n, _c in leaves}
     for concept in CONCEPTS:
         if concept in mapped or concept in model.values:
@@ -388,7 +388,7 @@ def _misshapen(model: RunModel, concept: str, wrong: list[tuple[int, tuple, Node
         if key in reported:
             continue  # the concept's own dotted path: reported when it was read
         loc = model.doc.loc(node)
-        shown = _compact(node, model.version)
+        shown = _compact(node, model.reader(node)[0])
         if used is not None:
             model.unused.append(Unused(concept, key, loc, f"{why}; {concept} is read from {used.key}", "lost", shown,
                                        node))
@@ -442,22 +442,22 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
                 return
             model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
             return
-        combined = _combined(c, node, model.version, synonyms)
+        combined = _combined(c, node, model.reader(node)[0], synonyms)
         if combined is not None:  # a list that names one value of an enumeration (placement: [loss, reward])
-            shown = _compact(node, model.version)
+            shown = _compact(node, model.reader(node)[0])
             model.values[concept] = Value(concept, combined, loc, node, via, key, chain,
                                           note=f"the list {shown} read as {combined}", raw=shown)
             return
         leaf = normalise_key(key.rsplit(".", 1)[-1])
         count = _counted(c, leaf, node)
         if count is not None:  # the list of the things themselves (gpus: [0, 1, 2, 3])
-            shown = _compact(node, model.version)
+            shown = _compact(node, model.reader(node)[0])
             model.values[concept] = Value(concept, count, loc, node, via, key, chain,
                                           note=f"the list {shown} counted: {count}", raw=count)
             return
-        why = _shape(concept, node, leaf, model.version, named=via == "keymap", synonyms=synonyms)
+        why = _shape(concept, node, leaf, model.reader(node)[0], named=via == "keymap", synonyms=synonyms)
         if why and why != "section" and c.type != "list":
-            model.unused.append(Unused(concept, key, loc, why, "shape", _compact(node, model.version), node))
+            model.unused.append(Unused(concept, key, loc, why, "shape", _compact(node, model.reader(node)[0]), node))
         return
     if isinstance(node, Unknown):  # known only at launch: out of the run, never reasoned about
         model.unknown[concept] = Value(concept, None, loc, node, via, key, chain, note=node.why)
