@@ -12,6 +12,7 @@ from trimtab import Location, Scalar, rule
 from trimtab.common import budget
 
 from ._safety import kind_of, label, locate, safe_url, scanner
+from trimtab.common.patterns import later
 
 SOURCES = ("reward.sources",)
 
@@ -97,8 +98,8 @@ def reference_unverifiable(ctx):
 
 
 # --- REW-2 -----------------------------------------------------------------------------------------
-_COMMIT = re.compile(r"^[0-9a-f]{40}$|^[0-9a-f]{64}$")
-_HUB_ID = re.compile(r"^[A-Za-z0-9][\w.-]*/[\w.-]+$|^[A-Za-z0-9][\w.-]*$")
+_COMMIT = later(r"^[0-9a-f]{40}$|^[0-9a-f]{64}$")
+_HUB_ID = later(r"^[A-Za-z0-9][\w.-]*/[\w.-]+$|^[A-Za-z0-9][\w.-]*$")
 
 
 def _is_local(ref: str) -> bool:

@@ -374,3 +374,20 @@ def test_readme_settings_example_is_valid(tmp_path):
 
     s = settings.load(start=tmp_path)
     assert s.gate == "warning" and s.bases_key == "inherit" and s.limits.max_depth == 200
+
+
+def test_pattern_compiled_on_first_use_reads_as_re_does():
+    """common.patterns.later: nothing compiled at import; once used, the standard library's ``re``
+    answers (the reference: re.compile of the same pattern and flags)."""
+    import re
+
+    from trimtab.common.patterns import later
+
+    text = "Batch_Size: 8\nlr: 3e-4\n"
+    for pattern, flags in ((r"^([a-z_]+):", re.I | re.M), (rb"\d+", 0)):
+        lazy, ref = later(pattern, flags), re.compile(pattern, flags)
+        assert "match" not in vars(lazy)  # not compiled yet
+        subject = text if isinstance(pattern, str) else text.encode()
+        assert lazy.findall(subject) == ref.findall(subject)
+        assert [m.span() for m in lazy.finditer(subject)] == [m.span() for m in ref.finditer(subject)]
+        assert lazy.pattern == ref.pattern and lazy.flags == ref.flags and lazy.groups == ref.groups

@@ -24,6 +24,8 @@ import re
 from collections import Counter
 from typing import Any
 
+from .patterns import later
+
 MASK = "*" * 8
 MIN_LENGTH = 24  # SEC-1's default min_length
 MIN_BITS = 4.0  # SEC-1's default min_entropy_bits
@@ -283,11 +285,11 @@ def _replace_known(s: str) -> str:
 
 
 # --- masking -----------------------------------------------------------------------------------------
-_URL = re.compile(r"\b[A-Za-z][A-Za-z0-9+.-]*://[^\s'\"<>`]+")
-_USERINFO = re.compile(r"(?<=://)[^/?#@\s]*@")
-_KEYED = re.compile(r"(?P<key>[A-Za-z_][\w.-]*)(?P<sep>['\"]?\s*[:=]\s*)"
+_URL = later(r"\b[A-Za-z][A-Za-z0-9+.-]*://[^\s'\"<>`]+")
+_USERINFO = later(r"(?<=://)[^/?#@\s]*@")
+_KEYED = later(r"(?P<key>[A-Za-z_][\w.-]*)(?P<sep>['\"]?\s*[:=]\s*)"
                     r"(?P<val>\"[^\"\n]*\"|'[^'\n]*'|\$\{[^}\n]*\}|[^\s,;}\]'\"]+)")
-_WORD = re.compile(r"[A-Za-z0-9_+=-]{%d,}" % MIN_LENGTH)
+_WORD = later(r"[A-Za-z0-9_+=-]{%d,}" % MIN_LENGTH)
 
 
 def _url(m: re.Match) -> str:
@@ -354,7 +356,7 @@ def mask_source(text: str, doc=None) -> str:
 # --- terminals -----------------------------------------------------------------------------------
 # C0 controls but tab, DEL, C1 controls (CSI is one), the line breaks YAML and str.splitlines count,
 # and the bidirectional and invisible formatting characters.
-CONTROL = re.compile("[\x00-\x08\x0a-\x1f\x7f-\x9f\u2028\u2029\u202a-\u202e\u2066-\u2069\u200e\u200f\ufeff]")
+CONTROL = later("[\x00-\x08\x0a-\x1f\x7f-\x9f\u2028\u2029\u202a-\u202e\u2066-\u2069\u200e\u200f\ufeff]")
 
 
 def _visible(ch: re.Match) -> str:

@@ -37,6 +37,7 @@ from ..load.document import Document, Mapping, Node, Scalar, Sequence
 from ..common.findings import Location
 from ..common.paths import confined, sha256_hex
 from ..load.discover import matches
+from ..common.patterns import later
 
 
 # problem kinds (the CMP rules read them)
@@ -53,11 +54,11 @@ OPTIONAL_MISSING = "compose-optional-missing"
 VALUE_UNKNOWN = "compose-value-unknown"  # a value known only at launch (a script, a resolver)
 
 
-_REF = re.compile(r"\$\$\{|\$\{([^{}$]*)\}")
-_WHOLE = re.compile(r"\$\{([^{}$]*)\}")
-_PATH = re.compile(r"[A-Za-z0-9_\-]+(?:\.[A-Za-z0-9_\-]+)*")
-_RESOLVER = re.compile(r"([A-Za-z_][\w.\-]*)\s*:(.*)", re.S)  # ${name:args}
-_ENV = re.compile(r"[A-Z_][A-Z0-9_]*")  # ${HOME}: an environment variable, not a key of the run
+_REF = later(r"\$\$\{|\$\{([^{}$]*)\}")
+_WHOLE = later(r"\$\{([^{}$]*)\}")
+_PATH = later(r"[A-Za-z0-9_\-]+(?:\.[A-Za-z0-9_\-]+)*")
+_RESOLVER = later(r"([A-Za-z_][\w.\-]*)\s*:(.*)", re.S)  # ${name:args}
+_ENV = later(r"[A-Z_][A-Z0-9_]*")  # ${HOME}: an environment variable, not a key of the run
 _MAX_DEPTH = 64
 # Bounds on what references may build in one run (a file of a few lines can otherwise ask for an
 # exponential amount: ``a: ${b}${b}``, ``b: ${c}${c}`` ... doubles the text at each level, and
@@ -135,7 +136,7 @@ def _under(root: Mapping, package: tuple) -> Mapping:
     return root
 
 
-_PACKAGE = re.compile(r"#\s*@package\s+([\w.]+)")
+_PACKAGE = later(r"#\s*@package\s+([\w.]+)")
 
 
 def _package_header(text: str) -> str:

@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..common.paths import confined
+from ..common.patterns import later
 
 MAX_BYTES = 2_000_000  # a reward module larger than this is not read
 # A reward function named without its module is looked for in every Python file of the search roots,
@@ -28,7 +29,7 @@ INDEX_ENTRIES = 100_000  # folders and files looked at (a tree of empty folders 
 INDEX_SECONDS = 2.0  # wall-clock time for the whole walk
 _INDEX_SKIP = frozenset({"__pycache__", "node_modules", "site-packages", "dist-packages"})
 # top-level definitions and assignments, found in the bytes before the syntax tree confirms them
-_TOP_DEF = re.compile(rb"^(?:async[ \t]+)?def[ \t]+([A-Za-z_]\w*)|^class[ \t]+([A-Za-z_]\w*)|^([A-Za-z_]\w*)[ \t]*[:=]",
+_TOP_DEF = later(rb"^(?:async[ \t]+)?def[ \t]+([A-Za-z_]\w*)|^class[ \t]+([A-Za-z_]\w*)|^([A-Za-z_]\w*)[ \t]*[:=]",
                       re.MULTILINE)
 
 # --- detectors -------------------------------------------------------------------------------
@@ -90,8 +91,8 @@ CHECKPOINT_HINTS = ("map_location", "weights_only")
 # --- references ------------------------------------------------------------------------------
 _IDENT = r"[A-Za-z_][A-Za-z0-9_]*"
 _MODULE_REF = re.compile(rf"^(?P<mod>{_IDENT}(?:\.{_IDENT})*):(?P<fn>{_IDENT}(?:\.{_IDENT})*)$")
-_DOTTED = re.compile(rf"^{_IDENT}(?:\.{_IDENT})+$")
-_FILE_REF = re.compile(r"^(?P<file>.+?\.py)(?:::?(?P<fn>" + _IDENT + r"(?:\." + _IDENT + r")*))?$")
+_DOTTED = later(rf"^{_IDENT}(?:\.{_IDENT})+$")
+_FILE_REF = later(r"^(?P<file>.+?\.py)(?:::?(?P<fn>" + _IDENT + r"(?:\." + _IDENT + r")*))?$")
 
 
 @dataclass(frozen=True)
@@ -124,7 +125,7 @@ def looks_like_code(text) -> bool:
     return parse_reference(text) is not None
 
 
-_NAME = re.compile(rf"^{_IDENT}$")
+_NAME = later(rf"^{_IDENT}$")
 
 
 def function_name(text) -> str:

@@ -17,6 +17,7 @@ from ..load.document import Document
 from ..common.findings import Finding, Level, Location
 from ..resolve.model import RunModel
 from ..common.vocabulary import CONCEPTS, Concept, declare
+from ..common.patterns import later
 
 hookspec = pluggy.HookspecMarker("trimtab")
 hookimpl = pluggy.HookimplMarker("trimtab")
@@ -103,7 +104,7 @@ def collect(where: str | ModuleType) -> list[Rule]:
 RULE_ID = re.compile(r"[A-Z]{2,6}-[1-9][0-9]{0,3}")
 RULE_NAME = re.compile(r"[a-z0-9]+(?:-[a-z0-9]+)*")
 SCOPES = ("run", "file", "set", "not-run")
-CONCEPT_NAME = re.compile(r"[a-z][a-z0-9_]*(?:\.[a-z][a-z0-9_]*)+")
+CONCEPT_NAME = later(r"[a-z][a-z0-9_]*(?:\.[a-z][a-z0-9_]*)+")
 CONCEPT_TYPES = ("int", "number", "bool", "str", "list", "any")
 _OPTION_TYPES = (bool, int, float, str)  # what a TOML setting can hold (and lists of them)
 

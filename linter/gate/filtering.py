@@ -9,7 +9,6 @@ and is reported; one that suppresses nothing is reported too.
 """
 from __future__ import annotations
 
-import re
 from collections.abc import Iterable, Iterator
 from collections.abc import Set as AbcSet
 from dataclasses import dataclass
@@ -17,9 +16,10 @@ from pathlib import Path
 
 from ..common.findings import Finding, Level, Location
 from ..common.redact import mask
+from ..common.patterns import later
 
-_ACCEPT = re.compile(r"(?:^|\s)#\s*trimtab:\s*accept\b(?P<body>.*)$")
-_IDS = re.compile(r"[A-Za-z]+-\d+(?:\s*,\s*[A-Za-z]+-\d+)*")  # matched whole, on the text before "--"
+_ACCEPT = later(r"(?:^|\s)#\s*trimtab:\s*accept\b(?P<body>.*)$")
+_IDS = later(r"[A-Za-z]+-\d+(?:\s*,\s*[A-Za-z]+-\d+)*")  # matched whole, on the text before "--"
 
 ACC_NO_REASON = "ACC-1"
 ACC_UNUSED = "ACC-2"
@@ -189,7 +189,7 @@ def read_accepted(path: Path) -> list[dict]:
     return rows
 
 
-_FINGERPRINT = re.compile(r'"fingerprint"\s*:\s*"([^"]*)"')
+_FINGERPRINT = later(r'"fingerprint"\s*:\s*"([^"]*)"')
 
 
 def apply_accepted(findings: Iterable[Finding], rows: list[dict], accepted_path: str,

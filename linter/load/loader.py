@@ -9,7 +9,6 @@ from __future__ import annotations
 import codecs
 import gc
 import os
-import re
 import stat
 import warnings
 from typing import Any
@@ -18,6 +17,7 @@ from ..common import scalars
 from .document import Document, Mapping, Node, Problem, Scalar, Sequence, key_text
 from ..common.findings import Location
 from ..common.limits import Limits
+from ..common.patterns import later
 
 
 _BOMS = (
@@ -27,8 +27,8 @@ _BOMS = (
     (codecs.BOM_UTF16_LE, "utf-16-le"),
     (codecs.BOM_UTF16_BE, "utf-16-be"),
 )
-_TAG_PREFIX = re.compile(r"(?:&\S+[ \t]+)?(!\S*)")
-_ANCHOR = re.compile(r"(?:![^\s,\[\]{}]*[ \t]+)?&([^\s,\[\]{}]+)")
+_TAG_PREFIX = later(r"(?:&\S+[ \t]+)?(!\S*)")
+_ANCHOR = later(r"(?:![^\s,\[\]{}]*[ \t]+)?&([^\s,\[\]{}]+)")
 
 
 class _Backend:
