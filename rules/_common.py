@@ -5,6 +5,8 @@ value means "off", where to point a finding about a value that is not written at
 """
 from __future__ import annotations
 
+import functools
+
 from trimtab import Location
 
 # Estimator families (values of run.estimator, lower case).
@@ -111,9 +113,8 @@ def misread(model, v) -> tuple[str, list[str], bool]:
     """(the reader of the file a concept's value was written in, the YAML readers that misread it
     (trimtab.common.scalars.misreaders), whether the settings name that reader). A quoted, tagged or
     structured value, and any value of a JSON file (JSON's own grammar), is misread by none."""
-    from trimtab import Scalar
-    from trimtab.common.scalars import misreaders
-    from trimtab.common.vocabulary import CONCEPTS, fits
+    from trimtab.common.vocabulary import CONCEPTS
+    from trimtab.load.document import Scalar  # perf: not through the package's lazy names
 
     node = v.node
     if not isinstance(node, Scalar) or not node.plain or node.tag:
@@ -122,7 +123,17 @@ def misread(model, v) -> tuple[str, list[str], bool]:
     if reader == "json":
         return reader, [], stated
     c = CONCEPTS.get(v.concept)
-    kind = c.type if c is not None else "any"
+    return reader, list(_plain_misreaders(node.text, reader if stated else None, c.type if c is not None else "any")), \
+        stated
+
+
+@functools.lru_cache(maxsize=4096)
+def _plain_misreaders(text: str, reader: str | None, kind: str) -> tuple[str, ...]:
+    """perf: the misreaders of a plain, untagged scalar depend on its text, the reader and the
+    concept's type only; runs repeat them from file to file, so each is worked out once (bounded)."""
+    from trimtab.common.scalars import misreaders, typed
+    from trimtab.common.vocabulary import fits
+
     if kind in ("int", "number", "bool", "str"):
         def fit(x):
             return fits(x, kind)
@@ -132,7 +143,7 @@ def misread(model, v) -> tuple[str, list[str], bool]:
         # are named 'off'); a date fits neither
         def fit(x):
             return not isinstance(x, str) and fits(x, kind)
-    return reader, misreaders(node.value, reader if stated else None, fit), stated
+    return tuple(misreaders(lambda version: typed(text, True, None, version), reader, fit))
 
 
 def toml_key(text: str) -> str:

@@ -158,7 +158,8 @@ def _refers(text: str, env) -> bool:
 
 
 def reason(key: str, node, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> str:
-    """Why the scalar ``node`` under ``key`` is a literal credential, or "" when it is not one."""
+    """Why the scalar ``node`` under ``key`` is a literal credential, or "" when it is not one. Reads
+    the node's text, tag and style only (``credentials`` keeps its answers by them)."""
     text = node.text
     if not isinstance(text, str) or not text.strip() or node.tag not in (None, "!", "tag:yaml.org,2002:str"):
         return ""
@@ -197,6 +198,14 @@ def _entries(root):
                     stack.append((key, item))
 
 
+# perf: ``reason`` reads a scalar's key, text, tag and style only (its YAML 1.2 value follows from
+# them), and runs repeat the same entries from file to file: its answers are kept, for short texts and
+# a bounded number of entries (emptied when full, so memory stays flat over any number of files).
+_REASONS: dict[tuple, str] = {}
+_MEMO_TEXT = 200
+_MEMO_SIZE = 16384
+
+
 def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> list[tuple[str, Any, str]]:
     """(key, scalar node, why) of every literal credential of a document, each node once. Kept on
     the document for the default thresholds (the loader's ``learn`` and SEC-1 share one walk)."""
@@ -210,7 +219,16 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
         for key, node in _entries(root):
             if getattr(node, "kind", "") != "scalar" or id(node) in seen:
                 continue
-            why = reason(key, node, min_length, min_bits)
+            text = node.text
+            memo_key = (key, text, node.tag, node.style, min_length, min_bits) \
+                if type(node).__name__ == "Scalar" and isinstance(text, str) and len(text) <= _MEMO_TEXT else None
+            why = _REASONS.get(memo_key) if memo_key is not None else None
+            if why is None:
+                why = reason(key, node, min_length, min_bits)
+                if memo_key is not None:
+                    if len(_REASONS) >= _MEMO_SIZE:
+                        _REASONS.clear()
+                    _REASONS[memo_key] = why
             if why:
                 seen.add(id(node))
                 out.append((key, node, why))
