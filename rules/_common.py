@@ -8,6 +8,7 @@ from __future__ import annotations
 import functools
 
 from trimtab import Location
+from trimtab.common.vocabulary import CRITIC_FREE as _NO_CRITIC
 
 # Estimator families (values of run.estimator, lower case).
 # Clipped policy-gradient objectives: PPO (Schulman et al. 2017, arXiv:1707.06347) and its GAE
@@ -17,8 +18,9 @@ from trimtab import Location
 CLIPPED = frozenset({"ppo", "gae", "grpo", "dr_grpo", "dapo", "reinforce++"})
 # Group-relative estimators: the baseline is computed from the other completions of the same prompt.
 GROUP_RELATIVE = frozenset({"grpo", "dr_grpo", "dapo", "rloo"})
-# Estimators that need no value model at all (group, leave-one-out, greedy or batch baselines).
-CRITIC_FREE = GROUP_RELATIVE | {"remax", "reinforce++"}
+# Estimators that need no value model at all (group, leave-one-out, greedy or batch baselines),
+# declared once in the vocabulary (their value-model settings are dead).
+CRITIC_FREE = _NO_CRITIC
 # Estimators whose advantages come from GAE over a learned value function.
 GAE_BASED = frozenset({"ppo", "gae"})
 
@@ -89,23 +91,52 @@ def anchor(model, *prefer: str, key_path: str = "") -> Location:
     return Location(model.path, 1, 1, 0, 0, "", key_path)
 
 
-def kl_state(model):
-    """('off', value that switches it off) | ('on', kl.coef Value) | ('unstated', None).
+# The KL mechanisms a run can switch on: (switch, coefficient, where). The generic pair says nothing
+# of where the term goes; the other two are a KL term added to the loss (arXiv:2402.03300) and a KL
+# penalty subtracted from the reward (arXiv:2203.02155, from memory), each with its own switch and
+# coefficient. KL is on when any of them is on.
+KL_MECHANISMS = (("kl.enabled", "kl.coef", ""), ("kl.loss_enabled", "kl.loss_coef", "in the loss"),
+                 ("kl.reward_enabled", "kl.reward_coef", "in the reward"))
+KL_COEFS = tuple(c for _s, c, _w in KL_MECHANISMS)
 
-    Off: kl.enabled false, kl.placement none, or kl.coef 0. On: a positive coefficient and
-    nothing that switches it off."""
-    enabled = model.get("kl.enabled")
-    if enabled is not None and enabled.value is False:
-        return "off", enabled
-    placement = model.get("kl.placement")
-    if placement is not None and isinstance(placement.value, str) and placement.value.strip().lower() == "none":
-        return "off", placement
-    coef = model.get("kl.coef")
-    if coef is not None and coef.number is not None:
-        if coef.number == 0:
-            return "off", coef
-        if coef.number > 0:
-            return "on", coef
+
+def kl_mechanisms(model):
+    """Each KL mechanism the file states: (state, Value, coefficient concept), state 'on' (a
+    positive coefficient, its switch not off), 'off' (switched off, or a coefficient of 0), or
+    'switched' (switched on, its coefficient left to the trainer). Dead values are not read."""
+    out = []
+    for switch, coef, _where in KL_MECHANISMS:
+        s, c = model.values.get(switch), model.values.get(coef)
+        if s is not None and s.value is False:
+            out.append(("off", s, coef))
+            continue
+        if switch == "kl.enabled":
+            placement = model.get("kl.placement")
+            if placement is not None and isinstance(placement.value, str) and placement.value.strip().lower() == "none":
+                out.append(("off", placement, coef))
+                continue
+        c = model.get(coef)
+        if c is not None and c.number is not None:
+            if c.number == 0:
+                out.append(("off", c, coef))
+            elif c.number > 0:
+                out.append(("on", c, coef))
+        elif s is not None and s.value is True and c is None and coef not in model.ambiguous:
+            out.append(("switched", s, coef))
+    return out
+
+
+def kl_state(model):
+    """('on', the coefficient of a mechanism that is on) | ('off', what switches KL off) |
+    ('switched', a switch that is on with its coefficient unstated) | ('unstated', None).
+
+    KL is off only when every mechanism the file states is off: a KL-in-reward coefficient of 0
+    beside a KL term in the loss that is switched on is not "KL off"."""
+    states = kl_mechanisms(model)
+    for want in ("on", "switched", "off"):
+        for state, v, _coef in states:
+            if state == want:
+                return state, v
     return "unstated", None
 
 

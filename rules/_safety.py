@@ -29,8 +29,10 @@ _KIND = {w: k for k, words in _KIND_WORDS.items() for w in words}
 
 
 def kind_of(comp) -> str:
-    """rule, code, model, judge, remote, or '' when it cannot be told."""
-    from trimtab.engine.codescan import looks_like_code
+    """rule, code, model, judge, remote, or '' when it cannot be told. A reference written as a
+    bare identifier (``accuracy``) is a reward function by name; a path- or repository-like one
+    (``team/model``, ``./weights``) is a model."""
+    from trimtab.engine.codescan import function_name, looks_like_code
 
     k = comp.get("kind")
     if isinstance(k, str) and k.strip().lower() in _KIND:
@@ -40,11 +42,24 @@ def kind_of(comp) -> str:
     if isinstance(comp.get("endpoint"), str):
         return "remote"
     ref = comp.get("ref")
-    if looks_like_code(ref):
+    if looks_like_code(ref) or function_name(ref):
         return "rule"
     if isinstance(ref, str) and ref.strip():
         return "model"
     return ""
+
+
+def locate(ctx, comp):
+    """Where a code reward's reference leads (a codescan ``Located``), or None when its reference
+    is not code: ``module:function`` and file references through the search roots, a bare
+    function name through every module of the search roots."""
+    from trimtab.engine.codescan import function_name, parse_reference
+
+    ref = parse_reference(comp.get("ref"))
+    if ref is not None:
+        return scanner(ctx).locate(ref)
+    name = function_name(comp.get("ref"))
+    return scanner(ctx).find_name(name) if name else None
 
 
 def declared_kind(comp) -> bool:
@@ -99,8 +114,6 @@ class CodeReward:
 def code_rewards(ctx) -> list[CodeReward]:
     """Components that execute generated code: declared so, or found so by static analysis.
     Computed once per run (every EXE rule asks)."""
-    from trimtab.engine.codescan import parse_reference
-
     memo = vars(ctx.model).get("_code_rewards")
     if memo is not None:
         return memo
@@ -108,11 +121,9 @@ def code_rewards(ctx) -> list[CodeReward]:
     for comp in ctx.model.components:
         kind = kind_of(comp)
         calls = []
-        ref = parse_reference(comp.get("ref"))
-        if ref is not None and kind in ("rule", "code"):
-            sc = scanner(ctx)
-            located = sc.locate(ref)
-            calls = [h for h in sc.scan(located).hits if h.category == "exec"]
+        located = locate(ctx, comp) if kind in ("rule", "code") else None
+        if located is not None:
+            calls = [h for h in scanner(ctx).scan(located).hits if h.category == "exec"]
         if kind == "code" or calls:
             out.append(CodeReward(comp, kind == "code", calls))
     vars(ctx.model)["_code_rewards"] = out

@@ -7,13 +7,19 @@ from ._common import CRITIC_FREE, GAE_BASED, is_off, shown
 
 
 def _critic(m):
-    """('on', Value) | ('off', Value) | ('unstated', None)."""
+    """('on', Value) | ('off', Value) | ('null', Value) | ('settings', Value) | ('unstated', None).
+
+    'null': the value model's path is left null, which is not a configured critic (the trainer
+    decides); 'settings': no value model is named, only a setting of one (a learning rate), which
+    many shared templates carry whatever the estimator."""
     v = m.get("critic.source")
     if v is not None:
+        if v.value is None:
+            return "null", v
         return ("off" if is_off(v.value) else "on"), v
-    lr = m.get("critic.lr")
+    lr = m.values.get("critic.lr")  # read even when dead: it is evidence, not a setting used
     if lr is not None:
-        return "on", lr  # a value-model learning rate: a critic is trained
+        return "settings", lr
     return "unstated", None
 
 
@@ -23,7 +29,9 @@ def _critic(m):
       "(arXiv:2402.03300: the group baseline replaces the value model; leave-one-out, arXiv:2402.14740, "
       "from memory), and REINFORCE-style estimators with a greedy or batch baseline need none either. A "
       "value model configured beside them is loaded, and in many trainers trained, but never used: "
-      "memory and compute for nothing, and a sign that the estimator is not the intended one.")
+      "memory and compute for nothing, and a sign that the estimator is not the intended one. A value "
+      "model's path left null is not a configured value model, and a value-model setting without a "
+      "value model named (a learning rate in a shared template) is dead under these estimators.")
 def critic_unused(ctx):
     m = ctx.model
     est = m.text("run.estimator")
@@ -49,7 +57,14 @@ def gae_without_critic(ctx):
     if est not in GAE_BASED:
         return
     state, v = _critic(m)
-    if state == "on" or (state == "unstated" and "critic.source" in m.ambiguous):
+    if state in ("on", "settings") or (state == "unstated" and "critic.source" in m.ambiguous):
+        return
+    if state == "null":
+        yield ctx.finding(f"run.estimator = {est} computes GAE advantages from a value model, and the value "
+                          f"model's path is left null ({v.concept} = {shown(v)}): the trainer decides whether "
+                          "and from what weights it builds one (commonly the policy's); trimtab cannot tell, "
+                          "state the value model to make it checkable", v.location, level="note",
+                          related=[m.loc("run.estimator", "the GAE-based estimator")], subject="critic-null")
         return
     if state == "off":
         yield ctx.finding(f"run.estimator = {est} computes GAE advantages from a value model, but the value model "

@@ -7,8 +7,10 @@ it is counted once, and that its strength is in the range published recipes use.
 from __future__ import annotations
 
 from trimtab import rule
+from trimtab.common.vocabulary import described_values
 
-from ._common import anchor, clipped, estimator, is_off, kl_state, num, shown, toml_key, unresolved
+from ._common import (KL_COEFS, KL_MECHANISMS, anchor, clipped, estimator, is_off, kl_mechanisms, kl_state, num, shown,
+                      toml_key, unresolved)
 
 _ESTIMATORS = {
     "k1": "log ratio, unbiased, high variance",
@@ -40,15 +42,16 @@ def kl_unstated(ctx):
             "near its starting point; if the recipe intends this, accept it with a reason",
             v.location, level="note", subject=f"off:{v.concept}")
         return
-    if state == "on" or unresolved(m, "kl.coef"):
-        return  # stated (a non-number or negative value is reported by VOC-2, YML-3 or KL-5)
-    enabled = m.get("kl.enabled")
-    if enabled is not None and enabled.value is True:
-        yield ctx.finding(
-            f"KL is switched on ({enabled.concept} = {shown(enabled)}) but kl.coef is not stated: the "
-            "trainer's default decides its strength", enabled.location, subject="no-coef",
-            key_path="kl.coef")
+    if state == "on" or "kl.coef" in m.ambiguous:
         return
+    if state == "switched":
+        coef = {sw: c for sw, c, _w in KL_MECHANISMS}[v.concept]
+        yield ctx.finding(
+            f"KL is switched on ({v.concept} = {shown(v)}) but {coef} is not stated: the "
+            "trainer's default decides its strength", v.location, subject="no-coef", key_path=coef)
+        return
+    if any(unresolved(m, c) for c in KL_COEFS):
+        return  # stated (a non-number or negative value is reported by VOC-2, YML-3 or KL-5), or ambiguous
     est = estimator(m)
     what = f"run.estimator = {est}" if est else "a ratio clip is set"
     yield ctx.finding(
@@ -68,7 +71,12 @@ def kl_unstated(ctx):
       "reported only when the option report_unstated is true (default false: trainers commonly build "
       "the reference from the initial policy weights when KL is on, common practice). The reverse, a "
       "reference model configured while KL is explicitly off, keeps a second copy of the weights in "
-      "memory (and a forward pass per batch) for nothing: a warning. Basis: the KL-penalised objective "
+      "memory (and a forward pass per batch) for nothing: a warning when KL is switched off by a switch "
+      "and the reference is a model named in the file; a note when only a coefficient of 0 turns KL off "
+      "(many trainers build the reference only for a positive coefficient, which trimtab cannot see). "
+      "A reference left null is not a configured model: the trainer chooses it (a note when KL is on). "
+      "KL is on when any KL mechanism is on (a term in the loss, a penalty in the reward, each with its "
+      "own switch and coefficient). Basis: the KL-penalised objective "
       "(arXiv:2203.02155, from memory; arXiv:2402.03300).",
       options={"report_unstated": False})
 def kl_reference(ctx):
@@ -76,18 +84,34 @@ def kl_reference(ctx):
     state, v = kl_state(m)
     ref = m.get("reference.source")
     if state == "on":
-        if ref is not None and is_off(ref.value):
+        if ref is not None and ref.value is None:
             yield ctx.finding(
-                f"kl.coef = {shown(v)} but the reference model is switched off (reference.source = "
+                f"{v.concept} = {shown(v)} and the reference model is left null (reference.source = "
+                f"{shown(ref)}): the trainer decides what the KL term is measured against (commonly the "
+                "initial policy weights); trimtab cannot tell, state the reference to make it checkable",
+                ref.location, related=[v.location.with_message("KL is on here")], level="note",
+                subject="reference-null")
+        elif ref is not None and is_off(ref.value):
+            yield ctx.finding(
+                f"{v.concept} = {shown(v)} but the reference model is switched off (reference.source = "
                 f"{shown(ref)}): the KL term has nothing to measure against", v.location,
                 related=[ref.location.with_message("the reference is switched off here")],
                 subject="reference-off")
         elif ref is None and ctx.options["report_unstated"] and "reference.source" not in m.ambiguous:
             yield ctx.finding(
-                f"kl.coef = {shown(v)} but no reference model is stated (reference.source not found): "
+                f"{v.concept} = {shown(v)} but no reference model is stated (reference.source not found): "
                 "the KL term needs a reference policy", v.location, subject="reference-unstated",
                 suggestion="state reference.source (the initial policy weights are usual)")
     elif state == "off" and ref is not None and not is_off(ref.value):
+        if v.concept in KL_COEFS or not isinstance(ref.value, str):
+            # off by a coefficient of 0 (or the reference is a section, not a model named): many
+            # trainers build the reference only for a positive coefficient; trimtab cannot know which
+            yield ctx.finding(
+                f"a reference model is configured while KL is off ({v.concept} = {shown(v)}): if the trainer "
+                "builds the reference regardless, a second copy of the weights is held for nothing; trimtab "
+                "cannot tell whether yours builds it only when KL is on", ref.location,
+                related=[v.location.with_message("KL is off here")], level="note", subject="reference-maybe-unused")
+            return
         yield ctx.finding(
             f"a reference model is configured but KL is off ({v.concept} = {shown(v)}): a second copy of "
             "the weights is held in memory and run on every batch for nothing",
@@ -102,14 +126,21 @@ def kl_reference(ctx):
       "Doing both regularises twice with two coefficients that were tuned for one place: the "
       "effective strength is neither.")
 def kl_twice(ctx):
-    p = ctx.model.get("kl.placement")
-    if p is None or not isinstance(p.value, str) or p.value.strip().lower() != "both":
+    m = ctx.model
+    p = m.get("kl.placement")
+    if p is not None and isinstance(p.value, str) and p.value.strip().lower() == "both":
+        state, v = kl_state(m)
+        if state != "off":
+            yield ctx.finding(f"kl.placement = {shown(p)}: the KL penalty is applied in the reward and in the loss",
+                              p.location, subject="both", suggestion="choose loss or reward")
         return
-    state, v = kl_state(ctx.model)
-    if state == "off":
-        return
-    yield ctx.finding(f"kl.placement = {shown(p)}: the KL penalty is applied in the reward and in the loss",
-                      p.location, subject="both", suggestion="choose loss or reward")
+    live = {coef: v for state, v, coef in kl_mechanisms(m) if state in ("on", "switched")}
+    loss, reward = live.get("kl.loss_coef"), live.get("kl.reward_coef")
+    if loss is not None and reward is not None:
+        yield ctx.finding(f"a KL term in the loss ({loss.concept} = {shown(loss)}) and a KL penalty in the reward "
+                          f"({reward.concept} = {shown(reward)}) are both on: KL is counted twice", loss.location,
+                          related=[reward.location.with_message("the KL penalty in the reward")],
+                          subject="loss-and-reward", suggestion="switch one of them off")
 
 
 @rule(id="KL-4", name="kl-estimator-unknown", level="error", summary="The KL estimator is not k1, k2 or k3.",
@@ -128,7 +159,7 @@ def kl_estimator(ctx):
     if name in _ESTIMATORS:
         return
     squeezed = "".join(ch for ch in name if ch.isalnum())
-    described = _in_words(squeezed)
+    described = described_values("kl.estimator", name)  # the one table of descriptive words (vocabulary)
     if described:
         # a name that describes an estimator in words (Schulman 2020: k1 naive, k2 and k3 low variance,
         # k3 the unbiased low-variance one): the trainer's own vocabulary, which trimtab cannot settle
@@ -149,26 +180,6 @@ def kl_estimator(ctx):
                       subject=name, suggestion=suggestion)
 
 
-# Words that describe an estimator rather than name it (letters and digits only, lower case), after
-# Schulman 2020 (from memory): k1 is the naive log-ratio estimator; k2 (half the squared log ratio) is
-# low-variance but biased; k3 ((r - 1) - log r) is unbiased and low-variance. "Low variance" alone fits
-# k2 and k3; "unbiased" with "low variance" fits k3 only.
-_WORDS = (
-    (("unbiasedlowvar", "lowvarunbiased"), ("k3",)),
-    (("lowvar",), ("k3", "k2")),
-    (("squared", "mse", "halfsq", "sqlog"), ("k2",)),
-    (("naive", "logratio"), ("k1",)),
-)
-
-
-def _in_words(squeezed: str) -> tuple[str, ...]:
-    """The estimators a name describes in words (most likely first), or ()."""
-    for stems, which in _WORDS:
-        if any(stem in squeezed for stem in stems):
-            return which
-    return ()
-
-
 @rule(id="KL-5", name="kl-coef-range", level="warning", summary="The KL coefficient is outside the usual range.",
       rationale="Published recipes use coefficients from 0.001 (arXiv:2501.12948v2, the revised version, from "
       "memory) through 0.02 "
@@ -179,17 +190,20 @@ def _in_words(squeezed: str) -> tuple[str, ...]:
       "coefficient rewards divergence from the reference: an error.",
       options={"min": 1e-4, "max": 0.5})
 def kl_range(ctx):
-    v = ctx.model.get("kl.coef")
-    if v is None or v.number is None or v.number == 0 or kl_state(ctx.model)[0] == "off":
-        return  # 0 or switched off: KL-1 reports it
-    x, lo, hi = v.number, ctx.options["min"], ctx.options["max"]
-    if x < 0:
-        yield ctx.finding(f"kl.coef = {shown(v)} is negative: the penalty becomes a bonus for moving away "
-                          "from the reference", v.location, level="error", subject=x)
-    elif x < lo or x > hi:
-        side = "below" if x < lo else "above"
-        yield ctx.finding(f"kl.coef = {shown(v)} is {side} the usual range {num(lo)} … {num(hi)} "
-                          "(published: 0.001, 0.02, 0.04)", v.location, subject=x)
+    m = ctx.model
+    off = {coef for state, _v, coef in kl_mechanisms(m) if state == "off"}
+    for coef in KL_COEFS:
+        v = m.get(coef)  # a coefficient whose switch is off is dead: not read
+        if v is None or v.number is None or v.number == 0 or coef in off:
+            continue  # 0 or switched off: KL-1 reports it
+        x, lo, hi = v.number, ctx.options["min"], ctx.options["max"]
+        if x < 0:
+            yield ctx.finding(f"{coef} = {shown(v)} is negative: the penalty becomes a bonus for moving away "
+                              "from the reference", v.location, level="error", subject=x)
+        elif x < lo or x > hi:
+            side = "below" if x < lo else "above"
+            yield ctx.finding(f"{coef} = {shown(v)} is {side} the usual range {num(lo)} … {num(hi)} "
+                              "(published: 0.001, 0.02, 0.04)", v.location, subject=x)
 
 
 @rule(id="KL-6", name="kl-adaptive-no-horizon", level="warning",
@@ -202,7 +216,8 @@ def kl_range(ctx):
       "clipped relative error; trainers commonly state that gain as a horizon, the number of samples "
       "over which the error is corrected (the horizon wording is common practice, from memory; the paper "
       "states the gain). Only the second form has a horizon. With a target and no horizon the speed is "
-      "the trainer's default, and a horizon of 0 or less makes the update undefined or run backwards.")
+      "the trainer's default, and a horizon of 0 or less makes the update undefined or run backwards. A "
+      "controller stated as fixed reads neither target nor horizon: they are dead, and this rule is silent.")
 def kl_adaptive(ctx):
     m = ctx.model
     t = m.get("kl.target")
@@ -210,8 +225,8 @@ def kl_adaptive(ctx):
         return
     h = m.get("kl.horizon")
     if h is None:
-        if "kl.horizon" in m.ambiguous:
-            return
+        if "kl.horizon" in m.ambiguous or "kl.horizon" in m.values or "kl.controller" in m.ambiguous:
+            return  # ambiguous, or written and dead
         yield ctx.finding(f"kl.target = {shown(t)} sets an adaptive KL controller but kl.horizon is not stated: "
                           "the trainer's default decides how fast the coefficient moves", t.location,
                           subject="no-horizon", key_path="kl.horizon")

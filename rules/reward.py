@@ -11,7 +11,7 @@ from pathlib import Path
 from trimtab import Location, Scalar, rule
 from trimtab.common import budget
 
-from ._safety import kind_of, label, safe_url, scanner
+from ._safety import kind_of, label, locate, safe_url, scanner
 
 SOURCES = ("reward.sources",)
 
@@ -31,23 +31,34 @@ def _shown_list(items, limit=6) -> str:
       "run. A missing module or function fails the run at start-up at best, and at worst a different "
       "module of the same name on the training host is used (common practice: keep reward code in the "
       "repository the config lives in). A reference or import that leaves the repository ('..', an "
-      "absolute path, a symbolic link pointing out) is refused and its target is not read.",
+      "absolute path, a symbolic link pointing out) is refused and its target is not read. A reward "
+      "written as a bare name (`accuracy`) is a reward function by name, as trainers with a registry of "
+      "reward functions take it: it is verified when a module of the search roots defines that name at "
+      "its top level, and otherwise reported as a note (the trainer may provide it; trimtab cannot see "
+      "that).",
       needs=SOURCES)
 def reference_unverifiable(ctx):
-    from trimtab.engine.codescan import parse_reference
-
     sc = scanner(ctx)
     roots = [r or "." for r in sc.root_names]
     refused_roots = "".join(f"; search root {t!r} refused: it {why}" for t, why in sc.bad_roots)
     for comp in ctx.model.components:
         if kind_of(comp) not in ("rule", "code"):
             continue
-        ref = parse_reference(comp.get("ref"))
-        if ref is None:
+        loc = locate(ctx, comp)
+        if loc is None:
             continue
+        ref = loc.ref
         where = comp.loc("ref")
-        loc = sc.locate(ref)
-        if loc.status == "no-module":
+        if loc.status == "no-function" and not ref.module and not ref.file:
+            # a function by name only: a trainer's own registry may define it, which trimtab cannot see
+            cut = f"; {loc.reason}" if loc.reason else ""
+            yield ctx.finding(
+                f"{label(comp)}: reward function {ref.function!r} is named without its module and no module in the "
+                f"search roots ({', '.join(roots)}) defines it{cut}{refused_roots}: trimtab cannot verify it (the "
+                "trainer may provide it); to have it checked, write it as module:function", where, level="note",
+                subject=ref.text, suggestion="write the reference as package.module:function, or set search_roots to "
+                                             "the folder that defines it")
+        elif loc.status == "no-module":
             target = ref.file or ref.module.replace(".", "/") + ".py"
             yield ctx.finding(
                 f"{label(comp)}: module {ref.file or ref.module!r} is not found in the search roots "

@@ -6,7 +6,7 @@ import re
 
 from trimtab import rule
 
-from ._safety import CAUTIONS, digest, kind_of, label, mask, safe_url, scanner
+from ._safety import CAUTIONS, digest, kind_of, label, locate, mask, safe_url, scanner
 
 # --- SEC-1 -----------------------------------------------------------------------------------------
 # The detector lives in trimtab.common.redact: every output masks what SEC-1 reports, with the same test.
@@ -106,16 +106,16 @@ def _remote_code(ctx, v, rev, what, where, rev_name, prefix=""):
       needs=("reward.sources",), cwe=502, help=CAUTIONS)
 def unsafe_deserialisation(ctx):
     from trimtab import Location
-    from trimtab.engine.codescan import parse_reference
 
     sc = scanner(ctx)
     for comp in ctx.model.components:
         if kind_of(comp) not in ("rule", "code"):
             continue
-        ref = parse_reference(comp.get("ref"))
-        if ref is None:
+        located = locate(ctx, comp)
+        if located is None:
             continue
-        hits = [h for h in sc.scan(sc.locate(ref)).hits if h.category == "deser"]
+        ref = located.ref
+        hits = [h for h in sc.scan(located).hits if h.category == "deser"]
         for h in hits:
             via = f" (imported from {' -> '.join(h.via)})" if h.via else ""
             yield ctx.finding(f"{label(comp)}: {h.what}(...) at {h.path}:{h.line} {h.why}", comp.loc("ref"),

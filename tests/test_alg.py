@@ -45,3 +45,21 @@ def test_rules_command_shows_the_rationale(rule_id):
     rule = Registry().rules[rule_id]
     out = run_cli("rules", rule_id).out
     assert rule.rationale in out  # the sources' figures are compared in test_published_values.py
+
+
+# --- live settings (issue 16, class 5): a null value-model path is not a configured value model ----------
+def test_a_null_critic_path_is_not_a_configured_critic():
+    assert check("ALG-1", "good-null.yaml").of("ALG-1") == []
+    [f] = check("ALG-2", "bad-null.yaml").of("ALG-2")
+    assert f["level"] == "note" and "left null" in f["message"] and "cannot tell" in f["message"]
+    # written as switched off (none), it is still the error of the bad fixture
+    assert [g["level"] for g in check("ALG-2", "bad.yaml").of("ALG-2")] == ["error", "error"]
+
+
+def test_a_model_section_names_its_weights_by_its_path():
+    # critic.model.path is the value model's path (not the policy's), and a null one names no model
+    out = run_cli("explain", str(fx("ALG-1", "good-section-null.yaml"))).out
+    rows = {line.split()[0]: line for line in out.split("Concepts found:")[1].split("\n\n")[0].splitlines()
+            if line.strip()}
+    assert "critic.model.path" in rows["critic.source"] and "None" in rows["critic.source"]
+    assert "policy.path" in rows["model.source"]

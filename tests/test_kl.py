@@ -103,3 +103,67 @@ def test_unstated_reference_is_reported_only_when_asked(tmp_path):
     r = check_json(d / "u.yaml", cwd=d)
     assert places(r, "KL-2") == [("u.yaml", 12, 9, "error")]
     assert "no reference model is stated" in r.of("KL-2")[0]["message"]
+
+
+# --- live settings (issue 16, class 5) ----------------------------------------------------------------
+# A KL penalty can sit in the reward (arXiv:2203.02155, from memory) or be a term of the loss
+# (arXiv:2402.03300): keys say which by their words, each mechanism with its own switch and coefficient.
+@pytest.mark.parametrize("leaf, parent, concept", [
+    ("kl_loss_coef", "", "kl.loss_coef"), ("loss_kl_weight", "", "kl.loss_coef"),
+    ("use_kl_in_loss", "", "kl.loss_enabled"), ("kl_in_reward", "", "kl.reward_enabled"),
+    ("kl_in_reward_coef", "", "kl.reward_coef"), ("coef", "kl_loss", "kl.loss_coef"),
+    ("enabled", "kl_reward", "kl.reward_enabled"),
+    ("kl_loss_type", "", None),  # not a coefficient, not a switch
+    ("kl_coef", "", None),  # no place named: the generic coefficient (alias table)
+    ("reward_loss_kl", "", None),  # two places: not guessed
+    ("coef", "loss", None),  # no KL word
+])
+def test_kl_place_and_role_by_words(leaf, parent, concept):
+    from trimtab.common.vocabulary import word_concept
+
+    found = word_concept(leaf, parent)
+    assert (found[0] if found else None) == concept
+
+
+def test_kl_in_reward_at_zero_beside_a_kl_loss_that_is_on_is_not_kl_off():
+    r = check("KL-1", "good-places.yaml")
+    assert r.of("KL-1") == [] and r.of("KL-2") == [] and r.of("KL-5") == []
+    r = check("KL-1", "bad-places.yaml")
+    [f] = r.of("KL-1")
+    assert "kl.loss_enabled = true" in f["message"] and "kl.loss_coef is not stated" in f["message"]
+
+
+def test_kl_counted_twice_names_both_places():
+    [f] = check("KL-3", "bad-places.yaml").of("KL-3")
+    assert "kl.loss_coef = 0.04" in f["message"] and "kl.reward_coef = 0.02" in f["message"]
+    assert f["related"][0]["line"] == 9
+
+
+def test_reference_for_nothing_is_a_note_when_only_a_zero_coefficient_turns_kl_off():
+    [f] = check("KL-2", "bad-zero.yaml").of("KL-2")
+    assert f["level"] == "note" and "cannot tell" in f["message"]
+    [f] = check("KL-2", "bad-unused.yaml").of("KL-2")  # switched off by a switch: still a warning
+    assert f["level"] == "warning"
+
+
+def test_explain_marks_dead_settings():
+    out = run_cli("explain", str(fx("KL-6", "good-fixed.yaml"))).out
+    first = out.split("--- document 2")[0]
+    target = [line for line in first.splitlines() if line.strip().startswith("kl.target")]
+    assert target and "dead: kl.controller = fixed" in target[0], first
+    assert "kl.target" not in first.split("Not found:")[1]
+    second = out.split("--- document 2")[1]
+    assert "dead:" not in second  # an adaptive controller reads its target and horizon
+    assert any(line.strip().startswith("kl.horizon") for line in second.splitlines())
+
+
+def test_a_dead_value_is_kept_but_not_read(tmp_path):
+    from trimtab.load.loader import load
+    from trimtab.resolve.concepts import ResolveOptions, resolve
+
+    (tmp_path / "run.yaml").write_text("kl:\n  enabled: false\n  coef: 0.5\n  estimator: k9\n")
+    doc = load(str(tmp_path / "run.yaml"))
+    m = resolve(doc, doc.roots[0], ResolveOptions(force_rl=True))
+    assert m.values["kl.coef"].value == 0.5 and m.get("kl.coef") is None
+    assert m.dead["kl.estimator"].concept == "kl.enabled"
+    assert m.get("kl.enabled").value is False  # the switch itself stays live

@@ -269,3 +269,97 @@ def test_rew7_all_zero_needs_every_weight_numeric(tmp_path):
     (tmp_path / "run.yaml").write_text(base.replace("weight: 1.0", "weight: 0").replace("weight: 0.2", "weight: 0.0"))
     res = check_json(tmp_path / "run.yaml").of("REW-7")
     assert [(f["level"], "always 0" in f["message"]) for f in res] == [("error", True)]
+
+
+# --- reward components by name (issue 16, class 6) ----------------------------------------------------
+# A bare identifier in a reward list is a reward function by name (trainers with a registry of reward
+# functions take them so, common practice); a path- or repository-like reference is a model.
+def test_names_are_functions_verified_through_the_search_roots():
+    good = R / "REW-1" / "good-names"
+    res = check_json(good / "run.yaml", cwd=good)
+    assert res.of("REW-1") == [] and res.of("REW-2") == [] and res.of("REW-6") == []
+    bad = R / "REW-1" / "bad-names"
+    res = check_json(bad / "run.yaml", cwd=bad)
+    notes = res.of("REW-1")
+    assert [f["level"] for f in notes] == ["note", "note"]
+    assert "'accuracy' is named without its module" in notes[0]["message"]
+    assert "cannot verify" in notes[0]["message"]
+    assert res.of("REW-2") == [] and res.of("REW-6") == []
+
+
+def test_a_name_found_by_name_has_its_code_scanned(tmp_path):
+    # the module that defines the named function is scanned like a module:function reference
+    (tmp_path / "scoring").mkdir()
+    (tmp_path / "scoring" / "checks.py").write_text("import subprocess\n\n\ndef run_tests(c, t):\n"
+                                                     "    return subprocess.run(['python', '-c', c]).returncode\n")
+    (tmp_path / "trimtab.toml").write_text("")
+    (tmp_path / "run.yaml").write_text("run: {estimator: grpo}\nrollout: {group_size: 8}\nkl_coef: 0.001\n"
+                                       "rewards: [run_tests]\n")
+    res = check_json(tmp_path / "run.yaml", cwd=tmp_path)
+    assert res.of("REW-1") == []
+    assert res.of("EXE-1"), res.findings  # runs generated code with no sandbox stated
+
+
+def test_name_index_is_bounded(tmp_path, monkeypatch):
+    from trimtab.engine import codescan
+
+    for i in range(5):
+        (tmp_path / f"m{i}.py").write_text(f"def f{i}():\n    pass\n")
+    monkeypatch.setattr(codescan, "INDEX_FILES", 3)
+    sc = codescan.Scanner(tmp_path)
+    assert sc.find_name("f1").status == "ok" and sc.find_name("f1").path == "m1.py"
+    miss = sc.find_name("f4")
+    assert miss.status == "no-function" and "stopped after 3 Python files" in miss.reason
+
+
+def test_name_index_never_follows_links_or_hidden_folders(tmp_path):
+    from trimtab.engine import codescan
+
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    (outside / "far.py").write_text("def far():\n    pass\n")
+    repo = tmp_path / "repo"
+    (repo / ".hidden").mkdir(parents=True)
+    (repo / ".hidden" / "h.py").write_text("def hidden():\n    pass\n")
+    (repo / "linked").symlink_to(outside)
+    (repo / "one.py").symlink_to(outside / "far.py")
+    sc = codescan.Scanner(repo)
+    assert sc.find_name("far").status == "no-function"
+    assert sc.find_name("hidden").status == "no-function"
+
+
+@pytest.mark.parametrize("sources, kinds", [
+    ("[accuracy, format_ok]", ["rule", "rule"]),
+    ("[team/judge-7b, ./weights/rm]", ["model", "model"]),
+    ("{accuracy: 1.0, team/judge-7b: 0.5}", ["rule", "model"]),
+    ("[{name: accuracy, weight: 1.0}, {name: j, kind: judge, path: team/judge-7b}]", ["rule", "judge"]),
+    ("[{accuracy: 1.0}, {j: team/judge-7b}]", ["rule", "model"]),
+    ("[{accuracy: {weight: 1.0}}, {j: {kind: judge, model: team/judge-7b}}]", ["rule", "judge"]),
+    ("[{sandbox: container}]", [""]),  # a field of a component, not a name
+])
+def test_reward_forms_give_the_same_kinds(tmp_path, sources, kinds):
+    from trimtab_rules._safety import kind_of
+    from trimtab.load.loader import load
+    from trimtab.resolve.concepts import ResolveOptions, resolve
+
+    (tmp_path / "run.yaml").write_text(f"rewards: {sources}\n")
+    doc = load(str(tmp_path / "run.yaml"))
+    m = resolve(doc, doc.roots[0], ResolveOptions(force_rl=True))
+    assert [kind_of(c) for c in m.components] == kinds
+    weights = {c.get("ref"): c.get("weight") for c in m.components}
+    if "1.0" in sources:
+        assert weights["accuracy"] == 1.0
+
+
+def test_name_index_walk_is_bounded_by_entries(tmp_path, monkeypatch):
+    # a repository of many folders and no Python files (or a checker rooted at /) is not walked to the end
+    from trimtab.engine import codescan
+
+    for i in range(30):
+        (tmp_path / f"d{i:02d}").mkdir()
+    (tmp_path / "d29" / "late.py").write_text("def late():\n    pass\n")
+    monkeypatch.setattr(codescan, "INDEX_ENTRIES", 10)
+    miss = codescan.Scanner(tmp_path).find_name("late")
+    assert miss.status == "no-function" and "stopped after" in miss.reason
+    monkeypatch.setattr(codescan, "INDEX_ENTRIES", 1000)
+    assert codescan.Scanner(tmp_path).find_name("late").status == "ok"

@@ -35,7 +35,8 @@ from typing import TextIO
 
 from ..common.findings import Location
 from ..common.redact import for_text, mask
-from ..common.vocabulary import ALIASES, CONCEPTS, evaluation_section, normalise_key
+from ..common.vocabulary import (ALIASES, CONCEPTS, WORD_CONCEPTS, described_values, evaluation_section, normalise_key,
+                                 word_concept)
 from ..load.document import Mapping, Node, Scalar, Sequence
 from ..resolve.arithmetic import COUNTED, Unit, admissible, breaks, judge
 from ..resolve.model import RunModel, Value
@@ -146,28 +147,6 @@ RANGES = {
     "checkpoint.every": (1, 100_000_000), "reference.refresh_every": (1, 100_000_000),
 }
 
-# Words that describe a value of an enumerated concept instead of naming it (generic words of the
-# trade): (the value it means, the word sets that describe it). A value whose words hold one set
-# describes that value; the longest set said decides, and a value two values' sets describe alike
-# fits both (most likely first), and the draft says so.
-# KL estimators after Schulman 2020, "Approximating KL Divergence" (from memory): k1 is the naive
-# log-ratio estimator (unbiased, high variance); k2, half the squared log ratio, has low variance
-# but a bias; k3, (r - 1) - log r, is unbiased with low variance.
-VALUE_WORDS: dict[str, tuple[tuple[str, tuple[str, ...]], ...]] = {
-    "kl.estimator": (("k3", ("low var", "low variance", "lowvar", "unbiased low var", "unbiased low variance")),
-                     ("k2", ("squared", "mse", "sq", "low var", "low variance", "lowvar")),
-                     ("k1", ("naive", "log ratio", "logratio", "plain"))),
-    "kl.placement": (("reward", ("reward", "rewards", "in reward")), ("loss", ("loss", "in loss", "objective")),
-                     ("both", ("reward loss", "loss reward")), ("none", ("off", "disabled"))),
-    "sandbox.kind": (("process", ("subprocess", "local process", "process")),
-                     ("container", ("container", "containerised", "containerized")),
-                     ("vm", ("virtual machine", "microvm", "vm")), ("remote", ("remote", "service", "http", "api")),
-                     ("none", ("off", "disabled", "unsandboxed"))),
-    "run.estimator": (("grpo", ("group relative", "group norm", "group normalised", "group normalized")),
-                      ("rloo", ("leave one out", "loo")), ("reinforce", ("policy gradient", "vanilla pg")),
-                      ("ppo", ("clipped surrogate",))),
-    "run.stage": (("rl", ("reinforcement",)), ("sft", ("supervised",)), ("distill", ("distillation",))),
-}
 # Values that say nothing about an enumeration on their own (they name a value of several).
 PLAIN_VALUES = frozenset({"none", "true", "false", "on", "off", "yes", "no", "null", ""})
 
@@ -243,18 +222,6 @@ def _name_score(concept: str, leaf_words: frozenset, parents: list[str]) -> tupl
         if dice > best:
             best, which = dice, n
     return best, which
-
-
-def value_fits(concept: str, written: str) -> tuple[str, ...]:
-    """The values of an enumerated concept that a value unknown to trimtab describes in words."""
-    words = set(re.split(r"[^a-z0-9]+", re.sub(r"([a-z0-9])([A-Z])", r"\1_\2", written).lower())) - {""}
-    found: dict[str, int] = {}
-    for meant, phrases in VALUE_WORDS.get(concept, ()):
-        said = [len(p.split()) for p in phrases if set(p.split()) <= words]
-        if said:
-            found[meant] = max(said)
-    most = max(found.values(), default=0)
-    return tuple(m for m, n in found.items() if n == most)  # the most specific description wins
 
 
 @dataclass
@@ -528,6 +495,10 @@ def score(concept: str, path: tuple[str, ...], node: Node, version: str) -> Cand
     leaf = path[-1]
     leaf_words = _fold(_split(leaf))
     parents = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
+    if concept in WORD_CONCEPTS:  # a KL term's place and role are read from the key's words, or not at all
+        found = word_concept(normalise_key(leaf), parents[-1] if parents else "")
+        if found is None or found[0] != concept:
+            return None
     for word, unit in UNIT_WORDS.items():
         if (word in leaf_words) != (c.unit == unit):
             return None  # a count of tokens is a length, and a length is a count of tokens
@@ -550,7 +521,7 @@ def score(concept: str, path: tuple[str, ...], node: Node, version: str) -> Cand
         elif any(written in o.values for o in CONCEPTS.values() if o.name != concept):
             return None  # the value names another concept's value (grpo is an estimator, not a KL one)
         elif name:
-            proposal = (value.strip(), value_fits(concept, value))
+            proposal = (value.strip(), described_values(concept, value))
     if not name and not enum:
         return None  # no evidence names the concept
     area_name = concept.split(".")[0]
@@ -742,7 +713,7 @@ def _questions(d: Draft, placed_values: dict[str, list[tuple[RunModel, Value]]])
                          placed=True, late=_late(v.node, m.reader(v.node)[0]),
                          value_text=v.node.text.strip())
         if unknown:
-            cand.proposal = (str(v.value).strip(), value_fits(concept, str(v.value)))
+            cand.proposal = (str(v.value).strip(), described_values(concept, str(v.value)))
         d.questions[concept] = cand
 
 

@@ -132,19 +132,8 @@ def write_cache(path: Path | None, version: int, stamp: str, rows: dict) -> None
         if path.parent.is_symlink():  # made a link since it was chosen: never written through
             return
         path.parent.mkdir(parents=True, exist_ok=True)
-        import tempfile
-
-        fd, tmp = tempfile.mkstemp(prefix=".cache-", suffix=".tmp", dir=path.parent)
-        try:
-            with os.fdopen(fd, "w", encoding="utf-8") as fh:
-                json.dump({"version": version, "stamp": stamp, "files": rows}, fh)
-            os.replace(tmp, path)
-        except BaseException:
-            try:
-                os.unlink(tmp)
-            except OSError:
-                pass
-            raise
+        with atomic_open(path) as fh:
+            json.dump({"version": version, "stamp": stamp, "files": rows}, fh)
     except OSError:
         pass
 

@@ -62,6 +62,13 @@ CONCEPTS: dict[str, Concept] = {c.name: c for c in (
     _C("kl.coef", "number", "", "KL coefficient (beta)"),
     _C("kl.estimator", "str", "", "KL estimator", values=("k1", "k2", "k3")),
     _C("kl.placement", "str", "", "where the KL term goes", values=("loss", "reward", "both", "none")),
+    # not an enumeration: besides fixed and adaptive, trainers name controllers in their own words; only
+    # "fixed" (and its synonyms in SWITCHES) is reasoned about
+    _C("kl.controller", "str", "", "how the KL coefficient is set over the run (fixed, adaptive, ...)"),
+    _C("kl.loss_enabled", "bool", "", "a KL term added to the loss switched on"),
+    _C("kl.loss_coef", "number", "", "coefficient of the KL term in the loss"),
+    _C("kl.reward_enabled", "bool", "", "a KL penalty subtracted from the reward switched on"),
+    _C("kl.reward_coef", "number", "", "coefficient of the KL penalty in the reward"),
     _C("kl.target", "number", "", "target KL of an adaptive controller"),
     _C("kl.horizon", "int", "steps", "horizon of an adaptive KL controller"),
     _C("reference.source", "any", "", "reference policy weights (false/none: no reference)"),
@@ -99,6 +106,92 @@ CONCEPTS: dict[str, Concept] = {c.name: c for c in (
     _C("checkpoint.dir", "str", "", "checkpoint directory"),
     _C("output.dir", "str", "", "output directory"),
 )}
+
+# Estimators that use no value model (a group, leave-one-out, greedy or batch baseline): the value
+# model's settings are dead under them. Group-relative: arXiv:2402.03300; leave-one-out:
+# arXiv:2402.14740 (from memory); greedy baseline: arXiv:2310.10505 (from memory); REINFORCE++:
+# arXiv:2501.03262 (from memory).
+CRITIC_FREE = frozenset({"grpo", "dr_grpo", "dapo", "rloo", "remax", "reinforce++"})
+
+
+@dataclass(frozen=True)
+class Switch:
+    """A concept whose value can turn a mechanism off. When it does, the concepts the mechanism
+    governs are dead: written in the file but not read by the trainer. The resolver marks them once
+    (``RunModel.dead``); rules do not reason about them and ``explain`` shows them as dead. A null
+    value is never "off": it leaves the choice to the trainer."""
+
+    concept: str
+    governs: tuple
+    off: tuple = (False,)  # values that switch the mechanism off (text compared in lower case)
+
+
+SWITCHES: tuple[Switch, ...] = (
+    Switch("kl.enabled", ("kl.coef", "kl.estimator", "kl.controller", "kl.target", "kl.horizon")),
+    Switch("kl.placement", ("kl.coef", "kl.estimator", "kl.controller", "kl.target", "kl.horizon"), off=("none",)),
+    Switch("kl.loss_enabled", ("kl.loss_coef",)),
+    Switch("kl.reward_enabled", ("kl.reward_coef",)),
+    # a fixed coefficient has no controller: its target and horizon are not read (Ziegler et al. 2019,
+    # arXiv:1909.08593, section 2.2, from memory: only the adaptive controller has them)
+    Switch("kl.controller", ("kl.target", "kl.horizon"), off=("fixed", "constant", "static")),
+    Switch("critic.source", ("critic.lr", "clip.value"), off=(False, "none", "off", "false", "disabled")),
+    Switch("run.estimator", ("critic.lr", "clip.value"), off=tuple(sorted(CRITIC_FREE))),
+    Switch("reference.source", ("reference.refresh_every",), off=(False, "none", "off", "false", "disabled")),
+)
+
+
+def switched_off(switch: Switch, value) -> bool:
+    """Does ``value`` (a concept value as read) turn ``switch``'s mechanism off?"""
+    if value is None:
+        return False
+    if isinstance(value, str):
+        return value.strip().lower() in switch.off
+    return any(value is o or (type(value) is type(o) and value == o) for o in switch.off)
+
+
+# Keys that say where a KL term goes by their words (``kl`` with ``loss`` or ``reward``) and what they
+# set by another word (a coefficient, or a switch): generic words of the trade, matched by word, not
+# one trainer's spelling. KL in the reward vs in the loss: arXiv:2203.02155 (from memory) subtracts a
+# per-token penalty from the reward; arXiv:2402.03300 adds the KL term to the loss.
+_KL_PLACES = {"loss": "kl.loss", "reward": "kl.reward"}
+_COEF_WORDS = frozenset({"coef", "coeff", "coefficient", "beta", "weight"})
+_SWITCH_WORDS = frozenset({"use", "enable", "enabled", "apply"})
+_FILLER = frozenset({"kl", "in", "to", "the", "as"})
+
+
+# The concepts only word_concept reaches (a key map draft proposes them only for keys it reads so).
+WORD_CONCEPTS = frozenset({"kl.loss_coef", "kl.loss_enabled", "kl.reward_coef", "kl.reward_enabled"})
+
+
+def word_concept(leaf: str, parent: str = "") -> tuple[str, str] | None:
+    """(concept, expected type) of a KL key known by its words, or None. ``leaf`` and ``parent``
+    are normalised key words; the parent section's words count when the leaf names no KL
+    (``kl_loss: {coef: ...}``)."""
+    words = set(leaf.split("_"))
+    if "kl" not in words:
+        if not parent or "kl" not in parent.split("_"):
+            return None
+        words |= set(parent.split("_"))
+    places = [p for p in _KL_PLACES if p in words]
+    if len(places) != 1:
+        return None
+    rest = words - _FILLER - {places[0]}
+    if rest and rest <= _COEF_WORDS:
+        return _KL_PLACES[places[0]] + "_coef", "number"
+    if rest <= _SWITCH_WORDS:
+        return _KL_PLACES[places[0]] + "_enabled", "bool"
+    return None
+
+
+def section_word(name: str) -> str:
+    """A section's normalised name as the alias table knows it: a section named by the words "kl"
+    and a controller word (in any order or spelling) is the KL controller's section."""
+    if "_" in name:
+        words = set(name.split("_"))
+        if "kl" in words and words & {"controller", "control", "ctrl"}:
+            return "kl_controller"
+    return name
+
 
 # Fields of one reward component (reward.sources items).
 def fits(value, expected: str) -> bool:
@@ -224,9 +317,13 @@ def _aliases() -> dict[str, tuple[Alias, ...]]:
     add("kl_placement", "kl.placement")
     add("placement", "kl.placement", under=("kl",))
     add("kl_target target_kl", "kl.target")
-    add("target", "kl.target", under=("kl",))
+    add("target", "kl.target", under=("kl", "kl_controller"))
     add("kl_horizon", "kl.horizon")
-    add("horizon", "kl.horizon", under=("kl",))
+    add("horizon", "kl.horizon", under=("kl", "kl_controller"))
+    add("kl_controller kl_controller_type", "kl.controller")
+    add("controller controller_type", "kl.controller", under=("kl",))
+    add("type kind", "kl.controller", under=("kl_controller",))
+    add("coef coeff beta", "kl.coef", under=("kl_controller",))
     add("ref_model reference_model ref_model_path reference_model_path", "reference.source")
     add("path source model model_path name", "reference.source", under=REF)
     add("refresh_every ref_refresh_every sync_every", "reference.refresh_every", under=REF)
@@ -269,7 +366,7 @@ def _aliases() -> dict[str, tuple[Alias, ...]]:
     add("privileged", "sandbox.privileged", under=SANDBOX)
     add("model_path model_name pretrained_model base_model policy_model model_name_or_path", "model.source",
         not_under=ELSEWHERE + CRITIC + REF)
-    add("path name source", "model.source", under=MODEL)
+    add("path name source", "model.source", under=MODEL, not_under=ELSEWHERE + CRITIC + REF)
     add("revision model_revision", "model.revision", not_under=ELSEWHERE + CRITIC + REF + ("reward",))
     add("trust_remote_code", "model.trust_remote_code", not_under=ELSEWHERE)
     add("save_steps save_every checkpoint_every save_interval save_freq checkpoint_interval", "checkpoint.every")
@@ -359,3 +456,39 @@ def evaluation_section(sections) -> str | None:
         if any(w in EVAL_WEAK_WORDS for w in words) and not any(w in CODE_TEST_WORDS for w in words):
             return name
     return None
+
+
+# Words that describe a value of an enumerated concept instead of naming it (generic words of the
+# trade): (the value it means, the word sets that describe it). A value whose words hold one set
+# describes that value; the longest set said decides, and a value two values' sets describe alike
+# fits both (most likely first), and the draft says so.
+# KL estimators after Schulman 2020, "Approximating KL Divergence" (from memory): k1 is the naive
+# log-ratio estimator (unbiased, high variance); k2, half the squared log ratio, has low variance
+# but a bias; k3, (r - 1) - log r, is unbiased with low variance.
+VALUE_WORDS: dict[str, tuple[tuple[str, tuple[str, ...]], ...]] = {
+    "kl.estimator": (("k3", ("low var", "low variance", "lowvar", "unbiased low var", "unbiased low variance")),
+                     ("k2", ("squared", "mse", "sq", "low var", "low variance", "lowvar")),
+                     ("k1", ("naive", "log ratio", "logratio", "plain"))),
+    "kl.placement": (("reward", ("reward", "rewards", "in reward")), ("loss", ("loss", "in loss", "objective")),
+                     ("both", ("reward loss", "loss reward")), ("none", ("off", "disabled"))),
+    "sandbox.kind": (("process", ("subprocess", "local process", "process")),
+                     ("container", ("container", "containerised", "containerized")),
+                     ("vm", ("virtual machine", "microvm", "vm")), ("remote", ("remote", "service", "http", "api")),
+                     ("none", ("off", "disabled", "unsandboxed"))),
+    "run.estimator": (("grpo", ("group relative", "group norm", "group normalised", "group normalized")),
+                      ("rloo", ("leave one out", "loo")), ("reinforce", ("policy gradient", "vanilla pg")),
+                      ("ppo", ("clipped surrogate",))),
+    "run.stage": (("rl", ("reinforcement",)), ("sft", ("supervised",)), ("distill", ("distillation",))),
+}
+
+
+def described_values(concept: str, written: str) -> tuple[str, ...]:
+    """The values of an enumerated concept that a value unknown to trimtab describes in words."""
+    words = set(re.split(r"[^a-z0-9]+", re.sub(r"([a-z0-9])([A-Z])", r"\1_\2", written).lower())) - {""}
+    found: dict[str, int] = {}
+    for meant, phrases in VALUE_WORDS.get(concept, ()):
+        said = [len(p.split()) for p in phrases if set(p.split()) <= words]
+        if said:
+            found[meant] = max(said)
+    most = max(found.values(), default=0)
+    return tuple(m for m, n in found.items() if n == most)  # the most specific description wins

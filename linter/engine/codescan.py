@@ -20,6 +20,16 @@ from pathlib import Path
 from ..common.paths import confined
 
 MAX_BYTES = 2_000_000  # a reward module larger than this is not read
+# A reward function named without its module is looked for in every Python file of the search roots,
+# within these bounds (files and bytes read); the index is built once per scanner, misses included.
+INDEX_FILES = 5_000
+INDEX_BYTES = 64_000_000
+INDEX_ENTRIES = 100_000  # folders and files looked at (a tree of empty folders is bounded too)
+INDEX_SECONDS = 2.0  # wall-clock time for the whole walk
+_INDEX_SKIP = frozenset({"__pycache__", "node_modules", "site-packages", "dist-packages"})
+# top-level definitions and assignments, found in the bytes before the syntax tree confirms them
+_TOP_DEF = re.compile(rb"^(?:async[ \t]+)?def[ \t]+([A-Za-z_]\w*)|^class[ \t]+([A-Za-z_]\w*)|^([A-Za-z_]\w*)[ \t]*[:=]",
+                      re.MULTILINE)
 
 # --- detectors -------------------------------------------------------------------------------
 # Functions of the os module that replace or start a process (checked against dir(os) in the tests).
@@ -114,6 +124,18 @@ def looks_like_code(text) -> bool:
     return parse_reference(text) is not None
 
 
+_NAME = re.compile(rf"^{_IDENT}$")
+
+
+def function_name(text) -> str:
+    """A bare identifier (``accuracy``, ``format_ok``): a reward function named without its module,
+    as trainers with a registry of reward functions take them. '' when ``text`` is not one."""
+    if not isinstance(text, str):
+        return ""
+    t = text.strip()
+    return t if _NAME.match(t) else ""
+
+
 # --- results ---------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class Hit:
@@ -193,6 +215,8 @@ class Scanner:
         self._modules: dict[Path, tuple[tuple, ModuleInfo]] = {}
         self._scans: dict[Path, tuple[list, Scan]] = {}
         self._located: dict[Reference, tuple[tuple, Located]] = {}
+        self._index: dict[str, list[Path]] | None = None
+        self.index_cut = ""  # why the name index stopped early ("" when it read every file)
 
     # -- locating ---------------------------------------------------------------------------
     def _rel(self, real: Path) -> str:
@@ -286,6 +310,76 @@ class Scanner:
                 return Located("no-function", ref_used, shown, real, tried)
             return Located("ok", ref_used, shown, real, tried, line=pos[0], col=pos[1])
         return Located("ok", ref_used, shown, real, tried)
+
+    def find_name(self, name: str) -> Located:
+        """A reward function named without its module: the first module of the search roots (in
+        root order, then path order) that defines ``name`` at its top level. ``no-function`` when
+        none does (``reason`` says when the search was cut short by its bounds)."""
+        ref = Reference(name, function=name)
+        if not self.roots:
+            return Located("bad-root", ref, reason="no usable search root inside the repository")
+        for real in self._name_index().get(name, ()):
+            if _signature(real) == ():
+                continue
+            info = self.module(real)
+            pos = info.names.get(name)
+            if not info.error and pos is not None:
+                module = info.path.removesuffix(".py").removesuffix("/__init__").replace("/", ".")
+                return Located("ok", Reference(name, module=module, function=name), info.path, real,
+                               line=pos[0], col=pos[1])
+        return Located("no-function", ref, reason=self.index_cut)
+
+    def _name_index(self) -> dict[str, list[Path]]:
+        """Top-level name -> module files defining it, over the search roots (built once; bounded by
+        INDEX_FILES and INDEX_BYTES; links and hidden folders are not followed)."""
+        if self._index is not None:
+            return self._index
+        import time
+
+        index: dict[str, list[Path]] = {}
+        files = size = entries = 0
+        until = time.monotonic() + INDEX_SECONDS
+        for base in self.roots:
+            for top, dirs, names in os.walk(base, followlinks=False):
+                # hidden folders, caches and installed packages are not reward code; another file
+                # system mounted below the repository (/proc under a root of /) is not walked
+                dirs[:] = sorted(d for d in dirs if not d.startswith(".") and d not in _INDEX_SKIP
+                                 and not os.path.ismount(os.path.join(top, d)))
+                entries += len(dirs) + len(names)
+                if entries > INDEX_ENTRIES or time.monotonic() > until:
+                    self.index_cut = (f"the search stopped after {entries} entries and {files} Python files, "
+                                      "trimtab's bound")
+                    self._index = index
+                    return index
+                for fname in sorted(names):
+                    if not fname.endswith(".py"):
+                        continue
+                    if files >= INDEX_FILES or size >= INDEX_BYTES:
+                        self.index_cut = (f"the search stopped after {files} Python files ({size} bytes), "
+                                          "trimtab's bound")
+                        self._index = index
+                        return index
+                    path = Path(top) / fname
+                    real = confined(path, self.root)
+                    if real is None or path.is_symlink() or not real.is_file():
+                        continue
+                    try:
+                        fd = os.open(real, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_NONBLOCK", 0))
+                        with os.fdopen(fd, "rb") as fh:
+                            data = fh.read(MAX_BYTES + 1)
+                    except OSError:
+                        continue
+                    files += 1
+                    size += len(data)
+                    if len(data) > MAX_BYTES:
+                        continue
+                    for m in _TOP_DEF.finditer(data):
+                        found = (m.group(1) or m.group(2) or m.group(3)).decode("ascii")
+                        at = index.setdefault(found, [])
+                        if not at or at[-1] != real:
+                            at.append(real)
+        self._index = index
+        return index
 
     # -- reading ----------------------------------------------------------------------------
     def module(self, real: Path) -> ModuleInfo:

@@ -565,14 +565,7 @@ class _Builder:
                 self._merge(node, k, v)
                 continue
             if isinstance(k, Scalar):
-                if name in first:
-                    prev = first[name]
-                    self.problems.append(Problem(
-                        "duplicate-key", f"key '{name}' is written twice in one mapping; which value "
-                        "wins depends on the loader", k.line, k.col,
-                        [Location(self.doc.path, prev.line, prev.col, message=f"first '{name}' here")]))
-                else:
-                    first[name] = k
+                _first_or_duplicate(first, name, k, self.doc.path, self.problems)
         return node
 
     def _oversized(self, node: Scalar) -> None:
@@ -770,17 +763,21 @@ class _EventBuilder(_Builder):
             self._merge(mapping, k, node)
             return
         if isinstance(k, Scalar):
-            first = parent.first
-            if name in first:
-                prev = first[name]
-                self.problems.append(Problem(
-                    "duplicate-key", f"key '{name}' is written twice in one mapping; which value "
-                    "wins depends on the loader", k.line, k.col,
-                    [Location(self.doc.path, prev.line, prev.col, message=f"first '{name}' here")]))
-            else:
-                first[name] = k
+            _first_or_duplicate(parent.first, name, k, self.doc.path, self.problems)
 
     def _stop_at(self, kind: str, message: str, line: int, col: int) -> None:
         if not self.failed:
             self.failed = True
             self.problems.append(Problem(kind, message, line, col))
+
+
+def _first_or_duplicate(first: dict, name: str, key: Scalar, path, problems: list) -> None:
+    """Remember the first key of each name in a mapping; a second one is a duplicate-key problem
+    (both tree builders)."""
+    if name not in first:
+        first[name] = key
+        return
+    prev = first[name]
+    problems.append(Problem("duplicate-key", f"key '{name}' is written twice in one mapping; which value wins "
+                            "depends on the loader", key.line, key.col,
+                            [Location(path, prev.line, prev.col, message=f"first '{name}' here")]))

@@ -341,7 +341,7 @@ class Page:
                 out.append(f"<li><code>{_e(name)}</code>: " + "; ".join(
                     f"{_e(l.key_path)} at {self.link(l)}" for l in locs) + "</li>")
             out.append("</ul>")
-        missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous]
+        missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous and c not in m.dead]
         out.append(f'<details><summary>{head}Not found ({len(missing)} concepts)</summary><p class="muted">'
                    + _e(", ".join(missing)) + "</p></details>")
         return "\n".join(out)

@@ -95,6 +95,11 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
             origin = f"{_t(v.location.label())}  {_t(v.key)}  [{_t(v.via)}{'; ' + layer if layer else ''}]"
             if v.note:
                 origin += f"  ({_t(v.note)})"
+            switch = m.dead.get(name)
+            if switch is not None:  # written, but its mechanism is switched off: not read, not checked
+                said = getattr(switch.node, "text", None) or _show(switch.value)
+                origin += (f"  dead: {_t(switch.concept)} = {_t(said)} at {_t(switch.location.label())} "
+                           "switches its mechanism off")
             out.write(f"  {name:<{width}}  {_show(v.value):<16}  {origin}\n")
             for hop in v.chain:
                 out.write(f"  {'':<{width}}  {'':<16}  <- {_t(hop.label())} {_t(hop.message)}\n")
@@ -126,6 +131,6 @@ def explain(outcome, out: TextIO, err: TextIO | None = None) -> int:
                 out.write(f"  {name}  {_t(v.location.label())}  {_t(v.key)}: {_t(v.note)}\n")
         shaped = {u.concept for u in m.unused if u.kind == "shape"}
         missing = [c for c in CONCEPTS if m.get(c) is None and c not in m.ambiguous and c not in m.unknown
-                   and c not in shaped]
+                   and c not in shaped and c not in m.dead]
         out.write("\nNot found:\n" + _wrap(", ".join(missing)) + "\n")
     return 0

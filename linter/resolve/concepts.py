@@ -11,8 +11,9 @@ from ..common.findings import Location
 from .arithmetic import Unit, settle
 from .model import Component, RunModel, Unused, Value
 from ..common.settings import KeySpec
-from ..common.vocabulary import (ALIASES, CONCEPTS, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX, SECTION_WORDS,
-                                 Concept, evaluation_section, fits, normalise_key, share_of_run)
+from ..common.vocabulary import (ALIASES, CONCEPTS, ELSEWHERE, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX,
+                                 SECTION_WORDS, SWITCHES, Concept, evaluation_section, fits, normalise_key, section_word,
+                                 share_of_run, switched_off, word_concept)
 
 
 @dataclass
@@ -73,12 +74,12 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         leaf = words.get(path[-1])
         if leaf is None:
             leaf = words[path[-1]] = normalise_key(path[-1])
-        aliases = ALIASES.get(leaf)
-        if not aliases:
+        aliases = ALIASES.get(leaf, ())
+        kl_words = "kl" in leaf or len(path) > 1 and "kl" in path[-2].lower()
+        if not aliases and not kl_words:
             continue
-        parents = sections.get(path[:-1])
-        if parents is None:
-            parents = sections[path[:-1]] = [normalise_key(p) for p in path[:-1] if not p.isdigit()]
+        parents = _parents(path, sections)
+        matched = False
         section = path[:-1]
         if section not in evals:
             evals[section] = evaluation_section(section)
@@ -89,7 +90,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             if alias.concept == "reward.sources" and isinstance(node, Scalar):
                 continue
             shape = "" if alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
-                _shape(alias.concept, node, leaf, model.version, synonyms=opts.keys.get(alias.concept))
+                _shape(alias.concept, node, leaf, model.reader(node)[0], synonyms=opts.keys.get(alias.concept))
             if shape == "section":
                 continue  # a section named like the concept holds keys, not its value
             if alias.concept in mapped:
@@ -113,6 +114,9 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                 misshapen.setdefault(alias.concept, []).append((strength, path, node, shape))
                 continue
             candidates.setdefault(alias.concept, []).append((strength, path, node))
+            matched = True
+        if not matched and kl_words and in_eval is None:
+            _by_words(leaf, path, node, parents, candidates, mapped, model.reader(node)[0])
     native = {".".join(p): (p, n) for p, n, _c in leaves}
     for concept in CONCEPTS:
         if concept in mapped or concept in model.values:
@@ -153,9 +157,46 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             _at_key(model, root, u)
     model.unusable = {u.concept for u in model.unused if u.kind == "shape"}
     settle(model)  # the run's arithmetic: counts in their concepts' units, derived quantities
+    _liveness(model)
     markers = sum(1 for c in RL_MARKERS if c in model.values)
     model.is_rl = opts.force_rl or markers >= RL_MIN_MARKERS or "run.estimator" in model.values and markers >= 2
     return model
+
+
+def _parents(path: tuple, sections: dict) -> list[str]:
+    """The normalised section words above a key (list indices left out), once per section."""
+    parents = sections.get(path[:-1])
+    if parents is None:
+        parents = sections[path[:-1]] = [section_word(normalise_key(p)) for p in path[:-1] if not p.isdigit()]
+    return parents
+
+
+def _by_words(leaf: str, path: tuple, node: Node, parents: list[str], candidates: dict, mapped: set,
+              version: str) -> None:
+    """A KL key that names its place (loss or reward) and its role by its words, outside evaluation
+    sections; taken only when its value has the concept's type (a switch true/false, a number)."""
+    if any(p in ELSEWHERE for p in parents):
+        return
+    found = word_concept(leaf, parents[-1] if parents else "")
+    if found is None or found[0] in mapped or not isinstance(node, Scalar):
+        return
+    concept, expected = found
+    value = node.value(version)
+    if value is None or _fits(value, expected):
+        candidates.setdefault(concept, []).append((1, path, node))
+
+
+def _liveness(model: RunModel) -> None:
+    """Mark the concepts of a mechanism that a switch turns off as dead (vocabulary.SWITCHES): once,
+    here, so that no rule reasons about a setting the trainer does not read. A dead switch kills
+    nothing."""
+    for sw in SWITCHES:
+        v = model.values.get(sw.concept)
+        if v is None or sw.concept in model.dead or not switched_off(sw, v.value):
+            continue
+        for c in sw.governs:
+            if c in model.values and c not in model.dead:
+                model.dead[c] = v
 
 
 # How many times, in all, a section reached again through an alias may be walked again: aliased
@@ -347,7 +388,7 @@ def _misshapen(model: RunModel, concept: str, wrong: list[tuple[int, tuple, Node
         if key in reported:
             continue  # the concept's own dotted path: reported when it was read
         loc = model.doc.loc(node)
-        shown = _compact(node, model.version)
+        shown = _compact(node, model.reader(node)[0])
         if used is not None:
             model.unused.append(Unused(concept, key, loc, f"{why}; {concept} is read from {used.key}", "lost", shown,
                                        node))
@@ -394,24 +435,29 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     if isinstance(node, (Mapping, Sequence)):
         c = CONCEPTS[concept]
         if c.type == "any":
+            inner = _source_field(node)
+            if inner is not None:
+                # a model's section: its path says what is loaded (a null path is no model named)
+                _store_value(model, concept, inner[1], via, f"{key}.{inner[0]}" if key else inner[0], spec, synonyms)
+                return
             model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
             return
-        combined = _combined(c, node, model.version, synonyms)
+        combined = _combined(c, node, model.reader(node)[0], synonyms)
         if combined is not None:  # a list that names one value of an enumeration (placement: [loss, reward])
-            shown = _compact(node, model.version)
+            shown = _compact(node, model.reader(node)[0])
             model.values[concept] = Value(concept, combined, loc, node, via, key, chain,
                                           note=f"the list {shown} read as {combined}", raw=shown)
             return
         leaf = normalise_key(key.rsplit(".", 1)[-1])
         count = _counted(c, leaf, node)
         if count is not None:  # the list of the things themselves (gpus: [0, 1, 2, 3])
-            shown = _compact(node, model.version)
+            shown = _compact(node, model.reader(node)[0])
             model.values[concept] = Value(concept, count, loc, node, via, key, chain,
                                           note=f"the list {shown} counted: {count}", raw=count)
             return
-        why = _shape(concept, node, leaf, model.version, named=via == "keymap", synonyms=synonyms)
+        why = _shape(concept, node, leaf, model.reader(node)[0], named=via == "keymap", synonyms=synonyms)
         if why and why != "section" and c.type != "list":
-            model.unused.append(Unused(concept, key, loc, why, "shape", _compact(node, model.version), node))
+            model.unused.append(Unused(concept, key, loc, why, "shape", _compact(node, model.reader(node)[0]), node))
         return
     if isinstance(node, Unknown):  # known only at launch: out of the run, never reasoned about
         model.unknown[concept] = Value(concept, None, loc, node, via, key, chain, note=node.why)
@@ -437,6 +483,20 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
         model.mistyped.append((v, expected))
 
 
+# Words of the field that names what a model section loads (generic).
+_SOURCE_WORDS = ("path", "model_path", "source", "name_or_path", "model_name_or_path", "model_name", "name")
+
+
+def _source_field(node: Node) -> tuple[str, Node] | None:
+    """(word, node) of the field of a model section that names its weights, or None."""
+    if not isinstance(node, Mapping):
+        return None
+    for word, _k, sub, _via in node.entries():
+        if normalise_key(word) in _SOURCE_WORDS and isinstance(sub, (Scalar, Unknown)):
+            return word, sub
+    return None
+
+
 def _fits(value, expected: str) -> bool:
     return fits(value, expected) or expected not in ("int", "number", "bool", "str")
 
@@ -445,23 +505,28 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
     doc = model.doc
     names = dict(spec.fields) if spec and spec.fields else {}
     out: list[Component] = []
-    items: list[tuple[Node | None, Node]]
+    items: list[tuple[Node | None, Node, str]]  # (name, component, its key path below the list)
     if isinstance(node, Sequence):
-        items = [(None, it) for it in node.items]
+        items = [_one_entry(it, names, str(i)) for i, it in enumerate(node.items)]
     elif isinstance(node, Mapping):
-        items = [(k, v) for _n, k, v, _via in node.entries()]
+        items = [(k, v, k.text if isinstance(k, Scalar) else str(i)) for i, (_n, k, v, _via) in enumerate(node.entries())]
     else:
         return out
-    for i, (name_node, item) in enumerate(items):
+    for i, (name_node, item, below) in enumerate(items):
         comp = Component(i, doc.loc(item))
-        at = f"{key}.{name_node.text if isinstance(name_node, Scalar) else i}"
+        at = f"{key}.{below}"
         if name_node is not None:
             comp.fields["name"] = Value("name", name_node.text if isinstance(name_node, Scalar) else "?",
                                         doc.loc(name_node), name_node, "component")
             comp.location = doc.loc(name_node)
         if isinstance(item, Scalar):
-            comp.fields["ref"] = Value("ref", model.read(item), doc.loc(item), item, "component",
-                                       chain=_chain(model, at))
+            val = model.read(item)
+            if name_node is not None and isinstance(val, (int, float)) and not isinstance(val, bool):
+                # a mapping of name -> weight: the name is the reward, the number its weight
+                comp.fields["weight"] = Value("weight", val, doc.loc(item), item, "component",
+                                              chain=_chain(model, at))
+            else:
+                comp.fields["ref"] = Value("ref", val, doc.loc(item), item, "component", chain=_chain(model, at))
         elif isinstance(item, Mapping):
             _component_sandbox(model, comp, item)
             for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
@@ -478,8 +543,28 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                         comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
                                                         _chain(model, f"{at}.{w}"))
                         break
+        named = comp.fields.get("name")
+        if named is not None and not any(f in comp.fields for f in ("ref", "endpoint", "kind")):
+            # a component known by its name alone: the name is the reference (a function by name,
+            # or a model when it reads as a path or repository)
+            comp.fields["ref"] = Value("ref", named.value, named.location, named.node, "component", named.key,
+                                       named.chain)
         out.append(comp)
     return out
+
+
+def _one_entry(item: Node, names: dict, at: str) -> tuple[Node | None, Node, str]:
+    """A list item written as a one-entry mapping (``{accuracy: 1.0}``, ``{judge: team/model}``,
+    ``{style: {kind: judge, ...}}``) whose key is no component field: the same as an entry of a
+    mapping of name -> reward."""
+    if isinstance(item, Mapping):
+        entries = list(item.entries())
+        if len(entries) == 1:
+            word, k, v, _via = entries[0]
+            known = set(names.values()) | {w for words in _FIELD_WORDS.values() for w in words} | set(SANDBOX)
+            if isinstance(k, Scalar) and isinstance(v, (Scalar, Mapping)) and normalise_key(word) not in known:
+                return k, v, f"{at}.{k.text}"
+    return None, item, at
 
 
 def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:

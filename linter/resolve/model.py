@@ -98,6 +98,8 @@ class RunModel:
     unknown: dict[str, Value] = field(default_factory=dict)  # concepts whose value is known only at launch
     touched: set = field(default_factory=set)  # unknown or unusable concepts a rule asked for (engine.run_rule)
     unusable: set = field(default_factory=set)  # concepts written with a value of the wrong shape (VOC-2)
+    # concepts written but not read, because a switch turns their mechanism off -> the switch's Value
+    dead: dict[str, Value] = field(default_factory=dict)
 
     @property
     def path(self) -> str:
@@ -130,6 +132,10 @@ class RunModel:
         return str(v.value).lower() if v is not None and v.value is not None else "rl"
 
     def get(self, concept: str) -> Value | None:
+        """The live value of a concept (stated or derived); None when it is not found, known only at
+        launch, or dead (its mechanism is switched off: see ``dead``)."""
+        if self.dead and concept in self.dead:
+            return None
         v = self.values.get(concept)
         if v is None and (self.unknown and concept in self.unknown or self.unusable and concept in self.unusable):
             self.touched.add(concept)
