@@ -154,15 +154,24 @@ def misread(model, v) -> tuple[str, list[str], bool]:
     if reader == "json":
         return reader, [], stated
     c = CONCEPTS.get(v.concept)
-    return reader, list(_plain_misreaders(node.text, reader if stated else None, c.type if c is not None else "any")), \
-        stated
+    kind = c.type if c is not None else "any"
+    if type(node) is Scalar:  # a scalar as written in a file (a value given elsewhere reads its own way)
+        return reader, list(_plain_misreaders(node.text, reader if stated else None, kind)), stated
+    return reader, _misreaders(node.value, reader if stated else None, kind), stated
 
 
 @functools.lru_cache(maxsize=4096)
 def _plain_misreaders(text: str, reader: str | None, kind: str) -> tuple[str, ...]:
-    """perf: the misreaders of a plain, untagged scalar depend on its text, the reader and the
-    concept's type only; runs repeat them from file to file, so each is worked out once (bounded)."""
-    from trimtab.common.scalars import misreaders, typed
+    """perf: the misreaders of a plain, untagged scalar written in a file depend on its text, the
+    reader and the concept's type only; runs repeat them from file to file, so each is worked out
+    once (bounded)."""
+    from trimtab.common.scalars import typed
+
+    return tuple(_misreaders(lambda version: typed(text, True, None, version), reader, kind))
+
+
+def _misreaders(read, reader: str | None, kind: str) -> list[str]:
+    from trimtab.common.scalars import misreaders
     from trimtab.common.vocabulary import fits
 
     if kind in ("int", "number", "bool", "str"):
@@ -174,7 +183,7 @@ def _plain_misreaders(text: str, reader: str | None, kind: str) -> tuple[str, ..
         # are named 'off'); a date fits neither
         def fit(x):
             return not isinstance(x, str) and fits(x, kind)
-    return tuple(misreaders(lambda version: typed(text, True, None, version), reader, fit))
+    return misreaders(read, reader, fit)
 
 
 def toml_key(text: str) -> str:

@@ -206,8 +206,10 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
             if kind == "mapping":
                 found = []
                 for key, _kn, node, _via in parent.entries():
-                    found.append((key, node))
-                    stack.append((key, node))
+                    if getattr(node, "kind", "") == "scalar":
+                        found.append((key, node))
+                    else:
+                        stack.append((key, node))
             elif kind == "sequence":
                 found = []
                 for node in parent.items:
@@ -218,7 +220,7 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
             else:
                 continue
             for key, node in found:
-                if getattr(node, "kind", "") != "scalar" or id(node) in seen:
+                if id(node) in seen:
                     continue
                 text = node.text
                 memo_key = (key, text, node.tag, node.style, min_length, min_bits) \
