@@ -41,7 +41,10 @@ def _set_options(parser) -> None:
                         help=_ADD_HELP)
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(command: str | None = None) -> argparse.ArgumentParser:
+    """The command line. Given ``command``, only that command's options are declared (start-up:
+    declaring every command's options costs more than a one-file check's own work); every command
+    is still named, with its help line, so usage and ``--help`` read the same."""
     p = _Parser(prog="trimtab", description="Static checker for RL fine-tuning run configurations.")
     from . import __version__
 
@@ -49,8 +52,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--settings", metavar="FILE", help="settings file (default: trimtab.toml or pyproject.toml "
                                                       "found by walking up from the working directory)")
     sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name, (help_, options) in _COMMANDS.items():
+        parser = sub.add_parser(name, help=help_)
+        if command is None or command == name:
+            options(parser)
+    return p
 
-    c = sub.add_parser("check", help="check run configs and report findings")
+
+def _check_options(c) -> None:
     c.add_argument("paths", nargs="*", metavar="PATH", help="files or folders (default: the include globs)")
     c.add_argument("--format", choices=("text", "json", "sarif"), default="text",
                    help="report format: text for people, JSON (linter/report/report.schema.json) or SARIF 2.1.0 "
@@ -71,15 +80,14 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--no-progress", action="store_true", help="no progress bar on a terminal")
     _adoption_options(c)
 
-    e = sub.add_parser("explain", help="show what trimtab read from a run config")
+
+def _explain_options(e) -> None:
     e.add_argument("config", metavar="CONFIG", help="the run config file to explain")
     _set_options(e)
 
-    r = sub.add_parser("rules", help="list the rules, or show one rule's rationale")
+
+def _rules_options(r) -> None:
     r.add_argument("rule_id", nargs="?", metavar="ID", help="a rule id, e.g. BAT-1 (default: list every rule)")
-    _adoption_commands(sub)
-    _add_audit(sub)
-    return p
 
 
 def _adoption_options(c) -> None:
@@ -94,18 +102,17 @@ def _adoption_options(c) -> None:
                         "(a hook framework passes no deleted file); given no paths, only those configs are checked")
 
 
-def _adoption_commands(sub) -> None:
-    m = sub.add_parser("map", help="draft a [tool.trimtab.keys] block for the keys trimtab could not place")
+def _map_options(m) -> None:
     m.add_argument("config", metavar="CONFIG", nargs="+",
                    help="run configs of one layout (or a folder of them) whose keys to place; one key map is drafted")
     m.add_argument("--output", metavar="FILE", help="write the draft block here (default: after the report)")
-    h = sub.add_parser("install-hook", help="write a plain .git/hooks/pre-commit that checks staged configs")
+
+
+def _install_hook_options(h) -> None:
     h.add_argument("--force", action="store_true", help="replace an existing pre-commit hook")
 
 
-def _add_audit(sub) -> None:
-    a = sub.add_parser("audit", help="write a self-contained HTML page: sources with findings in place, "
-                                     "batch arithmetic and token budget drawn, resolved concepts")
+def _audit_options(a) -> None:
     a.add_argument("configs", nargs="+", metavar="CONFIG", help="run config files or folders")
     a.add_argument("--html", required=True, metavar="FILE", help="write the page here ('-': standard output)")
     a.add_argument("--gate", choices=("error", "warning", "note"),
@@ -115,9 +122,46 @@ def _add_audit(sub) -> None:
     _set_options(a)
 
 
+# every command in the order --help lists them: (help line, its options)
+_COMMANDS = {
+    "check": ("check run configs and report findings", _check_options),
+    "explain": ("show what trimtab read from a run config", _explain_options),
+    "rules": ("list the rules, or show one rule's rationale", _rules_options),
+    "map": ("draft a [tool.trimtab.keys] block for the keys trimtab could not place", _map_options),
+    "install-hook": ("write a plain .git/hooks/pre-commit that checks staged configs", _install_hook_options),
+    "audit": ("write a self-contained HTML page: sources with findings in place, "
+              "batch arithmetic and token budget drawn, resolved concepts", _audit_options),
+}
+
+
+def _invoked(argv: list[str]) -> str | None:
+    """The command a command line names, read before parsing (None when unsure: then every
+    command's options are declared). main parses again with them all if argparse reads otherwise."""
+    args = iter(argv)
+    for a in args:
+        if a == "--settings":
+            next(args, None)
+        elif a == "--":
+            return None
+        elif not a.startswith("-"):
+            return a if a in _COMMANDS else None
+    return None
+
+
+def _parse(argv: list[str] | None):
+    """(parser, args, extra) for a command line; only the invoked command's options declared."""
+    words = sys.argv[1:] if argv is None else list(argv)
+    command = _invoked(words)
+    parser = build_parser(command)
+    args, extra = parser.parse_known_args(words)
+    if command is not None and args.command != command:  # read otherwise than guessed: declare everything
+        parser = build_parser()
+        args, extra = parser.parse_known_args(words)
+    return parser, args, extra
+
+
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
-    args, extra = parser.parse_known_args(argv)
+    parser, args, extra = _parse(argv)
     if not args.command:
         parser.print_help()
         return EXIT_INCOMPLETE
@@ -256,7 +300,7 @@ def _refuse_non_configs(paths, settings) -> None:
     one plain message (exit 2), not a parse finding."""
     from .load.discover import relpath
     from .common.settings import SettingsError
-    from .compose.shell import is_config
+    from .compose.sources import is_config
 
     for p in paths:
         path = Path(p)

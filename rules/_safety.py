@@ -138,9 +138,9 @@ def mask(value: str) -> str:
 
 def digest(value: str) -> str:
     """A stable subject for a fingerprint that does not contain the value."""
-    import hashlib  # here, not at the top: only a finding about a secret needs it (start-up)
+    from trimtab.common.paths import sha256_hex
 
-    return "sha256:" + hashlib.sha256(value.encode("utf-8", "surrogatepass")).hexdigest()[:24]
+    return "sha256:" + sha256_hex(value.encode("utf-8", "surrogatepass"))[:24]
 
 
 def safe_url(url: str) -> str:

@@ -585,7 +585,7 @@ def _keys(root: Node):
 
 # --- one draft from every run of the layout ---------------------------------------------------------
 def _roots(m: RunModel):
-    from ..compose.shell import runs_of
+    from ..compose.sources import runs_of
 
     roots = runs_of(m.doc)
     return roots[m.index] if roots and m.index < len(roots) else None

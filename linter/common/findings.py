@@ -137,10 +137,11 @@ class Finding:
 def fingerprint(rule_id: str, path: str | None, key_path: str, subject: Any) -> str:
     """Rule + file + key path + normalised value: survives moved lines and reformatting,
     changes when the offending value changes."""
-    import hashlib  # here, not at the top: start-up (perf); nothing is imported twice
-
     text = "\x1f".join([rule_id, path or "", key_path, _normalise(subject)])
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()[:32]
+    from .paths import sha256_hex
+
+    return sha256_hex(text.encode("utf-8"))[:32]
+
 
 
 def _normalise(value: Any) -> str:

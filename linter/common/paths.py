@@ -12,6 +12,8 @@ file.
 from __future__ import annotations
 
 import errno
+import functools
+import importlib
 import os
 from contextlib import contextmanager
 from pathlib import Path
@@ -140,6 +142,24 @@ def write_cache(path: Path | None, version: int, stamp: str, rows: dict) -> None
 
 def content_hash(data: bytes) -> str:
     """The key a cache keeps a file's derived values under: the hash of its bytes and their count."""
+    return sha256_hex(data) + f":{len(data)}"
+
+
+def sha256_hex(data: bytes) -> str:
+    """SHA-256 (FIPS 180-4) of ``data`` in hexadecimal: every digest trimtab makes (cache keys,
+    finding fingerprints)."""
+    return _sha256()(data).hexdigest()
+
+
+@functools.cache
+def _sha256():
+    """The interpreter's built-in SHA-256 where it has one (the same digest; hashlib's first import
+    loads a whole crypto library, which costs more than a one-file check's own work), else hashlib's."""
+    for name in ("_sha2", "_sha256"):  # the built-in module's name from 3.12, before 3.12
+        try:
+            return importlib.import_module(name).sha256
+        except ImportError:
+            pass
     import hashlib
 
-    return hashlib.sha256(data).hexdigest() + f":{len(data)}"
+    return hashlib.sha256

@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import os
 import re
+import sys
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, TypeVar, cast
@@ -34,7 +35,7 @@ from .nodes import (REMOVE_TAG, Composed, ComposedMapping, CompositionProblem, G
                        Unknown, Unresolved)
 from ..load.document import Document, Mapping, Node, Scalar, Sequence
 from ..common.findings import Location
-from ..common.paths import confined
+from ..common.paths import confined, sha256_hex
 from ..load.discover import matches
 
 
@@ -90,6 +91,13 @@ def load_source(real: Path, shown: str, limits=loader.Limits()) -> Document:
 
 
 _N = TypeVar("_N", bound=Node)
+
+
+def _launch_root(node: Node) -> bool:
+    """Is this run a launch script's training command (shell.LaunchRoot)? Such a node exists only
+    once the shell reader is imported: a check of configs alone never imports it (start-up)."""
+    shell = sys.modules.get(__package__ + ".shell")
+    return shell is not None and isinstance(node, shell.LaunchRoot)
 
 
 def _place(dst: _N, src: Node | None, path: tuple) -> _N:
@@ -358,9 +366,7 @@ class Composer:
         plain = len(layers) == 1 and not self.given and not interpolate and not (
             self.bases_key and isinstance(root, Mapping) and root.get(self.bases_key) is not None) and not (
             self.defaults_key and isinstance(root, Mapping) and root.get(self.defaults_key) is not None)
-        from .shell import LaunchRoot
-
-        if (plain and not isinstance(root, LaunchRoot)) or not isinstance(root, Mapping):
+        if (plain and not _launch_root(root)) or not isinstance(root, Mapping):
             return Composed(root, self._flush(), files)
         self.hist: dict[tuple, list[tuple[Node, str, str]]] = {}
         self.refs: set[tuple] = set()  # every path on the way to a value that holds a ${...}
@@ -416,9 +422,7 @@ class Composer:
     def _layers(self, doc: Document, root: Node, path: str) -> list[tuple[str, Document, Mapping]]:
         out: list[tuple[str, Document, Mapping]] = []
         self._blocks: dict[Path, list] = {}  # base -> the layers it gave, for this run (see _add_base)
-        from .shell import LaunchRoot
-
-        if isinstance(root, LaunchRoot):
+        if _launch_root(root):
             return self._script_layers(doc, root, path)
         if not isinstance(root, Mapping) or not (self.layers or self.overrides_doc is not None or (
                 self.bases_key and root.get(self.bases_key) is not None) or (
@@ -1103,7 +1107,7 @@ class BaseGraph:
     here when not given)."""
 
     def __init__(self, settings, candidates: list[tuple[str, str]] | None = None):
-        from .shell import SCRIPTS
+        from .sources import SCRIPTS
 
         self.settings = settings
         self.root = Path(settings.root).resolve()
@@ -1128,7 +1132,6 @@ class BaseGraph:
 
     # --- the cache of what each content names ------------------------------------------------
     def _stamp(self) -> str:
-        import hashlib
         import json
 
         from .. import __version__
@@ -1144,8 +1147,7 @@ class BaseGraph:
         s = self.settings
         parts = [NAMES_VERSION, __version__, code, self.key, self.dkey, self.scripts,
                  getattr(s, "launch", None) or {}, repr(getattr(s, "limits", None))]
-        return hashlib.sha256(json.dumps(parts, default=repr, sort_keys=True).encode("utf-8", "surrogateescape")
-                              ).hexdigest()
+        return sha256_hex(json.dumps(parts, default=repr, sort_keys=True).encode("utf-8", "surrogateescape"))
 
     def _known(self) -> dict:
         if self._cache is None:
@@ -1153,9 +1155,8 @@ class BaseGraph:
 
             source = getattr(self.settings, "source", None)
             start = Path(source).resolve().parent if source else self.root
-            import hashlib
 
-            where = hashlib.sha256(str(start).encode("utf-8", "surrogateescape")).hexdigest()[:24]
+            where = sha256_hex(str(start).encode("utf-8", "surrogateescape"))[:24]
             self._cache_path = cache_file(start, f"bases-{where}.json")
             self._cache = read_cache(self._cache_path, NAMES_VERSION, self._stamp())
         return self._cache

@@ -42,7 +42,6 @@ from ..common.findings import Location
 
 # Generic defaults (settings: [tool.trimtab.launch]). Topology words are the trade's own words for
 # machines and processes; the settings can add more.
-SCRIPTS = ["**/*.sh", "**/*.bash"]
 PROGRAMS = ["*.py"]
 MODULES = ["*"]
 CONFIG_FLAGS = ["--config", "--config-file", "--config_file"]
@@ -60,7 +59,6 @@ MAX_VALUE = 1 << 16  # characters of one variable's value
 MAX_SCRIPT = 1 << 19  # bytes of one launch script (a long one has a few kilobytes; shell words are costly)
 MAX_INT = (1 << 63) - 1  # shell arithmetic is 64-bit
 
-SHELLS = re.compile(r"^#!\s*\S*/(?:env\s+)?(?:ba|da|k|z)?sh\b")
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
 _ASSIGN = re.compile(r"([A-Za-z_][A-Za-z0-9_]*)(\+?)=")
 _INTERP = re.compile(r"python[0-9.]*")
@@ -76,18 +74,6 @@ _INTERP_OPTS_WITH_VALUE = {"-W", "-X", "-Q"}
 
 # problem kinds (CMP rules report them)
 UNKNOWN_VALUE = "compose-value-unknown"
-
-
-def is_script(shown: str, settings, data: bytes | None = None) -> bool:
-    from ..load.discover import matches
-
-    launch = getattr(settings, "launch", None) or {}
-    if matches(shown, launch.get("scripts", SCRIPTS)):
-        return True
-    if data is not None:
-        first = data[:200].split(b"\n", 1)[0].decode("utf-8", "replace")
-        return bool(SHELLS.match(first))
-    return False
 
 
 # --- the words of a script ---------------------------------------------------------------------
@@ -1117,41 +1103,3 @@ def read(path: str, shown: str, settings, data: bytes | None = None) -> Document
 
     learn(doc)
     return doc
-
-
-def load(path: str, shown: str, settings) -> Document:
-    """Any file trimtab checks: a launch script (by the settings' globs, or a shell's ``#!`` line
-    when the name is not a config's), else a YAML or JSON config."""
-    from ..load import loader
-
-    if is_script(shown, settings):
-        return read(path, shown, settings)
-    if not shown.lower().endswith((".yaml", ".yml", ".json")):
-        data, why = loader.read(path, settings.limits)
-        if not why and data is not None:
-            if is_script(shown, settings, data):
-                return read(path, shown, settings, data)
-            return loader.load(path, shown, settings.limits, data=data)
-    return loader.load(path, shown, settings.limits)
-
-
-def runs_of(doc: Document) -> list:
-    """The roots a run is composed from: a script's training commands, a config's documents."""
-    return doc.runs if doc.fmt == "shell" else doc.roots
-
-
-def is_config(path: str, shown: str, settings) -> bool:
-    """Is a file named on the command line one trimtab checks: YAML, JSON (by name, or by the
-    settings' include globs) or a launch script (by the settings' globs or a shell's ``#!`` line)?"""
-    from ..load.discover import matches
-
-    if shown.lower().endswith((".yaml", ".yml", ".json")) or matches(shown, settings.include):
-        return True
-    if is_script(shown, settings):
-        return True
-    try:
-        with open(path, "rb") as fh:
-            head = fh.read(200)
-    except OSError:
-        return True  # unreadable: reported as such by the check, not as "not a config"
-    return is_script(shown, settings, head)

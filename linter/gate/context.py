@@ -134,7 +134,6 @@ def row_entries(row: dict) -> list[tuple[int, dict[str, Value]]]:
 def _stamp(checker) -> str:
     """What the cached values depend on besides the files: trimtab's code, the settings that
     shape a run, the --set values and the concepts the rules over several runs need."""
-    import hashlib
     import json
 
     from .. import __version__
@@ -153,7 +152,7 @@ def _stamp(checker) -> str:
              [list(o) for o in checker.options.overrides], repr(checker.resolve_opts), list(s.run_configs),
              s.layers, s.bases_key, s.defaults_key, s.launch, s.overrides, repr(s.limits), list(s.include),
              list(s.exclude)]
-    return hashlib.sha256(json.dumps(parts, default=repr, sort_keys=True).encode("utf-8", "surrogateescape")).hexdigest()
+    return paths.sha256_hex(json.dumps(parts, default=repr, sort_keys=True).encode("utf-8", "surrogateescape"))
 
 
 def other_entries(checker, checked, start: Path, files=None):
@@ -161,7 +160,6 @@ def other_entries(checker, checked, start: Path, files=None):
     through the same discovery and limits (``files``: that discovery's result, when it was made
     already), from the cache where each file (and every file its runs were composed from) is
     unchanged. A generator; the cache is written when it ends."""
-    import hashlib
 
     from .runner import SetEntry
 
@@ -177,7 +175,7 @@ def other_entries(checker, checked, start: Path, files=None):
         return  # every run of the repository was checked itself: no cache to read (perf: start-up)
     stamp = _stamp(checker)
     # one cache per settings folder (the stamp inside it says what it was built for: a mismatch rebuilds it)
-    where = cache_file(start, hashlib.sha256(str(start).encode("utf-8", "surrogateescape")).hexdigest()[:24])
+    where = cache_file(start, paths.sha256_hex(str(start).encode("utf-8", "surrogateescape"))[:24])
     cache = RunCache(where, stamp)
     hashes: dict[str, str | None] = {}
 

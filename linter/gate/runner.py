@@ -142,7 +142,7 @@ class Checker:
                 gc.enable()
 
     def _check_file(self, path: str, shown: str, keep: bool) -> FileResult:
-        from ..compose.shell import load, runs_of
+        from ..compose.sources import load, runs_of
 
         res = FileResult(shown)
         doc = load(path, shown, self.settings)
@@ -237,7 +237,7 @@ class Checker:
         of the repository, linter/gate/context.py): (index, values) of each of its runs, the other files
         they were composed from, and whether that is uncertain (the file could not be read, or a
         base is missing: not to be kept in a cache)."""
-        from ..compose.shell import load, runs_of
+        from ..compose.sources import load, runs_of
 
         doc = load(path, shown, self.settings)
         if not doc.readable or shown in self.composer.base_files:
@@ -300,14 +300,14 @@ class Checker:
 def _known_ids(registry: Registry, options: CheckOptions) -> None:
     """--only and --skip name rule ids or areas that exist: a typo would check nothing (or skip
     nothing) and pass the gate, so it stops the check with the nearest known ids."""
-    import difflib
-
     from ..engine.registry import TOOL_RULES
 
     ids = set(registry.rules) | set(TOOL_RULES)
     known = ids | {i.split("-")[0] for i in ids}
     for option, given in (("--only", options.only), ("--skip", options.skip)):
         for name in sorted(set(given) - known):
+            import difflib  # only for a name that is not known (start-up)
+
             near = difflib.get_close_matches(name, sorted(known), n=3, cutoff=0.5)
             hint = f" (did you mean {', '.join(near)}?)" if near else ""
             raise SettingsError(f"{option} {name}: expected a rule id or area, found unknown {name!r}{hint}; "
