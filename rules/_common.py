@@ -5,6 +5,8 @@ value means "off", where to point a finding about a value that is not written at
 """
 from __future__ import annotations
 
+import functools
+
 from trimtab import Location
 from trimtab.common.vocabulary import CRITIC_FREE as _NO_CRITIC
 
@@ -142,9 +144,8 @@ def misread(model, v) -> tuple[str, list[str], bool]:
     """(the reader of the file a concept's value was written in, the YAML readers that misread it
     (trimtab.common.scalars.misreaders), whether the settings name that reader). A quoted, tagged or
     structured value, and any value of a JSON file (JSON's own grammar), is misread by none."""
-    from trimtab import Scalar
-    from trimtab.common.scalars import misreaders
-    from trimtab.common.vocabulary import CONCEPTS, fits
+    from trimtab.common.vocabulary import CONCEPTS
+    from trimtab.load.document import Scalar  # perf: not through the package's lazy names
 
     node = v.node
     if not isinstance(node, Scalar) or not node.plain or node.tag:
@@ -154,6 +155,25 @@ def misread(model, v) -> tuple[str, list[str], bool]:
         return reader, [], stated
     c = CONCEPTS.get(v.concept)
     kind = c.type if c is not None else "any"
+    if type(node) is Scalar:  # a scalar as written in a file (a value given elsewhere reads its own way)
+        return reader, list(_plain_misreaders(node.text, reader if stated else None, kind)), stated
+    return reader, _misreaders(node.value, reader if stated else None, kind), stated
+
+
+@functools.lru_cache(maxsize=4096)
+def _plain_misreaders(text: str, reader: str | None, kind: str) -> tuple[str, ...]:
+    """perf: the misreaders of a plain, untagged scalar written in a file depend on its text, the
+    reader and the concept's type only; runs repeat them from file to file, so each is worked out
+    once (bounded)."""
+    from trimtab.common.scalars import typed
+
+    return tuple(_misreaders(lambda version: typed(text, True, None, version), reader, kind))
+
+
+def _misreaders(read, reader: str | None, kind: str) -> list[str]:
+    from trimtab.common.scalars import misreaders
+    from trimtab.common.vocabulary import fits
+
     if kind in ("int", "number", "bool", "str"):
         def fit(x):
             return fits(x, kind)
@@ -163,7 +183,7 @@ def misread(model, v) -> tuple[str, list[str], bool]:
         # are named 'off'); a date fits neither
         def fit(x):
             return not isinstance(x, str) and fits(x, kind)
-    return reader, misreaders(node.value, reader if stated else None, fit), stated
+    return misreaders(read, reader, fit)
 
 
 def toml_key(text: str) -> str:

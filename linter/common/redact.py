@@ -160,7 +160,8 @@ def _refers(text: str, env) -> bool:
 
 
 def reason(key: str, node, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> str:
-    """Why the scalar ``node`` under ``key`` is a literal credential, or "" when it is not one."""
+    """Why the scalar ``node`` under ``key`` is a literal credential, or "" when it is not one. Reads
+    the node's text, tag and style only (``credentials`` keeps its answers by them)."""
     text = node.text
     if not isinstance(text, str) or not text.strip() or node.tag not in (None, "!", "tag:yaml.org,2002:str"):
         return ""
@@ -176,27 +177,12 @@ def reason(key: str, node, min_length: int = MIN_LENGTH, min_bits: float = MIN_B
     return ""
 
 
-def _entries(root):
-    """(key text, value node) for every mapping entry (and sequence item under a key), each once."""
-    # nodes are told by their kind (redact sits below the located tree: findings mask their text)
-    seen = set()
-    stack = [("", root)]
-    while stack:
-        key, node = stack.pop()
-        if id(node) in seen:
-            continue
-        seen.add(id(node))
-        kind = getattr(node, "kind", "")
-        if kind == "mapping":
-            for k, _kn, v, _via in node.entries():
-                yield k, v
-                stack.append((k, v))
-        elif kind == "sequence":
-            for item in node.items:
-                if getattr(item, "kind", "") == "scalar":
-                    yield key, item
-                else:
-                    stack.append((key, item))
+# perf: ``reason`` reads a scalar's key, text, tag and style only (its YAML 1.2 value follows from
+# them), and runs repeat the same entries from file to file: its answers are kept, for short texts and
+# a bounded number of entries (emptied when full, so memory stays flat over any number of files).
+_REASONS: dict[tuple, str] = {}
+_MEMO_TEXT = 200
+_MEMO_SIZE = 16384
 
 
 def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> list[tuple[str, Any, str]]:
@@ -209,13 +195,48 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
             return memo
     out, seen = [], set()
     for root in doc.roots:
-        for key, node in _entries(root):
-            if getattr(node, "kind", "") != "scalar" or id(node) in seen:
+        # (key text, value node) for every mapping entry (and sequence item under a key), each once;
+        # nodes are told by their kind (redact sits below the located tree: findings mask their text)
+        walked: set[int] = set()
+        stack = [("", root)]
+        while stack:
+            parent_key, parent = stack.pop()
+            if id(parent) in walked:
                 continue
-            why = reason(key, node, min_length, min_bits)
-            if why:
-                seen.add(id(node))
-                out.append((key, node, why))
+            walked.add(id(parent))
+            kind = getattr(parent, "kind", "")
+            if kind == "mapping":
+                found = []
+                for key, _kn, node, _via in parent.entries():
+                    if getattr(node, "kind", "") == "scalar":
+                        found.append((key, node))
+                    else:
+                        stack.append((key, node))
+            elif kind == "sequence":
+                found = []
+                for node in parent.items:
+                    if getattr(node, "kind", "") == "scalar":
+                        found.append((parent_key, node))
+                    else:
+                        stack.append((parent_key, node))
+            else:
+                continue
+            for key, node in found:
+                if id(node) in seen:
+                    continue
+                text = node.text
+                memo_key = (key, text, node.tag, node.style, min_length, min_bits) \
+                    if type(node).__name__ == "Scalar" and isinstance(text, str) and len(text) <= _MEMO_TEXT else None
+                why = _REASONS.get(memo_key) if memo_key is not None else None
+                if why is None:
+                    why = reason(key, node, min_length, min_bits)
+                    if memo_key is not None:
+                        if len(_REASONS) >= _MEMO_SIZE:
+                            _REASONS.clear()
+                        _REASONS[memo_key] = why
+                if why:
+                    seen.add(id(node))
+                    out.append((key, node, why))
     if default:
         vars(doc)["_credentials"] = out
     return out

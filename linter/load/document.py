@@ -88,16 +88,22 @@ class Mapping(Node):
         A key written twice keeps its last value (as most loaders do; the duplicate is a
         finding of its own). Entries brought in by a ``<<`` merge appear only where no
         explicit key of that name exists."""
-        chosen: dict[str, tuple[Node, Node, Node | None]] = {}
+        # perf: every walk of the tree reads each mapping through here; key_text inline, one tuple
+        # per entry, and the entries handed out as they are kept
+        chosen: dict[str, tuple[str, Node, Node, Node | None]] = {}
         for k, v in self.pairs:
-            name = key_text(k)
-            if name == "<<" and isinstance(k, Scalar) and k.plain:
-                continue
-            chosen[name] = (k, v, None)
+            if isinstance(k, Scalar):
+                name = k.text
+                if name == "<<" and k.style is None:
+                    continue
+            else:
+                name = "?"
+            chosen[name] = (name, k, v, None)
         for k, v, via in self.merged:
-            chosen.setdefault(key_text(k), (k, v, via))
-        for name, (k, v, via) in chosen.items():
-            yield name, k, v, via
+            name = k.text if isinstance(k, Scalar) else "?"
+            if name not in chosen:
+                chosen[name] = (name, k, v, via)
+        return iter(chosen.values())
 
     def get(self, name: str) -> Node | None:
         if self._index is None:
