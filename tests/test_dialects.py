@@ -69,9 +69,16 @@ def _kinds(text, fits):
     return misreaders(lambda r: readers[r](text), None, fits)
 
 
+def _number(x) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool)
+
+
+def _switch(x) -> bool:
+    return isinstance(x, bool)
+
+
 def test_which_reader_misreads_what():
-    number = lambda x: isinstance(x, (int, float)) and not isinstance(x, bool)  # noqa: E731
-    switch = lambda x: isinstance(x, bool)  # noqa: E731
+    number, switch = _number, _switch
     # 3e-6: YAML 1.1 text (PyYAML: yaml.safe_load("v: 3e-6") == {"v": "3e-6"}); the others a float
     assert _kinds("3e-6", number) == ["1.1"]
     # 010: octal 8 under both 1.1 readers, decimal 10 under the 1.2 core schema
