@@ -11,20 +11,9 @@ import sys
 
 import pytest
 
-from support import REPO
+from support import REPO, RUN_CONFIG
 
-BAD = """\
-run: {estimator: grpo, seed: 1, ref_model: ./weights/base}
-optim: {max_grad_norm: 1.0, clip_ratio: 0.2}
-rollout:
-  group_size: 8
-  temperature: 0.9
-batch:
-  prompts: 64
-kl:
-  coef: 0.04
-  coef: 0.4
-"""
+BAD = RUN_CONFIG + "  coef: 0.4\n"  # a duplicate key in the kl section RUN_CONFIG ends with
 GOOD = BAD.replace("  coef: 0.4\n", "")
 
 

@@ -6,20 +6,9 @@ from __future__ import annotations
 
 import pytest
 
-from support import RULE_FIXTURES, check_json, run_cli
+from support import RULE_FIXTURES, RUN_CONFIG, check_json, run_cli
 
-RUN = """\
-run: {estimator: grpo, seed: 1, ref_model: ./weights/base}
-optim: {max_grad_norm: 1.0, clip_ratio: 0.2}
-rollout:
-  group_size: 8
-  temperature: 0.9
-batch:
-  prompts: 64
-kl:
-  coef: 0.04
-  estimator: low_var_kl
-"""
+RUN = RUN_CONFIG + "  estimator: low_var_kl\n"  # support.RUN_CONFIG ends in its kl section
 
 
 def _repo(tmp_path, settings: str, text: str = RUN):
