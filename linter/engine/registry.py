@@ -5,14 +5,14 @@ group; the built-in rules register the same way.
 """
 from __future__ import annotations
 
-import dataclasses
+from reprlib import recursive_repr
 import re
-from dataclasses import dataclass, field
 from types import ModuleType
 from typing import Any, Callable, Iterable, Iterator, Union
 
 import pluggy
 
+from ..common.record import frozen_delattr, frozen_setattr
 from ..load.document import Document
 from ..common.findings import Finding, Level, Location
 from ..resolve.model import RunModel
@@ -42,7 +42,6 @@ class Specs:
         """Return the additional concepts this plugin's rules speak of (name, type, unit, meaning)."""
 
 
-@dataclass(frozen=True)
 class Rule:
     id: str  # area code + number, stable: "BAT-3"
     name: str  # readable, kebab-case
@@ -50,15 +49,55 @@ class Rule:
     summary: str
     rationale: str
     check: Callable[["Context"], Iterable[Finding] | None]
-    needs: tuple[str, ...] = ()  # concepts the rule cannot work without
-    options: dict = field(default_factory=dict)
-    cwe: int | None = None
-    help: str = ""
-    rl_only: bool = True  # skipped for supervised/distillation stages and non-RL files
-    scope: str = "run"  # run (one RunModel), file (every Document, RL or not), set (all runs at once)
+    needs: tuple[str, ...]  # concepts the rule cannot work without
+    options: dict
+    cwe: int | None
+    help: str
+    rl_only: bool  # skipped for supervised/distillation stages and non-RL files
+    scope: str  # run (one RunModel), file (every Document, RL or not), set (all runs at once)
     # file rules only: also run on every other file a run is composed from (its bases, the overrides
     # file, the settings' layers), reporting in that file, whether or not that file is checked itself
-    sources: bool = False
+    sources: bool
+
+    def __init__(
+            self, id: str, name: str, level: Level, summary: str, rationale: str,
+            check: Callable[["Context"], Iterable[Finding] | None], needs: tuple[str, ...] = (),
+            options: dict | None = None, cwe: int | None = None, help: str = "", rl_only: bool = True,
+            scope: str = "run", sources: bool = False
+    ) -> None:
+        object.__setattr__(self, "id", id)
+        object.__setattr__(self, "name", name)
+        object.__setattr__(self, "level", level)
+        object.__setattr__(self, "summary", summary)
+        object.__setattr__(self, "rationale", rationale)
+        object.__setattr__(self, "check", check)
+        object.__setattr__(self, "needs", needs)
+        object.__setattr__(self, "options", {} if options is None else options)
+        object.__setattr__(self, "cwe", cwe)
+        object.__setattr__(self, "help", help)
+        object.__setattr__(self, "rl_only", rl_only)
+        object.__setattr__(self, "scope", scope)
+        object.__setattr__(self, "sources", sources)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"id={self.id!r}, name={self.name!r}, level={self.level!r}, summary={self.summary!r}, "
+            f"rationale={self.rationale!r}, check={self.check!r}, needs={self.needs!r}, options={self.options!r}, "
+            f"cwe={self.cwe!r}, help={self.help!r}, rl_only={self.rl_only!r}, scope={self.scope!r}, "
+            f"sources={self.sources!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.id, self.name, self.level, self.summary, self.rationale, self.check, self.needs, self.options, self.cwe, self.help, self.rl_only, self.scope, self.sources) ==
+            (other.id, other.name, other.level, other.summary, other.rationale, other.check, other.needs, other.options, other.cwe, other.help, other.rl_only, other.scope, other.sources))
+
+    def __hash__(self) -> int:
+        return hash((self.id, self.name, self.level, self.summary, self.rationale, self.check, self.needs, self.options, self.cwe, self.help, self.rl_only, self.scope, self.sources))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
     @property
     def area(self) -> str:
@@ -157,7 +196,8 @@ def validate(r: Any) -> Rule:
         raise RuleError("rl_only", "true or false", r.rl_only)
     if not isinstance(r.sources, bool) or (r.sources and r.scope != "file"):
         raise RuleError("sources", "true or false (true only for a rule of scope file)", r.sources)
-    return r if r.level is level else dataclasses.replace(r, level=level)
+    return r if r.level is level else Rule(r.id, r.name, level, r.summary, r.rationale, r.check, r.needs, r.options, r.cwe,
+                                                 r.help, r.rl_only, r.scope, r.sources)
 
 
 def _close(a: str, b: str) -> bool:
