@@ -32,6 +32,9 @@ def _off_the_import_path() -> None:
 
 def main() -> int:
     _off_the_import_path()
+    from .common import startup
+
+    startup.pause()  # until the files are read (start-up; common/startup.py)
     from .cli import main as cli_main
 
     return cli_main()

@@ -302,6 +302,9 @@ class Pipeline:
     # --- load, compose, resolve, rules, filter, gate ----------------------------------------------
     def run(self, req: Request, files: tuple[list[tuple[str, str]], list[str]] | None = None) -> Outcome:
         """The Outcome of the request; ``files``: (files, missing) already discovered."""
+        from .common import startup
+
+        startup.resume()  # the command paused the collector for its start-up (common/startup.py)
         settings = self.settings
         files_, missing = files if files is not None else self.discover(req)
         checker = Checker(settings, self.registry, CheckOptions(req.only, req.skip, list(req.overrides)))
