@@ -100,6 +100,7 @@ class RunModel:
     unusable: set = field(default_factory=set)  # concepts written with a value of the wrong shape (VOC-2)
     # concepts written but not read, because a switch turns their mechanism off -> the switch's Value
     dead: dict[str, Value] = field(default_factory=dict)
+    _readers: dict = field(default_factory=dict, repr=False, compare=False)  # shown path -> reader (see reader)
 
     @property
     def path(self) -> str:
@@ -110,6 +111,12 @@ class RunModel:
         for a .json file, else the first of the settings' readers whose glob matches the file, else
         yaml_version (named when written in the settings, else the default, assumed)."""
         shown = getattr(node, "file", None) or self.doc.path
+        known = self._readers.get(shown)  # perf: once per file of the run
+        if known is None:
+            known = self._readers[shown] = self._reader_of(shown)
+        return known
+
+    def _reader_of(self, shown: str) -> tuple[str, bool]:
         if shown.lower().endswith(".json") or shown == self.doc.path and self.doc.fmt == "json":
             return "json", True
         if self.readers:
