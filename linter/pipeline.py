@@ -11,8 +11,8 @@ what the exit status is; no view loads a file again.
 """
 from __future__ import annotations
 
+from reprlib import recursive_repr
 from collections.abc import Callable, Iterable, Iterator
-from dataclasses import dataclass, field
 from itertools import chain
 from pathlib import Path
 from typing import Any
@@ -27,33 +27,81 @@ from .common.spill import Stream
 EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
 
 
-@dataclass
 class Request:
     """What a command asks the pipeline for."""
 
-    paths: list[str] = field(default_factory=list)  # none: the settings' include globs
-    only: set[str] = field(default_factory=set)
-    skip: set[str] = field(default_factory=set)
-    overrides: list[tuple] = field(default_factory=list)  # (key path, text, added) from --set / --add
-    gate: str | None = None  # default: the settings' gate
-    accepted: str | None = None  # --accepted FILE (else the settings' accepted file)
-    apply_accepted: bool = True  # False: the accepted-findings file is not read (--write-accepted)
-    own_outputs: tuple[str, ...] = ()  # files trimtab writes in this run: never checked as configs
-    since: str | None = None  # a git ref: only files changed since it (and the runs built on them)
-    jobs: int | None = None  # default: the settings' jobs (1 when the models are kept)
-    confine: bool = True  # paths given must lie inside the repository (a one-off audit may look outside)
-    dependants: bool = True  # a base among the files brings the runs built on it
-    staged_files: list[tuple[str, str]] | None = None  # check --staged: the files, exported from the index
-    staged_missing: list[str] = field(default_factory=list)  # check --staged: staged files refused (discover.Refused)
-    keep_models: bool = False  # keep each file's Document and run models (audit, explain, map)
-    guard: Callable[[list[tuple[str, str]]], None] | None = None  # sees the files found, may refuse the run
-    progress: Callable[[int], Any] | None = None  # progress(number of files) -> a progress callback or None
-    notes: Callable[[str], None] | None = None  # where notes about the settings go (stderr)
-    cross_run: bool = False  # a check of some files judges them against every run of the repository
-    changed: list[str] | None = None  # check --staged: the staged files, deleted and renamed-away ones too
+    paths: list[str]  # none: the settings' include globs
+    only: set[str]
+    skip: set[str]
+    overrides: list[tuple]  # (key path, text, added) from --set / --add
+    gate: str | None  # default: the settings' gate
+    accepted: str | None  # --accepted FILE (else the settings' accepted file)
+    apply_accepted: bool  # False: the accepted-findings file is not read (--write-accepted)
+    own_outputs: tuple[str, ...]  # files trimtab writes in this run: never checked as configs
+    since: str | None  # a git ref: only files changed since it (and the runs built on them)
+    jobs: int | None  # default: the settings' jobs (1 when the models are kept)
+    confine: bool  # paths given must lie inside the repository (a one-off audit may look outside)
+    dependants: bool  # a base among the files brings the runs built on it
+    staged_files: list[tuple[str, str]] | None  # check --staged: the files, exported from the index
+    staged_missing: list[str]  # check --staged: staged files refused (discover.Refused)
+    keep_models: bool  # keep each file's Document and run models (audit, explain, map)
+    guard: Callable[[list[tuple[str, str]]], None] | None  # sees the files found, may refuse the run
+    progress: Callable[[int], Any] | None  # progress(number of files) -> a progress callback or None
+    notes: Callable[[str], None] | None  # where notes about the settings go (stderr)
+    cross_run: bool  # a check of some files judges them against every run of the repository
+    changed: list[str] | None  # check --staged: the staged files, deleted and renamed-away ones too
+
+    def __init__(
+            self, paths: list[str] | None = None, only: set[str] | None = None, skip: set[str] | None = None,
+            overrides: list[tuple] | None = None, gate: str | None = None, accepted: str | None = None,
+            apply_accepted: bool = True, own_outputs: tuple[str, ...] = (), since: str | None = None,
+            jobs: int | None = None, confine: bool = True, dependants: bool = True,
+            staged_files: list[tuple[str, str]] | None = None, staged_missing: list[str] | None = None,
+            keep_models: bool = False, guard: Callable[[list[tuple[str, str]]], None] | None = None,
+            progress: Callable[[int], Any] | None = None, notes: Callable[[str], None] | None = None,
+            cross_run: bool = False, changed: list[str] | None = None
+    ) -> None:
+        self.paths = [] if paths is None else paths
+        self.only = set() if only is None else only
+        self.skip = set() if skip is None else skip
+        self.overrides = [] if overrides is None else overrides
+        self.gate = gate
+        self.accepted = accepted
+        self.apply_accepted = apply_accepted
+        self.own_outputs = own_outputs
+        self.since = since
+        self.jobs = jobs
+        self.confine = confine
+        self.dependants = dependants
+        self.staged_files = staged_files
+        self.staged_missing = [] if staged_missing is None else staged_missing
+        self.keep_models = keep_models
+        self.guard = guard
+        self.progress = progress
+        self.notes = notes
+        self.cross_run = cross_run
+        self.changed = changed
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"paths={self.paths!r}, only={self.only!r}, skip={self.skip!r}, overrides={self.overrides!r}, "
+            f"gate={self.gate!r}, accepted={self.accepted!r}, apply_accepted={self.apply_accepted!r}, "
+            f"own_outputs={self.own_outputs!r}, since={self.since!r}, jobs={self.jobs!r}, "
+            f"confine={self.confine!r}, dependants={self.dependants!r}, staged_files={self.staged_files!r}, "
+            f"staged_missing={self.staged_missing!r}, keep_models={self.keep_models!r}, guard={self.guard!r}, "
+            f"progress={self.progress!r}, notes={self.notes!r}, cross_run={self.cross_run!r}, "
+            f"changed={self.changed!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.paths, self.only, self.skip, self.overrides, self.gate, self.accepted, self.apply_accepted, self.own_outputs, self.since, self.jobs, self.confine, self.dependants, self.staged_files, self.staged_missing, self.keep_models, self.guard, self.progress, self.notes, self.cross_run, self.changed) ==
+            (other.paths, other.only, other.skip, other.overrides, other.gate, other.accepted, other.apply_accepted, other.own_outputs, other.since, other.jobs, other.confine, other.dependants, other.staged_files, other.staged_missing, other.keep_models, other.guard, other.progress, other.notes, other.cross_run, other.changed))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
-@dataclass
 class Outcome:
     """The checked run, for every view."""
 
@@ -68,9 +116,47 @@ class Outcome:
     crashed: bool  # a rule crashed
     runs: int
     skipped: int
-    kept: dict[str, Kept] = field(default_factory=dict)  # shown path -> Document and run models (on request)
-    accepted_in_place: int = 0  # findings accepted by acceptance comments
-    tally: dict = field(default_factory=dict)  # what the accepted-findings file accepted (set on each pass)
+    kept: dict[str, Kept]  # shown path -> Document and run models (on request)
+    accepted_in_place: int  # findings accepted by acceptance comments
+    tally: dict  # what the accepted-findings file accepted (set on each pass)
+
+    def __init__(
+            self, settings: Settings, registry: Registry, files: list[tuple[str, str]], missing: list[str],
+            checked: Any, recorded: Iterable[Finding], findings: Iterable[Finding], gate: Level, crashed: bool,
+            runs: int, skipped: int, kept: dict[str, Kept] | None = None, accepted_in_place: int = 0,
+            tally: dict | None = None
+    ) -> None:
+        self.settings = settings
+        self.registry = registry
+        self.files = files
+        self.missing = missing
+        self.checked = checked
+        self.recorded = recorded
+        self.findings = findings
+        self.gate = gate
+        self.crashed = crashed
+        self.runs = runs
+        self.skipped = skipped
+        self.kept = {} if kept is None else kept
+        self.accepted_in_place = accepted_in_place
+        self.tally = {} if tally is None else tally
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"settings={self.settings!r}, registry={self.registry!r}, files={self.files!r}, "
+            f"missing={self.missing!r}, checked={self.checked!r}, recorded={self.recorded!r}, "
+            f"findings={self.findings!r}, gate={self.gate!r}, crashed={self.crashed!r}, runs={self.runs!r}, "
+            f"skipped={self.skipped!r}, kept={self.kept!r}, accepted_in_place={self.accepted_in_place!r}, "
+            f"tally={self.tally!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.settings, self.registry, self.files, self.missing, self.checked, self.recorded, self.findings, self.gate, self.crashed, self.runs, self.skipped, self.kept, self.accepted_in_place, self.tally) ==
+            (other.settings, other.registry, other.files, other.missing, other.checked, other.recorded, other.findings, other.gate, other.crashed, other.runs, other.skipped, other.kept, other.accepted_in_place, other.tally))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     @property
     def accepted(self) -> int:
@@ -216,6 +302,9 @@ class Pipeline:
     # --- load, compose, resolve, rules, filter, gate ----------------------------------------------
     def run(self, req: Request, files: tuple[list[tuple[str, str]], list[str]] | None = None) -> Outcome:
         """The Outcome of the request; ``files``: (files, missing) already discovered."""
+        from .common import startup
+
+        startup.resume()  # the command paused the collector for its start-up (common/startup.py)
         settings = self.settings
         files_, missing = files if files is not None else self.discover(req)
         checker = Checker(settings, self.registry, CheckOptions(req.only, req.skip, list(req.overrides)))

@@ -2,8 +2,8 @@
 run, the cautions every safety finding carries, and masking of values that must not be shown."""
 from __future__ import annotations
 
+from reprlib import recursive_repr
 import re
-from dataclasses import dataclass
 
 from trimtab import Component, Location
 
@@ -90,11 +90,26 @@ def scanner(ctx):
     return make(ctx.settings if ctx.settings is not None else ctx.model.settings)
 
 
-@dataclass
 class CodeReward:
     comp: Component  # the reward component
     declared: bool  # kind: code
     calls: list  # codescan Hits of category exec (may be empty when declared)
+
+    def __init__(self, comp: Component, declared: bool, calls: list) -> None:
+        self.comp = comp
+        self.declared = declared
+        self.calls = calls
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return f"{self.__class__.__qualname__}(comp={self.comp!r}, declared={self.declared!r}, calls={self.calls!r})"
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.comp, self.declared, self.calls) == (other.comp, other.declared, other.calls)
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     @property
     def config(self) -> Location:

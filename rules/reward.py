@@ -2,12 +2,13 @@
 reward comes from, how a remote reward is reached, the weights, and the answer-format pattern."""
 from __future__ import annotations
 
+from reprlib import recursive_repr
 import functools
 import os
 import re
-from dataclasses import dataclass
 from pathlib import Path
 
+from trimtab.common.record import frozen_delattr, frozen_setattr
 from trimtab import Location, Scalar, rule
 from trimtab.common import budget
 
@@ -328,15 +329,42 @@ PATTERN_BUDGET_S = 1.0
 _FLAGS = (0, re.DOTALL, re.DOTALL | re.MULTILINE)
 
 
-@dataclass(frozen=True)
 class Trial:
     """What testing one pattern against the sample answers found (one computation for REW-9/10/11)."""
 
-    invalid: str = ""  # why the pattern does not compile ("" when it does)
-    matched: bool | None = None  # some sample matched (None: not tested)
-    costly: int = 0  # > 0: the budget ran out on a sample this many characters long (0: the compile)
-    over: bool = False  # the budget ran out
-    untested: str = ""  # why it could not be tested in bounded time
+    invalid: str  # why the pattern does not compile ("" when it does)
+    matched: bool | None  # some sample matched (None: not tested)
+    costly: int  # > 0: the budget ran out on a sample this many characters long (0: the compile)
+    over: bool  # the budget ran out
+    untested: str  # why it could not be tested in bounded time
+
+    def __init__(
+            self, invalid: str = "", matched: bool | None = None, costly: int = 0, over: bool = False,
+            untested: str = ""
+    ) -> None:
+        object.__setattr__(self, "invalid", invalid)
+        object.__setattr__(self, "matched", matched)
+        object.__setattr__(self, "costly", costly)
+        object.__setattr__(self, "over", over)
+        object.__setattr__(self, "untested", untested)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"invalid={self.invalid!r}, matched={self.matched!r}, costly={self.costly!r}, over={self.over!r}, "
+            f"untested={self.untested!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.invalid, self.matched, self.costly, self.over, self.untested) ==
+            (other.invalid, other.matched, other.costly, other.over, other.untested))
+
+    def __hash__(self) -> int:
+        return hash((self.invalid, self.matched, self.costly, self.over, self.untested))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
 
 @functools.lru_cache(maxsize=64)

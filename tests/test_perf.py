@@ -206,6 +206,55 @@ def test_entry_point_of_a_plugin_folder_is_loaded(tmp_path, monkeypatch):
     assert reg.pm.get_plugin("lowfield") is not None
 
 
+def test_builtin_rules_registered_without_pluggy_are_the_ones_pluggy_registers():
+    """Only the built-in rules installed: they are registered directly, without a plugin manager
+    (start-up); a plugin manager built for a given plugin registers the same rules, key maps and
+    concepts, and one asked for afterwards holds the built-in rules."""
+    direct = engine.Registry()
+    assert direct._pm is None and not direct.errors
+    managed = engine.Registry(plugins=[type("NoHooks", (), {})()])
+    assert managed._pm is not None and not managed.errors
+    assert list(direct.rules) == list(managed.rules) and direct.rules == managed.rules
+    assert direct.key_maps == managed.key_maps and direct.concepts == managed.concepts
+    assert direct.pm.get_plugin("builtin") is not None
+    assert direct.pm.get_plugin("builtin") is managed.pm.get_plugin("builtin")
+
+
+def test_module_names_are_pkgutils(tmp_path):
+    """collect() lists a package's modules as pkgutil.iter_modules does (without importing inspect)."""
+    import pkgutil
+
+    import trimtab_rules
+
+    (tmp_path / "pkg").mkdir()
+    (tmp_path / "pkg" / "__init__.py").write_text("")
+    (tmp_path / "data").mkdir()  # no __init__: not a package
+    for name in ("a.py", "b.pyc", "c.txt", "d.e.py", "__init__.py", "_helpers.py"):
+        (tmp_path / name).write_text("")
+    for folders in ([str(tmp_path)], list(trimtab_rules.__path__)):
+        assert engine._module_names(folders) == {i.name for i in pkgutil.iter_modules(folders)}
+
+
+def test_usage_and_help_are_argparses_layout_at_the_terminal_width(monkeypatch):
+    """Options are declared with a fixed-width formatter (no shutil at start-up); usage and help
+    are laid out by argparse's own formatter at the terminal's width (COLUMNS)."""
+    import argparse
+
+    from trimtab import cli
+
+    layouts = []
+    for columns in ("44", "160"):
+        monkeypatch.setenv("COLUMNS", columns)
+        parser = cli.build_parser()
+        parsers = [parser] + list(cli._commands(parser).values())
+        ours = [(p.format_usage(), p.format_help()) for p in parsers]
+        for p in parsers:
+            p.formatter_class = argparse.HelpFormatter
+        assert ours == [(p.format_usage(), p.format_help()) for p in parsers]
+        layouts.append(ours)
+    assert layouts[0] != layouts[1]  # the width is the terminal's, not the fixed one
+
+
 # --- the benchmark's corpus has the shapes the issue names ---------------------------------------
 def test_benchmark_corpus_shapes(tmp_path):
     paths = bench.make_corpus(tmp_path, 60)

@@ -2,8 +2,10 @@
 from __future__ import annotations
 
 import enum
-from dataclasses import dataclass, field
+from reprlib import recursive_repr
 from typing import Any
+
+from .record import frozen_delattr, frozen_setattr
 
 
 class Level(enum.IntEnum):
@@ -26,7 +28,6 @@ class Level(enum.IntEnum):
         return self.name.lower()
 
 
-@dataclass(frozen=True)
 class Location:
     """A place in a file (1-based line and column, as a person counts them).
 
@@ -35,12 +36,42 @@ class Location:
     """
 
     path: str | None
-    line: int = 0
-    col: int = 0
-    end_line: int = 0
-    end_col: int = 0
-    message: str = ""
-    key_path: str = ""
+    line: int
+    col: int
+    end_line: int
+    end_col: int
+    message: str
+    key_path: str
+
+    def __init__(
+            self, path: str | None, line: int = 0, col: int = 0, end_line: int = 0, end_col: int = 0,
+            message: str = "", key_path: str = ""
+    ) -> None:
+        object.__setattr__(self, "path", path)
+        object.__setattr__(self, "line", line)
+        object.__setattr__(self, "col", col)
+        object.__setattr__(self, "end_line", end_line)
+        object.__setattr__(self, "end_col", end_col)
+        object.__setattr__(self, "message", message)
+        object.__setattr__(self, "key_path", key_path)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"path={self.path!r}, line={self.line!r}, col={self.col!r}, end_line={self.end_line!r}, "
+            f"end_col={self.end_col!r}, message={self.message!r}, key_path={self.key_path!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.path, self.line, self.col, self.end_line, self.end_col, self.message, self.key_path) ==
+            (other.path, other.line, other.col, other.end_line, other.end_col, other.message, other.key_path))
+
+    def __hash__(self) -> int:
+        return hash((self.path, self.line, self.col, self.end_line, self.end_col, self.message, self.key_path))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
     def with_message(self, message: str) -> "Location":
         return Location(self.path, self.line, self.col, self.end_line, self.end_col, message, self.key_path)
@@ -68,7 +99,6 @@ class _Keep:
 KEEP = _Keep()
 
 
-@dataclass(frozen=True)
 class Edit:
     """A safe fix: replace the text of one scalar (by its character span) with new text.
 
@@ -83,24 +113,83 @@ class Edit:
     end: int
     old: str
     new: str
-    value: Any = KEEP
+    value: Any
+
+    def __init__(self, path: str, start: int, end: int, old: str, new: str, value: Any = KEEP) -> None:
+        object.__setattr__(self, "path", path)
+        object.__setattr__(self, "start", start)
+        object.__setattr__(self, "end", end)
+        object.__setattr__(self, "old", old)
+        object.__setattr__(self, "new", new)
+        object.__setattr__(self, "value", value)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"path={self.path!r}, start={self.start!r}, end={self.end!r}, old={self.old!r}, new={self.new!r}, "
+            f"value={self.value!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.path, self.start, self.end, self.old, self.new, self.value) ==
+            (other.path, other.start, other.end, other.old, other.new, other.value))
+
+    def __hash__(self) -> int:
+        return hash((self.path, self.start, self.end, self.old, self.new, self.value))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
 
-@dataclass
 class Finding:
     rule_id: str
     level: Level
     message: str
     location: Location
-    related: list[Location] = field(default_factory=list)
-    key_path: str = ""
-    suggestion: str = ""
-    help: str = ""
-    fix: Edit | None = None
+    related: list[Location]
+    key_path: str
+    suggestion: str
+    help: str
+    fix: Edit | None
     # The normalised value that the finding is about; part of the fingerprint, never shown.
-    subject: Any = None
-    fingerprint: str = ""
-    cwe: int | None = None
+    subject: Any
+    fingerprint: str
+    cwe: int | None
+
+    def __init__(
+            self, rule_id: str, level: Level, message: str, location: Location,
+            related: list[Location] | None = None, key_path: str = "", suggestion: str = "", help: str = "",
+            fix: Edit | None = None, subject: Any = None, fingerprint: str = "", cwe: int | None = None
+    ) -> None:
+        self.rule_id = rule_id
+        self.level = level
+        self.message = message
+        self.location = location
+        self.related = [] if related is None else related
+        self.key_path = key_path
+        self.suggestion = suggestion
+        self.help = help
+        self.fix = fix
+        self.subject = subject
+        self.fingerprint = fingerprint
+        self.cwe = cwe
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"rule_id={self.rule_id!r}, level={self.level!r}, message={self.message!r}, "
+            f"location={self.location!r}, related={self.related!r}, key_path={self.key_path!r}, "
+            f"suggestion={self.suggestion!r}, help={self.help!r}, fix={self.fix!r}, subject={self.subject!r}, "
+            f"fingerprint={self.fingerprint!r}, cwe={self.cwe!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.rule_id, self.level, self.message, self.location, self.related, self.key_path, self.suggestion, self.help, self.fix, self.subject, self.fingerprint, self.cwe) ==
+            (other.rule_id, other.level, other.message, other.location, other.related, other.key_path, other.suggestion, other.help, other.fix, other.subject, other.fingerprint, other.cwe))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     def finish(self) -> "Finding":
         if not self.fingerprint:

@@ -3,9 +3,10 @@ from the working directory, validated against the schema shipped in the package.
 from __future__ import annotations
 
 import sys
-from dataclasses import dataclass, field
 from pathlib import Path
+from reprlib import recursive_repr
 
+from .record import frozen_delattr, frozen_setattr
 from .limits import Limits
 
 
@@ -21,15 +22,39 @@ DEFAULT_INCLUDE = ["**/*.yaml", "**/*.yml", "**/*.json", "**/*.sh", "**/*.bash"]
 SCHEMA_PATH = Path(__file__).with_name("settings.schema.json")
 
 
-@dataclass(frozen=True)
 class KeySpec:
     """Where the user's file keeps one concept, and in what unit (the settings' key map)."""
 
     key: str
-    per: str = ""  # prompt | completion
-    scope: str = ""  # global | gpu
-    fields: tuple = ()  # for reward.sources: ((field, key in component), ...)
-    values: tuple = ()  # value synonyms of an enumerated concept: ((as written, meaning), ...)
+    per: str  # prompt | completion
+    scope: str  # global | gpu
+    fields: tuple  # for reward.sources: ((field, key in component), ...)
+    values: tuple  # value synonyms of an enumerated concept: ((as written, meaning), ...)
+
+    def __init__(self, key: str, per: str = "", scope: str = "", fields: tuple = (), values: tuple = ()) -> None:
+        object.__setattr__(self, "key", key)
+        object.__setattr__(self, "per", per)
+        object.__setattr__(self, "scope", scope)
+        object.__setattr__(self, "fields", fields)
+        object.__setattr__(self, "values", values)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"key={self.key!r}, per={self.per!r}, scope={self.scope!r}, fields={self.fields!r}, "
+            f"values={self.values!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.key, self.per, self.scope, self.fields, self.values) ==
+            (other.key, other.per, other.scope, other.fields, other.values))
+
+    def __hash__(self) -> int:
+        return hash((self.key, self.per, self.scope, self.fields, self.values))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
     def meaning(self, written):
         """The concept value a value written in the user's file stands for under this key map's
@@ -47,32 +72,86 @@ class SettingsError(Exception):
     """A setting is wrong; the message names the setting, what was expected and what was found."""
 
 
-@dataclass
 class Settings:
     root: Path
-    source: Path | None = None
-    table: str = ""  # "[tool.trimtab]" or "" for a trimtab.toml
-    include: list[str] = field(default_factory=lambda: list(DEFAULT_INCLUDE))
-    exclude: list[str] = field(default_factory=list)
-    gate: str = "warning"
-    yaml_version: str = "1.1"  # the reader YAML files meet (scalars.READERS) unless readers names another
-    yaml_version_set: bool = False  # written in the settings: the reader is known, not assumed
-    readers: dict[str, str] = field(default_factory=dict)  # glob -> the reader those files meet (first match)
-    run_configs: list[str] = field(default_factory=list)
-    keymap: str = ""
-    keys: dict[str, KeySpec] = field(default_factory=dict)
-    search_roots: list[str] = field(default_factory=lambda: ["."])
-    import_depth: int = 2
-    accepted: str = ""
-    jobs: int = 1
-    limits: Limits = field(default_factory=Limits)
-    rules: dict[str, dict] = field(default_factory=dict)
-    layers: list[dict] = field(default_factory=list)
-    bases_key: str = ""
-    defaults_key: str = ""  # the key of a defaults list (composition of named files, config groups)
-    launch: dict = field(default_factory=dict)  # [launch]: how launch scripts are read (linter/compose/shell.py)
-    overrides: str = ""
-    include_set: bool = False  # include was written in the settings file (not the default)
+    source: Path | None
+    table: str  # "[tool.trimtab]" or "" for a trimtab.toml
+    include: list[str]
+    exclude: list[str]
+    gate: str
+    yaml_version: str  # the reader YAML files meet (scalars.READERS) unless readers names another
+    yaml_version_set: bool  # written in the settings: the reader is known, not assumed
+    readers: dict[str, str]  # glob -> the reader those files meet (first match)
+    run_configs: list[str]
+    keymap: str
+    keys: dict[str, KeySpec]
+    search_roots: list[str]
+    import_depth: int
+    accepted: str
+    jobs: int
+    limits: Limits
+    rules: dict[str, dict]
+    layers: list[dict]
+    bases_key: str
+    defaults_key: str  # the key of a defaults list (composition of named files, config groups)
+    launch: dict  # [launch]: how launch scripts are read (linter/compose/shell.py)
+    overrides: str
+    include_set: bool  # include was written in the settings file (not the default)
+
+    def __init__(
+            self, root: Path, source: Path | None = None, table: str = "", include: list[str] | None = None,
+            exclude: list[str] | None = None, gate: str = "warning", yaml_version: str = "1.1",
+            yaml_version_set: bool = False, readers: dict[str, str] | None = None,
+            run_configs: list[str] | None = None, keymap: str = "", keys: dict[str, KeySpec] | None = None,
+            search_roots: list[str] | None = None, import_depth: int = 2, accepted: str = "", jobs: int = 1,
+            limits: Limits | None = None, rules: dict[str, dict] | None = None, layers: list[dict] | None = None,
+            bases_key: str = "", defaults_key: str = "", launch: dict | None = None, overrides: str = "",
+            include_set: bool = False
+    ) -> None:
+        self.root = root
+        self.source = source
+        self.table = table
+        self.include = list(DEFAULT_INCLUDE) if include is None else include
+        self.exclude = [] if exclude is None else exclude
+        self.gate = gate
+        self.yaml_version = yaml_version
+        self.yaml_version_set = yaml_version_set
+        self.readers = {} if readers is None else readers
+        self.run_configs = [] if run_configs is None else run_configs
+        self.keymap = keymap
+        self.keys = {} if keys is None else keys
+        self.search_roots = ["."] if search_roots is None else search_roots
+        self.import_depth = import_depth
+        self.accepted = accepted
+        self.jobs = jobs
+        self.limits = Limits() if limits is None else limits
+        self.rules = {} if rules is None else rules
+        self.layers = [] if layers is None else layers
+        self.bases_key = bases_key
+        self.defaults_key = defaults_key
+        self.launch = {} if launch is None else launch
+        self.overrides = overrides
+        self.include_set = include_set
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"root={self.root!r}, source={self.source!r}, table={self.table!r}, include={self.include!r}, "
+            f"exclude={self.exclude!r}, gate={self.gate!r}, yaml_version={self.yaml_version!r}, "
+            f"yaml_version_set={self.yaml_version_set!r}, readers={self.readers!r}, "
+            f"run_configs={self.run_configs!r}, keymap={self.keymap!r}, keys={self.keys!r}, "
+            f"search_roots={self.search_roots!r}, import_depth={self.import_depth!r}, accepted={self.accepted!r}, "
+            f"jobs={self.jobs!r}, limits={self.limits!r}, rules={self.rules!r}, layers={self.layers!r}, "
+            f"bases_key={self.bases_key!r}, defaults_key={self.defaults_key!r}, launch={self.launch!r}, "
+            f"overrides={self.overrides!r}, include_set={self.include_set!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.root, self.source, self.table, self.include, self.exclude, self.gate, self.yaml_version, self.yaml_version_set, self.readers, self.run_configs, self.keymap, self.keys, self.search_roots, self.import_depth, self.accepted, self.jobs, self.limits, self.rules, self.layers, self.bases_key, self.defaults_key, self.launch, self.overrides, self.include_set) ==
+            (other.root, other.source, other.table, other.include, other.exclude, other.gate, other.yaml_version, other.yaml_version_set, other.readers, other.run_configs, other.keymap, other.keys, other.search_roots, other.import_depth, other.accepted, other.jobs, other.limits, other.rules, other.layers, other.bases_key, other.defaults_key, other.launch, other.overrides, other.include_set))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     def check_include(self, used: set, paths_given: bool) -> list[str]:
         """The include globs written in the settings, when trimtab finds the files itself: if

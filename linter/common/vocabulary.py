@@ -7,20 +7,52 @@ sections as context), or through the native layout (the concept's own dotted nam
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass
 from functools import lru_cache
+from reprlib import recursive_repr
+
+from .record import frozen_delattr, frozen_setattr
 
 
-@dataclass(frozen=True)
 class Concept:
     name: str
     type: str  # int, number, bool, str, list, any
-    unit: str = ""
-    meaning: str = ""
-    per: str = ""  # "prompt" or "completion" for batch quantities
-    scope: str = ""  # "global" or "gpu" for batch quantities
-    values: tuple = ()  # allowed values of an enumeration, lower case
-    share: bool = False  # an interval in steps where a value below 1 is a share of the run's total steps
+    unit: str
+    meaning: str
+    per: str  # "prompt" or "completion" for batch quantities
+    scope: str  # "global" or "gpu" for batch quantities
+    values: tuple  # allowed values of an enumeration, lower case
+    share: bool  # an interval in steps where a value below 1 is a share of the run's total steps
+
+    def __init__(
+            self, name: str, type: str, unit: str = "", meaning: str = "", per: str = "", scope: str = "",
+            values: tuple = (), share: bool = False
+    ) -> None:
+        object.__setattr__(self, "name", name)
+        object.__setattr__(self, "type", type)
+        object.__setattr__(self, "unit", unit)
+        object.__setattr__(self, "meaning", meaning)
+        object.__setattr__(self, "per", per)
+        object.__setattr__(self, "scope", scope)
+        object.__setattr__(self, "values", values)
+        object.__setattr__(self, "share", share)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"name={self.name!r}, type={self.type!r}, unit={self.unit!r}, meaning={self.meaning!r}, "
+            f"per={self.per!r}, scope={self.scope!r}, values={self.values!r}, share={self.share!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.name, self.type, self.unit, self.meaning, self.per, self.scope, self.values, self.share) ==
+            (other.name, other.type, other.unit, other.meaning, other.per, other.scope, other.values, other.share))
+
+    def __hash__(self) -> int:
+        return hash((self.name, self.type, self.unit, self.meaning, self.per, self.scope, self.values, self.share))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
 
 _C = Concept
@@ -114,7 +146,6 @@ CONCEPTS: dict[str, Concept] = {c.name: c for c in (
 CRITIC_FREE = frozenset({"grpo", "dr_grpo", "dapo", "rloo", "remax", "reinforce++"})
 
 
-@dataclass(frozen=True)
 class Switch:
     """A concept whose value can turn a mechanism off. When it does, the concepts the mechanism
     governs are dead: written in the file but not read by the trainer. The resolver marks them once
@@ -123,7 +154,27 @@ class Switch:
 
     concept: str
     governs: tuple
-    off: tuple = (False,)  # values that switch the mechanism off (text compared in lower case)
+    off: tuple  # values that switch the mechanism off (text compared in lower case)
+
+    def __init__(self, concept: str, governs: tuple, off: tuple = (False,)) -> None:
+        object.__setattr__(self, "concept", concept)
+        object.__setattr__(self, "governs", governs)
+        object.__setattr__(self, "off", off)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return f"{self.__class__.__qualname__}(concept={self.concept!r}, governs={self.governs!r}, off={self.off!r})"
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.concept, self.governs, self.off) == (other.concept, other.governs, other.off)
+
+    def __hash__(self) -> int:
+        return hash((self.concept, self.governs, self.off))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
 
 SWITCHES: tuple[Switch, ...] = (
@@ -245,11 +296,31 @@ MODEL = ("model", "policy", "actor", "policy_model")
 CKPT = ("checkpoint", "checkpoints", "checkpointing", "ckpt", "save")
 
 
-@dataclass(frozen=True)
 class Alias:
     concept: str
-    under: tuple = ()  # parent sections that must hold the key (empty: anywhere)
-    not_under: tuple = ()  # sections in which the word means something else
+    under: tuple  # parent sections that must hold the key (empty: anywhere)
+    not_under: tuple  # sections in which the word means something else
+
+    def __init__(self, concept: str, under: tuple = (), not_under: tuple = ()) -> None:
+        object.__setattr__(self, "concept", concept)
+        object.__setattr__(self, "under", under)
+        object.__setattr__(self, "not_under", not_under)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"concept={self.concept!r}, under={self.under!r}, not_under={self.not_under!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.concept, self.under, self.not_under) == (other.concept, other.under, other.not_under)
+
+    def __hash__(self) -> int:
+        return hash((self.concept, self.under, self.not_under))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
 
 def _aliases() -> dict[str, tuple[Alias, ...]]:

@@ -23,10 +23,10 @@ Document as ``CompositionProblem``s; the CMP rules report them. The composer kno
 """
 from __future__ import annotations
 
+from reprlib import recursive_repr
 import os
 import re
 import sys
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, TypeVar, cast
 
@@ -248,13 +248,32 @@ class _S:
         self.items = list(node.items)
 
 
-@dataclass
 class _Given:
     key: str
     parts: tuple
     node: Node
     text: str
-    added: bool = False  # given with --add: a key no layer has, on purpose
+    added: bool  # given with --add: a key no layer has, on purpose
+
+    def __init__(self, key: str, parts: tuple, node: Node, text: str, added: bool = False) -> None:
+        self.key = key
+        self.parts = parts
+        self.node = node
+        self.text = text
+        self.added = added
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"key={self.key!r}, parts={self.parts!r}, node={self.node!r}, text={self.text!r}, added={self.added!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.key, self.parts, self.node, self.text, self.added) ==
+            (other.key, other.parts, other.node, other.text, other.added))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
 class Composer:

@@ -5,33 +5,79 @@ problems. Imported by the composer, the launch-script reader and the resolver; i
 located tree."""
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 
+from reprlib import recursive_repr
 from ..load.document import Mapping, Node, Problem, Scalar
 from ..common.findings import Location
 
 REMOVE_TAG = "!trimtab/remove"
 
 
-@dataclass
 class CompositionProblem(Problem):
     """A problem of composition, located in the file that holds the offending line."""
 
-    path: str | None = None
-    end_line: int = 0
-    end_col: int = 0
-    key_path: str = ""
-    subject: str = ""
+    path: str | None
+    end_line: int
+    end_col: int
+    key_path: str
+    subject: str
+
+    def __init__(
+            self, kind: str, message: str, line: int = 0, col: int = 0, related: list[Location] | None = None,
+            path: str | None = None, end_line: int = 0, end_col: int = 0, key_path: str = "", subject: str = ""
+    ) -> None:
+        self.kind = kind
+        self.message = message
+        self.line = line
+        self.col = col
+        self.related = [] if related is None else related
+        self.path = path
+        self.end_line = end_line
+        self.end_col = end_col
+        self.key_path = key_path
+        self.subject = subject
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"kind={self.kind!r}, message={self.message!r}, line={self.line!r}, col={self.col!r}, "
+            f"related={self.related!r}, path={self.path!r}, end_line={self.end_line!r}, end_col={self.end_col!r}, "
+            f"key_path={self.key_path!r}, subject={self.subject!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.kind, self.message, self.line, self.col, self.related, self.path, self.end_line, self.end_col, self.key_path, self.subject) ==
+            (other.kind, other.message, other.line, other.col, other.related, other.path, other.end_line, other.end_col, other.key_path, other.subject))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     def location(self) -> Location:
         return Location(self.path, self.line, self.col, self.end_line, self.end_col, "", self.key_path)
 
 
-@dataclass
 class Composed:
     root: Node
-    problems: list[CompositionProblem] = field(default_factory=list)
-    files: list[str] = field(default_factory=list)  # every file the run was composed from
+    problems: list[CompositionProblem]
+    files: list[str]  # every file the run was composed from
+
+    def __init__(
+            self, root: Node, problems: list[CompositionProblem] | None = None, files: list[str] | None = None
+    ) -> None:
+        self.root = root
+        self.problems = [] if problems is None else problems
+        self.files = [] if files is None else files
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return f"{self.__class__.__qualname__}(root={self.root!r}, problems={self.problems!r}, files={self.files!r})"
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.root, self.problems, self.files) == (other.root, other.problems, other.files)
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
 class ComposedMapping(Mapping):

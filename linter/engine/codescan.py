@@ -11,12 +11,13 @@ link pointing out) is refused and reported; its target is never opened.
 """
 from __future__ import annotations
 
+from reprlib import recursive_repr
 import ast
 import os
 import re
-from dataclasses import dataclass, field
 from pathlib import Path
 
+from ..common.record import frozen_delattr, frozen_setattr
 from ..common.paths import confined
 from ..common.patterns import later
 
@@ -95,13 +96,37 @@ _DOTTED = later(rf"^{_IDENT}(?:\.{_IDENT})+$")
 _FILE_REF = later(r"^(?P<file>.+?\.py)(?:::?(?P<fn>" + _IDENT + r"(?:\." + _IDENT + r")*))?$")
 
 
-@dataclass(frozen=True)
 class Reference:
     text: str
-    module: str = ""  # dotted module name (a module reference)
-    file: str = ""  # file path as written (a file reference)
-    function: str = ""  # the name inside the module ("" when not given)
-    dotted: bool = False  # written a.b.c without a colon: the last part may be the function
+    module: str  # dotted module name (a module reference)
+    file: str  # file path as written (a file reference)
+    function: str  # the name inside the module ("" when not given)
+    dotted: bool  # written a.b.c without a colon: the last part may be the function
+
+    def __init__(self, text: str, module: str = "", file: str = "", function: str = "", dotted: bool = False) -> None:
+        object.__setattr__(self, "text", text)
+        object.__setattr__(self, "module", module)
+        object.__setattr__(self, "file", file)
+        object.__setattr__(self, "function", function)
+        object.__setattr__(self, "dotted", dotted)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"text={self.text!r}, module={self.module!r}, file={self.file!r}, function={self.function!r}, "
+            f"dotted={self.dotted!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.text, self.module, self.file, self.function, self.dotted) ==
+            (other.text, other.module, other.file, other.function, other.dotted))
+
+    def __hash__(self) -> int:
+        return hash((self.text, self.module, self.file, self.function, self.dotted))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
 
 def parse_reference(text) -> Reference | None:
@@ -138,7 +163,6 @@ def function_name(text) -> str:
 
 
 # --- results ---------------------------------------------------------------------------------
-@dataclass(frozen=True)
 class Hit:
     category: str  # "exec" or "deser"
     what: str  # qualified name of the call
@@ -146,49 +170,175 @@ class Hit:
     path: str  # module file, relative to the repository root
     line: int
     col: int
-    via: tuple[str, ...] = ()  # import chain from the referenced module
+    via: tuple[str, ...]  # import chain from the referenced module
+
+    def __init__(
+            self, category: str, what: str, why: str, path: str, line: int, col: int, via: tuple[str, ...] = ()
+    ) -> None:
+        object.__setattr__(self, "category", category)
+        object.__setattr__(self, "what", what)
+        object.__setattr__(self, "why", why)
+        object.__setattr__(self, "path", path)
+        object.__setattr__(self, "line", line)
+        object.__setattr__(self, "col", col)
+        object.__setattr__(self, "via", via)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"category={self.category!r}, what={self.what!r}, why={self.why!r}, path={self.path!r}, "
+            f"line={self.line!r}, col={self.col!r}, via={self.via!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.category, self.what, self.why, self.path, self.line, self.col, self.via) ==
+            (other.category, other.what, other.why, other.path, other.line, other.col, other.via))
+
+    def __hash__(self) -> int:
+        return hash((self.category, self.what, self.why, self.path, self.line, self.col, self.via))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
 
-@dataclass(frozen=True)
 class Refusal:
     """A reference or import that leaves the repository; its target was not read."""
 
     text: str
     reason: str
-    path: str = ""  # the module that imports it ("" for the reference itself)
-    line: int = 0
-    col: int = 0
+    path: str  # the module that imports it ("" for the reference itself)
+    line: int
+    col: int
+
+    def __init__(self, text: str, reason: str, path: str = "", line: int = 0, col: int = 0) -> None:
+        object.__setattr__(self, "text", text)
+        object.__setattr__(self, "reason", reason)
+        object.__setattr__(self, "path", path)
+        object.__setattr__(self, "line", line)
+        object.__setattr__(self, "col", col)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"text={self.text!r}, reason={self.reason!r}, path={self.path!r}, line={self.line!r}, col={self.col!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.text, self.reason, self.path, self.line, self.col) ==
+            (other.text, other.reason, other.path, other.line, other.col))
+
+    def __hash__(self) -> int:
+        return hash((self.text, self.reason, self.path, self.line, self.col))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
 
-@dataclass
 class Located:
     status: str  # ok, no-module, no-function, escapes, unreadable, syntax, bad-root
     ref: Reference
-    path: str = ""  # module file relative to the repository root
-    real: Path | None = None
-    tried: list[str] = field(default_factory=list)
-    reason: str = ""
-    line: int = 0  # of the function's definition (ok) or of a syntax error
-    col: int = 0
+    path: str  # module file relative to the repository root
+    real: Path | None
+    tried: list[str]
+    reason: str
+    line: int  # of the function's definition (ok) or of a syntax error
+    col: int
+
+    def __init__(
+            self, status: str, ref: Reference, path: str = "", real: Path | None = None,
+            tried: list[str] | None = None, reason: str = "", line: int = 0, col: int = 0
+    ) -> None:
+        self.status = status
+        self.ref = ref
+        self.path = path
+        self.real = real
+        self.tried = [] if tried is None else tried
+        self.reason = reason
+        self.line = line
+        self.col = col
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"status={self.status!r}, ref={self.ref!r}, path={self.path!r}, real={self.real!r}, "
+            f"tried={self.tried!r}, reason={self.reason!r}, line={self.line!r}, col={self.col!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.status, self.ref, self.path, self.real, self.tried, self.reason, self.line, self.col) ==
+            (other.status, other.ref, other.path, other.real, other.tried, other.reason, other.line, other.col))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
-@dataclass
 class Scan:
-    hits: list[Hit] = field(default_factory=list)
-    refusals: list[Refusal] = field(default_factory=list)
-    unreadable: list[tuple[str, str]] = field(default_factory=list)  # (path, reason)
-    modules: list[str] = field(default_factory=list)
+    hits: list[Hit]
+    refusals: list[Refusal]
+    unreadable: list[tuple[str, str]]  # (path, reason)
+    modules: list[str]
+
+    def __init__(
+            self, hits: list[Hit] | None = None, refusals: list[Refusal] | None = None,
+            unreadable: list[tuple[str, str]] | None = None, modules: list[str] | None = None
+    ) -> None:
+        self.hits = [] if hits is None else hits
+        self.refusals = [] if refusals is None else refusals
+        self.unreadable = [] if unreadable is None else unreadable
+        self.modules = [] if modules is None else modules
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"hits={self.hits!r}, refusals={self.refusals!r}, unreadable={self.unreadable!r}, "
+            f"modules={self.modules!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.hits, self.refusals, self.unreadable, self.modules) ==
+            (other.hits, other.refusals, other.unreadable, other.modules))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
-@dataclass
 class ModuleInfo:
     path: str
-    error: str = ""
-    error_line: int = 0
-    error_col: int = 0
-    names: dict[str, tuple[int, int]] = field(default_factory=dict)  # top-level names -> (line, col)
-    hits: list[Hit] = field(default_factory=list)
-    imports: list[tuple[int, str, tuple[str, ...], int, int]] = field(default_factory=list)
+    error: str
+    error_line: int
+    error_col: int
+    names: dict[str, tuple[int, int]]  # top-level names -> (line, col)
+    hits: list[Hit]
+    imports: list[tuple[int, str, tuple[str, ...], int, int]]
+
+    def __init__(
+            self, path: str, error: str = "", error_line: int = 0, error_col: int = 0,
+            names: dict[str, tuple[int, int]] | None = None, hits: list[Hit] | None = None,
+            imports: list[tuple[int, str, tuple[str, ...], int, int]] | None = None
+    ) -> None:
+        self.path = path
+        self.error = error
+        self.error_line = error_line
+        self.error_col = error_col
+        self.names = {} if names is None else names
+        self.hits = [] if hits is None else hits
+        self.imports = [] if imports is None else imports
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"path={self.path!r}, error={self.error!r}, error_line={self.error_line!r}, "
+            f"error_col={self.error_col!r}, names={self.names!r}, hits={self.hits!r}, imports={self.imports!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.path, self.error, self.error_line, self.error_col, self.names, self.hits, self.imports) ==
+            (other.path, other.error, other.error_line, other.error_col, other.names, other.hits, other.imports))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
     # (level, module, imported names, line, col)
 
 

@@ -5,44 +5,80 @@ group; the built-in rules register the same way.
 """
 from __future__ import annotations
 
-import dataclasses
+from reprlib import recursive_repr
 import re
-from dataclasses import dataclass, field
 from types import ModuleType
 from typing import Any, Callable, Iterable, Iterator, Union
 
-import pluggy
-
+from ..common.record import frozen_delattr, frozen_setattr
 from ..load.document import Document
 from ..common.findings import Finding, Level, Location
 from ..resolve.model import RunModel
 from ..common.vocabulary import CONCEPTS, Concept, declare
 from ..common.patterns import later
 
-hookspec = pluggy.HookspecMarker("trimtab")
-hookimpl = pluggy.HookimplMarker("trimtab")
+
+def hookimpl(function: Callable | None = None, *, tryfirst: bool = False, trylast: bool = False,
+             optionalhook: bool = False, specname: str | None = None, wrapper: bool = False,
+             hookwrapper: bool = False):
+    """Mark a plugin's function as its implementation of a trimtab hook (``@hookimpl`` or
+    ``@hookimpl(tryfirst=True)``; the options are pluggy's hook implementation options). The mark is
+    trimtab's own, so that marking costs no import of pluggy; the plugin manager reads it (and
+    pluggy's own mark, ``pluggy.HookimplMarker("trimtab")``, as well)."""
+    opts = {"wrapper": wrapper, "hookwrapper": hookwrapper, "optionalhook": optionalhook,
+            "tryfirst": tryfirst, "trylast": trylast, "specname": specname}
+
+    def mark(fn):
+        fn.trimtab_hookimpl = opts
+        return fn
+
+    return mark if function is None else mark(function)
+
+
+def _marked(fn: Any) -> dict | None:
+    opts = getattr(fn, "trimtab_hookimpl", None) if callable(fn) else None
+    return dict(opts) if isinstance(opts, dict) else None
+
+
+def _plugin_manager():
+    """A pluggy plugin manager for the ``trimtab`` hooks that also reads ``hookimpl``'s mark (built
+    only when a plugin other than the built-in rules is installed or given: start-up)."""
+    import pluggy
+
+    spec = pluggy.HookspecMarker("trimtab")
+    for name in ("trimtab_rules", "trimtab_key_maps", "trimtab_concepts"):
+        spec(getattr(Specs, name))
+
+    class Manager(pluggy.PluginManager):
+        def parse_hookimpl_opts(self, plugin, name):
+            opts = super().parse_hookimpl_opts(plugin, name)
+            if opts is None and name.startswith("trimtab_"):
+                opts = _marked(getattr(plugin, name, None))
+            return opts
+
+    pm = Manager("trimtab")
+    pm.add_hookspecs(Specs)
+    return pm
+
 
 # A key map as a plugin publishes it: concept -> key path, or a table with key, per, scope, fields.
 KeyMap = dict[str, Union[str, dict[str, Any]]]
 
 
 class Specs:
-    """The hooks a plugin may implement (namespace ``trimtab``)."""
+    """The hooks a plugin may implement (namespace ``trimtab``; marked as pluggy hook specifications
+    when the plugin manager is built)."""
 
-    @hookspec
     def trimtab_rules(self) -> list[Rule]:
         """Return the Rule objects this plugin provides (``trimtab.collect(__name__)`` finds them)."""
 
-    @hookspec
     def trimtab_key_maps(self) -> dict[str, KeyMap]:
         """Return named key maps: {name: {concept: key path or table}}."""
 
-    @hookspec
     def trimtab_concepts(self) -> list[Concept]:
         """Return the additional concepts this plugin's rules speak of (name, type, unit, meaning)."""
 
 
-@dataclass(frozen=True)
 class Rule:
     id: str  # area code + number, stable: "BAT-3"
     name: str  # readable, kebab-case
@@ -50,15 +86,55 @@ class Rule:
     summary: str
     rationale: str
     check: Callable[["Context"], Iterable[Finding] | None]
-    needs: tuple[str, ...] = ()  # concepts the rule cannot work without
-    options: dict = field(default_factory=dict)
-    cwe: int | None = None
-    help: str = ""
-    rl_only: bool = True  # skipped for supervised/distillation stages and non-RL files
-    scope: str = "run"  # run (one RunModel), file (every Document, RL or not), set (all runs at once)
+    needs: tuple[str, ...]  # concepts the rule cannot work without
+    options: dict
+    cwe: int | None
+    help: str
+    rl_only: bool  # skipped for supervised/distillation stages and non-RL files
+    scope: str  # run (one RunModel), file (every Document, RL or not), set (all runs at once)
     # file rules only: also run on every other file a run is composed from (its bases, the overrides
     # file, the settings' layers), reporting in that file, whether or not that file is checked itself
-    sources: bool = False
+    sources: bool
+
+    def __init__(
+            self, id: str, name: str, level: Level, summary: str, rationale: str,
+            check: Callable[["Context"], Iterable[Finding] | None], needs: tuple[str, ...] = (),
+            options: dict | None = None, cwe: int | None = None, help: str = "", rl_only: bool = True,
+            scope: str = "run", sources: bool = False
+    ) -> None:
+        object.__setattr__(self, "id", id)
+        object.__setattr__(self, "name", name)
+        object.__setattr__(self, "level", level)
+        object.__setattr__(self, "summary", summary)
+        object.__setattr__(self, "rationale", rationale)
+        object.__setattr__(self, "check", check)
+        object.__setattr__(self, "needs", needs)
+        object.__setattr__(self, "options", {} if options is None else options)
+        object.__setattr__(self, "cwe", cwe)
+        object.__setattr__(self, "help", help)
+        object.__setattr__(self, "rl_only", rl_only)
+        object.__setattr__(self, "scope", scope)
+        object.__setattr__(self, "sources", sources)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"id={self.id!r}, name={self.name!r}, level={self.level!r}, summary={self.summary!r}, "
+            f"rationale={self.rationale!r}, check={self.check!r}, needs={self.needs!r}, options={self.options!r}, "
+            f"cwe={self.cwe!r}, help={self.help!r}, rl_only={self.rl_only!r}, scope={self.scope!r}, "
+            f"sources={self.sources!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.id, self.name, self.level, self.summary, self.rationale, self.check, self.needs, self.options, self.cwe, self.help, self.rl_only, self.scope, self.sources) ==
+            (other.id, other.name, other.level, other.summary, other.rationale, other.check, other.needs, other.options, other.cwe, other.help, other.rl_only, other.scope, other.sources))
+
+    def __hash__(self) -> int:
+        return hash((self.id, self.name, self.level, self.summary, self.rationale, self.check, self.needs, self.options, self.cwe, self.help, self.rl_only, self.scope, self.sources))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
     @property
     def area(self) -> str:
@@ -82,14 +158,13 @@ def collect(where: str | ModuleType) -> list[Rule]:
     """Every Rule defined in a module, or in each module of a package (modules whose names start
     with ``_`` hold helpers), in the order they are written: no hand-kept list."""
     import importlib
-    import pkgutil
 
     module = importlib.import_module(where) if isinstance(where, str) else where
     modules = [module]
     if hasattr(module, "__path__"):
-        for info in sorted(pkgutil.iter_modules(module.__path__), key=lambda i: i.name):
-            if not info.name.startswith("_"):
-                modules.append(importlib.import_module(f"{module.__name__}.{info.name}"))
+        for name in sorted(_module_names(list(module.__path__))):
+            if not name.startswith("_"):
+                modules.append(importlib.import_module(f"{module.__name__}.{name}"))
     out: list[Rule] = []
     seen: set[int] = set()
     for m in modules:
@@ -98,6 +173,41 @@ def collect(where: str | ModuleType) -> list[Rule]:
                 seen.add(id(value))
                 out.append(value)
     return out
+
+
+def _module_names(folders: list[str]) -> set[str]:
+    """The names ``pkgutil.iter_modules(folders)`` gives, read from the folders directly when they
+    are all plain folders (pkgutil imports ``inspect`` for that, 10 ms of start-up); anything else
+    (a zip archive, a custom importer) is pkgutil's."""
+    import os
+    from importlib.machinery import all_suffixes
+
+    if not all(isinstance(f, str) and os.path.isdir(f) for f in folders):
+        import pkgutil
+
+        return {info.name for info in pkgutil.iter_modules(folders)}
+    suffixes = sorted(all_suffixes(), key=len, reverse=True)
+
+    def module_name(file: str) -> str | None:  # as inspect.getmodulename reads a file name
+        return next((file[:-len(s)] for s in suffixes if file.endswith(s)), None)
+
+    names: set[str] = set()
+    for folder in folders:
+        try:
+            files = os.listdir(folder)
+        except OSError:
+            continue
+        for file in files:
+            name = module_name(file)
+            if name is None and "." not in file and os.path.isdir(os.path.join(folder, file)):
+                try:
+                    inside = os.listdir(os.path.join(folder, file))
+                except OSError:
+                    inside = []
+                name = file if any(module_name(f) == "__init__" for f in inside) else None
+            if name and name != "__init__" and "." not in name:
+                names.add(name)
+    return names
 
 
 # --- what registration checks ----------------------------------------------------------------------
@@ -157,7 +267,8 @@ def validate(r: Any) -> Rule:
         raise RuleError("rl_only", "true or false", r.rl_only)
     if not isinstance(r.sources, bool) or (r.sources and r.scope != "file"):
         raise RuleError("sources", "true or false (true only for a rule of scope file)", r.sources)
-    return r if r.level is level else dataclasses.replace(r, level=level)
+    return r if r.level is level else Rule(r.id, r.name, level, r.summary, r.rationale, r.check, r.needs, r.options, r.cwe,
+                                                 r.help, r.rl_only, r.scope, r.sources)
 
 
 def _close(a: str, b: str) -> bool:
@@ -248,11 +359,16 @@ class Registry:
     """The rules and key maps of every plugin, loaded once."""
 
     def __init__(self, plugins: Iterable[object] = (), entry_points: bool = True):
-        self.pm = pluggy.PluginManager("trimtab")
-        self.pm.add_hookspecs(Specs)
         self.errors: list[str] = []
-        if entry_points:
-            self._load_entry_points()
+        self._pm: Any = None
+        # the plugins registered without pluggy: only the built-in rules are installed and none is
+        # given, the common case, which then never imports pluggy (nor ``inspect``; start-up)
+        self._direct: list[tuple[str, object]] = []
+        found = _installed_plugins() if entry_points else []
+        plugins = list(plugins)
+        if plugins or any(value.partition(":")[0].strip() != BUILTIN for _name, value, _load in found):
+            self._pm = _plugin_manager()
+        self._load_entry_points(found)
         for p in plugins:
             self.pm.register(p)
         # concepts first: a plugin's rules may need the concepts it declares
@@ -283,18 +399,39 @@ class Registry:
     def _each(self, hook: str) -> Iterator[tuple[str, Any]]:
         """(plugin name, result) of each implementation of a hook; a hook that raises is an error
         naming the plugin."""
-        for impl in reversed(getattr(self.pm.hook, hook).get_hookimpls()):
+        if self._pm is None:
+            impls = [(name, fn) for name, plugin in reversed(self._direct)
+                     for fn in [getattr(plugin, hook, None)] if _marked(fn) is not None]
+        else:
+            impls = [(impl.plugin_name, impl.function) for impl in
+                     reversed(getattr(self._pm.hook, hook).get_hookimpls())]
+        for name, fn in impls:
             try:
-                yield impl.plugin_name, impl.function()
+                yield name, fn()
             except Exception as exc:  # a broken plugin must not stop the check
-                self.errors.append(f"plugin {impl.plugin_name!r}: {hook}() failed: {type(exc).__name__}: {exc}")
+                self.errors.append(f"plugin {name!r}: {hook}() failed: {type(exc).__name__}: {exc}")
 
-    def _load_entry_points(self) -> None:
-        for name, value, load in entry_points("trimtab"):
-            if self.pm.get_plugin(name) is not None:
+    @property
+    def pm(self):
+        """The pluggy plugin manager, with every plugin registered (built on first use when only the
+        built-in rules were loaded)."""
+        if self._pm is None:
+            self._pm = _plugin_manager()
+            for name, plugin in self._direct:
+                self._pm.register(plugin, name=name)
+            self._direct = []
+        return self._pm
+
+    def _load_entry_points(self, found: list) -> None:
+        for name, value, load in found:
+            if any(n == name for n, _p in self._direct) or (self._pm is not None and self._pm.get_plugin(name)):
                 continue
             try:
-                self.pm.register(load(), name=name)
+                plugin = load()
+                if self._pm is None:
+                    self._direct.append((name, plugin))
+                else:
+                    self._pm.register(plugin, name=name)
             except Exception as exc:  # a broken plugin must not stop the check
                 self.errors.append(f"plugin {name!r} ({value}) failed to load: {exc}")
 
@@ -310,6 +447,11 @@ class Registry:
 # Anything else (a zip archive on sys.path, a custom finder that supplies distributions) falls back
 # to importlib.metadata, so what is found is the same either way.
 _ENTRY_POINTS: dict[str, list] = {}
+BUILTIN = "trimtab_rules"  # the module of the built-in rules, as their entry point names it
+
+
+def _installed_plugins() -> list:
+    return entry_points("trimtab")
 
 
 def entry_points(group: str) -> list[tuple[str, str, Callable[[], object]]]:

@@ -9,9 +9,9 @@ and is reported; one that suppresses nothing is reported too.
 """
 from __future__ import annotations
 
+from reprlib import recursive_repr
 from collections.abc import Iterable, Iterator
 from collections.abc import Set as AbcSet
-from dataclasses import dataclass
 from pathlib import Path
 
 from ..common.findings import Finding, Level, Location
@@ -27,13 +27,32 @@ ACC_STALE = "ACC-3"
 ACC_MALFORMED = "ACC-4"
 
 
-@dataclass
 class Acceptance:
     line: int
     col: int
     ids: tuple[str, ...]
     reason: str
-    used: bool = False
+    used: bool
+
+    def __init__(self, line: int, col: int, ids: tuple[str, ...], reason: str, used: bool = False) -> None:
+        self.line = line
+        self.col = col
+        self.ids = ids
+        self.reason = reason
+        self.used = used
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"line={self.line!r}, col={self.col!r}, ids={self.ids!r}, reason={self.reason!r}, used={self.used!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.line, self.col, self.ids, self.reason, self.used) ==
+            (other.line, other.col, other.ids, other.reason, other.used))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
 def acceptances(text: str) -> list[Acceptance]:

@@ -5,10 +5,10 @@ few values the cross-file rules need, never documents.
 """
 from __future__ import annotations
 
+from reprlib import recursive_repr
 import gc
 from collections.abc import Iterable, Iterator
 from collections.abc import Set as AbcSet
-from dataclasses import dataclass, field
 from itertools import groupby
 from typing import Any
 
@@ -23,7 +23,6 @@ from ..resolve.concepts import ResolveOptions, resolve
 from ..common.settings import Settings, SettingsError
 
 
-@dataclass
 class SetEntry:
     """What one run contributes to the cross-file rules: the values they need, without nodes."""
 
@@ -31,34 +30,111 @@ class SetEntry:
     index: int
     values: dict[str, Value]
 
+    def __init__(self, path: str, index: int, values: dict[str, Value]) -> None:
+        self.path = path
+        self.index = index
+        self.values = values
 
-@dataclass
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return f"{self.__class__.__qualname__}(path={self.path!r}, index={self.index!r}, values={self.values!r})"
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.path, self.index, self.values) == (other.path, other.index, other.values)
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+
+
 class Kept:
     """A checked file's Document and every run model of it (RL or not), kept on request."""
 
     doc: Any
-    models: list = field(default_factory=list)
+    models: list
+
+    def __init__(self, doc: Any, models: list | None = None) -> None:
+        self.doc = doc
+        self.models = [] if models is None else models
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return f"{self.__class__.__qualname__}(doc={self.doc!r}, models={self.models!r})"
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.doc, self.models) == (other.doc, other.models)
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
-@dataclass
 class FileResult:
     path: str
-    findings: list[Finding] = field(default_factory=list)
-    runs: int = 0  # RL run configs found in the file
-    skipped: bool = False  # read, but not an RL run config
-    entries: list[SetEntry] = field(default_factory=list)
-    crashed: bool = False
-    set_accepts: str | None = None  # the file's text, when it has acceptance comments naming a set-scope rule
-    accepted_at: set = field(default_factory=set)  # (path, line) of findings accepted in a base's text
-    accepted: int = 0  # findings dropped by acceptance comments
-    kept: Kept | None = None  # on request: the Document and its run models
+    findings: list[Finding]
+    runs: int  # RL run configs found in the file
+    skipped: bool  # read, but not an RL run config
+    entries: list[SetEntry]
+    crashed: bool
+    set_accepts: str | None  # the file's text, when it has acceptance comments naming a set-scope rule
+    accepted_at: set  # (path, line) of findings accepted in a base's text
+    accepted: int  # findings dropped by acceptance comments
+    kept: Kept | None  # on request: the Document and its run models
+
+    def __init__(
+            self, path: str, findings: list[Finding] | None = None, runs: int = 0, skipped: bool = False,
+            entries: list[SetEntry] | None = None, crashed: bool = False, set_accepts: str | None = None,
+            accepted_at: set | None = None, accepted: int = 0, kept: Kept | None = None
+    ) -> None:
+        self.path = path
+        self.findings = [] if findings is None else findings
+        self.runs = runs
+        self.skipped = skipped
+        self.entries = [] if entries is None else entries
+        self.crashed = crashed
+        self.set_accepts = set_accepts
+        self.accepted_at = set() if accepted_at is None else accepted_at
+        self.accepted = accepted
+        self.kept = kept
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"path={self.path!r}, findings={self.findings!r}, runs={self.runs!r}, skipped={self.skipped!r}, "
+            f"entries={self.entries!r}, crashed={self.crashed!r}, set_accepts={self.set_accepts!r}, "
+            f"accepted_at={self.accepted_at!r}, accepted={self.accepted!r}, kept={self.kept!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.path, self.findings, self.runs, self.skipped, self.entries, self.crashed, self.set_accepts, self.accepted_at, self.accepted, self.kept) ==
+            (other.path, other.findings, other.runs, other.skipped, other.entries, other.crashed, other.set_accepts, other.accepted_at, other.accepted, other.kept))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
-@dataclass
 class CheckOptions:
-    only: set[str] = field(default_factory=set)
-    skip: set[str] = field(default_factory=set)
-    overrides: list[tuple] = field(default_factory=list)  # (key path, text, added) from --set / --add
+    only: set[str]
+    skip: set[str]
+    overrides: list[tuple]  # (key path, text, added) from --set / --add
+
+    def __init__(
+            self, only: set[str] | None = None, skip: set[str] | None = None, overrides: list[tuple] | None = None
+    ) -> None:
+        self.only = set() if only is None else only
+        self.skip = set() if skip is None else skip
+        self.overrides = [] if overrides is None else overrides
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return f"{self.__class__.__qualname__}(only={self.only!r}, skip={self.skip!r}, overrides={self.overrides!r})"
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.only, self.skip, self.overrides) == (other.only, other.skip, other.overrides)
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
 class Checker:
@@ -361,7 +437,6 @@ def _work(item: tuple[str, str]) -> FileResult:
     return _WORKER.check_file(*item)
 
 
-@dataclass
 class RunResult:
     findings: Iterable[Finding]  # re-iterable, in report order (read back from a Spill on each pass)
     files: int
@@ -369,8 +444,35 @@ class RunResult:
     skipped: int
     crashed: bool
     checked: set[str]
-    kept: dict = field(default_factory=dict)  # shown path -> Kept (on request)
-    accepted: int = 0  # findings accepted by comments in the files
+    kept: dict  # shown path -> Kept (on request)
+    accepted: int  # findings accepted by comments in the files
+
+    def __init__(
+            self, findings: Iterable[Finding], files: int, runs: int, skipped: int, crashed: bool,
+            checked: set[str], kept: dict | None = None, accepted: int = 0
+    ) -> None:
+        self.findings = findings
+        self.files = files
+        self.runs = runs
+        self.skipped = skipped
+        self.crashed = crashed
+        self.checked = checked
+        self.kept = {} if kept is None else kept
+        self.accepted = accepted
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"findings={self.findings!r}, files={self.files!r}, runs={self.runs!r}, skipped={self.skipped!r}, "
+            f"crashed={self.crashed!r}, checked={self.checked!r}, kept={self.kept!r}, accepted={self.accepted!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.findings, self.files, self.runs, self.skipped, self.crashed, self.checked, self.kept, self.accepted) ==
+            (other.findings, other.files, other.runs, other.skipped, other.crashed, other.checked, other.kept, other.accepted))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
 class _Checked(AbcSet):

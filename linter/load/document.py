@@ -7,7 +7,7 @@ on demand under YAML 1.2 and YAML 1.1.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from reprlib import recursive_repr
 from typing import Iterator
 
 from ..common import scalars
@@ -136,31 +136,83 @@ def key_text(node: Node) -> str:
     return node.text if isinstance(node, Scalar) else "?"
 
 
-@dataclass
 class Problem:
     """A reason the file could not be read (wholly or in part), located where possible."""
 
     kind: str  # parse, duplicate-key, encoding, size, depth, aliases, tab, io, json
     message: str
-    line: int = 0
-    col: int = 0
-    related: list[Location] = field(default_factory=list)
+    line: int
+    col: int
+    related: list[Location]
+
+    def __init__(
+            self, kind: str, message: str, line: int = 0, col: int = 0, related: list[Location] | None = None
+    ) -> None:
+        self.kind = kind
+        self.message = message
+        self.line = line
+        self.col = col
+        self.related = [] if related is None else related
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"kind={self.kind!r}, message={self.message!r}, line={self.line!r}, col={self.col!r}, "
+            f"related={self.related!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.kind, self.message, self.line, self.col, self.related) ==
+            (other.kind, other.message, other.line, other.col, other.related))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
-@dataclass
 class Document:
     path: str  # as shown to the user (relative to the repository root where possible)
-    text: str = ""
-    roots: list[Node] = field(default_factory=list)
-    problems: list[Problem] = field(default_factory=list)
-    bom: str = ""  # a byte-order mark that preceded ``text`` in the file, if any
-    encoding: str = "utf-8"
-    fmt: str = "yaml"  # yaml, json or shell (a launch script)
-    aliases: int = 0
-    runs: list = field(default_factory=list)  # a launch script's training commands (shell.LaunchRoot)
+    text: str
+    roots: list[Node]
+    problems: list[Problem]
+    bom: str  # a byte-order mark that preceded ``text`` in the file, if any
+    encoding: str
+    fmt: str  # yaml, json or shell (a launch script)
+    aliases: int
+    runs: list  # a launch script's training commands (shell.LaunchRoot)
     # the other files a composed run of this document was built from (bases, the overrides file),
     # by shown path: the raw text of a node written there is read from them
-    sources: dict[str, "Document"] = field(default_factory=dict)
+    sources: dict[str, "Document"]
+
+    def __init__(
+            self, path: str, text: str = "", roots: list[Node] | None = None, problems: list[Problem] | None = None,
+            bom: str = "", encoding: str = "utf-8", fmt: str = "yaml", aliases: int = 0, runs: list | None = None,
+            sources: dict[str, "Document"] | None = None
+    ) -> None:
+        self.path = path
+        self.text = text
+        self.roots = [] if roots is None else roots
+        self.problems = [] if problems is None else problems
+        self.bom = bom
+        self.encoding = encoding
+        self.fmt = fmt
+        self.aliases = aliases
+        self.runs = [] if runs is None else runs
+        self.sources = {} if sources is None else sources
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"path={self.path!r}, text={self.text!r}, roots={self.roots!r}, problems={self.problems!r}, "
+            f"bom={self.bom!r}, encoding={self.encoding!r}, fmt={self.fmt!r}, aliases={self.aliases!r}, "
+            f"runs={self.runs!r}, sources={self.sources!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.path, self.text, self.roots, self.problems, self.bom, self.encoding, self.fmt, self.aliases, self.runs, self.sources) ==
+            (other.path, other.text, other.roots, other.problems, other.bom, other.encoding, other.fmt, other.aliases, other.runs, other.sources))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     @property
     def readable(self) -> bool:

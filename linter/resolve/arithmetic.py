@@ -15,11 +15,12 @@ converted from the unit it was written in keeps both (``Term.written`` and ``Ter
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from reprlib import recursive_repr
 from itertools import product
 from math import gcd
 from typing import Any
 
+from ..common.record import frozen_delattr, frozen_setattr
 from ..common.findings import Location
 from .model import RunModel, Value, whole
 from ..common.vocabulary import CONCEPTS, normalise_key
@@ -149,12 +150,30 @@ def fmt(value) -> str:
 
 
 # --- units ---------------------------------------------------------------------------------------
-@dataclass(frozen=True)
 class Unit:
     """How a count is counted: per prompt or per completion, per GPU or over all ranks."""
 
     per: str  # prompt | completion
     scope: str  # global | gpu
+
+    def __init__(self, per: str, scope: str) -> None:
+        object.__setattr__(self, "per", per)
+        object.__setattr__(self, "scope", scope)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return f"{self.__class__.__qualname__}(per={self.per!r}, scope={self.scope!r})"
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.per, self.scope) == (other.per, other.scope)
+
+    def __hash__(self) -> int:
+        return hash((self.per, self.scope))
+
+    __setattr__ = frozen_setattr
+    __delattr__ = frozen_delattr
 
     def words(self) -> str:
         return f"{self.per}s, {'per GPU' if self.scope == 'gpu' else 'global'}"
@@ -224,20 +243,49 @@ def keymap_line(v: Value, unit: Unit) -> str:
 
 
 # --- terms and steps -------------------------------------------------------------------------------
-@dataclass
 class Term:
     """One input of the arithmetic: a stated value, converted to its concept's unit under the
     reading in force, or a quantity another step derived."""
 
     concept: str
     value: Any  # in the concept's own unit (None: unknown, or written in a unit that cannot be converted)
-    source: Value | None = None  # the stated value (None: derived by ``step``)
-    written: Any = None  # the number as written in the file
-    read_as: Unit | None = None  # the unit it is written in, when the concept has one
-    conversion: str = ""  # "x group size 8 x 8 data-parallel ranks"
-    missing: str = ""  # what a conversion needed and did not have
-    step: str = ""  # for a derived quantity, the step that computed it
-    ambiguous: bool = False  # depends on a count whose unit is not stated
+    source: Value | None  # the stated value (None: derived by ``step``)
+    written: Any  # the number as written in the file
+    read_as: Unit | None  # the unit it is written in, when the concept has one
+    conversion: str  # "x group size 8 x 8 data-parallel ranks"
+    missing: str  # what a conversion needed and did not have
+    step: str  # for a derived quantity, the step that computed it
+    ambiguous: bool  # depends on a count whose unit is not stated
+
+    def __init__(
+            self, concept: str, value: Any, source: Value | None = None, written: Any = None,
+            read_as: Unit | None = None, conversion: str = "", missing: str = "", step: str = "",
+            ambiguous: bool = False
+    ) -> None:
+        self.concept = concept
+        self.value = value
+        self.source = source
+        self.written = written
+        self.read_as = read_as
+        self.conversion = conversion
+        self.missing = missing
+        self.step = step
+        self.ambiguous = ambiguous
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"concept={self.concept!r}, value={self.value!r}, source={self.source!r}, written={self.written!r}, "
+            f"read_as={self.read_as!r}, conversion={self.conversion!r}, missing={self.missing!r}, "
+            f"step={self.step!r}, ambiguous={self.ambiguous!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.concept, self.value, self.source, self.written, self.read_as, self.conversion, self.missing, self.step, self.ambiguous) ==
+            (other.concept, other.value, other.source, other.written, other.read_as, other.conversion, other.missing, other.step, other.ambiguous))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     @property
     def whole(self):
@@ -264,23 +312,57 @@ class Term:
         return "?" if self.value is None else num(self.value)
 
 
-@dataclass
 class Step:
     """One step of the run's arithmetic."""
 
     key: str  # world, replica, ranks, completions, prompts, mini, updates, per_rank, accum, ...
     title: str
     value: Any  # what the step computes (int, a float where it does not divide, or None)
-    terms: list[Term] = field(default_factory=list)
-    formula: str = ""  # "64 x 16", "1024 / 96 x 2"
-    unit: str = ""
-    divides: bool | None = None  # None: the step is no division, or an input is unknown
-    remainder: int | None = None
-    parts: int | None = None  # a division's whole quotient, also when it does not divide
-    stated: Term | None = None  # the same quantity written in the file
-    concept: str = ""  # the concept the step derives
-    excess: int | None = None  # token steps: by how much a budget exceeds its window (set only when it does)
-    disputed: bool = False  # built on a stated value that disagrees with its own factors (reported upstream)
+    terms: list[Term]
+    formula: str  # "64 x 16", "1024 / 96 x 2"
+    unit: str
+    divides: bool | None  # None: the step is no division, or an input is unknown
+    remainder: int | None
+    parts: int | None  # a division's whole quotient, also when it does not divide
+    stated: Term | None  # the same quantity written in the file
+    concept: str  # the concept the step derives
+    excess: int | None  # token steps: by how much a budget exceeds its window (set only when it does)
+    disputed: bool  # built on a stated value that disagrees with its own factors (reported upstream)
+
+    def __init__(
+            self, key: str, title: str, value: Any, terms: list[Term] | None = None, formula: str = "",
+            unit: str = "", divides: bool | None = None, remainder: int | None = None, parts: int | None = None,
+            stated: Term | None = None, concept: str = "", excess: int | None = None, disputed: bool = False
+    ) -> None:
+        self.key = key
+        self.title = title
+        self.value = value
+        self.terms = [] if terms is None else terms
+        self.formula = formula
+        self.unit = unit
+        self.divides = divides
+        self.remainder = remainder
+        self.parts = parts
+        self.stated = stated
+        self.concept = concept
+        self.excess = excess
+        self.disputed = disputed
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"key={self.key!r}, title={self.title!r}, value={self.value!r}, terms={self.terms!r}, "
+            f"formula={self.formula!r}, unit={self.unit!r}, divides={self.divides!r}, "
+            f"remainder={self.remainder!r}, parts={self.parts!r}, stated={self.stated!r}, "
+            f"concept={self.concept!r}, excess={self.excess!r}, disputed={self.disputed!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.key, self.title, self.value, self.terms, self.formula, self.unit, self.divides, self.remainder, self.parts, self.stated, self.concept, self.excess, self.disputed) ==
+            (other.key, other.title, other.value, other.terms, other.formula, other.unit, other.divides, other.remainder, other.parts, other.stated, other.concept, other.excess, other.disputed))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     @property
     def known(self) -> bool:
@@ -615,13 +697,29 @@ def settled(model: RunModel, concept: str):
     return of(model).value(concept)
 
 
-@dataclass
 class Verdict:
     """What the file's own numbers say about the readings of its counts."""
 
     arithmetic: Arithmetic  # the reading the rules report from (the usual one)
     considered: list[tuple[Arithmetic, str]]  # every reading with its status: consistent, broken, unknown
-    mute: bool = False  # the usual reading breaks but another is consistent (or cannot be ruled out)
+    mute: bool  # the usual reading breaks but another is consistent (or cannot be ruled out)
+
+    def __init__(self, arithmetic: Arithmetic, considered: list[tuple[Arithmetic, str]], mute: bool = False) -> None:
+        self.arithmetic = arithmetic
+        self.considered = considered
+        self.mute = mute
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"arithmetic={self.arithmetic!r}, considered={self.considered!r}, mute={self.mute!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.arithmetic, self.considered, self.mute) == (other.arithmetic, other.considered, other.mute)
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     @property
     def ambiguous(self) -> bool:

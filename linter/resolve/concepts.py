@@ -2,7 +2,7 @@
 layout, then derive the run arithmetic. Knows concepts, never rules."""
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from reprlib import recursive_repr
 from typing import cast
 
 from ..compose.nodes import Unknown
@@ -16,13 +16,36 @@ from ..common.vocabulary import (ALIASES, CONCEPTS, ELSEWHERE, REWARD_FIELDS, RL
                                  share_of_run, switched_off, word_concept)
 
 
-@dataclass
 class ResolveOptions:
-    keys: dict[str, KeySpec] = field(default_factory=dict)
-    version: str = "1.1"
-    force_rl: bool = False
-    readers: tuple = ()  # (glob, reader) from the settings, the first match wins
-    stated: bool = False  # the settings name the reader (yaml_version written)
+    keys: dict[str, KeySpec]
+    version: str
+    force_rl: bool
+    readers: tuple  # (glob, reader) from the settings, the first match wins
+    stated: bool  # the settings name the reader (yaml_version written)
+
+    def __init__(
+            self, keys: dict[str, KeySpec] | None = None, version: str = "1.1", force_rl: bool = False,
+            readers: tuple = (), stated: bool = False
+    ) -> None:
+        self.keys = {} if keys is None else keys
+        self.version = version
+        self.force_rl = force_rl
+        self.readers = readers
+        self.stated = stated
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"keys={self.keys!r}, version={self.version!r}, force_rl={self.force_rl!r}, readers={self.readers!r}, "
+            f"stated={self.stated!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.keys, self.version, self.force_rl, self.readers, self.stated) ==
+            (other.keys, other.version, other.force_rl, other.readers, other.stated))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
 # Field words inside one reward component (generic).
@@ -429,7 +452,7 @@ def scalar_value(node: Node, version: str):
 
 
 def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None,
-           chain: list | None = None, synonyms: KeySpec | None = None):
+           chain: tuple | list | None = None, synonyms: KeySpec | None = None):
     """Store one concept's value. ``synonyms``: the key map's entry for the concept when the value
     was found elsewhere than its mapped key (its ``values`` table still says what a value means)."""
     _store_value(model, concept, node, via, key, spec, synonyms or spec)

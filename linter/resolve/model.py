@@ -1,7 +1,7 @@
 """The RunModel: resolved concepts with their origins, and the arithmetic derived from them."""
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from reprlib import recursive_repr
 from typing import Any
 
 from ..load.document import Document, Node, Scalar
@@ -18,21 +18,52 @@ def whole(x):
     return x if isinstance(x, int) and x > 0 else None
 
 
-@dataclass
 class Value:
     """One resolved concept: its value, the node it was read from and how it got there."""
 
     concept: str
     value: Any
     location: Location  # where the value was written (the command line: path None)
-    node: Node | None = None
-    via: str = ""  # keymap, alias, native, derived, override
-    key: str = ""  # the key path in the user's file
-    chain: list[Location] = field(default_factory=list)  # base -> experiment -> reference -> override
-    inputs: tuple[str, ...] = ()  # for derived values: the concepts it was computed from
-    note: str = ""  # how it was read or converted ("x group size 8")
-    raw: Any = None  # the value as written, before unit conversion
-    unit: Any = None  # for a batch count: the unit it is written in, when the key map states it (arithmetic.Unit)
+    node: Node | None
+    via: str  # keymap, alias, native, derived, override
+    key: str  # the key path in the user's file
+    chain: list[Location]  # base -> experiment -> reference -> override
+    inputs: tuple[str, ...]  # for derived values: the concepts it was computed from
+    note: str  # how it was read or converted ("x group size 8")
+    raw: Any  # the value as written, before unit conversion
+    unit: Any  # for a batch count: the unit it is written in, when the key map states it (arithmetic.Unit)
+
+    def __init__(
+            self, concept: str, value: Any, location: Location, node: Node | None = None, via: str = "",
+            key: str = "", chain: list[Location] | None = None, inputs: tuple[str, ...] = (), note: str = "",
+            raw: Any = None, unit: Any = None
+    ) -> None:
+        self.concept = concept
+        self.value = value
+        self.location = location
+        self.node = node
+        self.via = via
+        self.key = key
+        self.chain = [] if chain is None else chain
+        self.inputs = inputs
+        self.note = note
+        self.raw = raw
+        self.unit = unit
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"concept={self.concept!r}, value={self.value!r}, location={self.location!r}, node={self.node!r}, "
+            f"via={self.via!r}, key={self.key!r}, chain={self.chain!r}, inputs={self.inputs!r}, "
+            f"note={self.note!r}, raw={self.raw!r}, unit={self.unit!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.concept, self.value, self.location, self.node, self.via, self.key, self.chain, self.inputs, self.note, self.raw, self.unit) ==
+            (other.concept, other.value, other.location, other.node, other.via, other.key, other.chain, other.inputs, other.note, other.raw, other.unit))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     @property
     def whole(self):
@@ -46,7 +77,6 @@ class Value:
         return v
 
 
-@dataclass
 class Unused:
     """A key that looks like a concept but was not used for it, and why (explain lists them)."""
 
@@ -54,18 +84,60 @@ class Unused:
     key: str  # the key path in the user's file
     location: Location
     reason: str  # "in the evaluation section 'eval'", "a list where a whole number is expected", ...
-    kind: str = ""  # evaluation; shape (reported: VOC-2); lost (another key was read); ambiguous; keymap
-    shown: str = ""  # the value as written, in short (a list or mapping)
-    node: Any = None  # the value's node
+    kind: str  # evaluation; shape (reported: VOC-2); lost (another key was read); ambiguous; keymap
+    shown: str  # the value as written, in short (a list or mapping)
+    node: Any  # the value's node
+
+    def __init__(
+            self, concept: str, key: str, location: Location, reason: str, kind: str = "", shown: str = "",
+            node: Any = None
+    ) -> None:
+        self.concept = concept
+        self.key = key
+        self.location = location
+        self.reason = reason
+        self.kind = kind
+        self.shown = shown
+        self.node = node
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"concept={self.concept!r}, key={self.key!r}, location={self.location!r}, reason={self.reason!r}, "
+            f"kind={self.kind!r}, shown={self.shown!r}, node={self.node!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.concept, self.key, self.location, self.reason, self.kind, self.shown, self.node) ==
+            (other.concept, other.key, other.location, other.reason, other.kind, other.shown, other.node))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
-@dataclass
 class Component:
     """One reward component of reward.sources; each field a Value (or absent)."""
 
     index: int
     location: Location
-    fields: dict[str, Value] = field(default_factory=dict)
+    fields: dict[str, Value]
+
+    def __init__(self, index: int, location: Location, fields: dict[str, Value] | None = None) -> None:
+        self.index = index
+        self.location = location
+        self.fields = {} if fields is None else fields
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"index={self.index!r}, location={self.location!r}, fields={self.fields!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return (self.index, self.location, self.fields) == (other.index, other.location, other.fields)
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     def get(self, name: str):
         v = self.fields.get(name)
@@ -76,31 +148,80 @@ class Component:
         return v.location if v is not None else self.location
 
 
-@dataclass
 class RunModel:
     doc: Document
-    index: int = 0  # document index inside a multi-document file
-    values: dict[str, Value] = field(default_factory=dict)  # stated (read from files)
-    derived: dict[str, Value] = field(default_factory=dict)  # computed from other concepts
-    components: list[Component] = field(default_factory=list)
-    ambiguous: dict[str, list[Location]] = field(default_factory=dict)
-    mistyped: list[tuple[Value, str]] = field(default_factory=list)  # (value, expected type)
-    unused: list[Unused] = field(default_factory=list)  # keys that look like a concept but were not used
-    is_rl: bool = False
-    version: str = "1.1"  # the YAML version the user's loader reads concept values under
-    readers: tuple = ()  # (glob, reader): the settings' readers table, the first match wins
-    reader_named: bool = False  # the settings name the reader of files no glob matches
-    settings: Any = None
-    files: list[str] = field(default_factory=list)  # every file this run was composed from
-    chains: dict[str, list[Location]] = field(default_factory=dict)  # key path -> origin chain (compose)
-    roles: dict[str, str] = field(default_factory=dict)  # key path -> the layer its value came from (compose)
-    notes: list = field(default_factory=list)  # values known only at launch (compose problems, note level)
-    unknown: dict[str, Value] = field(default_factory=dict)  # concepts whose value is known only at launch
-    touched: set = field(default_factory=set)  # unknown or unusable concepts a rule asked for (engine.run_rule)
-    unusable: set = field(default_factory=set)  # concepts written with a value of the wrong shape (VOC-2)
+    index: int  # document index inside a multi-document file
+    values: dict[str, Value]  # stated (read from files)
+    derived: dict[str, Value]  # computed from other concepts
+    components: list[Component]
+    ambiguous: dict[str, list[Location]]
+    mistyped: list[tuple[Value, str]]  # (value, expected type)
+    unused: list[Unused]  # keys that look like a concept but were not used
+    is_rl: bool
+    version: str  # the YAML version the user's loader reads concept values under
+    readers: tuple  # (glob, reader): the settings' readers table, the first match wins
+    reader_named: bool  # the settings name the reader of files no glob matches
+    settings: Any
+    files: list[str]  # every file this run was composed from
+    chains: dict[str, list[Location]]  # key path -> origin chain (compose)
+    roles: dict[str, str]  # key path -> the layer its value came from (compose)
+    notes: list  # values known only at launch (compose problems, note level)
+    unknown: dict[str, Value]  # concepts whose value is known only at launch
+    touched: set  # unknown or unusable concepts a rule asked for (engine.run_rule)
+    unusable: set  # concepts written with a value of the wrong shape (VOC-2)
     # concepts written but not read, because a switch turns their mechanism off -> the switch's Value
-    dead: dict[str, Value] = field(default_factory=dict)
-    _readers: dict = field(default_factory=dict, repr=False, compare=False)  # shown path -> reader (see reader)
+    dead: dict[str, Value]
+
+    def __init__(
+            self, doc: Document, index: int = 0, values: dict[str, Value] | None = None,
+            derived: dict[str, Value] | None = None, components: list[Component] | None = None,
+            ambiguous: dict[str, list[Location]] | None = None, mistyped: list[tuple[Value, str]] | None = None,
+            unused: list[Unused] | None = None, is_rl: bool = False, version: str = "1.1", readers: tuple = (),
+            reader_named: bool = False, settings: Any = None, files: list[str] | None = None,
+            chains: dict[str, list[Location]] | None = None, roles: dict[str, str] | None = None,
+            notes: list | None = None, unknown: dict[str, Value] | None = None, touched: set | None = None,
+            unusable: set | None = None, dead: dict[str, Value] | None = None
+    ) -> None:
+        self.doc = doc
+        self.index = index
+        self.values = {} if values is None else values
+        self.derived = {} if derived is None else derived
+        self.components = [] if components is None else components
+        self.ambiguous = {} if ambiguous is None else ambiguous
+        self.mistyped = [] if mistyped is None else mistyped
+        self.unused = [] if unused is None else unused
+        self.is_rl = is_rl
+        self.version = version
+        self.readers = readers
+        self.reader_named = reader_named
+        self.settings = settings
+        self.files = [] if files is None else files
+        self.chains = {} if chains is None else chains
+        self.roles = {} if roles is None else roles
+        self.notes = [] if notes is None else notes
+        self.unknown = {} if unknown is None else unknown
+        self.touched = set() if touched is None else touched
+        self.unusable = set() if unusable is None else unusable
+        self.dead = {} if dead is None else dead
+        self._readers: dict[str, tuple[str, bool]] = {}  # shown path -> reader (see reader)
+
+    @recursive_repr()
+    def __repr__(self) -> str:
+        return (f"{self.__class__.__qualname__}("
+            f"doc={self.doc!r}, index={self.index!r}, values={self.values!r}, derived={self.derived!r}, "
+            f"components={self.components!r}, ambiguous={self.ambiguous!r}, mistyped={self.mistyped!r}, "
+            f"unused={self.unused!r}, is_rl={self.is_rl!r}, version={self.version!r}, readers={self.readers!r}, "
+            f"reader_named={self.reader_named!r}, settings={self.settings!r}, files={self.files!r}, "
+            f"chains={self.chains!r}, roles={self.roles!r}, notes={self.notes!r}, unknown={self.unknown!r}, "
+            f"touched={self.touched!r}, unusable={self.unusable!r}, dead={self.dead!r})")
+
+    def __eq__(self, other) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return ((self.doc, self.index, self.values, self.derived, self.components, self.ambiguous, self.mistyped, self.unused, self.is_rl, self.version, self.readers, self.reader_named, self.settings, self.files, self.chains, self.roles, self.notes, self.unknown, self.touched, self.unusable, self.dead) ==
+            (other.doc, other.index, other.values, other.derived, other.components, other.ambiguous, other.mistyped, other.unused, other.is_rl, other.version, other.readers, other.reader_named, other.settings, other.files, other.chains, other.roles, other.notes, other.unknown, other.touched, other.unusable, other.dead))
+
+    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
     @property
     def path(self) -> str:
