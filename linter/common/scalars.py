@@ -235,14 +235,33 @@ _EXPLICIT = {
 }
 
 
+# perf: runs repeat the same scalars from file to file; a short scalar's typing is kept (bounded:
+# emptied when full, so memory stays flat over any number of files). Every value typed is immutable.
+_TYPED: dict[tuple, object] = {}
+_TYPED_TEXT = 64
+_TYPED_SIZE = 8192
+
+
 def typed(text: str, plain: bool, tag: str | None, version: str):
     """Type a scalar. Quoted and block scalars are strings unless explicitly tagged;
     an explicit standard tag types the text as that tag. An integer of MAX_INT or more stays text
     (the loader reports it) rather than stopping the check."""
-    try:
-        return _typed(text, plain, tag, version)
-    except ValueError:
+    if not plain and tag is None:
         return text
+    key = (text, plain, tag, version) if len(text) <= _TYPED_TEXT else None
+    if key is not None:
+        hit = _TYPED.get(key, _TYPED)
+        if hit is not _TYPED:
+            return hit
+    try:
+        value = _typed(text, plain, tag, version)
+    except ValueError:
+        value = text
+    if key is not None:
+        if len(_TYPED) >= _TYPED_SIZE:
+            _TYPED.clear()
+        _TYPED[key] = value
+    return value
 
 
 def _typed(text: str, plain: bool, tag: str | None, version: str):
