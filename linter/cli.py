@@ -15,7 +15,36 @@ from .common.redact import for_text  # every message that shows a file's text: m
 EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
 
 
+class _Declaring(argparse.HelpFormatter):
+    """argparse's formatter while options are declared, where argparse only checks each option's
+    metavar with it: a fixed width, so that the terminal is not measured (that imports shutil:
+    start-up). Usage and help are laid out by argparse's own formatter (``_Parser._laid_out``)."""
+
+    def __init__(self, prog, indent_increment=2, max_help_position=24, width=None):
+        super().__init__(prog, indent_increment, max_help_position, 78 if width is None else width)
+
+
 class _Parser(argparse.ArgumentParser):
+    def __init__(self, *args, **kwargs):
+        kwargs.setdefault("formatter_class", _Declaring)
+        super().__init__(*args, **kwargs)
+
+    def format_usage(self):
+        return self._laid_out(super().format_usage)
+
+    def format_help(self):
+        return self._laid_out(super().format_help)
+
+    def _laid_out(self, layout):
+        """Usage or help laid out by argparse's formatter at the terminal's width."""
+        declaring = self.formatter_class
+        if declaring is _Declaring:
+            self.formatter_class = argparse.HelpFormatter
+        try:
+            return layout()
+        finally:
+            self.formatter_class = declaring
+
     def error(self, message):  # argparse exits 2 on bad arguments: keep that, say it plainly
         self.print_usage(sys.stderr)
         self.exit(EXIT_INCOMPLETE, f"trimtab: error: {message}\n")
@@ -51,7 +80,8 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"trimtab {__version__}")
     p.add_argument("--settings", metavar="FILE", help="settings file (default: trimtab.toml or pyproject.toml "
                                                       "found by walking up from the working directory)")
-    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser,
+                           prog=p.prog)  # the usage argparse would build (no positional before it)
     for name, (help_, options) in _COMMANDS.items():
         parser = sub.add_parser(name, help=help_)
         if command is None or command == name:

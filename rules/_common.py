@@ -8,7 +8,9 @@ from __future__ import annotations
 import functools
 
 from trimtab import Location
+from trimtab.common.vocabulary import CONCEPTS
 from trimtab.common.vocabulary import CRITIC_FREE as _NO_CRITIC
+from trimtab.load.document import Scalar  # perf: not through the package's lazy names
 
 # Estimator families (values of run.estimator, lower case).
 # Clipped policy-gradient objectives: PPO (Schulman et al. 2017, arXiv:1707.06347) and its GAE
@@ -144,11 +146,8 @@ def misread(model, v) -> tuple[str, list[str], bool]:
     """(the reader of the file a concept's value was written in, the YAML readers that misread it
     (trimtab.common.scalars.misreaders), whether the settings name that reader). A quoted, tagged or
     structured value, and any value of a JSON file (JSON's own grammar), is misread by none."""
-    from trimtab.common.vocabulary import CONCEPTS
-    from trimtab.load.document import Scalar  # perf: not through the package's lazy names
-
     node = v.node
-    if not isinstance(node, Scalar) or not node.plain or node.tag:
+    if not isinstance(node, Scalar) or node.style is not None or node.tag:
         return "", [], False
     reader, stated = model.reader(node)
     if reader == "json":

@@ -52,14 +52,22 @@ def kind_of(comp) -> str:
 def locate(ctx, comp):
     """Where a code reward's reference leads (a codescan ``Located``), or None when its reference
     is not code: ``module:function`` and file references through the search roots, a bare
-    function name through every module of the search roots."""
+    function name through every module of the search roots. Once per component of a run (the
+    REW, EXE and SEC rules all ask)."""
+    memo = vars(ctx.model).setdefault("_located", {}) if ctx.model is not None else {}
+    key = id(comp)
+    if key in memo:
+        return memo[key][1]
     from trimtab.engine.codescan import function_name, parse_reference
 
     ref = parse_reference(comp.get("ref"))
     if ref is not None:
-        return scanner(ctx).locate(ref)
-    name = function_name(comp.get("ref"))
-    return scanner(ctx).find_name(name) if name else None
+        found = scanner(ctx).locate(ref)
+    else:
+        name = function_name(comp.get("ref"))
+        found = scanner(ctx).find_name(name) if name else None
+    memo[key] = (comp, found)  # the component is kept with its answer: its id stays its own
+    return found
 
 
 def declared_kind(comp) -> bool:

@@ -300,3 +300,19 @@ def test_known_credentials_are_replaced_as_the_standard_library_s_alternation_wo
         text = "".join(rng.choice(alphabet + " :") for _ in range(rng.randint(0, 80)))
         text += rng.choice(sorted(pieces)) + "".join(rng.choice(alphabet) for _ in range(rng.randint(0, 5)))
         assert redact._replace_known(text) == reference.sub(redact.MASK, text), text
+
+
+def test_the_credential_walk_skips_only_values_too_short_for_every_shape():
+    """The walk (redact.credentials) passes over a value shorter than _SHORTEST_SHAPE characters
+    without "://" under a key not named like a credential: no shape but a URL's password can match
+    so short a text (each shape's least width, as the standard library's own regular-expression
+    parser works it out), and the entropy test needs min_length characters."""
+    import re._parser as sre_parse
+
+    from trimtab.common import redact
+
+    widths = {name: sre_parse.parse(text).getwidth()[0] for name, text in redact.SHAPES}
+    url = widths.pop("a password inside a URL")
+    assert url < redact._SHORTEST_SHAPE  # that shape needs "://", which the short cut never skips
+    assert min(widths.values()) == redact._SHORTEST_SHAPE
+    assert redact._SHORTEST_SHAPE <= redact.MIN_LENGTH

@@ -235,6 +235,26 @@ def test_module_names_are_pkgutils(tmp_path):
         assert engine._module_names(folders) == {i.name for i in pkgutil.iter_modules(folders)}
 
 
+def test_usage_and_help_are_argparses_layout_at_the_terminal_width(monkeypatch):
+    """Options are declared with a fixed-width formatter (no shutil at start-up); usage and help
+    are laid out by argparse's own formatter at the terminal's width (COLUMNS)."""
+    import argparse
+
+    from trimtab import cli
+
+    layouts = []
+    for columns in ("44", "160"):
+        monkeypatch.setenv("COLUMNS", columns)
+        parser = cli.build_parser()
+        parsers = [parser] + list(cli._commands(parser).values())
+        ours = [(p.format_usage(), p.format_help()) for p in parsers]
+        for p in parsers:
+            p.formatter_class = argparse.HelpFormatter
+        assert ours == [(p.format_usage(), p.format_help()) for p in parsers]
+        layouts.append(ours)
+    assert layouts[0] != layouts[1]  # the width is the terminal's, not the fixed one
+
+
 # --- the benchmark's corpus has the shapes the issue names ---------------------------------------
 def test_benchmark_corpus_shapes(tmp_path):
     paths = bench.make_corpus(tmp_path, 60)

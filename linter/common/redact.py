@@ -185,6 +185,7 @@ def reason(key: str, node, min_length: int = MIN_LENGTH, min_bits: float = MIN_B
 # after a few hundred files: its memory does not grow with the number of files.
 _REASONS: dict[tuple, str] = {}
 _EARLIER: dict[tuple, str] = {}
+_SHORTEST_SHAPE = 15
 _MEMO_TEXT = 200
 _MEMO_SIZE = 2048
 
@@ -211,6 +212,9 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
         if memo is not None:
             return memo
     out, seen = [], set()
+    # below this length (and without "://") a value can be a credential only by its key: the shortest
+    # credential shape (SHAPES, apart from a URL's password) is 15 characters long
+    short = min(_SHORTEST_SHAPE, min_length)
     for root in doc.roots:
         # (key text, value node) for every mapping entry (and sequence item under a key), each once;
         # nodes are told by their kind (redact sits below the located tree: findings mask their text)
@@ -242,6 +246,8 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
                 if id(node) in seen:
                     continue
                 text = node.text
+                if isinstance(text, str) and len(text) < short and "://" not in text and not is_credential_key(key):
+                    continue  # perf: too short for any shape or the entropy test, under a plain key
                 memo_key = (key, text, node.tag, node.style, min_length, min_bits) \
                     if type(node).__name__ == "Scalar" and isinstance(text, str) and len(text) <= _MEMO_TEXT else None
                 why = _REASONS.get(memo_key) if memo_key is not None else None

@@ -15,7 +15,8 @@ a library that implements it):
 from __future__ import annotations
 
 import math
-import re
+
+from .patterns import later  # compiled on first use: a file without dates never compiles the date patterns
 
 # Integers at or past this magnitude are not read as numbers (they stay text, and the loader
 # reports them: YML-5). Python cannot print an integer of more than 4300 digits, converting a long
@@ -44,15 +45,15 @@ def oversized(text: str) -> bool:
 
 
 # --- YAML 1.2 core schema ---------------------------------------------------------------
-_N12_NULL = re.compile(r"null|Null|NULL|~|")
-_N12_TRUE = re.compile(r"true|True|TRUE")
-_N12_FALSE = re.compile(r"false|False|FALSE")
-_N12_INT10 = re.compile(r"[-+]?[0-9]+")
-_N12_INT8 = re.compile(r"0o[0-7]+")
-_N12_INT16 = re.compile(r"0x[0-9a-fA-F]+")
-_N12_FLOAT = re.compile(r"[-+]?(\.[0-9]+|[0-9]+(\.[0-9]*)?)([eE][-+]?[0-9]+)?")
-_N12_INF = re.compile(r"[-+]?\.(inf|Inf|INF)")
-_N12_NAN = re.compile(r"\.(nan|NaN|NAN)")
+_N12_NULL = later(r"null|Null|NULL|~|")
+_N12_TRUE = later(r"true|True|TRUE")
+_N12_FALSE = later(r"false|False|FALSE")
+_N12_INT10 = later(r"[-+]?[0-9]+")
+_N12_INT8 = later(r"0o[0-7]+")
+_N12_INT16 = later(r"0x[0-9a-fA-F]+")
+_N12_FLOAT = later(r"[-+]?(\.[0-9]+|[0-9]+(\.[0-9]*)?)([eE][-+]?[0-9]+)?")
+_N12_INF = later(r"[-+]?\.(inf|Inf|INF)")
+_N12_NAN = later(r"\.(nan|NaN|NAN)")
 
 
 def type12(text: str):
@@ -84,17 +85,17 @@ def type12(text: str):
 # --- YAML 1.1 type repository -------------------------------------------------------------
 _N11_BOOL_TRUE = frozenset("yes Yes YES true True TRUE on On ON".split())
 _N11_BOOL_FALSE = frozenset("no No NO false False FALSE off Off OFF".split())
-_N11_NULL = re.compile(r"~|null|Null|NULL|")
-_N11_INT = re.compile(
+_N11_NULL = later(r"~|null|Null|NULL|")
+_N11_INT = later(
     r"[-+]?0b[0-1_]+|[-+]?0[0-7_]+|[-+]?(?:0|[1-9][0-9_]*)|[-+]?0x[0-9a-fA-F_]+"
     r"|[-+]?[1-9][0-9_]*(?::[0-5]?[0-9])+"
 )
-_N11_FLOAT = re.compile(
+_N11_FLOAT = later(
     r"[-+]?(?:[0-9][0-9_]*)\.[0-9_]*(?:[eE][-+][0-9]+)?|\.[0-9_]+(?:[eE][-+][0-9]+)?"
     r"|[-+]?[0-9][0-9_]*(?::[0-5]?[0-9])+\.[0-9_]*|[-+]?\.(?:inf|Inf|INF)|\.(?:nan|NaN|NAN)"
 )
-_N11_DATE = re.compile(r"([0-9]{4})-([0-9]{2})-([0-9]{2})")
-_N11_TIMESTAMP = re.compile(
+_N11_DATE = later(r"([0-9]{4})-([0-9]{2})-([0-9]{2})")
+_N11_TIMESTAMP = later(
     r"([0-9]{4})-([0-9]{1,2})-([0-9]{1,2})(?:[Tt]|[ \t]+)([0-9]{1,2}):([0-9]{2}):([0-9]{2})"
     r"(?:\.([0-9]*))?(?:[ \t]*(Z|[-+][0-9]{1,2}(?::[0-9]{2})?))?"
 )
@@ -183,7 +184,7 @@ def _float11(text: str) -> float:
 # --- YAML 1.1 with the float fix ----------------------------------------------------------------
 # The float pattern such config libraries add after the YAML 1.1 ones (so a 1.1 reading that is
 # not text still wins): the exponent's sign is optional, and an exponent needs no point.
-_N11F_FLOAT = re.compile(
+_N11F_FLOAT = later(
     r"[-+]?[0-9]+(?:_[0-9]+)*\.[0-9_]*(?:[eE][-+]?[0-9]+)?|[-+]?[0-9]+(?:_[0-9]+)*(?:[eE][-+]?[0-9]+)"
     r"|\.[0-9]+(?:_[0-9]+)*(?:[eE][-+][0-9]+)?|[-+]?[0-9]+(?:_[0-9]+)*(?::[0-5]?[0-9])+\.[0-9_]*"
     r"|[-+]?\.(?:inf|Inf|INF)|\.(?:nan|NaN|NAN)"
@@ -201,7 +202,7 @@ def type11f(text: str):
 
 
 # --- JSON (RFC 8259) ------------------------------------------------------------------------------
-_JSON_NUMBER = re.compile(r"(-?)(0|[1-9][0-9]*)(\.[0-9]+)?([eE][-+]?[0-9]+)?")
+_JSON_NUMBER = later(r"(-?)(0|[1-9][0-9]*)(\.[0-9]+)?([eE][-+]?[0-9]+)?")
 _JSON_WORDS = {"true": True, "false": False, "null": None}
 
 
@@ -234,14 +235,33 @@ _EXPLICIT = {
 }
 
 
+# perf: runs repeat the same scalars from file to file; a short scalar's typing is kept (bounded:
+# emptied when full, so memory stays flat over any number of files). Every value typed is immutable.
+_TYPED: dict[tuple, object] = {}
+_TYPED_TEXT = 64
+_TYPED_SIZE = 8192
+
+
 def typed(text: str, plain: bool, tag: str | None, version: str):
     """Type a scalar. Quoted and block scalars are strings unless explicitly tagged;
     an explicit standard tag types the text as that tag. An integer of MAX_INT or more stays text
     (the loader reports it) rather than stopping the check."""
-    try:
-        return _typed(text, plain, tag, version)
-    except ValueError:
+    if not plain and tag is None:
         return text
+    key = (text, plain, tag, version) if len(text) <= _TYPED_TEXT else None
+    if key is not None:
+        hit = _TYPED.get(key, _TYPED)
+        if hit is not _TYPED:
+            return hit
+    try:
+        value = _typed(text, plain, tag, version)
+    except ValueError:
+        value = text
+    if key is not None:
+        if len(_TYPED) >= _TYPED_SIZE:
+            _TYPED.clear()
+        _TYPED[key] = value
+    return value
 
 
 def _typed(text: str, plain: bool, tag: str | None, version: str):

@@ -368,6 +368,8 @@ class Scanner:
         self._located: dict[Reference, tuple[tuple, Located]] = {}
         self._index: dict[str, list[Path]] | None = None
         self.index_cut = ""  # why the name index stopped early ("" when it read every file)
+        # perf: the folders a missing reference was looked for in (they depend on the roots only)
+        self._miss_folders: dict[Reference, list[Path]] = {}
 
     # -- locating ---------------------------------------------------------------------------
     def _rel(self, real: Path) -> str:
@@ -414,7 +416,7 @@ class Scanner:
         unchanged, a missing one (misses cost as much to look for as hits) while every folder it
         was looked for in is unchanged (a file added there changes the folder)."""
         hit = self._located.get(ref)
-        if hit is not None and hit[0] == self._sign(hit[1], ref):
+        if hit is not None and hit[0] == self._sign(hit[1], ref):  # its file, or the folders of a miss
             return hit[1]
         found = self._locate(ref)
         if found.real is not None or found.status in ("no-module", "bad-root"):
@@ -425,9 +427,11 @@ class Scanner:
         if found.real is not None:
             return _signature(found.real)
         # a miss: the folders of every candidate looked at (both readings of a dotted name)
-        refs = [ref, Reference(ref.text, module=ref.text, dotted=True)] if ref.dotted else [ref]
-        folders = {p.parent for r in refs for p, _shown in self._candidates(r)}
-        return ("missing",) + tuple(_folder_signature(f) for f in sorted(folders))
+        folders = self._miss_folders.get(ref)
+        if folders is None:
+            refs = [ref, Reference(ref.text, module=ref.text, dotted=True)] if ref.dotted else [ref]
+            folders = self._miss_folders[ref] = sorted({p.parent for r in refs for p, _shown in self._candidates(r)})
+        return ("missing",) + tuple(_folder_signature(f) for f in folders)
 
     def _locate(self, ref: Reference) -> Located:
         if not self.roots:

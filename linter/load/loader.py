@@ -720,7 +720,25 @@ class _EventBuilder(_Builder):
                         self._oversized(node)
                     if role and not value and node.style is None and sm.index == em.index and anchor is None:
                         self.empties.append((node, role))
-                    self._attach(node, stack, roots)
+                    # perf: _attach inline for a scalar, the most common node
+                    if not stack:
+                        roots.append(node)
+                    elif not parent.is_map:
+                        parent.node.items.append(node)
+                    elif parent.key is None:
+                        parent.key, parent.name = node, value
+                    else:
+                        k, name = parent.key, parent.name
+                        parent.key = None
+                        parent.node.pairs.append((k, node))
+                        if name == "<<" and type(k) is Scalar and k.style is None:
+                            self._merge(parent.node, k, node)
+                        elif type(k) is Scalar:
+                            first = parent.first
+                            if name in first:
+                                _first_or_duplicate(first, name, k, shown, self.problems)
+                            else:
+                                first[name] = k
                     continue
                 coll: Node = Mapping() if cls is map_start else Sequence()
                 coll.line, coll.col, coll.start = sm.line + 1, sm.column + 1, sm.index

@@ -68,8 +68,14 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     model.chains = getattr(root, "chains", None) or {}
     model.roles = getattr(root, "roles", None) or {}
     model.notes = list(getattr(root, "notes", None) or [])
-    leaves = list(_leaves(root))
-    chains = {p: c for p, _n, c in reversed(leaves)}  # the first way each key path was reached
+    # perf: one walk, by section: a section's context (inside a reward list, its normalised parent
+    # words, an evaluation block) is decided once, and only for a section holding a key that could
+    # name a concept
+    sections_found = list(_sections(root))
+    chains: dict[tuple, tuple] = {}
+    for _section, entries in reversed(sections_found):
+        for p, _n, c in reversed(entries):
+            chains[p] = c  # the first way each key path was reached
     taken: set[int] = set()
     mapped = set()
     for concept, spec in opts.keys.items():
@@ -81,66 +87,69 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
     sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
-    # perf: most keys are no alias; their parent sections are normalised only for those that are,
-    # once per section, and each key word once per file
-    words: dict[str, str] = {}
-    sections: dict[tuple, list[str]] = {}
-    inside: dict[tuple, bool] = {}
-    evals: dict[tuple, str | None] = {}
+    # perf: most keys are no alias; a key's words and a section's context are worked out once per
+    # process (runs repeat them from file to file), and a section's only for one holding an alias
+    words = _WORDS
+    if len(words) >= _MEMO_SIZE:
+        words.clear()
     misshapen: dict[str, list[tuple[int, tuple, Node, str]]] = {}
-    for path, node, _chain in leaves:
-        if id(node) in taken:
-            continue
-        # keys inside one reward component are its fields, not concepts of the run
-        if _inside_sources(path, sources_key, inside):
-            continue
-        leaf = words.get(path[-1])
-        if leaf is None:
-            leaf = words[path[-1]] = normalise_key(path[-1])
-        aliases = ALIASES.get(leaf, ())
-        kl_words = "kl" in leaf or len(path) > 1 and "kl" in path[-2].lower()
-        if not aliases and not kl_words:
-            continue
-        parents = _parents(path, sections)
-        matched = False
-        section = path[:-1]
-        if section not in evals:
-            evals[section] = evaluation_section(section)
-        in_eval = evals[section]
-        for alias in aliases:
-            if alias.under and (not parents or parents[-1] not in alias.under):
+    for section, entries in sections_found:
+        context = None
+        for path, node, _chain in entries:
+            if id(node) in taken:
                 continue
-            if alias.concept == "reward.sources" and isinstance(node, Scalar):
+            leaf = words.get(path[-1])
+            if leaf is None:
+                leaf = words[path[-1]] = normalise_key(path[-1])
+            aliases = ALIASES.get(leaf, ())
+            kl_words = "kl" in leaf or bool(section) and "kl" in section[-1].lower()
+            if not aliases and not kl_words:
                 continue
-            shape = "" if alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
-                _shape(alias.concept, node, leaf, model.reader(node)[0], synonyms=opts.keys.get(alias.concept))
-            if shape == "section":
-                continue  # a section named like the concept holds keys, not its value
-            if alias.concept in mapped:
-                model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
-                                           f"the key map names {opts.keys[alias.concept].key}", "keymap"))
+            if context is None:
+                context = _context(section, sources_key)
+            if context[0]:
                 continue
-            if in_eval is not None:
-                # an evaluation, validation or test block samples for another loop: its keys never
-                # compete with the training run's. Only a sandbox (where generated code runs, in
-                # any loop) is taken from one, and only when the training run states none.
-                if not alias.concept.startswith("sandbox."):
-                    model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
-                                               f"in the evaluation section '{in_eval}'", "evaluation"))
+            parents, in_eval = context[1], context[2]
+            matched = False
+            for alias in aliases:
+                if alias.under and (not parents or parents[-1] not in alias.under):
                     continue
-                strength = 0
-            elif alias.not_under and any(p in alias.not_under for p in parents):
-                continue
-            else:
-                strength = 2 if alias.under else 1
-            if shape:  # a value of the wrong shape: used only if no key of the right shape matches
-                misshapen.setdefault(alias.concept, []).append((strength, path, node, shape))
-                continue
-            candidates.setdefault(alias.concept, []).append((strength, path, node))
-            matched = True
-        if not matched and kl_words and in_eval is None:
-            _by_words(leaf, path, node, parents, candidates, mapped, model.reader(node)[0])
-    native = {".".join(p): (p, n) for p, n, _c in leaves}
+                if alias.concept == "reward.sources" and isinstance(node, Scalar):
+                    continue
+                shape = "" if alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
+                    _shape(alias.concept, node, leaf, model.reader(node)[0], synonyms=opts.keys.get(alias.concept))
+                if shape == "section":
+                    continue  # a section named like the concept holds keys, not its value
+                if alias.concept in mapped:
+                    model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
+                                               f"the key map names {opts.keys[alias.concept].key}", "keymap"))
+                    continue
+                if in_eval is not None:
+                    # an evaluation, validation or test block samples for another loop: its keys never
+                    # compete with the training run's. Only a sandbox (where generated code runs, in
+                    # any loop) is taken from one, and only when the training run states none.
+                    if not alias.concept.startswith("sandbox."):
+                        model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
+                                                   f"in the evaluation section '{in_eval}'", "evaluation"))
+                        continue
+                    strength = 0
+                elif alias.not_under and any(p in alias.not_under for p in parents):
+                    continue
+                else:
+                    strength = 2 if alias.under else 1
+                if shape:  # a value of the wrong shape: used only if no key of the right shape matches
+                    misshapen.setdefault(alias.concept, []).append((strength, path, node, shape))
+                    continue
+                candidates.setdefault(alias.concept, []).append((strength, path, node))
+                matched = True
+            if not matched and kl_words and in_eval is None:
+                _by_words(leaf, path, node, parents, candidates, mapped, model.reader(node)[0])
+    # the native layout: a key path that is a concept's own name (the last written of each)
+    native: dict[str, tuple[tuple, Node]] = {}
+    for _section, entries in sections_found:
+        for p, n, _c in entries:
+            if p[0] in _NATIVE_HEADS or "." in p[0]:
+                native[".".join(p)] = (p, n)
     for concept in CONCEPTS:
         if concept in mapped or concept in model.values:
             continue
@@ -186,14 +195,6 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     return model
 
 
-def _parents(path: tuple, sections: dict) -> list[str]:
-    """The normalised section words above a key (list indices left out), once per section."""
-    parents = sections.get(path[:-1])
-    if parents is None:
-        parents = sections[path[:-1]] = [section_word(normalise_key(p)) for p in path[:-1] if not p.isdigit()]
-    return parents
-
-
 def _by_words(leaf: str, path: tuple, node: Node, parents: list[str], candidates: dict, mapped: set,
               version: str) -> None:
     """A KL key that names its place (loss or reward) and its role by its words, outside evaluation
@@ -227,12 +228,6 @@ def _liveness(model: RunModel) -> None:
 REVISIT_BUDGET = 500
 
 
-def _inside_sources(path: tuple, sources_key: tuple | None, memo: dict) -> bool:
-    """A key inside one reward component (a field of reward.sources, not a concept of the run).
-    ``memo`` holds the answer per section (key path) of one run: linear in the depth of nesting."""
-    return _sources_section(path[:-1], sources_key, memo) if path else False
-
-
 def _sources_section(section: tuple, sources_key: tuple | None, memo: dict) -> bool:
     """Is ``section``, or a section above it, a reward-sources list (each answer memoised)?"""
     todo = []
@@ -261,11 +256,11 @@ def _names_sources(section: tuple) -> bool:
     return False
 
 
-def _leaves(root: Node):
-    """(key path, node, chain) for every mapping entry, sections included. ``chain`` holds the
-    related locations of the hops that brought the entry to this path: a ``<<`` merge key, or the
-    key whose value is an alias of a node written elsewhere. Each section is walked once per
-    path it is reached by, within REVISIT_BUDGET; cycles are never followed."""
+def _sections(root: Node):
+    """(section path, [(key path, node, chain)...]) for every mapping, its entries in order, sections
+    included. ``chain`` holds the related locations of the hops that brought the entry to this path:
+    a ``<<`` merge key, or the key whose value is an alias of a node written elsewhere. Each section
+    is walked once per path it is reached by, within REVISIT_BUDGET; cycles are never followed."""
     seen: set[int] = set()
     budget = REVISIT_BUDGET
     stack: list[tuple[tuple, Node, tuple, frozenset]] = [((), root, (), frozenset())]
@@ -278,6 +273,7 @@ def _leaves(root: Node):
         seen.add(id(node))
         if isinstance(node, Mapping):
             inner = above | {id(node)}
+            entries = []
             for name, k, v, via in node.entries():
                 p = path + (name,)
                 hops: tuple = chain
@@ -285,9 +281,37 @@ def _leaves(root: Node):
                     hops = hops + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
                 elif v.anchor and v.path != p and isinstance(k, Scalar) and k.path == path:
                     hops = hops + (k.location(f"{'.'.join(p)} is an alias of {'.'.join(v.path) or 'the top level'}"),)
-                yield p, v, list(hops)
+                entries.append((p, v, hops))
+            yield path, entries
+            for p, v, hops in entries:  # the sections below (the last one is walked first)
                 if isinstance(v, Mapping):
                     stack.append((p, v, hops, inner))
+
+
+# perf: answers kept across files (runs repeat their keys and sections), bounded: emptied when full,
+# so memory stays flat over any number of files
+_MEMO_SIZE = 4096
+_WORDS: dict[str, str] = {}  # a key as written -> normalise_key
+_CONTEXTS: dict[tuple, tuple] = {}  # (section, reward-sources key path) -> _context
+
+
+def _context(section: tuple, sources_key: tuple | None) -> tuple[bool, list[str], str | None]:
+    """What decides how the keys of one section resolve: (is it inside a reward-sources list (its
+    keys are a component's fields, not concepts of the run), the normalised words of its path, the
+    evaluation block it is in or None)."""
+    hit = _CONTEXTS.get((section, sources_key))
+    if hit is None:
+        if len(_CONTEXTS) >= _MEMO_SIZE:
+            _CONTEXTS.clear()
+        hit = _CONTEXTS[(section, sources_key)] = (
+            _sources_section(section, sources_key, {}) if section else False,
+            [section_word(normalise_key(p)) for p in section if not p.isdigit()],
+            evaluation_section(section))
+    return hit
+
+
+# The first word of every concept's dotted name: a key path of the native layout starts with one.
+_NATIVE_HEADS = frozenset(c.split(".", 1)[0] for c in CONCEPTS)
 
 
 def _at(root: Node, key: str) -> Node | None:
@@ -428,7 +452,7 @@ def scalar_value(node: Node, version: str):
 
 
 def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None = None,
-           chain: list | None = None, synonyms: KeySpec | None = None):
+           chain: tuple | list | None = None, synonyms: KeySpec | None = None):
     """Store one concept's value. ``synonyms``: the key map's entry for the concept when the value
     was found elsewhere than its mapped key (its ``values`` table still says what a value means)."""
     _store_value(model, concept, node, via, key, spec, synonyms or spec)

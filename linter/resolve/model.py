@@ -203,6 +203,7 @@ class RunModel:
         self.touched = set() if touched is None else touched
         self.unusable = set() if unusable is None else unusable
         self.dead = {} if dead is None else dead
+        self._readers: dict[str, tuple[str, bool]] = {}  # shown path -> reader (see reader)
 
     @recursive_repr()
     def __repr__(self) -> str:
@@ -231,6 +232,12 @@ class RunModel:
         for a .json file, else the first of the settings' readers whose glob matches the file, else
         yaml_version (named when written in the settings, else the default, assumed)."""
         shown = getattr(node, "file", None) or self.doc.path
+        known = self._readers.get(shown)  # perf: once per file of the run
+        if known is None:
+            known = self._readers[shown] = self._reader_of(shown)
+        return known
+
+    def _reader_of(self, shown: str) -> tuple[str, bool]:
         if shown.lower().endswith(".json") or shown == self.doc.path and self.doc.fmt == "json":
             return "json", True
         if self.readers:
