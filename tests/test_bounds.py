@@ -174,6 +174,33 @@ def test_the_budget_interrupts_a_match_and_restores_the_signal_handler():
     assert seen == ["refused"]  # never run unbounded
 
 
+def test_the_budget_refuses_a_thread_it_was_not_told_of(monkeypatch):
+    """A thread started while ``threading`` is not imported (the budget then takes this for the
+    main thread) is refused where the signal handler is set: never run unbounded."""
+    import signal
+    import sys
+    import threading
+
+    from trimtab.common import budget
+
+    before = signal.getsignal(signal.SIGPROF)
+    seen = []
+
+    def elsewhere():
+        try:
+            with budget.cpu_budget(0.2):
+                seen.append("ran")
+        except budget.NoBudget:
+            seen.append("refused")
+
+    t = threading.Thread(target=elsewhere)
+    monkeypatch.delitem(sys.modules, "threading")
+    t.start()
+    t.join()
+    assert seen == ["refused"]
+    assert signal.getsignal(signal.SIGPROF) is before and signal.getitimer(signal.ITIMER_PROF) == (0.0, 0.0)
+
+
 # --- integers of thousands of digits ---------------------------------------------------------------
 HUGE = {
     "group_size: 8": "group_size: 0b" + "1" * 20_000,  # binary: 20,000 digits

@@ -11,7 +11,7 @@ not test, and never run the work unbounded.
 from __future__ import annotations
 
 import signal
-import threading
+import sys
 from contextlib import contextmanager
 
 
@@ -24,7 +24,15 @@ class NoBudget(Exception):
 
 
 def available() -> bool:
-    return hasattr(signal, "setitimer") and threading.current_thread() is threading.main_thread()
+    return hasattr(signal, "setitimer") and _in_main_thread()
+
+
+def _in_main_thread() -> bool:
+    """Whether this is the main thread. Until ``threading`` is imported no thread was started
+    through it, so this is the main one (a plain check never imports it: start-up); a thread
+    started some other way is caught where the signal handler is set (``cpu_budget``)."""
+    threading = sys.modules.get("threading")
+    return threading is None or threading.current_thread() is threading.main_thread()
 
 
 @contextmanager
@@ -36,7 +44,10 @@ def cpu_budget(seconds: float):
     def expire(_sig, _frame):
         raise OverBudget(seconds)
 
-    old = signal.signal(signal.SIGPROF, expire)
+    try:
+        old = signal.signal(signal.SIGPROF, expire)
+    except ValueError:  # not the main thread after all: Python sets signal handlers only there
+        raise NoBudget("no CPU timer in this thread") from None
     try:
         signal.setitimer(signal.ITIMER_PROF, seconds)
         yield
