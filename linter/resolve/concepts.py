@@ -71,11 +71,9 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     # perf: one walk, by section: a section's context (inside a reward list, its normalised parent
     # words, an evaluation block) is decided once, and only for a section holding a key that could
     # name a concept
-    sections_found = list(_sections(root))
-    chains: dict[tuple, tuple] = {}
-    for _section, entries in reversed(sections_found):
-        for p, _n, c in reversed(entries):
-            chains[p] = c  # the first way each key path was reached
+    chains: dict[tuple, tuple] = {}  # key path -> the hops of the first way it was reached
+    native: dict[str, tuple[tuple, Node]] = {}  # a concept's own dotted name -> the last entry written there
+    sections_found = list(_sections(root, chains, native))
     taken: set[int] = set()
     mapped = set()
     for concept, spec in opts.keys.items():
@@ -144,12 +142,6 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                 matched = True
             if not matched and kl_words and in_eval is None:
                 _by_words(leaf, path, node, parents, candidates, mapped, model.reader(node)[0])
-    # the native layout: a key path that is a concept's own name (the last written of each)
-    native: dict[str, tuple[tuple, Node]] = {}
-    for _section, entries in sections_found:
-        for p, n, _c in entries:
-            if p[0] in _NATIVE_HEADS or "." in p[0]:
-                native[".".join(p)] = (p, n)
     for concept in CONCEPTS:
         if concept in mapped or concept in model.values:
             continue
@@ -256,13 +248,16 @@ def _names_sources(section: tuple) -> bool:
     return False
 
 
-def _sections(root: Node):
+def _sections(root: Node, chains: dict, native: dict):
     """(section path, [(key path, node, chain)...]) for every mapping, its entries in order, sections
     included. ``chain`` holds the related locations of the hops that brought the entry to this path:
     a ``<<`` merge key, or the key whose value is an alias of a node written elsewhere. Each section
-    is walked once per path it is reached by, within REVISIT_BUDGET; cycles are never followed."""
+    is walked once per path it is reached by, within REVISIT_BUDGET; cycles are never followed.
+    Filled on the way: ``chains`` (key path -> the chain of the first way it was reached) and
+    ``native`` (a dotted key path that may be a concept's own name -> the last entry written there)."""
     seen: set[int] = set()
     budget = REVISIT_BUDGET
+    heads = _NATIVE_HEADS
     stack: list[tuple[tuple, Node, tuple, frozenset]] = [((), root, (), frozenset())]
     while stack:
         path, node, chain, above = stack.pop()
@@ -282,6 +277,10 @@ def _sections(root: Node):
                 elif v.anchor and v.path != p and isinstance(k, Scalar) and k.path == path:
                     hops = hops + (k.location(f"{'.'.join(p)} is an alias of {'.'.join(v.path) or 'the top level'}"),)
                 entries.append((p, v, hops))
+                if p not in chains:
+                    chains[p] = hops
+                if p[0] in heads or "." in p[0]:
+                    native[".".join(p)] = (p, v)
             yield path, entries
             for p, v, hops in entries:  # the sections below (the last one is walked first)
                 if isinstance(v, Mapping):
