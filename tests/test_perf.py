@@ -361,3 +361,29 @@ def test_credential_memo_gives_reasons_answers_whatever_its_size(monkeypatch):
         assert answers() == unbounded
         assert len(redact._REASONS) <= size and len(redact._EARLIER) <= size
     assert any(found for found in unbounded)  # the documents hold credentials the walk finds
+
+
+# --- --jobs: the work split keeps every file once, in order ---------------------------------------
+@pytest.mark.parametrize("count,jobs", [(1, 2), (2, 2), (9, 2), (100, 2), (1000, 3), (5000, 8)])
+def test_chunks_hand_out_every_file_once_in_order_shrinking_to_one(count, jobs):
+    from trimtab.gate.runner import _CHUNK_MAX, _chunks
+
+    files = [(f"d/{i}.yaml", f"{i}.yaml") for i in range(count)]
+    chunks = list(_chunks(files, 1, jobs))
+    assert [f for c in chunks for f in c] == files[1:]  # the first file is checked before forking
+    sizes = [len(c) for c in chunks]
+    assert all(1 <= s <= _CHUNK_MAX for s in sizes) and sizes == sorted(sizes, reverse=True)
+    if chunks:
+        assert sizes[-1] == 1
+
+
+def test_many_files_over_workers_give_the_findings_of_one_process(tmp_path):
+    # more chunks than are handed out at first (a worker asks for the next when done); the same
+    # JSON report, byte for byte, as one process
+    from support import check_json
+
+    bench.make_corpus(tmp_path, 48, seed=4)
+    one = check_json(tmp_path / "configs", args=("--jobs", "1"), cwd=tmp_path)
+    three = check_json(tmp_path / "configs", args=("--jobs", "3"), cwd=tmp_path)
+    assert one.out == three.out and one.code == three.code
+    assert len(one.json["findings"]) > 20 and one.json["summary"]["files"] == 48

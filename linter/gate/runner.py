@@ -10,7 +10,7 @@ import gc
 from bisect import bisect_left
 from collections.abc import Iterable, Iterator, Sequence
 from collections.abc import Set as AbcSet
-from itertools import groupby
+from itertools import groupby, islice
 from typing import Any
 
 from . import filtering
@@ -434,8 +434,64 @@ def _light(v: Value | None) -> Value | None:
 _WORKER: Checker | None = None
 
 
-def _work(item: tuple[str, str]) -> FileResult:
-    return _WORKER.check_file(*item)
+_CHUNK_MAX = 16  # files handed to a worker at once, at most
+
+
+def _work(items: list[tuple[str, str]]) -> list[FileResult]:
+    """A worker's part: check a chunk of files (the Checker is the parent's, inherited by fork)."""
+    check = _WORKER.check_file
+    return [check(path, shown) for path, shown in items]
+
+
+def _chunks(files: Sequence[tuple[str, str]], start: int, jobs: int) -> Iterator[list[tuple[str, str]]]:
+    """The files from ``start`` on, in order, in chunks that shrink as the end nears: each a
+    quarter of a worker's share of what is left, at most _CHUNK_MAX files (perf: a worker asks
+    for the next chunk when it is done, so no worker waits long for another at the end, and few
+    chunks travel while many files are left)."""
+    i, n = start, len(files)
+    while i < n:
+        size = max(1, min(_CHUNK_MAX, (n - i) // (jobs * 4)))
+        yield list(files[i:i + size])
+        i += size
+
+
+def _run_parallel(checker: Checker, files: Sequence[tuple[str, str]], jobs: int, results: "_Totals") -> None:
+    """Check the files in ``jobs`` forked worker processes; the results arrive in the files' order.
+
+    perf: the parent checks the first file itself before forking: the modules a check imports on
+    first use and the per-process caches it fills are then inherited by every worker, not made
+    again in each. While the workers run, the parent only hands out chunks and files the results
+    (a few in flight per worker, so the parent holds a bounded number)."""
+    global _WORKER
+    import multiprocessing
+    from collections import deque
+    from concurrent.futures import ProcessPoolExecutor
+
+    gc.freeze()
+    try:
+        results.append(checker.check_file(*files[0]))
+    finally:
+        gc.unfreeze()
+    if len(files) == 1:
+        return
+    _WORKER = checker
+    # perf: what the workers inherit is never collected there: without this, every worker's
+    # collector rescans (and copy-on-write duplicates) the parent's objects
+    gc.freeze()
+    try:
+        with ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("fork")) as pool:
+            chunks = _chunks(files, 1, jobs)
+            pending = deque(pool.submit(_work, c) for c in islice(chunks, jobs * 3))
+            while pending:
+                done = pending.popleft().result()
+                following = next(chunks, None)
+                if following is not None:
+                    pending.append(pool.submit(_work, following))
+                for res in done:
+                    results.append(res)
+    finally:
+        gc.unfreeze()
+        _WORKER = None
 
 
 class RunResult:
@@ -560,25 +616,9 @@ def run(checker: Checker, files: Sequence[tuple[str, str]], jobs: int = 1, progr
     ``others(checked)``: the SetEntries of the repository's other runs, for a check of some files
     only; the rules over several runs then judge the files against them, and only their findings
     about a checked file are reported."""
-    global _WORKER
     results = _Totals(progress)
     if jobs > 1 and len(files) > 1 and not keep:
-        import multiprocessing
-        from concurrent.futures import ProcessPoolExecutor
-
-        _WORKER = checker
-        ctx = multiprocessing.get_context("fork")
-        chunk = max(1, min(64, len(files) // (jobs * 8) or 1))
-        # perf: what the workers inherit is never collected there: without this, every worker's
-        # collector rescans (and copy-on-write duplicates) the parent's objects
-        gc.freeze()
-        try:
-            with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
-                for res in pool.map(_work, files, chunksize=chunk):
-                    results.append(res)
-        finally:
-            gc.unfreeze()
-        _WORKER = None
+        _run_parallel(checker, files, jobs, results)
     else:
         # perf: what exists before the first file (modules, rules, settings) lives as long as the
         # process: the collector need not scan it again at every full collection
