@@ -12,10 +12,10 @@ what the exit status is; no view loads a file again.
 from __future__ import annotations
 
 from reprlib import recursive_repr
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from itertools import chain
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from .gate import filtering
 from .gate.runner import CheckOptions, Checker, Kept, run, summary_counts
@@ -23,6 +23,9 @@ from .engine.registry import Registry
 from .common.findings import Finding, Level, Location
 from .common.settings import Settings, SettingsError
 from .common.spill import Stream
+
+if TYPE_CHECKING:
+    from .load.discover import Found
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
 
@@ -107,7 +110,7 @@ class Outcome:
 
     settings: Settings
     registry: Registry
-    files: list[tuple[str, str]]  # (path on disk, path shown), in report order
+    files: Sequence[tuple[str, str]]  # (path on disk, path shown), in report order (discover.Found)
     missing: list[str]  # paths asked for that were not read (as discover.Refused, with the reason)
     checked: Any  # the shown paths checked (a set)
     recorded: Iterable[Finding]  # every finding before the accepted-findings file (what --write-accepted records)
@@ -121,7 +124,7 @@ class Outcome:
     tally: dict  # what the accepted-findings file accepted (set on each pass)
 
     def __init__(
-            self, settings: Settings, registry: Registry, files: list[tuple[str, str]], missing: list[str],
+            self, settings: Settings, registry: Registry, files: Sequence[tuple[str, str]], missing: list[str],
             checked: Any, recorded: Iterable[Finding], findings: Iterable[Finding], gate: Level, crashed: bool,
             runs: int, skipped: int, kept: dict[str, Kept] | None = None, accepted_in_place: int = 0,
             tally: dict | None = None
@@ -223,11 +226,11 @@ class Pipeline:
     def __init__(self, settings: Settings, registry: Registry):
         self.settings = settings
         self.registry = registry
-        self._repository_files: list[tuple[str, str]] | None = None
+        self._repository_files: Found | None = None
         self._graph = None
 
     # --- discover --------------------------------------------------------------------------------
-    def discover(self, req: Request) -> tuple[list[tuple[str, str]], list[str]]:
+    def discover(self, req: Request) -> tuple[Found, list[str]]:
         from .load.discover import changed_since, discover
 
         settings = self.settings
@@ -254,8 +257,18 @@ class Pipeline:
         if req.guard is not None:
             # after every file to check is known (the runs built on a base among them): a report
             # or accepted-findings file never overwrites a checked config
-            req.guard(found + files)
-        return files, missing
+            req.guard(found + list(files))
+        del found
+        # perf: the list is kept for the whole run: held lean (the repository's list shares its paths)
+        from .load.discover import Found
+
+        return Found(files, share=self._shared()), missing
+
+    def _shared(self) -> dict[str, str] | None:
+        """The repository's shown paths, by themselves: another list of this check keeps them once."""
+        if self._repository_files is None:
+            return None
+        return {s: s for s in self._repository_files.shown()}
 
     def _not_own_outputs(self, files, req: Request):
         """The accepted-findings file and the reports are trimtab's own output, not configs."""
@@ -267,14 +280,19 @@ class Pipeline:
         skip = {Path(p).resolve() for p in own}
         return [(p, s) for p, s in files if Path(p).resolve() not in skip]
 
-    def repository_files(self) -> list[tuple[str, str]]:
+    def repository_files(self) -> Found:
         """Every file of the repository discovery finds under the settings (once per pipeline): the
-        search for a changed base's dependants and the other runs of a check of some files read it."""
+        search for a changed base's dependants and the other runs of a check of some files read it.
+        perf: kept for the whole run, so held lean (discover.Found: the shown paths, and the paths on
+        disk made from the root's when they are read)."""
         if self._repository_files is None:
-            from .load.discover import discover
+            import os
 
-            self._repository_files, _missing = discover([], self.settings.root, self.settings.include,
-                                                        self.settings.exclude)
+            from .load.discover import Found, discover
+
+            root = self.settings.root.resolve()
+            files, _missing = discover([], root, self.settings.include, self.settings.exclude)
+            self._repository_files = Found(files, prefix=os.path.join(str(root), ""))
         return self._repository_files
 
     def base_graph(self):
@@ -300,7 +318,7 @@ class Pipeline:
             graph.save()
 
     # --- load, compose, resolve, rules, filter, gate ----------------------------------------------
-    def run(self, req: Request, files: tuple[list[tuple[str, str]], list[str]] | None = None) -> Outcome:
+    def run(self, req: Request, files: tuple[Sequence[tuple[str, str]], list[str]] | None = None) -> Outcome:
         """The Outcome of the request; ``files``: (files, missing) already discovered."""
         from .common import startup
 

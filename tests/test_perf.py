@@ -291,3 +291,73 @@ def test_high_entropy_whitespace_test_is_the_per_character_one():
     for _ in range(3000):
         text = "".join(rng.choice("aZ9xY \t\u2003\u00a0\x1c\x85") for _ in range(rng.randint(0, 40)))
         assert (len("".join(text.split())) != len(text)) == any(c.isspace() for c in text), repr(text)
+
+
+# --- memory flat over many files: lean lists and bounded memos give the same answers ------------
+def test_found_files_are_the_pairs_they_were_made_from():
+    import random
+
+    from trimtab.load.discover import Found
+
+    rng = random.Random(11)
+    for prefix in ("", "/repo/", "/"):
+        shown = sorted({f"configs/t{rng.randint(0, 9)}/run-{rng.randint(0, 999):03d}.yaml" for _ in range(300)})
+        # most on disk at prefix + shown (a walk from the root); some elsewhere (a link's name, a folder given)
+        pairs = [(prefix + s if rng.random() < 0.8 else f"elsewhere/{s}", s) for s in shown]
+        found = Found(pairs, prefix=prefix)
+        assert found == pairs and list(found) == pairs and len(found) == len(pairs)
+        assert [found[i] for i in range(-len(pairs), len(pairs))] == pairs + pairs
+        assert found[3:40:7] == pairs[3:40:7] and found[::-1] == pairs[::-1]
+        assert found + [("x", "y")] == pairs + [("x", "y")] and [("x", "y")] + found == [("x", "y")] + pairs
+        # shown paths held elsewhere are kept once
+        held = {s: s for s in (x[1] for x in pairs[:50])}
+        shared = Found([(d, "".join(s)) for d, s in pairs], prefix=prefix, share=held)
+        assert shared == pairs and all(shared[i][1] is held[pairs[i][1]] for i in range(50))
+    assert Found() == [] and Found() != [("a", "a")]
+
+
+@pytest.mark.parametrize("arrival", ["sorted", "shuffled"])
+def test_checked_paths_answer_as_a_set_does(arrival):
+    import random
+
+    from trimtab.gate.runner import _Checked
+
+    rng = random.Random(12)
+    paths = sorted({f"c/{rng.randint(0, 5000):05d}.yaml" for _ in range(400)})
+    if arrival == "shuffled":
+        rng.shuffle(paths)
+    checked = _Checked()
+    for p in paths:
+        checked.add(p)
+    reference = set(paths)
+    for probe in paths + [f"c/{i:05d}.yaml" for i in range(0, 5001, 7)] + ["", "d", 5, None]:
+        assert (probe in checked) == (probe in reference), probe
+    assert set(checked) == reference and len(checked) == len(reference)
+    assert checked | {"z"} == reference | {"z"} and checked - set(paths[:10]) == reference - set(paths[:10])
+
+
+def test_credential_memo_gives_reasons_answers_whatever_its_size(monkeypatch):
+    from trimtab.common import redact
+    from trimtab.load import loader
+
+    texts = [bench.native_config(__import__("random").Random(i), i, "") for i in range(6)]
+    texts.append("api_token: Zk3q9XvB2mLp8RtW4sYh7NcD\nname: Zk3q9XvB2mLp8RtW4sYh7NcD\nrun: {password: hunter2}\n")
+
+    def answers():
+        out = []
+        for i, text in enumerate(texts * 2):  # twice: the second pass reads the memo
+            doc = loader.parse_bytes(Document(path=f"m{i}.yaml"), text.encode(), loader.Limits())
+            out.append([(k, n.text, why) for k, n, why in redact.credentials(doc)])
+        return out
+
+    monkeypatch.setattr(redact, "_REASONS", {})
+    monkeypatch.setattr(redact, "_EARLIER", {})
+    monkeypatch.setattr(redact, "_MEMO_SIZE", 10**9)
+    unbounded = answers()
+    for size in (1, 3, 50):
+        monkeypatch.setattr(redact, "_REASONS", {})
+        monkeypatch.setattr(redact, "_EARLIER", {})
+        monkeypatch.setattr(redact, "_MEMO_SIZE", size)
+        assert answers() == unbounded
+        assert len(redact._REASONS) <= size and len(redact._EARLIER) <= size
+    assert any(found for found in unbounded)  # the documents hold credentials the walk finds

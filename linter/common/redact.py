@@ -178,12 +178,29 @@ def reason(key: str, node, min_length: int = MIN_LENGTH, min_bits: float = MIN_B
 
 
 # perf: ``reason`` reads a scalar's key, text, tag and style only (its YAML 1.2 value follows from
-# them), and runs repeat the same entries from file to file: its answers are kept, for short texts and
-# a bounded number of entries (emptied when full, so memory stays flat over any number of files).
+# them), and runs repeat the same entries from file to file: its answers are kept, for short texts, in
+# two generations of at most _MEMO_SIZE entries each. When the current one is full it becomes the
+# previous one (the one before is dropped); an answer found in the previous one is carried over. So the
+# entries that repeat stay, the ones seen once (seeds, revisions, names) leave, and the memo is full
+# after a few hundred files: its memory does not grow with the number of files.
 _REASONS: dict[tuple, str] = {}
+_EARLIER: dict[tuple, str] = {}
 _SHORTEST_SHAPE = 15
 _MEMO_TEXT = 200
-_MEMO_SIZE = 16384
+_MEMO_SIZE = 2048
+
+
+def _remember(memo_key: tuple, key: str, node, min_length: int, min_bits: float) -> str:
+    """``reason``'s answer for a scalar not in the current generation of the memo (see above)."""
+    why = _EARLIER.get(memo_key)
+    if why is None:
+        why = reason(key, node, min_length, min_bits)
+    if len(_REASONS) >= _MEMO_SIZE:
+        _EARLIER.clear()
+        _EARLIER.update(_REASONS)
+        _REASONS.clear()
+    _REASONS[memo_key] = why
+    return why
 
 
 def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -> list[tuple[str, Any, str]]:
@@ -235,11 +252,8 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
                     if type(node).__name__ == "Scalar" and isinstance(text, str) and len(text) <= _MEMO_TEXT else None
                 why = _REASONS.get(memo_key) if memo_key is not None else None
                 if why is None:
-                    why = reason(key, node, min_length, min_bits)
-                    if memo_key is not None:
-                        if len(_REASONS) >= _MEMO_SIZE:
-                            _REASONS.clear()
-                        _REASONS[memo_key] = why
+                    why = reason(key, node, min_length, min_bits) if memo_key is None \
+                        else _remember(memo_key, key, node, min_length, min_bits)
                 if why:
                     seen.add(id(node))
                     out.append((key, node, why))

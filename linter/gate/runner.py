@@ -7,7 +7,8 @@ from __future__ import annotations
 
 from reprlib import recursive_repr
 import gc
-from collections.abc import Iterable, Iterator
+from bisect import bisect_left
+from collections.abc import Iterable, Iterator, Sequence
 from collections.abc import Set as AbcSet
 from itertools import groupby
 from typing import Any
@@ -335,7 +336,7 @@ class Checker:
         res.findings.extend(found)
         res.crashed = res.crashed or crashed
 
-    def accept_set(self, found: list[Finding], checked, set_accepts: dict[str, str], files: list[tuple[str, str]]):
+    def accept_set(self, found: list[Finding], checked, set_accepts: dict[str, str], files: Sequence[tuple[str, str]]):
         """Apply the files' acceptance comments to the set-scope findings. ``checked``: the paths
         checked; ``set_accepts``: the text of those holding acceptances of set rules, by path."""
         from ..compose.layers import load_source
@@ -476,15 +477,21 @@ class RunResult:
 
 
 class _Checked(AbcSet):
-    """The shown paths of the checked files: a set, built only when it is first asked (perf: a
-    set of thousands of paths costs several times their list; most runs never ask)."""
+    """The shown paths of the checked files (perf: a set of thousands of paths costs several times
+    their list). The files arrive in the order they were found, sorted: while they do, a path is
+    looked up by bisection in the list itself; a set is built only when they do not, when first
+    asked."""
 
-    def __init__(self):
+    def __init__(self) -> None:
         self.paths: list[str] = []
+        self._sorted = True  # no path added before a greater or equal one
         self._set: set[str] | None = None
 
     def add(self, path: str) -> None:
-        self.paths.append(path)
+        paths = self.paths
+        if paths and self._sorted and not paths[-1] < path:
+            self._sorted = False
+        paths.append(path)
         self._set = None
 
     def _as_set(self) -> set[str]:
@@ -493,13 +500,18 @@ class _Checked(AbcSet):
         return self._set
 
     def __contains__(self, path) -> bool:
+        if self._sorted:
+            if not isinstance(path, str):
+                return False
+            i = bisect_left(self.paths, path)
+            return i < len(self.paths) and self.paths[i] == path
         return path in self._as_set()
 
     def __iter__(self):
-        return iter(self._as_set())
+        return iter(self.paths) if self._sorted else iter(self._as_set())
 
     def __len__(self) -> int:
-        return len(self._as_set())
+        return len(self.paths) if self._sorted else len(self._as_set())
 
     @classmethod
     def _from_iterable(cls, it):  # the result of |, &, -: a plain set
@@ -541,7 +553,7 @@ class _Totals:
             self.progress(res)
 
 
-def run(checker: Checker, files: list[tuple[str, str]], jobs: int = 1, progress=None,
+def run(checker: Checker, files: Sequence[tuple[str, str]], jobs: int = 1, progress=None,
         keep: bool = False, others=None) -> RunResult:
     """Check the files. The result's findings are in report order, read again from a Spill on
     each pass over them. ``keep``: keep each file's Document and run models (one process).

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import os
 import re
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from functools import lru_cache
 from pathlib import Path
 
@@ -101,6 +102,66 @@ def _outside(path: Path, root: Path, shown: str | None = None) -> Refused:
     how = (f" (a link to {target.as_posix()})" if path.is_symlink() else
            f" (through a symbolic link, to {target.as_posix()})" if lexically_inside(path, root) else "")
     return Refused(shown or path.as_posix(), f"is outside the repository {root.as_posix()}{how}; not read")
+
+
+class Found(Sequence):
+    """Found files as (path on disk, path shown) pairs, held lean (perf: the lists of a check are
+    kept for the whole run, and a repository's files are listed twice when some of its files are
+    checked): the shown paths only, and a path on disk only where it is not ``prefix`` followed by
+    the shown path; the pairs are made as they are read. ``share``: shown paths already held
+    elsewhere (another list of the same check), kept once."""
+
+    __slots__ = ("_prefix", "_shown", "_disk")
+
+    def __init__(self, pairs: Iterable[tuple[str, str]] = (), prefix: str = "",
+                 share: Mapping[str, str] | None = None):
+        self._prefix = prefix
+        self._shown: list[str] = []
+        self._disk: dict[int, str] = {}  # index -> path on disk, where it is not prefix + shown
+        for disk, shown in pairs:
+            if share is not None:
+                shown = share.get(shown, shown)
+            if disk != prefix + shown:
+                self._disk[len(self._shown)] = disk
+            self._shown.append(shown)
+
+    def __len__(self) -> int:
+        return len(self._shown)
+
+    def __getitem__(self, i):  # type: ignore[override]
+        if isinstance(i, slice):
+            return [self[j] for j in range(*i.indices(len(self)))]
+        if i < 0:
+            i += len(self._shown)
+        shown = self._shown[i]
+        disk = self._disk.get(i)
+        return (self._prefix + shown if disk is None else disk, shown)
+
+    def __iter__(self) -> Iterator[tuple[str, str]]:
+        prefix, disks = self._prefix, self._disk
+        for i, shown in enumerate(self._shown):
+            disk = disks.get(i) if disks else None
+            yield (prefix + shown if disk is None else disk, shown)
+
+    def shown(self) -> list[str]:
+        """The shown paths, in order (the list itself: not to be changed)."""
+        return self._shown
+
+    def __eq__(self, other) -> bool:
+        if isinstance(other, (Found, list, tuple)):
+            return list(self) == list(other)
+        return NotImplemented
+
+    __hash__ = None  # type: ignore[assignment]  # compared by value, like the list it stands for
+
+    def __add__(self, other) -> list:
+        return list(self) + list(other)
+
+    def __radd__(self, other) -> list:
+        return list(other) + list(self)
+
+    def __repr__(self) -> str:
+        return f"Found({list(self)!r})"
 
 
 def discover(paths: list[str], root: Path, include: list[str], exclude: list[str],
