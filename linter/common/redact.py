@@ -70,11 +70,12 @@ SHAPES = (
 
 @functools.lru_cache(maxsize=1)
 def _patterns():
-    """The pattern tables, compiled on first use (start-up stays fast)."""
+    """The pattern tables, each compiled on its own first use (start-up stays fast, and a check that
+    meets no credential-like key never compiles the others)."""
     words = "|".join(sorted(map(re.escape, _CRED_WORDS), key=len, reverse=True))
-    return (re.compile(*_NOT_CRED_TEXT), re.compile(*_ENV_REF_TEXT), re.compile(*_PLACEHOLDER_TEXT),
-            tuple((name, re.compile(text)) for name, text in SHAPES),
-            re.compile(rf"(?:^|_)(?:{words})(?:_|$)"))
+    return (later(*_NOT_CRED_TEXT), later(*_ENV_REF_TEXT), later(*_PLACEHOLDER_TEXT),
+            tuple((name, later(text)) for name, text in SHAPES),
+            later(rf"(?:^|_)(?:{words})(?:_|$)"))
 
 
 @functools.lru_cache(maxsize=1)

@@ -677,10 +677,16 @@ class Arithmetic:
 def of(model: RunModel, reading: Reading | None = None) -> Arithmetic:
     """The run's arithmetic under ``reading`` (default: the first, most usual one), computed once."""
     cache = model.__dict__.setdefault("_arithmetic", {})
+    if reading is None:  # perf: the usual reading is worked out once (a reading is never None)
+        found = cache.get(None)
+        if found is not None:
+            return found
     key = readings(model)[0] if reading is None else reading
     found = cache.get(key)
     if found is None:
         found = cache[key] = Arithmetic(model, key)
+    if reading is None:
+        cache[None] = found
     return found
 
 
