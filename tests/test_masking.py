@@ -276,6 +276,31 @@ def test_worker_processes_mask_before_findings_travel(repo):
             assert secret not in res.out + res.err and secret[:12] not in res.out + res.err, (fmt, secret)
 
 
+def test_a_worker_hands_the_credentials_it_read_to_the_parent(repo, monkeypatch):
+    # --jobs: the parent writes findings of its own (the rules over several runs) from values the
+    # workers read; the credentials a worker learned come back with its results, so the parent's
+    # mask hides them too. A credential known only by its key (no shape, no entropy) shows it.
+    from trimtab.common import redact
+    from trimtab.common import settings
+    from trimtab.engine.registry import Registry
+    from trimtab.gate import runner
+
+    secret = "ledger-Passphrase-77"  # a plain passphrase: masked only because its key names it
+    assert redact.mask(f"x {secret}") == f"x {secret}"  # this process has not read it
+    (repo / "a.yaml").write_text(RUN + f"password: {secret}\n")
+    monkeypatch.setattr(redact, "_KNOWN", set())
+    monkeypatch.setattr(redact, "_BY_HEAD", {})
+    monkeypatch.setattr(redact, "_LEARNED", None)
+    monkeypatch.setattr(runner, "_WORKER", runner.Checker(settings.load(start=repo), Registry()))
+    done, learned = runner._work([(str(repo / "a.yaml"), "a.yaml")])
+    assert [r.path for r in done] == ["a.yaml"] and secret in learned
+    redact._KNOWN.clear(), redact._BY_HEAD.clear()  # as in the parent, which never read the file
+    redact._mask.cache_clear()
+    assert secret in redact.mask(f"x {secret}")
+    redact.remember(learned)
+    assert secret not in redact.mask(f"x {secret}")
+
+
 def test_known_credentials_are_replaced_as_the_standard_library_s_alternation_would(monkeypatch):
     # reference: Python's re, whose alternation tries its branches in order (longest first here)
     # at the leftmost place; the one-pass replacement must give the same text, with no pattern

@@ -274,7 +274,7 @@ _BY_HEAD: dict[str, list[str]] = {}
 def learn(doc) -> None:
     """Remember the literal credentials of a document just loaded: ``mask`` hides them wherever
     they occur, whatever rule or output echoes them."""
-    added = False
+    found: list[str] = []
     for _key, node, _why in credentials(doc):
         text = node.text.strip()
         raw = doc.text[node.start:node.end] if getattr(node, "end", 0) else ""  # as written (quoted, folded)
@@ -282,15 +282,36 @@ def learn(doc) -> None:
         if "://" in text:  # a URL: its password and query values, not its host and path
             wholes = tuple(_url_secrets(text))
         for whole in wholes:
-            for piece in {whole, *(line.strip() for line in whole.splitlines())}:
-                if len(piece) >= _MIN_KNOWN and not _PLAIN_WORD.fullmatch(piece) and piece not in _KNOWN:
-                    _KNOWN.add(piece)
-                    pieces = _BY_HEAD.setdefault(piece[:_MIN_KNOWN], [])
-                    pieces.append(piece)
-                    pieces.sort(key=len, reverse=True)
-                    added = True
+            found.extend({whole, *(line.strip() for line in whole.splitlines())})
+    remember(found)
+
+
+# The pieces remembered since the last ``learned()``, kept only where ``learned`` is asked (a --jobs
+# worker hands them to the parent with its results: the parent then masks what a worker read).
+_LEARNED: list[str] | None = None
+
+
+def remember(found) -> None:
+    """Add credentials (pieces of text) to those ``mask`` hides."""
+    added = False
+    for piece in found:
+        if len(piece) >= _MIN_KNOWN and not _PLAIN_WORD.fullmatch(piece) and piece not in _KNOWN:
+            _KNOWN.add(piece)
+            pieces = _BY_HEAD.setdefault(piece[:_MIN_KNOWN], [])
+            pieces.append(piece)
+            pieces.sort(key=len, reverse=True)
+            added = True
+            if _LEARNED is not None:
+                _LEARNED.append(piece)
     if added:
         _mask.cache_clear()
+
+
+def learned() -> list[str]:
+    """The pieces remembered since the last call (from the first call on; kept in memory only)."""
+    global _LEARNED
+    out, _LEARNED = _LEARNED or [], []
+    return out
 
 
 def _url_secrets(url: str):

@@ -437,10 +437,16 @@ _WORKER: Checker | None = None
 _CHUNK_MAX = 16  # files handed to a worker at once, at most
 
 
-def _work(items: list[tuple[str, str]]) -> list[FileResult]:
-    """A worker's part: check a chunk of files (the Checker is the parent's, inherited by fork)."""
+def _work(items: list[tuple[str, str]]) -> tuple[list[FileResult], list[str]]:
+    """A worker's part: check a chunk of files (the Checker is the parent's, inherited by fork).
+    With the results go the credentials the worker read, so that the parent masks them too in what
+    it writes itself (the findings of the rules over several runs)."""
+    from ..common import redact
+
+    redact.learned()  # from now on, in this worker
     check = _WORKER.check_file
-    return [check(path, shown) for path, shown in items]
+    done = [check(path, shown) for path, shown in items]
+    return done, redact.learned()
 
 
 def _chunks(files: Sequence[tuple[str, str]], start: int, jobs: int) -> Iterator[list[tuple[str, str]]]:
@@ -467,6 +473,8 @@ def _run_parallel(checker: Checker, files: Sequence[tuple[str, str]], jobs: int,
     from collections import deque
     from concurrent.futures import ProcessPoolExecutor
 
+    from ..common import redact
+
     gc.freeze()
     try:
         results.append(checker.check_file(*files[0]))
@@ -483,7 +491,8 @@ def _run_parallel(checker: Checker, files: Sequence[tuple[str, str]], jobs: int,
             chunks = _chunks(files, 1, jobs)
             pending = deque(pool.submit(_work, c) for c in islice(chunks, jobs * 3))
             while pending:
-                done = pending.popleft().result()
+                done, credentials = pending.popleft().result()
+                redact.remember(credentials)
                 following = next(chunks, None)
                 if following is not None:
                     pending.append(pool.submit(_work, following))
