@@ -11,7 +11,6 @@ what the exit status is; no view loads a file again.
 """
 from __future__ import annotations
 
-from reprlib import recursive_repr
 from collections.abc import Callable, Iterable, Iterator, Sequence
 from itertools import chain
 from pathlib import Path
@@ -23,6 +22,7 @@ from .engine.registry import Registry
 from .common.findings import Finding, Level, Location
 from .common.settings import Settings, SettingsError
 from .common.spill import Stream
+from .common.record import Record
 
 if TYPE_CHECKING:
     from .load.discover import Found
@@ -30,7 +30,7 @@ if TYPE_CHECKING:
 EXIT_OK, EXIT_FINDINGS, EXIT_INCOMPLETE = 0, 1, 2
 
 
-class Request:
+class Request(Record):
     """What a command asks the pipeline for."""
 
     paths: list[str]  # none: the settings' include globs
@@ -85,27 +85,10 @@ class Request:
         self.cross_run = cross_run
         self.changed = changed
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"paths={self.paths!r}, only={self.only!r}, skip={self.skip!r}, overrides={self.overrides!r}, "
-            f"gate={self.gate!r}, accepted={self.accepted!r}, apply_accepted={self.apply_accepted!r}, "
-            f"own_outputs={self.own_outputs!r}, since={self.since!r}, jobs={self.jobs!r}, "
-            f"confine={self.confine!r}, dependants={self.dependants!r}, staged_files={self.staged_files!r}, "
-            f"staged_missing={self.staged_missing!r}, keep_models={self.keep_models!r}, guard={self.guard!r}, "
-            f"progress={self.progress!r}, notes={self.notes!r}, cross_run={self.cross_run!r}, "
-            f"changed={self.changed!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.paths, self.only, self.skip, self.overrides, self.gate, self.accepted, self.apply_accepted, self.own_outputs, self.since, self.jobs, self.confine, self.dependants, self.staged_files, self.staged_missing, self.keep_models, self.guard, self.progress, self.notes, self.cross_run, self.changed) ==
-            (other.paths, other.only, other.skip, other.overrides, other.gate, other.accepted, other.apply_accepted, other.own_outputs, other.since, other.jobs, other.confine, other.dependants, other.staged_files, other.staged_missing, other.keep_models, other.guard, other.progress, other.notes, other.cross_run, other.changed))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("paths", "only", "skip", "overrides", "gate", "accepted", "apply_accepted", "own_outputs", "since", "jobs", "confine", "dependants", "staged_files", "staged_missing", "keep_models", "guard", "progress", "notes", "cross_run", "changed")  # repr, equality (common/record.py)
 
 
-class Outcome:
+class Outcome(Record):
     """The checked run, for every view."""
 
     settings: Settings
@@ -144,22 +127,7 @@ class Outcome:
         self.accepted_in_place = accepted_in_place
         self.tally = {} if tally is None else tally
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"settings={self.settings!r}, registry={self.registry!r}, files={self.files!r}, "
-            f"missing={self.missing!r}, checked={self.checked!r}, recorded={self.recorded!r}, "
-            f"findings={self.findings!r}, gate={self.gate!r}, crashed={self.crashed!r}, runs={self.runs!r}, "
-            f"skipped={self.skipped!r}, kept={self.kept!r}, accepted_in_place={self.accepted_in_place!r}, "
-            f"tally={self.tally!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.settings, self.registry, self.files, self.missing, self.checked, self.recorded, self.findings, self.gate, self.crashed, self.runs, self.skipped, self.kept, self.accepted_in_place, self.tally) ==
-            (other.settings, other.registry, other.files, other.missing, other.checked, other.recorded, other.findings, other.gate, other.crashed, other.runs, other.skipped, other.kept, other.accepted_in_place, other.tally))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("settings", "registry", "files", "missing", "checked", "recorded", "findings", "gate", "crashed", "runs", "skipped", "kept", "accepted_in_place", "tally")  # repr, equality (common/record.py)
 
     @property
     def accepted(self) -> int:

@@ -2,13 +2,12 @@
 reward comes from, how a remote reward is reached, the weights, and the answer-format pattern."""
 from __future__ import annotations
 
-from reprlib import recursive_repr
 import functools
 import os
 import re
 from pathlib import Path
 
-from trimtab.common.record import frozen_delattr, frozen_setattr
+from trimtab.common.record import FrozenRecord
 from trimtab import Location, Scalar, rule
 from trimtab.common import budget
 
@@ -329,7 +328,7 @@ PATTERN_BUDGET_S = 1.0
 _FLAGS = (0, re.DOTALL, re.DOTALL | re.MULTILINE)
 
 
-class Trial:
+class Trial(FrozenRecord):
     """What testing one pattern against the sample answers found (one computation for REW-9/10/11)."""
 
     invalid: str  # why the pattern does not compile ("" when it does)
@@ -348,23 +347,7 @@ class Trial:
         object.__setattr__(self, "over", over)
         object.__setattr__(self, "untested", untested)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"invalid={self.invalid!r}, matched={self.matched!r}, costly={self.costly!r}, over={self.over!r}, "
-            f"untested={self.untested!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.invalid, self.matched, self.costly, self.over, self.untested) ==
-            (other.invalid, other.matched, other.costly, other.over, other.untested))
-
-    def __hash__(self) -> int:
-        return hash((self.invalid, self.matched, self.costly, self.over, self.untested))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("invalid", "matched", "costly", "over", "untested")  # repr, equality and hash (common/record.py)
 
 
 @functools.lru_cache(maxsize=64)

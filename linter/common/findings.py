@@ -2,10 +2,9 @@
 from __future__ import annotations
 
 import enum
-from reprlib import recursive_repr
 from typing import Any
 
-from .record import frozen_delattr, frozen_setattr
+from .record import FrozenRecord, Record
 
 
 class Level(enum.IntEnum):
@@ -28,7 +27,7 @@ class Level(enum.IntEnum):
         return self.name.lower()
 
 
-class Location:
+class Location(FrozenRecord):
     """A place in a file (1-based line and column, as a person counts them).
 
     ``path`` is None for a value that came from the command line; ``line`` is 0 when a
@@ -55,23 +54,7 @@ class Location:
         object.__setattr__(self, "message", message)
         object.__setattr__(self, "key_path", key_path)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"path={self.path!r}, line={self.line!r}, col={self.col!r}, end_line={self.end_line!r}, "
-            f"end_col={self.end_col!r}, message={self.message!r}, key_path={self.key_path!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.path, self.line, self.col, self.end_line, self.end_col, self.message, self.key_path) ==
-            (other.path, other.line, other.col, other.end_line, other.end_col, other.message, other.key_path))
-
-    def __hash__(self) -> int:
-        return hash((self.path, self.line, self.col, self.end_line, self.end_col, self.message, self.key_path))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("path", "line", "col", "end_line", "end_col", "message", "key_path")  # repr, equality and hash (common/record.py)
 
     def with_message(self, message: str) -> "Location":
         return Location(self.path, self.line, self.col, self.end_line, self.end_col, message, self.key_path)
@@ -99,7 +82,7 @@ class _Keep:
 KEEP = _Keep()
 
 
-class Edit:
+class Edit(FrozenRecord):
     """A safe fix: replace the text of one scalar (by its character span) with new text.
 
     ``value`` is what the new text must read as, under YAML 1.1 and YAML 1.2 alike. The default
@@ -123,26 +106,10 @@ class Edit:
         object.__setattr__(self, "new", new)
         object.__setattr__(self, "value", value)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"path={self.path!r}, start={self.start!r}, end={self.end!r}, old={self.old!r}, new={self.new!r}, "
-            f"value={self.value!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.path, self.start, self.end, self.old, self.new, self.value) ==
-            (other.path, other.start, other.end, other.old, other.new, other.value))
-
-    def __hash__(self) -> int:
-        return hash((self.path, self.start, self.end, self.old, self.new, self.value))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("path", "start", "end", "old", "new", "value")  # repr, equality and hash (common/record.py)
 
 
-class Finding:
+class Finding(Record):
     rule_id: str
     level: Level
     message: str
@@ -175,21 +142,7 @@ class Finding:
         self.fingerprint = fingerprint
         self.cwe = cwe
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"rule_id={self.rule_id!r}, level={self.level!r}, message={self.message!r}, "
-            f"location={self.location!r}, related={self.related!r}, key_path={self.key_path!r}, "
-            f"suggestion={self.suggestion!r}, help={self.help!r}, fix={self.fix!r}, subject={self.subject!r}, "
-            f"fingerprint={self.fingerprint!r}, cwe={self.cwe!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.rule_id, self.level, self.message, self.location, self.related, self.key_path, self.suggestion, self.help, self.fix, self.subject, self.fingerprint, self.cwe) ==
-            (other.rule_id, other.level, other.message, other.location, other.related, other.key_path, other.suggestion, other.help, other.fix, other.subject, other.fingerprint, other.cwe))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("rule_id", "level", "message", "location", "related", "key_path", "suggestion", "help", "fix", "subject", "fingerprint", "cwe")  # repr, equality (common/record.py)
 
     def finish(self) -> "Finding":
         if not self.fingerprint:

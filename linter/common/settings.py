@@ -4,9 +4,8 @@ from __future__ import annotations
 
 import sys
 from pathlib import Path
-from reprlib import recursive_repr
 
-from .record import frozen_delattr, frozen_setattr
+from .record import FrozenRecord, Record
 from .limits import Limits
 
 
@@ -22,7 +21,7 @@ DEFAULT_INCLUDE = ["**/*.yaml", "**/*.yml", "**/*.json", "**/*.sh", "**/*.bash"]
 SCHEMA_PATH = Path(__file__).with_name("settings.schema.json")
 
 
-class KeySpec:
+class KeySpec(FrozenRecord):
     """Where the user's file keeps one concept, and in what unit (the settings' key map)."""
 
     key: str
@@ -38,23 +37,7 @@ class KeySpec:
         object.__setattr__(self, "fields", fields)
         object.__setattr__(self, "values", values)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"key={self.key!r}, per={self.per!r}, scope={self.scope!r}, fields={self.fields!r}, "
-            f"values={self.values!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.key, self.per, self.scope, self.fields, self.values) ==
-            (other.key, other.per, other.scope, other.fields, other.values))
-
-    def __hash__(self) -> int:
-        return hash((self.key, self.per, self.scope, self.fields, self.values))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("key", "per", "scope", "fields", "values")  # repr, equality and hash (common/record.py)
 
     def meaning(self, written):
         """The concept value a value written in the user's file stands for under this key map's
@@ -72,7 +55,7 @@ class SettingsError(Exception):
     """A setting is wrong; the message names the setting, what was expected and what was found."""
 
 
-class Settings:
+class Settings(Record):
     root: Path
     source: Path | None
     table: str  # "[tool.trimtab]" or "" for a trimtab.toml
@@ -133,25 +116,7 @@ class Settings:
         self.overrides = overrides
         self.include_set = include_set
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"root={self.root!r}, source={self.source!r}, table={self.table!r}, include={self.include!r}, "
-            f"exclude={self.exclude!r}, gate={self.gate!r}, yaml_version={self.yaml_version!r}, "
-            f"yaml_version_set={self.yaml_version_set!r}, readers={self.readers!r}, "
-            f"run_configs={self.run_configs!r}, keymap={self.keymap!r}, keys={self.keys!r}, "
-            f"search_roots={self.search_roots!r}, import_depth={self.import_depth!r}, accepted={self.accepted!r}, "
-            f"jobs={self.jobs!r}, limits={self.limits!r}, rules={self.rules!r}, layers={self.layers!r}, "
-            f"bases_key={self.bases_key!r}, defaults_key={self.defaults_key!r}, launch={self.launch!r}, "
-            f"overrides={self.overrides!r}, include_set={self.include_set!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.root, self.source, self.table, self.include, self.exclude, self.gate, self.yaml_version, self.yaml_version_set, self.readers, self.run_configs, self.keymap, self.keys, self.search_roots, self.import_depth, self.accepted, self.jobs, self.limits, self.rules, self.layers, self.bases_key, self.defaults_key, self.launch, self.overrides, self.include_set) ==
-            (other.root, other.source, other.table, other.include, other.exclude, other.gate, other.yaml_version, other.yaml_version_set, other.readers, other.run_configs, other.keymap, other.keys, other.search_roots, other.import_depth, other.accepted, other.jobs, other.limits, other.rules, other.layers, other.bases_key, other.defaults_key, other.launch, other.overrides, other.include_set))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("root", "source", "table", "include", "exclude", "gate", "yaml_version", "yaml_version_set", "readers", "run_configs", "keymap", "keys", "search_roots", "import_depth", "accepted", "jobs", "limits", "rules", "layers", "bases_key", "defaults_key", "launch", "overrides", "include_set")  # repr, equality (common/record.py)
 
     def check_include(self, used: set, paths_given: bool) -> list[str]:
         """The include globs written in the settings, when trimtab finds the files itself: if

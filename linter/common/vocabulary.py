@@ -10,10 +10,10 @@ import re
 from functools import lru_cache
 from reprlib import recursive_repr
 
-from .record import frozen_delattr, frozen_setattr
+from .record import FrozenRecord, frozen_delattr, frozen_setattr
 
 
-class Concept:
+class Concept(FrozenRecord):
     name: str
     type: str  # int, number, bool, str, list, any
     unit: str
@@ -36,23 +36,7 @@ class Concept:
         object.__setattr__(self, "values", values)
         object.__setattr__(self, "share", share)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"name={self.name!r}, type={self.type!r}, unit={self.unit!r}, meaning={self.meaning!r}, "
-            f"per={self.per!r}, scope={self.scope!r}, values={self.values!r}, share={self.share!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.name, self.type, self.unit, self.meaning, self.per, self.scope, self.values, self.share) ==
-            (other.name, other.type, other.unit, other.meaning, other.per, other.scope, other.values, other.share))
-
-    def __hash__(self) -> int:
-        return hash((self.name, self.type, self.unit, self.meaning, self.per, self.scope, self.values, self.share))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("name", "type", "unit", "meaning", "per", "scope", "values", "share")  # repr, equality and hash (common/record.py)
 
 
 _C = Concept

@@ -38,6 +38,7 @@ from ..common.findings import Location
 from ..common.paths import confined, sha256_hex
 from ..load.discover import matches
 from ..common.patterns import later
+from ..common.record import Record
 
 
 # problem kinds (the CMP rules read them)
@@ -248,7 +249,7 @@ class _S:
         self.items = list(node.items)
 
 
-class _Given:
+class _Given(Record):
     key: str
     parts: tuple
     node: Node
@@ -262,18 +263,7 @@ class _Given:
         self.text = text
         self.added = added
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"key={self.key!r}, parts={self.parts!r}, node={self.node!r}, text={self.text!r}, added={self.added!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.key, self.parts, self.node, self.text, self.added) ==
-            (other.key, other.parts, other.node, other.text, other.added))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("key", "parts", "node", "text", "added")  # repr, equality (common/record.py)
 
 
 class Composer:

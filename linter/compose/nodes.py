@@ -37,20 +37,7 @@ class CompositionProblem(Problem):
         self.key_path = key_path
         self.subject = subject
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"kind={self.kind!r}, message={self.message!r}, line={self.line!r}, col={self.col!r}, "
-            f"related={self.related!r}, path={self.path!r}, end_line={self.end_line!r}, end_col={self.end_col!r}, "
-            f"key_path={self.key_path!r}, subject={self.subject!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.kind, self.message, self.line, self.col, self.related, self.path, self.end_line, self.end_col, self.key_path, self.subject) ==
-            (other.kind, other.message, other.line, other.col, other.related, other.path, other.end_line, other.end_col, other.key_path, other.subject))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("kind", "message", "line", "col", "related", "path", "end_line", "end_col", "key_path", "subject")  # type: ignore[assignment]  # Problem's and its own
 
     def location(self) -> Location:
         return Location(self.path, self.line, self.col, self.end_line, self.end_col, "", self.key_path)

@@ -11,13 +11,12 @@ link pointing out) is refused and reported; its target is never opened.
 """
 from __future__ import annotations
 
-from reprlib import recursive_repr
 import ast
 import os
 import re
 from pathlib import Path
 
-from ..common.record import frozen_delattr, frozen_setattr
+from ..common.record import FrozenRecord, Record
 from ..common.paths import confined
 from ..common.patterns import later
 
@@ -96,7 +95,7 @@ _DOTTED = later(rf"^{_IDENT}(?:\.{_IDENT})+$")
 _FILE_REF = later(r"^(?P<file>.+?\.py)(?:::?(?P<fn>" + _IDENT + r"(?:\." + _IDENT + r")*))?$")
 
 
-class Reference:
+class Reference(FrozenRecord):
     text: str
     module: str  # dotted module name (a module reference)
     file: str  # file path as written (a file reference)
@@ -110,23 +109,7 @@ class Reference:
         object.__setattr__(self, "function", function)
         object.__setattr__(self, "dotted", dotted)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"text={self.text!r}, module={self.module!r}, file={self.file!r}, function={self.function!r}, "
-            f"dotted={self.dotted!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.text, self.module, self.file, self.function, self.dotted) ==
-            (other.text, other.module, other.file, other.function, other.dotted))
-
-    def __hash__(self) -> int:
-        return hash((self.text, self.module, self.file, self.function, self.dotted))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("text", "module", "file", "function", "dotted")  # repr, equality and hash (common/record.py)
 
 
 def parse_reference(text) -> Reference | None:
@@ -163,7 +146,7 @@ def function_name(text) -> str:
 
 
 # --- results ---------------------------------------------------------------------------------
-class Hit:
+class Hit(FrozenRecord):
     category: str  # "exec" or "deser"
     what: str  # qualified name of the call
     why: str
@@ -183,26 +166,10 @@ class Hit:
         object.__setattr__(self, "col", col)
         object.__setattr__(self, "via", via)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"category={self.category!r}, what={self.what!r}, why={self.why!r}, path={self.path!r}, "
-            f"line={self.line!r}, col={self.col!r}, via={self.via!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.category, self.what, self.why, self.path, self.line, self.col, self.via) ==
-            (other.category, other.what, other.why, other.path, other.line, other.col, other.via))
-
-    def __hash__(self) -> int:
-        return hash((self.category, self.what, self.why, self.path, self.line, self.col, self.via))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("category", "what", "why", "path", "line", "col", "via")  # repr, equality and hash (common/record.py)
 
 
-class Refusal:
+class Refusal(FrozenRecord):
     """A reference or import that leaves the repository; its target was not read."""
 
     text: str
@@ -218,25 +185,10 @@ class Refusal:
         object.__setattr__(self, "line", line)
         object.__setattr__(self, "col", col)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"text={self.text!r}, reason={self.reason!r}, path={self.path!r}, line={self.line!r}, col={self.col!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.text, self.reason, self.path, self.line, self.col) ==
-            (other.text, other.reason, other.path, other.line, other.col))
-
-    def __hash__(self) -> int:
-        return hash((self.text, self.reason, self.path, self.line, self.col))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("text", "reason", "path", "line", "col")  # repr, equality and hash (common/record.py)
 
 
-class Located:
+class Located(Record):
     status: str  # ok, no-module, no-function, escapes, unreadable, syntax, bad-root
     ref: Reference
     path: str  # module file relative to the repository root
@@ -259,22 +211,10 @@ class Located:
         self.line = line
         self.col = col
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"status={self.status!r}, ref={self.ref!r}, path={self.path!r}, real={self.real!r}, "
-            f"tried={self.tried!r}, reason={self.reason!r}, line={self.line!r}, col={self.col!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.status, self.ref, self.path, self.real, self.tried, self.reason, self.line, self.col) ==
-            (other.status, other.ref, other.path, other.real, other.tried, other.reason, other.line, other.col))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("status", "ref", "path", "real", "tried", "reason", "line", "col")  # repr, equality (common/record.py)
 
 
-class Scan:
+class Scan(Record):
     hits: list[Hit]
     refusals: list[Refusal]
     unreadable: list[tuple[str, str]]  # (path, reason)
@@ -289,22 +229,10 @@ class Scan:
         self.unreadable = [] if unreadable is None else unreadable
         self.modules = [] if modules is None else modules
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"hits={self.hits!r}, refusals={self.refusals!r}, unreadable={self.unreadable!r}, "
-            f"modules={self.modules!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.hits, self.refusals, self.unreadable, self.modules) ==
-            (other.hits, other.refusals, other.unreadable, other.modules))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("hits", "refusals", "unreadable", "modules")  # repr, equality (common/record.py)
 
 
-class ModuleInfo:
+class ModuleInfo(Record):
     path: str
     error: str
     error_line: int
@@ -326,19 +254,7 @@ class ModuleInfo:
         self.hits = [] if hits is None else hits
         self.imports = [] if imports is None else imports
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"path={self.path!r}, error={self.error!r}, error_line={self.error_line!r}, "
-            f"error_col={self.error_col!r}, names={self.names!r}, hits={self.hits!r}, imports={self.imports!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.path, self.error, self.error_line, self.error_col, self.names, self.hits, self.imports) ==
-            (other.path, other.error, other.error_line, other.error_col, other.names, other.hits, other.imports))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("path", "error", "error_line", "error_col", "names", "hits", "imports")  # repr, equality (common/record.py)
     # (level, module, imported names, line, col)
 
 

@@ -5,12 +5,11 @@ group; the built-in rules register the same way.
 """
 from __future__ import annotations
 
-from reprlib import recursive_repr
 import re
 from types import ModuleType
 from typing import Any, Callable, Iterable, Iterator, Union
 
-from ..common.record import frozen_delattr, frozen_setattr
+from ..common.record import FrozenRecord
 from ..load.document import Document
 from ..common.findings import Finding, Level, Location
 from ..resolve.model import RunModel
@@ -79,7 +78,7 @@ class Specs:
         """Return the additional concepts this plugin's rules speak of (name, type, unit, meaning)."""
 
 
-class Rule:
+class Rule(FrozenRecord):
     id: str  # area code + number, stable: "BAT-3"
     name: str  # readable, kebab-case
     level: Level
@@ -116,25 +115,7 @@ class Rule:
         object.__setattr__(self, "scope", scope)
         object.__setattr__(self, "sources", sources)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"id={self.id!r}, name={self.name!r}, level={self.level!r}, summary={self.summary!r}, "
-            f"rationale={self.rationale!r}, check={self.check!r}, needs={self.needs!r}, options={self.options!r}, "
-            f"cwe={self.cwe!r}, help={self.help!r}, rl_only={self.rl_only!r}, scope={self.scope!r}, "
-            f"sources={self.sources!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.id, self.name, self.level, self.summary, self.rationale, self.check, self.needs, self.options, self.cwe, self.help, self.rl_only, self.scope, self.sources) ==
-            (other.id, other.name, other.level, other.summary, other.rationale, other.check, other.needs, other.options, other.cwe, other.help, other.rl_only, other.scope, other.sources))
-
-    def __hash__(self) -> int:
-        return hash((self.id, self.name, self.level, self.summary, self.rationale, self.check, self.needs, self.options, self.cwe, self.help, self.rl_only, self.scope, self.sources))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("id", "name", "level", "summary", "rationale", "check", "needs", "options", "cwe", "help", "rl_only", "scope", "sources")  # repr, equality and hash (common/record.py)
 
     @property
     def area(self) -> str:

@@ -9,7 +9,6 @@ and is reported; one that suppresses nothing is reported too.
 """
 from __future__ import annotations
 
-from reprlib import recursive_repr
 from collections.abc import Iterable, Iterator
 from collections.abc import Set as AbcSet
 from pathlib import Path
@@ -17,6 +16,7 @@ from pathlib import Path
 from ..common.findings import Finding, Level, Location
 from ..common.redact import mask
 from ..common.patterns import later
+from ..common.record import Record
 
 _ACCEPT = later(r"(?:^|\s)#\s*trimtab:\s*accept\b(?P<body>.*)$")
 _IDS = later(r"[A-Za-z]+-\d+(?:\s*,\s*[A-Za-z]+-\d+)*")  # matched whole, on the text before "--"
@@ -27,7 +27,7 @@ ACC_STALE = "ACC-3"
 ACC_MALFORMED = "ACC-4"
 
 
-class Acceptance:
+class Acceptance(Record):
     line: int
     col: int
     ids: tuple[str, ...]
@@ -41,18 +41,7 @@ class Acceptance:
         self.reason = reason
         self.used = used
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"line={self.line!r}, col={self.col!r}, ids={self.ids!r}, reason={self.reason!r}, used={self.used!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.line, self.col, self.ids, self.reason, self.used) ==
-            (other.line, other.col, other.ids, other.reason, other.used))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("line", "col", "ids", "reason", "used")  # repr, equality (common/record.py)
 
 
 def acceptances(text: str) -> list[Acceptance]:

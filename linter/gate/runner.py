@@ -22,6 +22,7 @@ from ..resolve import arithmetic
 from ..resolve.model import Value
 from ..resolve.concepts import ResolveOptions, resolve
 from ..common.settings import Settings, SettingsError
+from ..common.record import Record
 
 
 class SetEntry:
@@ -70,7 +71,7 @@ class Kept:
     __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
 
 
-class FileResult:
+class FileResult(Record):
     path: str
     findings: list[Finding]
     runs: int  # RL run configs found in the file
@@ -98,20 +99,7 @@ class FileResult:
         self.accepted = accepted
         self.kept = kept
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"path={self.path!r}, findings={self.findings!r}, runs={self.runs!r}, skipped={self.skipped!r}, "
-            f"entries={self.entries!r}, crashed={self.crashed!r}, set_accepts={self.set_accepts!r}, "
-            f"accepted_at={self.accepted_at!r}, accepted={self.accepted!r}, kept={self.kept!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.path, self.findings, self.runs, self.skipped, self.entries, self.crashed, self.set_accepts, self.accepted_at, self.accepted, self.kept) ==
-            (other.path, other.findings, other.runs, other.skipped, other.entries, other.crashed, other.set_accepts, other.accepted_at, other.accepted, other.kept))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("path", "findings", "runs", "skipped", "entries", "crashed", "set_accepts", "accepted_at", "accepted", "kept")  # repr, equality (common/record.py)
 
 
 class CheckOptions:
@@ -503,7 +491,7 @@ def _run_parallel(checker: Checker, files: Sequence[tuple[str, str]], jobs: int,
         _WORKER = None
 
 
-class RunResult:
+class RunResult(Record):
     findings: Iterable[Finding]  # re-iterable, in report order (read back from a Spill on each pass)
     files: int
     runs: int
@@ -526,19 +514,7 @@ class RunResult:
         self.kept = {} if kept is None else kept
         self.accepted = accepted
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"findings={self.findings!r}, files={self.files!r}, runs={self.runs!r}, skipped={self.skipped!r}, "
-            f"crashed={self.crashed!r}, checked={self.checked!r}, kept={self.kept!r}, accepted={self.accepted!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.findings, self.files, self.runs, self.skipped, self.crashed, self.checked, self.kept, self.accepted) ==
-            (other.findings, other.files, other.runs, other.skipped, other.crashed, other.checked, other.kept, other.accepted))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("findings", "files", "runs", "skipped", "crashed", "checked", "kept", "accepted")  # repr, equality (common/record.py)
 
 
 class _Checked(AbcSet):

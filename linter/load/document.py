@@ -7,11 +7,11 @@ on demand under YAML 1.2 and YAML 1.1.
 """
 from __future__ import annotations
 
-from reprlib import recursive_repr
 from typing import Iterator
 
 from ..common import scalars
 from ..common.findings import Location
+from ..common.record import Record
 
 
 class Node:
@@ -136,7 +136,7 @@ def key_text(node: Node) -> str:
     return node.text if isinstance(node, Scalar) else "?"
 
 
-class Problem:
+class Problem(Record):
     """A reason the file could not be read (wholly or in part), located where possible."""
 
     kind: str  # parse, duplicate-key, encoding, size, depth, aliases, tab, io, json
@@ -154,22 +154,10 @@ class Problem:
         self.col = col
         self.related = [] if related is None else related
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"kind={self.kind!r}, message={self.message!r}, line={self.line!r}, col={self.col!r}, "
-            f"related={self.related!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.kind, self.message, self.line, self.col, self.related) ==
-            (other.kind, other.message, other.line, other.col, other.related))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("kind", "message", "line", "col", "related")  # repr, equality (common/record.py)
 
 
-class Document:
+class Document(Record):
     path: str  # as shown to the user (relative to the repository root where possible)
     text: str
     roots: list[Node]
@@ -199,20 +187,7 @@ class Document:
         self.runs = [] if runs is None else runs
         self.sources = {} if sources is None else sources
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"path={self.path!r}, text={self.text!r}, roots={self.roots!r}, problems={self.problems!r}, "
-            f"bom={self.bom!r}, encoding={self.encoding!r}, fmt={self.fmt!r}, aliases={self.aliases!r}, "
-            f"runs={self.runs!r}, sources={self.sources!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.path, self.text, self.roots, self.problems, self.bom, self.encoding, self.fmt, self.aliases, self.runs, self.sources) ==
-            (other.path, other.text, other.roots, other.problems, other.bom, other.encoding, other.fmt, other.aliases, other.runs, other.sources))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("path", "text", "roots", "problems", "bom", "encoding", "fmt", "aliases", "runs", "sources")  # repr, equality (common/record.py)
 
     @property
     def readable(self) -> bool:

@@ -20,7 +20,7 @@ from itertools import product
 from math import gcd
 from typing import Any
 
-from ..common.record import frozen_delattr, frozen_setattr
+from ..common.record import Record, frozen_delattr, frozen_setattr
 from ..common.findings import Location
 from .model import RunModel, Value, whole
 from ..common.vocabulary import CONCEPTS, normalise_key
@@ -243,7 +243,7 @@ def keymap_line(v: Value, unit: Unit) -> str:
 
 
 # --- terms and steps -------------------------------------------------------------------------------
-class Term:
+class Term(Record):
     """One input of the arithmetic: a stated value, converted to its concept's unit under the
     reading in force, or a quantity another step derived."""
 
@@ -272,20 +272,7 @@ class Term:
         self.step = step
         self.ambiguous = ambiguous
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"concept={self.concept!r}, value={self.value!r}, source={self.source!r}, written={self.written!r}, "
-            f"read_as={self.read_as!r}, conversion={self.conversion!r}, missing={self.missing!r}, "
-            f"step={self.step!r}, ambiguous={self.ambiguous!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.concept, self.value, self.source, self.written, self.read_as, self.conversion, self.missing, self.step, self.ambiguous) ==
-            (other.concept, other.value, other.source, other.written, other.read_as, other.conversion, other.missing, other.step, other.ambiguous))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("concept", "value", "source", "written", "read_as", "conversion", "missing", "step", "ambiguous")  # repr, equality (common/record.py)
 
     @property
     def whole(self):
@@ -312,7 +299,7 @@ class Term:
         return "?" if self.value is None else num(self.value)
 
 
-class Step:
+class Step(Record):
     """One step of the run's arithmetic."""
 
     key: str  # world, replica, ranks, completions, prompts, mini, updates, per_rank, accum, ...
@@ -348,21 +335,7 @@ class Step:
         self.excess = excess
         self.disputed = disputed
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"key={self.key!r}, title={self.title!r}, value={self.value!r}, terms={self.terms!r}, "
-            f"formula={self.formula!r}, unit={self.unit!r}, divides={self.divides!r}, "
-            f"remainder={self.remainder!r}, parts={self.parts!r}, stated={self.stated!r}, "
-            f"concept={self.concept!r}, excess={self.excess!r}, disputed={self.disputed!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.key, self.title, self.value, self.terms, self.formula, self.unit, self.divides, self.remainder, self.parts, self.stated, self.concept, self.excess, self.disputed) ==
-            (other.key, other.title, other.value, other.terms, other.formula, other.unit, other.divides, other.remainder, other.parts, other.stated, other.concept, other.excess, other.disputed))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("key", "title", "value", "terms", "formula", "unit", "divides", "remainder", "parts", "stated", "concept", "excess", "disputed")  # repr, equality (common/record.py)
 
     @property
     def known(self) -> bool:

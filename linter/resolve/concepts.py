@@ -2,7 +2,6 @@
 layout, then derive the run arithmetic. Knows concepts, never rules."""
 from __future__ import annotations
 
-from reprlib import recursive_repr
 from typing import cast
 
 from ..compose.nodes import Unknown
@@ -11,12 +10,13 @@ from ..common.findings import Location
 from .arithmetic import Unit, settle
 from .model import Component, RunModel, Unused, Value
 from ..common.settings import KeySpec
+from ..common.record import Record
 from ..common.vocabulary import (ALIASES, CONCEPTS, ELSEWHERE, REWARD_FIELDS, RL_MARKERS, RL_MIN_MARKERS, SANDBOX,
                                  SECTION_WORDS, SWITCHES, Concept, evaluation_section, fits, normalise_key, section_word,
                                  share_of_run, switched_off, word_concept)
 
 
-class ResolveOptions:
+class ResolveOptions(Record):
     keys: dict[str, KeySpec]
     version: str
     force_rl: bool
@@ -33,19 +33,7 @@ class ResolveOptions:
         self.readers = readers
         self.stated = stated
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"keys={self.keys!r}, version={self.version!r}, force_rl={self.force_rl!r}, readers={self.readers!r}, "
-            f"stated={self.stated!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.keys, self.version, self.force_rl, self.readers, self.stated) ==
-            (other.keys, other.version, other.force_rl, other.readers, other.stated))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("keys", "version", "force_rl", "readers", "stated")  # repr, equality (common/record.py)
 
 
 # Field words inside one reward component (generic).

@@ -6,6 +6,7 @@ from typing import Any
 
 from ..load.document import Document, Node, Scalar
 from ..common.findings import Location
+from ..common.record import Record
 
 
 def whole(x):
@@ -18,7 +19,7 @@ def whole(x):
     return x if isinstance(x, int) and x > 0 else None
 
 
-class Value:
+class Value(Record):
     """One resolved concept: its value, the node it was read from and how it got there."""
 
     concept: str
@@ -50,20 +51,7 @@ class Value:
         self.raw = raw
         self.unit = unit
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"concept={self.concept!r}, value={self.value!r}, location={self.location!r}, node={self.node!r}, "
-            f"via={self.via!r}, key={self.key!r}, chain={self.chain!r}, inputs={self.inputs!r}, "
-            f"note={self.note!r}, raw={self.raw!r}, unit={self.unit!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.concept, self.value, self.location, self.node, self.via, self.key, self.chain, self.inputs, self.note, self.raw, self.unit) ==
-            (other.concept, other.value, other.location, other.node, other.via, other.key, other.chain, other.inputs, other.note, other.raw, other.unit))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("concept", "value", "location", "node", "via", "key", "chain", "inputs", "note", "raw", "unit")  # repr, equality (common/record.py)
 
     @property
     def whole(self):
@@ -77,7 +65,7 @@ class Value:
         return v
 
 
-class Unused:
+class Unused(Record):
     """A key that looks like a concept but was not used for it, and why (explain lists them)."""
 
     concept: str
@@ -100,19 +88,7 @@ class Unused:
         self.shown = shown
         self.node = node
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"concept={self.concept!r}, key={self.key!r}, location={self.location!r}, reason={self.reason!r}, "
-            f"kind={self.kind!r}, shown={self.shown!r}, node={self.node!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.concept, self.key, self.location, self.reason, self.kind, self.shown, self.node) ==
-            (other.concept, other.key, other.location, other.reason, other.kind, other.shown, other.node))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("concept", "key", "location", "reason", "kind", "shown", "node")  # repr, equality (common/record.py)
 
 
 class Component:
@@ -148,7 +124,7 @@ class Component:
         return v.location if v is not None else self.location
 
 
-class RunModel:
+class RunModel(Record):
     doc: Document
     index: int  # document index inside a multi-document file
     values: dict[str, Value]  # stated (read from files)
@@ -205,23 +181,7 @@ class RunModel:
         self.dead = {} if dead is None else dead
         self._readers: dict[str, tuple[str, bool]] = {}  # shown path -> reader (see reader)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return (f"{self.__class__.__qualname__}("
-            f"doc={self.doc!r}, index={self.index!r}, values={self.values!r}, derived={self.derived!r}, "
-            f"components={self.components!r}, ambiguous={self.ambiguous!r}, mistyped={self.mistyped!r}, "
-            f"unused={self.unused!r}, is_rl={self.is_rl!r}, version={self.version!r}, readers={self.readers!r}, "
-            f"reader_named={self.reader_named!r}, settings={self.settings!r}, files={self.files!r}, "
-            f"chains={self.chains!r}, roles={self.roles!r}, notes={self.notes!r}, unknown={self.unknown!r}, "
-            f"touched={self.touched!r}, unusable={self.unusable!r}, dead={self.dead!r})")
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return ((self.doc, self.index, self.values, self.derived, self.components, self.ambiguous, self.mistyped, self.unused, self.is_rl, self.version, self.readers, self.reader_named, self.settings, self.files, self.chains, self.roles, self.notes, self.unknown, self.touched, self.unusable, self.dead) ==
-            (other.doc, other.index, other.values, other.derived, other.components, other.ambiguous, other.mistyped, other.unused, other.is_rl, other.version, other.readers, other.reader_named, other.settings, other.files, other.chains, other.roles, other.notes, other.unknown, other.touched, other.unusable, other.dead))
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("doc", "index", "values", "derived", "components", "ambiguous", "mistyped", "unused", "is_rl", "version", "readers", "reader_named", "settings", "files", "chains", "roles", "notes", "unknown", "touched", "unusable", "dead")  # repr, equality (common/record.py)
 
     @property
     def path(self) -> str:
