@@ -2,10 +2,10 @@
 run, the cautions every safety finding carries, and masking of values that must not be shown."""
 from __future__ import annotations
 
-from reprlib import recursive_repr
 import re
 
 from trimtab import Component, Location
+from trimtab.common.record import Record
 
 CAUTIONS = (
     "Usual cautions: treat model-written code and remote code as untrusted; run it isolated from the "
@@ -90,7 +90,7 @@ def scanner(ctx):
     return make(ctx.settings if ctx.settings is not None else ctx.model.settings)
 
 
-class CodeReward:
+class CodeReward(Record):
     comp: Component  # the reward component
     declared: bool  # kind: code
     calls: list  # codescan Hits of category exec (may be empty when declared)
@@ -100,16 +100,7 @@ class CodeReward:
         self.declared = declared
         self.calls = calls
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return f"{self.__class__.__qualname__}(comp={self.comp!r}, declared={self.declared!r}, calls={self.calls!r})"
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return (self.comp, self.declared, self.calls) == (other.comp, other.declared, other.calls)
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("comp", "declared", "calls")  # repr, equality (common/record.py)
 
     @property
     def config(self) -> Location:

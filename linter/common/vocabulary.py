@@ -130,7 +130,7 @@ CONCEPTS: dict[str, Concept] = {c.name: c for c in (
 CRITIC_FREE = frozenset({"grpo", "dr_grpo", "dapo", "rloo", "remax", "reinforce++"})
 
 
-class Switch:
+class Switch(FrozenRecord):
     """A concept whose value can turn a mechanism off. When it does, the concepts the mechanism
     governs are dead: written in the file but not read by the trainer. The resolver marks them once
     (``RunModel.dead``); rules do not reason about them and ``explain`` shows them as dead. A null
@@ -145,20 +145,7 @@ class Switch:
         object.__setattr__(self, "governs", governs)
         object.__setattr__(self, "off", off)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return f"{self.__class__.__qualname__}(concept={self.concept!r}, governs={self.governs!r}, off={self.off!r})"
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return (self.concept, self.governs, self.off) == (other.concept, other.governs, other.off)
-
-    def __hash__(self) -> int:
-        return hash((self.concept, self.governs, self.off))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("concept", "governs", "off")  # repr, equality and hash (common/record.py)
 
 
 SWITCHES: tuple[Switch, ...] = (

@@ -6,9 +6,9 @@ located tree."""
 from __future__ import annotations
 
 
-from reprlib import recursive_repr
 from ..load.document import Mapping, Node, Problem, Scalar
 from ..common.findings import Location
+from ..common.record import Record
 
 REMOVE_TAG = "!trimtab/remove"
 
@@ -43,7 +43,7 @@ class CompositionProblem(Problem):
         return Location(self.path, self.line, self.col, self.end_line, self.end_col, "", self.key_path)
 
 
-class Composed:
+class Composed(Record):
     root: Node
     problems: list[CompositionProblem]
     files: list[str]  # every file the run was composed from
@@ -55,16 +55,7 @@ class Composed:
         self.problems = [] if problems is None else problems
         self.files = [] if files is None else files
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return f"{self.__class__.__qualname__}(root={self.root!r}, problems={self.problems!r}, files={self.files!r})"
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return (self.root, self.problems, self.files) == (other.root, other.problems, other.files)
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("root", "problems", "files")  # repr, equality (common/record.py)
 
 
 class ComposedMapping(Mapping):

@@ -5,7 +5,6 @@ few values the cross-file rules need, never documents.
 """
 from __future__ import annotations
 
-from reprlib import recursive_repr
 import gc
 from bisect import bisect_left
 from collections.abc import Iterable, Iterator, Sequence
@@ -25,7 +24,7 @@ from ..common.settings import Settings, SettingsError
 from ..common.record import Record
 
 
-class SetEntry:
+class SetEntry(Record):
     """What one run contributes to the cross-file rules: the values they need, without nodes."""
 
     path: str
@@ -37,19 +36,10 @@ class SetEntry:
         self.index = index
         self.values = values
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return f"{self.__class__.__qualname__}(path={self.path!r}, index={self.index!r}, values={self.values!r})"
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return (self.path, self.index, self.values) == (other.path, other.index, other.values)
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("path", "index", "values")  # repr, equality (common/record.py)
 
 
-class Kept:
+class Kept(Record):
     """A checked file's Document and every run model of it (RL or not), kept on request."""
 
     doc: Any
@@ -59,16 +49,7 @@ class Kept:
         self.doc = doc
         self.models = [] if models is None else models
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return f"{self.__class__.__qualname__}(doc={self.doc!r}, models={self.models!r})"
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return (self.doc, self.models) == (other.doc, other.models)
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("doc", "models")  # repr, equality (common/record.py)
 
 
 class FileResult(Record):
@@ -102,7 +83,7 @@ class FileResult(Record):
     _fields = ("path", "findings", "runs", "skipped", "entries", "crashed", "set_accepts", "accepted_at", "accepted", "kept")  # repr, equality (common/record.py)
 
 
-class CheckOptions:
+class CheckOptions(Record):
     only: set[str]
     skip: set[str]
     overrides: list[tuple]  # (key path, text, added) from --set / --add
@@ -114,16 +95,7 @@ class CheckOptions:
         self.skip = set() if skip is None else skip
         self.overrides = [] if overrides is None else overrides
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return f"{self.__class__.__qualname__}(only={self.only!r}, skip={self.skip!r}, overrides={self.overrides!r})"
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return (self.only, self.skip, self.overrides) == (other.only, other.skip, other.overrides)
-
-    __hash__ = None  # type: ignore[assignment]  # mutable and compared by value: unhashable
+    _fields = ("only", "skip", "overrides")  # repr, equality (common/record.py)
 
 
 class Checker:

@@ -20,7 +20,7 @@ from itertools import product
 from math import gcd
 from typing import Any
 
-from ..common.record import Record, frozen_delattr, frozen_setattr
+from ..common.record import FrozenRecord, Record
 from ..common.findings import Location
 from .model import RunModel, Value, whole
 from ..common.vocabulary import CONCEPTS, normalise_key
@@ -150,7 +150,7 @@ def fmt(value) -> str:
 
 
 # --- units ---------------------------------------------------------------------------------------
-class Unit:
+class Unit(FrozenRecord):
     """How a count is counted: per prompt or per completion, per GPU or over all ranks."""
 
     per: str  # prompt | completion
@@ -160,20 +160,7 @@ class Unit:
         object.__setattr__(self, "per", per)
         object.__setattr__(self, "scope", scope)
 
-    @recursive_repr()
-    def __repr__(self) -> str:
-        return f"{self.__class__.__qualname__}(per={self.per!r}, scope={self.scope!r})"
-
-    def __eq__(self, other) -> bool:
-        if other.__class__ is not self.__class__:
-            return NotImplemented
-        return (self.per, self.scope) == (other.per, other.scope)
-
-    def __hash__(self) -> int:
-        return hash((self.per, self.scope))
-
-    __setattr__ = frozen_setattr
-    __delattr__ = frozen_delattr
+    _fields = ("per", "scope")  # repr, equality and hash (common/record.py)
 
     def words(self) -> str:
         return f"{self.per}s, {'per GPU' if self.scope == 'gpu' else 'global'}"
