@@ -159,7 +159,16 @@ def test_the_budget_interrupts_a_match_and_restores_the_signal_handler():
                 re.search(r"(.+)+!", "a" * 40)
     assert signal.getsignal(signal.SIGPROF) is before
     assert signal.getitimer(signal.ITIMER_PROF) == (0.0, 0.0)
-    seen = []
+    assert _budget_from_a_thread(threading.Thread.start) == ["refused"]  # never run unbounded
+
+
+def _budget_from_a_thread(start) -> list[str]:
+    """What a CPU budget asked for in another thread did (``start`` starts that thread)."""
+    import threading
+
+    from trimtab.common import budget
+
+    seen: list[str] = []
 
     def elsewhere():
         try:
@@ -169,9 +178,9 @@ def test_the_budget_interrupts_a_match_and_restores_the_signal_handler():
             seen.append("refused")
 
     t = threading.Thread(target=elsewhere)
-    t.start()
+    start(t)
     t.join()
-    assert seen == ["refused"]  # never run unbounded
+    return seen
 
 
 def test_the_budget_refuses_a_thread_it_was_not_told_of(monkeypatch):
@@ -179,25 +188,15 @@ def test_the_budget_refuses_a_thread_it_was_not_told_of(monkeypatch):
     main thread) is refused where the signal handler is set: never run unbounded."""
     import signal
     import sys
-    import threading
 
-    from trimtab.common import budget
 
     before = signal.getsignal(signal.SIGPROF)
-    seen = []
 
-    def elsewhere():
-        try:
-            with budget.cpu_budget(0.2):
-                seen.append("ran")
-        except budget.NoBudget:
-            seen.append("refused")
+    def start_unseen(t):
+        monkeypatch.delitem(sys.modules, "threading")
+        t.start()
 
-    t = threading.Thread(target=elsewhere)
-    monkeypatch.delitem(sys.modules, "threading")
-    t.start()
-    t.join()
-    assert seen == ["refused"]
+    assert _budget_from_a_thread(start_unseen) == ["refused"]
     assert signal.getsignal(signal.SIGPROF) is before and signal.getitimer(signal.ITIMER_PROF) == (0.0, 0.0)
 
 
