@@ -85,7 +85,12 @@ class Request(Record):
         self.cross_run = cross_run
         self.changed = changed
 
-    _fields = ("paths", "only", "skip", "overrides", "gate", "accepted", "apply_accepted", "own_outputs", "since", "jobs", "confine", "dependants", "staged_files", "staged_missing", "keep_models", "guard", "progress", "notes", "cross_run", "changed")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "paths", "only", "skip", "overrides", "gate", "accepted", "apply_accepted", "own_outputs", "since",
+        "jobs", "confine", "dependants", "staged_files", "staged_missing", "keep_models", "guard",
+        "progress", "notes", "cross_run", "changed",
+    )
 
 
 class Outcome(Record):
@@ -127,7 +132,11 @@ class Outcome(Record):
         self.accepted_in_place = accepted_in_place
         self.tally = {} if tally is None else tally
 
-    _fields = ("settings", "registry", "files", "missing", "checked", "recorded", "findings", "gate", "crashed", "runs", "skipped", "kept", "accepted_in_place", "tally")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "settings", "registry", "files", "missing", "checked", "recorded", "findings", "gate", "crashed",
+        "runs", "skipped", "kept", "accepted_in_place", "tally",
+    )
 
     @property
     def accepted(self) -> int:

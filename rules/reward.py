@@ -347,7 +347,10 @@ class Trial(FrozenRecord):
         object.__setattr__(self, "over", over)
         object.__setattr__(self, "untested", untested)
 
-    _fields = ("invalid", "matched", "costly", "over", "untested")  # repr, equality and hash (common/record.py)
+    # repr, equality and hash (common/record.py)
+    _fields = (
+        "invalid", "matched", "costly", "over", "untested",
+    )
 
 
 @functools.lru_cache(maxsize=64)

@@ -54,7 +54,10 @@ class Location(FrozenRecord):
         object.__setattr__(self, "message", message)
         object.__setattr__(self, "key_path", key_path)
 
-    _fields = ("path", "line", "col", "end_line", "end_col", "message", "key_path")  # repr, equality and hash (common/record.py)
+    # repr, equality and hash (common/record.py)
+    _fields = (
+        "path", "line", "col", "end_line", "end_col", "message", "key_path",
+    )
 
     def with_message(self, message: str) -> "Location":
         return Location(self.path, self.line, self.col, self.end_line, self.end_col, message, self.key_path)
@@ -142,7 +145,11 @@ class Finding(Record):
         self.fingerprint = fingerprint
         self.cwe = cwe
 
-    _fields = ("rule_id", "level", "message", "location", "related", "key_path", "suggestion", "help", "fix", "subject", "fingerprint", "cwe")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "rule_id", "level", "message", "location", "related", "key_path", "suggestion", "help", "fix",
+        "subject", "fingerprint", "cwe",
+    )
 
     def finish(self) -> "Finding":
         if not self.fingerprint:

@@ -116,7 +116,12 @@ class Settings(Record):
         self.overrides = overrides
         self.include_set = include_set
 
-    _fields = ("root", "source", "table", "include", "exclude", "gate", "yaml_version", "yaml_version_set", "readers", "run_configs", "keymap", "keys", "search_roots", "import_depth", "accepted", "jobs", "limits", "rules", "layers", "bases_key", "defaults_key", "launch", "overrides", "include_set")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "root", "source", "table", "include", "exclude", "gate", "yaml_version", "yaml_version_set",
+        "readers", "run_configs", "keymap", "keys", "search_roots", "import_depth", "accepted", "jobs",
+        "limits", "rules", "layers", "bases_key", "defaults_key", "launch", "overrides", "include_set",
+    )
 
     def check_include(self, used: set, paths_given: bool) -> list[str]:
         """The include globs written in the settings, when trimtab finds the files itself: if

@@ -36,7 +36,10 @@ class Concept(FrozenRecord):
         object.__setattr__(self, "values", values)
         object.__setattr__(self, "share", share)
 
-    _fields = ("name", "type", "unit", "meaning", "per", "scope", "values", "share")  # repr, equality and hash (common/record.py)
+    # repr, equality and hash (common/record.py)
+    _fields = (
+        "name", "type", "unit", "meaning", "per", "scope", "values", "share",
+    )
 
 
 _C = Concept

@@ -37,7 +37,9 @@ class CompositionProblem(Problem):
         self.key_path = key_path
         self.subject = subject
 
-    _fields = ("kind", "message", "line", "col", "related", "path", "end_line", "end_col", "key_path", "subject")  # type: ignore[assignment]  # Problem's and its own
+    _fields = (  # type: ignore[assignment]  # Problem's fields and its own
+        "kind", "message", "line", "col", "related", "path", "end_line", "end_col", "key_path", "subject",
+    )
 
     def location(self) -> Location:
         return Location(self.path, self.line, self.col, self.end_line, self.end_col, "", self.key_path)

@@ -166,7 +166,10 @@ class Hit(FrozenRecord):
         object.__setattr__(self, "col", col)
         object.__setattr__(self, "via", via)
 
-    _fields = ("category", "what", "why", "path", "line", "col", "via")  # repr, equality and hash (common/record.py)
+    # repr, equality and hash (common/record.py)
+    _fields = (
+        "category", "what", "why", "path", "line", "col", "via",
+    )
 
 
 class Refusal(FrozenRecord):
@@ -211,7 +214,10 @@ class Located(Record):
         self.line = line
         self.col = col
 
-    _fields = ("status", "ref", "path", "real", "tried", "reason", "line", "col")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "status", "ref", "path", "real", "tried", "reason", "line", "col",
+    )
 
 
 class Scan(Record):
@@ -254,7 +260,10 @@ class ModuleInfo(Record):
         self.hits = [] if hits is None else hits
         self.imports = [] if imports is None else imports
 
-    _fields = ("path", "error", "error_line", "error_col", "names", "hits", "imports")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "path", "error", "error_line", "error_col", "names", "hits", "imports",
+    )
     # (level, module, imported names, line, col)
 
 

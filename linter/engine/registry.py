@@ -115,7 +115,11 @@ class Rule(FrozenRecord):
         object.__setattr__(self, "scope", scope)
         object.__setattr__(self, "sources", sources)
 
-    _fields = ("id", "name", "level", "summary", "rationale", "check", "needs", "options", "cwe", "help", "rl_only", "scope", "sources")  # repr, equality and hash (common/record.py)
+    # repr, equality and hash (common/record.py)
+    _fields = (
+        "id", "name", "level", "summary", "rationale", "check", "needs", "options", "cwe", "help",
+        "rl_only", "scope", "sources",
+    )
 
     @property
     def area(self) -> str:

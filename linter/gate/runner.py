@@ -80,7 +80,11 @@ class FileResult(Record):
         self.accepted = accepted
         self.kept = kept
 
-    _fields = ("path", "findings", "runs", "skipped", "entries", "crashed", "set_accepts", "accepted_at", "accepted", "kept")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "path", "findings", "runs", "skipped", "entries", "crashed", "set_accepts", "accepted_at",
+        "accepted", "kept",
+    )
 
 
 class CheckOptions(Record):
@@ -486,7 +490,10 @@ class RunResult(Record):
         self.kept = {} if kept is None else kept
         self.accepted = accepted
 
-    _fields = ("findings", "files", "runs", "skipped", "crashed", "checked", "kept", "accepted")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "findings", "files", "runs", "skipped", "crashed", "checked", "kept", "accepted",
+    )
 
 
 class _Checked(AbcSet):

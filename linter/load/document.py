@@ -187,7 +187,10 @@ class Document(Record):
         self.runs = [] if runs is None else runs
         self.sources = {} if sources is None else sources
 
-    _fields = ("path", "text", "roots", "problems", "bom", "encoding", "fmt", "aliases", "runs", "sources")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "path", "text", "roots", "problems", "bom", "encoding", "fmt", "aliases", "runs", "sources",
+    )
 
     @property
     def readable(self) -> bool:

@@ -259,7 +259,10 @@ class Term(Record):
         self.step = step
         self.ambiguous = ambiguous
 
-    _fields = ("concept", "value", "source", "written", "read_as", "conversion", "missing", "step", "ambiguous")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "concept", "value", "source", "written", "read_as", "conversion", "missing", "step", "ambiguous",
+    )
 
     @property
     def whole(self):
@@ -322,7 +325,11 @@ class Step(Record):
         self.excess = excess
         self.disputed = disputed
 
-    _fields = ("key", "title", "value", "terms", "formula", "unit", "divides", "remainder", "parts", "stated", "concept", "excess", "disputed")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "key", "title", "value", "terms", "formula", "unit", "divides", "remainder", "parts", "stated",
+        "concept", "excess", "disputed",
+    )
 
     @property
     def known(self) -> bool:

@@ -51,7 +51,10 @@ class Value(Record):
         self.raw = raw
         self.unit = unit
 
-    _fields = ("concept", "value", "location", "node", "via", "key", "chain", "inputs", "note", "raw", "unit")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "concept", "value", "location", "node", "via", "key", "chain", "inputs", "note", "raw", "unit",
+    )
 
     @property
     def whole(self):
@@ -88,7 +91,10 @@ class Unused(Record):
         self.shown = shown
         self.node = node
 
-    _fields = ("concept", "key", "location", "reason", "kind", "shown", "node")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "concept", "key", "location", "reason", "kind", "shown", "node",
+    )
 
 
 class Component:
@@ -181,7 +187,12 @@ class RunModel(Record):
         self.dead = {} if dead is None else dead
         self._readers: dict[str, tuple[str, bool]] = {}  # shown path -> reader (see reader)
 
-    _fields = ("doc", "index", "values", "derived", "components", "ambiguous", "mistyped", "unused", "is_rl", "version", "readers", "reader_named", "settings", "files", "chains", "roles", "notes", "unknown", "touched", "unusable", "dead")  # repr, equality (common/record.py)
+    # repr, equality (common/record.py)
+    _fields = (
+        "doc", "index", "values", "derived", "components", "ambiguous", "mistyped", "unused", "is_rl",
+        "version", "readers", "reader_named", "settings", "files", "chains", "roles", "notes", "unknown",
+        "touched", "unusable", "dead",
+    )
 
     @property
     def path(self) -> str:
