@@ -178,3 +178,50 @@ def test_generated_documents_give_the_same_tree(entries):
         else:
             lines.append(f"{name}: {value}")
     _same("\n".join(lines) + "\n")
+
+
+@pytest.mark.parametrize("text", ["a: {b: [1, &x 2, *x]}\n", "a: [1\n", "a: *nowhere\n", "x: &a 1\ny: &a 2\n"])
+def test_pyyaml_s_own_event_classes_are_back_after_each_file(text):
+    """The event builder has libyaml's parser make light events while it reads a file
+    (loader._light_events); afterwards, read well or not, PyYAML's parser makes PyYAML's own
+    events again (reference: yaml.events, the classes PyYAML documents)."""
+    import yaml
+    import yaml.events
+
+    loader.parse_bytes(Document(path="x.yaml"), text.encode(), loader.Limits())
+    module = getattr(yaml, "_yaml", None)
+    if module is not None:
+        for name in loader._EVENT_FIELDS:
+            assert getattr(module, name) is getattr(yaml.events, name)
+    events = list(yaml.parse("k: v\n", Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader)))
+    assert [type(e) for e in events] == [yaml.events.StreamStartEvent, yaml.events.DocumentStartEvent,
+                                        yaml.events.MappingStartEvent, yaml.events.ScalarEvent,
+                                        yaml.events.ScalarEvent, yaml.events.MappingEndEvent,
+                                        yaml.events.DocumentEndEvent, yaml.events.StreamEndEvent]
+    assert events[3].value == "k" and events[4].start_mark.column == 3
+
+
+def test_light_events_carry_pyyaml_s_fields_in_its_order():
+    """The fields the builder unpacks from a light event are PyYAML's own event attributes, in the
+    order of each class's constructor (reference: yaml.events and the events PyYAML's pure parser
+    gives for the same text)."""
+    import inspect
+
+    import yaml
+    import yaml.events
+
+    for name, fields in loader._EVENT_FIELDS.items():
+        params = [p for p in inspect.signature(getattr(yaml.events, name)).parameters if p != "self"]
+        assert tuple(params) == fields, name
+    text = "a: &x {b: 'c'}\nd: [*x, !t e]\n"
+    with loader._light_events(yaml.SafeLoader(text)) as get:
+        light = list(iter(get, None))
+    pure = list(yaml.parse(text, Loader=yaml.SafeLoader))
+    assert [type(e).__name__ for e in light] == [type(e).__name__ for e in pure]
+
+    def plain(x):  # a mark by its place (two parses make two mark objects)
+        return (x.index, x.line, x.column) if isinstance(x, yaml.Mark) else x
+
+    for lev, pev in zip(light, pure):
+        want = tuple(plain(getattr(pev, f)) for f in loader._EVENT_FIELDS[type(pev).__name__])
+        assert tuple(map(plain, lev.args)) == want

@@ -7,6 +7,7 @@ objects, so aliases cost their text and nothing the user wrote is constructed or
 from __future__ import annotations
 
 import codecs
+import contextlib
 import gc
 import os
 import stat
@@ -14,7 +15,7 @@ import warnings
 from typing import Any
 
 from ..common import scalars
-from .document import Document, Mapping, Node, Problem, Scalar, Sequence, key_text
+from .document import _UNSET, Document, Mapping, Node, Problem, Scalar, Sequence, key_text
 from ..common.findings import Location
 from ..common.limits import Limits
 from ..common.patterns import later
@@ -596,6 +597,99 @@ class _Builder:
             self.problems.append(Problem(kind, message, raw.start_mark.line + 1, raw.start_mark.column + 1))
 
 
+# --- the parser's events, light ----------------------------------------------------------------
+# perf: PyYAML's event classes are pure Python: each event libyaml parses costs a call of a Python
+# __init__ and an attribute dict (a fifth of the whole check's time on the benchmark corpus, more
+# than libyaml's parse). The event builder needs each event's kind and fields only. So while it
+# reads libyaml's events, the C parser makes them as light events: one class per kind whose
+# constructor is BaseException's, written in C, which keeps the arguments as given (``args``) and
+# runs no Python. The C parser passes each kind's fields in PyYAML's order (yaml/events.py):
+#   scalar: anchor, tag, implicit, value, start_mark, end_mark, style
+#   mapping/sequence start: anchor, tag, implicit, start_mark, end_mark, flow_style
+#   alias: anchor, start_mark, end_mark;  ends: start_mark, end_mark
+#   document start: start_mark, end_mark, explicit, version, tags;  document end: start_mark,
+#   end_mark, explicit;  stream start: start_mark, end_mark, encoding;  stream end: start_mark, end_mark
+# tests/test_tree_identity.py proves the tree the same as the pure composer's on every YAML and
+# JSON file of the repository. PyYAML's own classes are put back as soon as the file is read (a
+# check reads one file at a time in a process).
+_EVENT_FIELDS = {
+    "ScalarEvent": ("anchor", "tag", "implicit", "value", "start_mark", "end_mark", "style"),
+    "MappingStartEvent": ("anchor", "tag", "implicit", "start_mark", "end_mark", "flow_style"),
+    "SequenceStartEvent": ("anchor", "tag", "implicit", "start_mark", "end_mark", "flow_style"),
+    "AliasEvent": ("anchor", "start_mark", "end_mark"),
+    "MappingEndEvent": ("start_mark", "end_mark"),
+    "SequenceEndEvent": ("start_mark", "end_mark"),
+    "DocumentStartEvent": ("start_mark", "end_mark", "explicit", "version", "tags"),
+    "DocumentEndEvent": ("start_mark", "end_mark", "explicit"),
+    "StreamStartEvent": ("start_mark", "end_mark", "encoding"),
+    "StreamEndEvent": ("start_mark", "end_mark"),
+}
+
+
+class _LightTypes:
+    """One light event class per kind (see above), by PyYAML's class name."""
+
+    def __init__(self) -> None:
+        for name in _EVENT_FIELDS:
+            setattr(self, name, type(name, (BaseException,), {"__slots__": (), "__module__": __name__}))
+
+
+_LIGHT: _LightTypes | None = None
+
+
+def _light_types() -> _LightTypes:
+    global _LIGHT
+    if _LIGHT is None:
+        _LIGHT = _LightTypes()
+    return _LIGHT
+
+
+@contextlib.contextmanager
+def _light_events(parser):
+    """``get()``: the parser's next event as a light event, None at the end. libyaml's parser makes
+    them so itself; another parser's events are converted one by one. The parser is disposed of."""
+    light = _light_types()
+    c_parser = _c_parser_module(parser)
+    try:
+        if c_parser is None:
+            get_event = parser.get_event
+
+            def get():
+                ev = get_event()
+                if ev is None:
+                    return None
+                name = type(ev).__name__
+                return getattr(light, name)(*(getattr(ev, f) for f in _EVENT_FIELDS[name]))
+
+            yield get
+            return
+        saved = {name: getattr(c_parser, name) for name in _EVENT_FIELDS}
+        for name in _EVENT_FIELDS:
+            setattr(c_parser, name, getattr(light, name))
+        try:
+            yield parser.get_event
+        finally:
+            for name, cls in saved.items():
+                setattr(c_parser, name, cls)
+    finally:
+        dispose = getattr(parser, "dispose", None)
+        if dispose is not None:
+            dispose()
+
+
+def _c_parser_module(parser):
+    """PyYAML's C extension module when ``parser`` is its libyaml parser (the module whose event
+    classes it makes), else None."""
+    import yaml
+
+    module = getattr(yaml, "_yaml", None) if getattr(yaml, "__with_libyaml__", False) else None
+    if module is None or not isinstance(parser, module.CParser):
+        return None
+    if not all(isinstance(getattr(module, name, None), type) for name in _EVENT_FIELDS):
+        return None  # a PyYAML whose C parser names its events otherwise: convert them instead
+    return module
+
+
 class _Frame:
     """A collection being built from events: its node, key path and depth, and for a mapping the
     key waiting for its value and the first node of each key name (duplicates)."""
@@ -629,127 +723,131 @@ class _EventBuilder(_Builder):
         self.anchors: dict[str, tuple[Node | None, Any]] = {}
 
     def run(self, parser) -> list[Node]:
-        import yaml
         from yaml.composer import ComposerError
 
-        scalar_ev, alias_ev = yaml.ScalarEvent, yaml.AliasEvent
-        map_start, seq_start = yaml.MappingStartEvent, yaml.SequenceStartEvent
-        map_end, seq_end = yaml.MappingEndEvent, yaml.SequenceEndEvent
-        doc_start = yaml.DocumentStartEvent
+        with _light_events(parser) as get:
+            return self._run(get, ComposerError)
+
+    def _run(self, get, composer_error) -> list[Node]:
         limits, shown = self.limits, self.doc.path
         max_depth, max_aliases = limits.max_depth, limits.max_aliases
+        light = _light_types()
+        scalar_ev, alias_ev = light.ScalarEvent, light.AliasEvent
+        map_start, seq_start = light.MappingStartEvent, light.SequenceStartEvent
+        map_end, seq_end = light.MappingEndEvent, light.SequenceEndEvent
+        doc_start = light.DocumentStartEvent
+        new = object.__new__
         roots: list[Node] = []
         stack: list[_Frame] = []
-        get = parser.get_event
-        try:
-            while True:
-                ev = get()
-                if ev is None:
-                    break
-                cls = type(ev)
+        while True:
+            ev = get()
+            if ev is None:
+                break
+            cls = type(ev)
+            args = ev.args  # each kind's fields, in PyYAML's order (see _light_events)
+            if cls is scalar_ev:
+                anchor, tag, _implicit, value, sm, em, style = args
+            elif cls is map_start or cls is seq_start:
+                anchor, tag, _implicit, sm, em, flow = args
+            elif cls is alias_ev:
+                anchor, sm, em = args
+            else:
                 if cls is doc_start:
                     self.anchors = {}
-                    continue
-                if not (cls is scalar_ev or cls is map_start or cls is seq_start or cls is alias_ev):
-                    if (cls is map_end or cls is seq_end) and stack:
-                        frame = stack.pop()
-                        if self.failed:
-                            continue
-                        node = frame.node
-                        em = ev.end_mark
-                        node.end_line, node.end_col, node.end = em.line + 1, em.column + 1, em.index
-                        self._attach(node, stack, roots)
-                    continue
-                if self.failed:  # nothing more is built; what a composer refuses is still refused
-                    if cls is alias_ev:
-                        if ev.anchor not in self.anchors:
-                            raise ComposerError(None, None, "found undefined alias", ev.start_mark)
+                elif (cls is map_end or cls is seq_end) and stack:
+                    frame = stack.pop()
+                    if self.failed:
                         continue
-                    if ev.anchor is not None:
-                        self._anchor(ev.anchor, None, ev.start_mark, ComposerError)
-                    if cls is not scalar_ev:
-                        stack.append(_Frame(None, (), 0, False, False))
-                    continue
-                # where the new node goes: its key path, depth and role
-                if stack:
-                    parent = stack[-1]
-                    depth = parent.depth + 1
-                    if parent.is_map:
-                        if parent.key is None:
-                            path, role = parent.path, "key" if parent.flow else ""
-                        else:
-                            path = parent.path + (parent.name,)
-                            role = "value" if parent.flow else ""
-                    else:
-                        path, role = parent.path + (str(len(parent.node.items)),), ""
-                else:
-                    path, depth, role = (), 0, ""
-                if cls is alias_ev:
-                    hit = self.anchors.get(ev.anchor)
-                    if hit is None:
-                        raise ComposerError(None, None, "found undefined alias", ev.start_mark)
-                    target = hit[0]
-                    self.aliases += 1
-                    if self.aliases > max_aliases:
-                        self._stop_at("aliases", f"uses more than {max_aliases} alias references "
-                                                 "(setting limits.max_aliases)", target.line, target.col)
-                        continue
-                    self._attach(target, stack, roots)
-                    continue
-                sm = ev.start_mark
-                if depth > max_depth:
-                    self._stop_at("depth", f"nests deeper than {max_depth} levels (setting limits.max_depth)",
-                                  sm.line + 1, sm.column + 1)
-                    if ev.anchor is not None:
-                        self._anchor(ev.anchor, None, sm, ComposerError)
-                    if cls is not scalar_ev:
-                        stack.append(_Frame(None, (), 0, False, False))
-                    continue
-                anchor = ev.anchor
-                if cls is scalar_ev:
-                    value = ev.value
-                    node = Scalar(value, ev.style or None, ev.tag)
-                    em = ev.end_mark
-                    node.line, node.col, node.start = sm.line + 1, sm.column + 1, sm.index
+                    node = frame.node
+                    em = args[1]
                     node.end_line, node.end_col, node.end = em.line + 1, em.column + 1, em.index
-                    node.path, node.anchor, node.file = path, anchor, shown
-                    if anchor is not None:
-                        self._anchor(anchor, node, sm, ComposerError)
-                    if len(value) > scalars.MAX_INT_TEXT and node.style is None and node.tag is None \
-                            and scalars.oversized(value):
-                        self._oversized(node)
-                    if role and not value and node.style is None and sm.index == em.index and anchor is None:
-                        self.empties.append((node, role))
-                    # perf: _attach inline for a scalar, the most common node
-                    if not stack:
-                        roots.append(node)
-                    elif not parent.is_map:
-                        parent.node.items.append(node)
-                    elif parent.key is None:
-                        parent.key, parent.name = node, value
-                    else:
-                        k, name = parent.key, parent.name
-                        parent.key = None
-                        parent.node.pairs.append((k, node))
-                        if name == "<<" and type(k) is Scalar and k.style is None:
-                            self._merge(parent.node, k, node)
-                        elif type(k) is Scalar:
-                            first = parent.first
-                            if name in first:
-                                _first_or_duplicate(first, name, k, shown, self.problems)
-                            else:
-                                first[name] = k
+                    self._attach(node, stack, roots)
+                continue
+            if self.failed:  # nothing more is built; what a composer refuses is still refused
+                if cls is alias_ev:
+                    if anchor not in self.anchors:
+                        raise composer_error(None, None, "found undefined alias", sm)
                     continue
-                coll: Node = Mapping() if cls is map_start else Sequence()
-                coll.line, coll.col, coll.start = sm.line + 1, sm.column + 1, sm.index
-                coll.path, coll.anchor, coll.file = path, anchor, shown
                 if anchor is not None:
-                    self._anchor(anchor, coll, sm, ComposerError)
-                stack.append(_Frame(coll, path, depth, cls is map_start, bool(ev.flow_style)))
-        finally:
-            dispose = getattr(parser, "dispose", None)
-            if dispose is not None:
-                dispose()
+                    self._anchor(anchor, None, sm, composer_error)
+                if cls is not scalar_ev:
+                    stack.append(_Frame(None, (), 0, False, False))
+                continue
+            # where the new node goes: its key path, depth and role
+            if stack:
+                parent = stack[-1]
+                depth = parent.depth + 1
+                if parent.is_map:
+                    if parent.key is None:
+                        path, role = parent.path, "key" if parent.flow else ""
+                    else:
+                        path = parent.path + (parent.name,)
+                        role = "value" if parent.flow else ""
+                else:
+                    path, role = parent.path + (str(len(parent.node.items)),), ""
+            else:
+                path, depth, role = (), 0, ""
+            if cls is alias_ev:
+                hit = self.anchors.get(anchor)
+                if hit is None:
+                    raise composer_error(None, None, "found undefined alias", sm)
+                target = hit[0]
+                self.aliases += 1
+                if self.aliases > max_aliases:
+                    self._stop_at("aliases", f"uses more than {max_aliases} alias references "
+                                             "(setting limits.max_aliases)", target.line, target.col)
+                    continue
+                self._attach(target, stack, roots)
+                continue
+            if depth > max_depth:
+                self._stop_at("depth", f"nests deeper than {max_depth} levels (setting limits.max_depth)",
+                              sm.line + 1, sm.column + 1)
+                if anchor is not None:
+                    self._anchor(anchor, None, sm, composer_error)
+                if cls is not scalar_ev:
+                    stack.append(_Frame(None, (), 0, False, False))
+                continue
+            if cls is scalar_ev:
+                # perf: Scalar.__init__ inline (a call per scalar, the most common node)
+                node = new(Scalar)
+                node.text, node.style, node.tag = value, style or None, tag
+                node._v11 = node._v12 = _UNSET
+                node.line, node.col, node.start = sm.line + 1, sm.column + 1, sm.index
+                node.end_line, node.end_col, node.end = em.line + 1, em.column + 1, em.index
+                node.path, node.anchor, node.file = path, anchor, shown
+                if anchor is not None:
+                    self._anchor(anchor, node, sm, composer_error)
+                if len(value) > scalars.MAX_INT_TEXT and node.style is None and tag is None \
+                        and scalars.oversized(value):
+                    self._oversized(node)
+                if role and not value and node.style is None and sm.index == em.index and anchor is None:
+                    self.empties.append((node, role))
+                # perf: _attach inline for a scalar
+                if not stack:
+                    roots.append(node)
+                elif not parent.is_map:
+                    parent.node.items.append(node)
+                elif parent.key is None:
+                    parent.key, parent.name = node, value
+                else:
+                    k, name = parent.key, parent.name
+                    parent.key = None
+                    parent.node.pairs.append((k, node))
+                    if name == "<<" and type(k) is Scalar and k.style is None:
+                        self._merge(parent.node, k, node)
+                    elif type(k) is Scalar:
+                        first = parent.first
+                        if name in first:
+                            _first_or_duplicate(first, name, k, shown, self.problems)
+                        else:
+                            first[name] = k
+                continue
+            coll: Node = Mapping() if cls is map_start else Sequence()
+            coll.line, coll.col, coll.start = sm.line + 1, sm.column + 1, sm.index
+            coll.path, coll.anchor, coll.file = path, anchor, shown
+            if anchor is not None:
+                self._anchor(anchor, coll, sm, composer_error)
+            stack.append(_Frame(coll, path, depth, cls is map_start, bool(flow)))
         return roots
 
     def _anchor(self, name: str, node: Node | None, mark, error) -> None:
