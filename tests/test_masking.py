@@ -341,3 +341,19 @@ def test_the_credential_walk_skips_only_values_too_short_for_every_shape():
     assert url < redact._SHORTEST_SHAPE  # that shape needs "://", which the short cut never skips
     assert min(widths.values()) == redact._SHORTEST_SHAPE
     assert redact._SHORTEST_SHAPE <= redact.MIN_LENGTH
+
+
+def test_a_credential_a_later_key_overrides_is_still_found_and_hidden(repo):
+    """A value that a duplicate key or an explicit key beside a ``<<`` merge overrides is still text
+    committed to the file (CWE-798, use of hard-coded credentials: the credential is exposed wherever
+    it is written): the walk looks at every value as written, and every output hides it."""
+    from trimtab.common.redact import credentials
+    from trimtab.load import loader
+    from trimtab.load.document import Document
+
+    text = (RUN + f"grader:\n  api_key: {PASSWORD}\n  api_key: ${{GRADER_KEY}}\n"
+            f"judge:\n  <<: {{token: {SK}}}\n  token: ${{JUDGE_TOKEN}}\n")
+    doc = loader.parse_bytes(Document(path="run.yaml"), text.encode(), loader.Limits())
+    assert {(k, n.text) for k, n, _why in credentials(doc)} == {("api_key", PASSWORD), ("token", SK)}
+    (repo / "run.yaml").write_text(text)
+    assert_hidden(outputs(repo), PASSWORD, SK)

@@ -216,6 +216,7 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
     # below this length (and without "://") a value can be a credential only by its key: the shortest
     # credential shape (SHAPES, apart from a URL's password) is 15 characters long
     short = min(_SHORTEST_SHAPE, min_length)
+    reasons, credential_key = _REASONS, is_credential_key
     for root in doc.roots:
         # (key text, value node) for every mapping entry (and sequence item under a key), each once;
         # nodes are told by their kind (redact sits below the located tree: findings mask their text)
@@ -228,30 +229,28 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
             walked.add(id(parent))
             kind = getattr(parent, "kind", "")
             if kind == "mapping":
-                found = []
-                for key, _kn, node, _via in parent.entries():
-                    if getattr(node, "kind", "") == "scalar":
-                        found.append((key, node))
-                    else:
-                        stack.append((key, node))
+                # perf: every pair as written, not the mapping's entries (which pick the value a key
+                # keeps and add the merged ones): each value node of the tree is reached once this
+                # way too (a merged value where it was written, with the same key), and a value a
+                # later key overrides is still text committed to the file, so it is looked at
+                found = [(k.text if getattr(k, "kind", "") == "scalar" else "?", node) for k, node in parent.pairs]
             elif kind == "sequence":
-                found = []
-                for node in parent.items:
-                    if getattr(node, "kind", "") == "scalar":
-                        found.append((parent_key, node))
-                    else:
-                        stack.append((parent_key, node))
+                found = [(parent_key, node) for node in parent.items]
             else:
                 continue
             for key, node in found:
-                if id(node) in seen:
+                if getattr(node, "kind", "") != "scalar":
+                    stack.append((key, node))
                     continue
                 text = node.text
-                if isinstance(text, str) and len(text) < short and "://" not in text and not is_credential_key(key):
-                    continue  # perf: too short for any shape or the entropy test, under a plain key
+                # perf: a short value under a plain key (most values) is no credential: below
+                # _SHORTEST_SHAPE characters and without "://" no shape or entropy test can match
+                if type(text) is str and len(text) < short and "://" not in text and not credential_key(key) \
+                        or id(node) in seen:
+                    continue
                 memo_key = (key, text, node.tag, node.style, min_length, min_bits) \
                     if type(node).__name__ == "Scalar" and isinstance(text, str) and len(text) <= _MEMO_TEXT else None
-                why = _REASONS.get(memo_key) if memo_key is not None else None
+                why = reasons.get(memo_key) if memo_key is not None else None
                 if why is None:
                     why = reason(key, node, min_length, min_bits) if memo_key is None \
                         else _remember(memo_key, key, node, min_length, min_bits)
