@@ -842,12 +842,23 @@ class _EventBuilder(_Builder):
                         else:
                             first[name] = k
                 continue
-            coll: Node = Mapping() if cls is map_start else Sequence()
+            # perf: the collections' and frames' __init__ inline (no call per collection)
+            coll: Node
+            frame = new(_Frame)
+            if cls is map_start:
+                coll = new(Mapping)
+                coll.pairs, coll.merged, coll._index = [], [], None
+                frame.is_map, frame.key, frame.name, frame.first = True, None, "", {}
+            else:
+                coll = new(Sequence)
+                coll.items = []
+                frame.is_map = False
             coll.line, coll.col, coll.start = sm.line + 1, sm.column + 1, sm.index
             coll.path, coll.anchor, coll.file = path, anchor, shown
             if anchor is not None:
                 self._anchor(anchor, coll, sm, composer_error)
-            stack.append(_Frame(coll, path, depth, cls is map_start, bool(flow)))
+            frame.node, frame.path, frame.depth, frame.flow = coll, path, depth, bool(flow)
+            stack.append(frame)
         return roots
 
     def _anchor(self, name: str, node: Node | None, mark, error) -> None:
