@@ -4,7 +4,7 @@ from __future__ import annotations
 from trimtab import Level, Location, rule
 from trimtab.common.scalars import READER_NAMES, YAML_READERS, same_value, type11, type12
 
-from ._common import misread
+from ._common import misread, suspects
 
 _PARSE_WHY = ("A run config that does not parse cannot launch; where a loader is lenient, it may read "
               "something other than what was written. Line and column are the parser's.")
@@ -129,7 +129,7 @@ def version_disagreement(ctx):
     from trimtab import Edit
 
     m = ctx.model
-    for name, v in sorted(m.values.items()):
+    for name, v in suspects(m):
         reader, who, stated = misread(m, v)
         if not who:
             continue
