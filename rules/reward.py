@@ -11,7 +11,7 @@ from trimtab.common.record import FrozenRecord
 from trimtab import Location, Scalar, rule
 from trimtab.common import budget
 
-from ._safety import kind_of, label, locate, safe_url, scanner
+from ._safety import kinds, label, locate, safe_url, scan, scanner
 from trimtab.common.patterns import later
 
 SOURCES = ("reward.sources",)
@@ -42,8 +42,8 @@ def reference_unverifiable(ctx):
     sc = scanner(ctx)
     roots = [r or "." for r in sc.root_names]
     refused_roots = "".join(f"; search root {t!r} refused: it {why}" for t, why in sc.bad_roots)
-    for comp in ctx.model.components:
-        if kind_of(comp) not in ("rule", "code"):
+    for comp, kind in zip(ctx.model.components, kinds(ctx)):
+        if kind not in ("rule", "code"):
             continue
         loc = locate(ctx, comp)
         if loc is None:
@@ -83,14 +83,14 @@ def reference_unverifiable(ctx):
             yield ctx.finding(f"{label(comp)}: cannot be looked up: {loc.reason}{refused_roots}", where,
                               subject=ref.text)
         else:
-            scan = sc.scan(loc)
-            for r in scan.refusals:
+            found = scan(ctx, loc)
+            for r in found.refusals:
                 yield ctx.finding(
                     f"{label(comp)}: {r.path} imports {r.text!r}, which is refused: {r.reason}; it was not "
                     "read, so the scan of this reward's code is incomplete", where, level="warning",
                     related=[Location(r.path, r.line, r.col, message=f"import of {r.text!r}")],
                     subject=f"{ref.text}|{r.text}")
-            for path, why in scan.unreadable:
+            for path, why in found.unreadable:
                 if path != loc.path:
                     yield ctx.finding(f"{label(comp)}: imported module {path} {why}; the scan of this "
                                       "reward's code is incomplete", where, level="warning",
@@ -120,8 +120,8 @@ def _is_local(ref: str) -> bool:
       needs=SOURCES, options={"check_outside_paths": False})
 def model_unpinned(ctx):
     root = Path(getattr(ctx.settings, "root", None) or Path.cwd())
-    for comp in ctx.model.components:
-        if kind_of(comp) not in ("model", "judge"):
+    for comp, kind in zip(ctx.model.components, kinds(ctx)):
+        if kind not in ("model", "judge"):
             continue
         ref = comp.get("ref")
         if not isinstance(ref, str) or not ref.strip() or comp.get("endpoint"):
@@ -154,9 +154,9 @@ def model_unpinned(ctx):
 
 # --- REW-3, REW-4, REW-5 ---------------------------------------------------------------------------
 def _remote(ctx):
-    for comp in ctx.model.components:
+    for comp, kind in zip(ctx.model.components, kinds(ctx)):
         ep = comp.get("endpoint")
-        if kind_of(comp) == "remote" or isinstance(ep, str):
+        if kind == "remote" or isinstance(ep, str):
             yield comp, ep if isinstance(ep, str) else None
 
 
@@ -237,10 +237,10 @@ def remote_offline(ctx):
       needs=SOURCES)
 def no_verifiable(ctx):
     comps = ctx.model.components
-    kinds = [kind_of(c) for c in comps]
-    if not comps or any(k in ("rule", "code") for k in kinds) or "" in kinds:
+    found = kinds(ctx)
+    if not comps or any(k in ("rule", "code") for k in found) or "" in found:
         return
-    learned = [c for c, k in zip(comps, kinds) if k in ("model", "judge")]
+    learned = [c for c, k in zip(comps, found) if k in ("model", "judge")]
     if not learned:
         return
     first = learned[0]

@@ -6,7 +6,7 @@ import re
 
 from trimtab import rule
 
-from ._safety import CAUTIONS, digest, kind_of, label, locate, mask, safe_url, scanner
+from ._safety import CAUTIONS, digest, kinds, label, locate, mask, safe_url, scan
 
 # --- SEC-1 -----------------------------------------------------------------------------------------
 # The detector lives in trimtab.common.redact: every output masks what SEC-1 reports, with the same test.
@@ -107,15 +107,14 @@ def _remote_code(ctx, v, rev, what, where, rev_name, prefix=""):
 def unsafe_deserialisation(ctx):
     from trimtab import Location
 
-    sc = scanner(ctx)
-    for comp in ctx.model.components:
-        if kind_of(comp) not in ("rule", "code"):
+    for comp, kind in zip(ctx.model.components, kinds(ctx)):
+        if kind not in ("rule", "code"):
             continue
         located = locate(ctx, comp)
         if located is None:
             continue
         ref = located.ref
-        hits = [h for h in sc.scan(located).hits if h.category == "deser"]
+        hits = [h for h in scan(ctx, located).hits if h.category == "deser"]
         for h in hits:
             via = f" (imported from {' -> '.join(h.via)})" if h.via else ""
             yield ctx.finding(f"{label(comp)}: {h.what}(...) at {h.path}:{h.line} {h.why}", comp.loc("ref"),
