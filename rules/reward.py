@@ -119,7 +119,7 @@ def _is_local(ref: str) -> bool:
       "check_outside_paths is true (they often exist only on the training cluster).",
       needs=SOURCES, options={"check_outside_paths": False})
 def model_unpinned(ctx):
-    root = Path(getattr(ctx.settings, "root", None) or Path.cwd())
+    root = None
     for comp, kind in zip(ctx.model.components, kinds(ctx)):
         if kind not in ("model", "judge"):
             continue
@@ -127,6 +127,8 @@ def model_unpinned(ctx):
         if not isinstance(ref, str) or not ref.strip() or comp.get("endpoint"):
             continue
         ref = ref.strip()
+        if root is None:  # perf: only for a run with a learned reward
+            root = Path(getattr(ctx.settings, "root", None) or Path.cwd())
         if _is_local(ref) or (root / ref).exists():
             path = Path(os.path.expanduser(ref.removeprefix("file:")))
             outside = path.is_absolute() or ".." in Path(ref).parts or ref.startswith("~")

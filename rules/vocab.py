@@ -70,9 +70,10 @@ def wrong_type(ctx):
       "values; an unknown one is often a typo, and the rules that depend on it cannot reason about it.",
       rl_only=False)
 def unknown_value(ctx):
-    for name, v in sorted(ctx.model.values.items()):
+    # perf: the few values written as text are sorted, not all of them (~34 a run)
+    for name, v in sorted((name, v) for name, v in ctx.model.values.items() if isinstance(v.value, str)):
         c = CONCEPTS.get(name)
-        if not c or not c.values or name in OWNED_ELSEWHERE or not isinstance(v.value, str):
+        if not c or not c.values or name in OWNED_ELSEWHERE:
             continue
         if v.value.strip().lower() not in c.values:
             # if it is the trainer's own word for one of them, the key map's value synonyms say which
