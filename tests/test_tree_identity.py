@@ -225,3 +225,56 @@ def test_light_events_carry_pyyaml_s_fields_in_its_order():
     for lev, pev in zip(light, pure):
         want = tuple(plain(getattr(pev, f)) for f in loader._EVENT_FIELDS[type(pev).__name__])
         assert tuple(map(plain, lev.args)) == want
+
+
+def _keyed_both(text: str, fmt: str = "yaml"):
+    from collections import Counter
+
+    from trimtab.common import redact
+
+    doc, _nodes = _both(text, fmt)
+    walked = Counter((k, id(n)) for k, n in redact.tree_values(doc))
+    return doc, walked
+
+
+@pytest.mark.parametrize("path", _repository_files(), ids=lambda p: str(p.relative_to(REPO)))
+def test_the_builder_s_keyed_values_are_the_tree_s(path):
+    """Document.keyed, made by the event builder as it makes the nodes, holds what a walk of the
+    finished tree finds (redact.tree_values: each mapping's pairs, a list's items under the list's key,
+    an alias's target again where the alias is), on every YAML and JSON file of the repository."""
+    from collections import Counter
+
+    try:
+        text = path.read_bytes().decode("utf-8")
+    except UnicodeDecodeError:
+        pytest.skip("not UTF-8 (the decoder's own test covers it)")
+    doc, walked = _keyed_both(text, "json" if path.suffix.lower() == ".json" else "yaml")
+    if doc.keyed is None:
+        assert not doc.readable or doc.aliases, "made unless the file cannot be read or aliases a list"
+        return
+    assert Counter((k, id(n)) for k, n in doc.keyed) == walked
+
+
+@pytest.mark.parametrize("text,want", [
+    ("a: &s Tide7pool9Secret\npassword: *s\n", [("a", "Tide7pool9Secret"), ("password", "Tide7pool9Secret")]),
+    ("x: [1, [2, {k: 3}]]\n? [4]\n: 5\n", [("x", "1"), ("x", "2"), ("k", "3"), ("?", "5")]),
+    ("- top\n- {a: b}\n", [("", "top"), ("a", "b")]),
+    ("plain scalar\n", []),
+    ("a: {b: c, b: d}\n<<: {e: f}\n", [("b", "c"), ("b", "d"), ("e", "f")]),
+])
+def test_keyed_values_name_the_key_each_value_is_under(text, want):
+    doc, walked = _keyed_both(text)
+    assert doc.keyed is not None
+    assert [(k, n.text) for k, n in doc.keyed] == want
+    assert sum(walked.values()) == len(want)
+
+
+def test_an_alias_of_a_list_leaves_the_tree_to_be_walked():
+    """A list reached through an alias has its items under the alias's key too: the builder does not
+    make the list of keyed values then, and the credential walk reads the tree (the same answers)."""
+    from trimtab.common import redact
+
+    text = "a: &s [Tide7pool9Secret]\npassword: *s\n"
+    doc, _walked = _keyed_both(text)
+    assert doc.keyed is None
+    assert ("password", "Tide7pool9Secret") in [(k, n.text) for k, n, _w in redact.credentials(doc)]

@@ -217,9 +217,36 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
     # credential shape (SHAPES, apart from a URL's password) is 15 characters long
     short = min(_SHORTEST_SHAPE, min_length)
     reasons, credential_key = _REASONS, is_credential_key
+    keyed = getattr(doc, "keyed", None)
+    for key, node in keyed if keyed is not None else tree_values(doc):
+        text = node.text
+        # perf: a short value under a plain key (most values) is no credential: below
+        # _SHORTEST_SHAPE characters and without "://" no shape or entropy test can match
+        if type(text) is str and len(text) < short and "://" not in text and not credential_key(key) \
+                or id(node) in seen:
+            continue
+        memo_key = (key, text, node.tag, node.style, min_length, min_bits) \
+            if type(node).__name__ == "Scalar" and isinstance(text, str) and len(text) <= _MEMO_TEXT else None
+        why = reasons.get(memo_key) if memo_key is not None else None
+        if why is None:
+            why = reason(key, node, min_length, min_bits) if memo_key is None \
+                else _remember(memo_key, key, node, min_length, min_bits)
+        if why:
+            seen.add(id(node))
+            out.append((key, node, why))
+    if default:
+        vars(doc)["_credentials"] = out
+    return out
+
+
+def tree_values(doc) -> list[tuple[str, Any]]:
+    """(key text, scalar) of every value of a document's tree, for a document whose builder made no
+    ``keyed`` list (Document.keyed): each mapping's pairs as written (a value a later key overrides is
+    still committed text; a merged value is reached where it was written, under the same key), a
+    list's items under the list's key, each collection once. Nodes are told by their kind (redact
+    sits below the located tree)."""
+    out: list[tuple[str, Any]] = []
     for root in doc.roots:
-        # (key text, value node) for every mapping entry (and sequence item under a key), each once;
-        # nodes are told by their kind (redact sits below the located tree: findings mask their text)
         walked: set[int] = set()
         stack = [("", root)]
         while stack:
@@ -229,36 +256,16 @@ def credentials(doc, min_length: int = MIN_LENGTH, min_bits: float = MIN_BITS) -
             walked.add(id(parent))
             kind = getattr(parent, "kind", "")
             if kind == "mapping":
-                # perf: every pair as written, not the mapping's entries (which pick the value a key
-                # keeps and add the merged ones): each value node of the tree is reached once this
-                # way too (a merged value where it was written, with the same key), and a value a
-                # later key overrides is still text committed to the file, so it is looked at
                 found = [(k.text if getattr(k, "kind", "") == "scalar" else "?", node) for k, node in parent.pairs]
             elif kind == "sequence":
                 found = [(parent_key, node) for node in parent.items]
             else:
                 continue
             for key, node in found:
-                if getattr(node, "kind", "") != "scalar":
+                if getattr(node, "kind", "") == "scalar":
+                    out.append((key, node))
+                else:
                     stack.append((key, node))
-                    continue
-                text = node.text
-                # perf: a short value under a plain key (most values) is no credential: below
-                # _SHORTEST_SHAPE characters and without "://" no shape or entropy test can match
-                if type(text) is str and len(text) < short and "://" not in text and not credential_key(key) \
-                        or id(node) in seen:
-                    continue
-                memo_key = (key, text, node.tag, node.style, min_length, min_bits) \
-                    if type(node).__name__ == "Scalar" and isinstance(text, str) and len(text) <= _MEMO_TEXT else None
-                why = reasons.get(memo_key) if memo_key is not None else None
-                if why is None:
-                    why = reason(key, node, min_length, min_bits) if memo_key is None \
-                        else _remember(memo_key, key, node, min_length, min_bits)
-                if why:
-                    seen.add(id(node))
-                    out.append((key, node, why))
-    if default:
-        vars(doc)["_credentials"] = out
     return out
 
 

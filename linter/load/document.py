@@ -170,6 +170,11 @@ class Document(Record):
     # the other files a composed run of this document was built from (bases, the overrides file),
     # by shown path: the raw text of a node written there is read from them
     sources: dict[str, "Document"]
+    # perf: (key text, scalar) of every scalar written as a mapping's value or a list's item (under
+    # the key of the list), in the order written, an alias's target again under the alias's key;
+    # made by the event builder as it makes the nodes, so that a rule over every value (the
+    # credential walk) reads a list instead of walking the tree. None: not made (read the tree).
+    keyed: list[tuple[str, Scalar]] | None = None
 
     def __init__(
             self, path: str, text: str = "", roots: list[Node] | None = None, problems: list[Problem] | None = None,

@@ -281,6 +281,8 @@ def _compose_events(doc: Document, source: str, limits: Limits, be: _Backend) ->
     doc.roots.extend(roots)
     builder.finish()
     doc.aliases = builder.aliases
+    if builder.whole and not builder.failed:
+        doc.keyed = builder.keyed
     return doc
 
 
@@ -693,9 +695,9 @@ def _c_parser_module(parser):
 class _Frame:
     """A collection being built from events: its node, key path and depth, and for a mapping the
     key waiting for its value and the first node of each key name (duplicates)."""
-    __slots__ = ("node", "path", "depth", "is_map", "flow", "key", "name", "first")
+    __slots__ = ("node", "path", "depth", "is_map", "flow", "key", "name", "first", "owner")
 
-    def __init__(self, node, path: tuple, depth: int, is_map: bool, flow: bool):
+    def __init__(self, node, path: tuple, depth: int, is_map: bool, flow: bool, owner: str | None = None):
         self.node = node
         self.path = path
         self.depth = depth
@@ -704,6 +706,8 @@ class _Frame:
         self.key: Node | None = None
         self.name = ""  # the waiting key's text
         self.first: dict[str, Node] = {}
+        # the key a list's scalar items are under (Document.keyed); None inside a key: not recorded
+        self.owner = owner
 
 
 class _EventBuilder(_Builder):
@@ -721,6 +725,8 @@ class _EventBuilder(_Builder):
         super().__init__(doc, limits, engine)
         self.problems = []
         self.anchors: dict[str, tuple[Node | None, Any]] = {}
+        self.keyed: list[tuple[str, Scalar]] = []  # Document.keyed, as the nodes are made
+        self.whole = True  # False: Document.keyed cannot be made (an alias of a list)
 
     def run(self, parser) -> list[Node]:
         from yaml.composer import ComposerError
@@ -739,6 +745,7 @@ class _EventBuilder(_Builder):
         new = object.__new__
         roots: list[Node] = []
         stack: list[_Frame] = []
+        keyed = self.keyed
         while True:
             ev = get()
             if ev is None:
@@ -797,6 +804,13 @@ class _EventBuilder(_Builder):
                     self._stop_at("aliases", f"uses more than {max_aliases} alias references "
                                              "(setting limits.max_aliases)", target.line, target.col)
                     continue
+                if type(target) is Sequence:
+                    self.whole = False  # its items would be under this key too: Document.keyed is not made
+                elif stack and type(target) is Scalar and parent.owner is not None:
+                    if not parent.is_map:
+                        keyed.append((parent.owner, target))
+                    elif parent.key is not None:
+                        keyed.append((parent.name, target))
                 self._attach(target, stack, roots)
                 continue
             if depth > max_depth:
@@ -827,12 +841,16 @@ class _EventBuilder(_Builder):
                     roots.append(node)
                 elif not parent.is_map:
                     parent.node.items.append(node)
+                    if parent.owner is not None:
+                        keyed.append((parent.owner, node))
                 elif parent.key is None:
                     parent.key, parent.name = node, value
                 else:
                     k, name = parent.key, parent.name
                     parent.key = None
                     parent.node.pairs.append((k, node))
+                    if parent.owner is not None:
+                        keyed.append((name, node))
                     if name == "<<" and type(k) is Scalar and k.style is None:
                         self._merge(parent.node, k, node)
                     elif type(k) is Scalar:
@@ -858,6 +876,12 @@ class _EventBuilder(_Builder):
             if anchor is not None:
                 self._anchor(anchor, coll, sm, composer_error)
             frame.node, frame.path, frame.depth, frame.flow = coll, path, depth, bool(flow)
+            if not stack:
+                frame.owner = ""
+            elif parent.owner is None or not parent.is_map:
+                frame.owner = parent.owner  # a list's items are under its key; nothing is under a key
+            else:
+                frame.owner = parent.name if parent.key is not None else None
             stack.append(frame)
         return roots
 
