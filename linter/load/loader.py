@@ -631,6 +631,17 @@ _EVENT_FIELDS = {
 class _LightTypes:
     """One light event class per kind (see above), by PyYAML's class name."""
 
+    ScalarEvent: type
+    MappingStartEvent: type
+    SequenceStartEvent: type
+    AliasEvent: type
+    MappingEndEvent: type
+    SequenceEndEvent: type
+    DocumentStartEvent: type
+    DocumentEndEvent: type
+    StreamStartEvent: type
+    StreamEndEvent: type
+
     def __init__(self) -> None:
         for name in _EVENT_FIELDS:
             setattr(self, name, type(name, (BaseException,), {"__slots__": (), "__module__": __name__}))
