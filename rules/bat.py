@@ -154,14 +154,13 @@ def micro_batch_fit(ctx):
         return _own(a, found)
 
     mini_loc = m.values["batch.mini"].location if "batch.mini" in m.values else m.loc("batch.mini")
-    rel = related(m, "train.data_parallel")
     if per_rank.divides is False:
         if not verdict.reportable(per_rank):
             return
         unit = lcm(dp * (micro or 1), gs if gs > 1 else 1)
         yield ctx.finding(
             f"a mini-batch of {mini} completions does not split over {dp} data-parallel ranks: "
-            f"{per_rank.formula}{verdict.suffix(per_rank)}", mini_loc, related=rel,
+            f"{per_rank.formula}{verdict.suffix(per_rank)}", mini_loc, related=related(m, "train.data_parallel"),
             suggestion=f"use a mini-batch of {minis(unit)}", subject=(mini, dp))
         return
     share = per_rank.value
@@ -322,7 +321,10 @@ def group_split(ctx):
     gs = a.value("rollout.group_size")
     if not gs or gs < 2:
         return
-    rel_g = related(m, "rollout.group_size")
+
+    def rel_g():  # perf: worked out only for a finding (related reads the run's sources)
+        return related(m, "rollout.group_size")
+
     stated = m.values.get("batch.rollouts")
     step = a.step("prompts")
     if stated is not None and step is not None and step.divides is False:
@@ -330,7 +332,7 @@ def group_split(ctx):
             r = a.value("batch.rollouts")
             yield ctx.finding(
                 f"{r} completions per step are not whole groups of {gs}: {step.formula}; the last group "
-                f"is {gs - r % gs} completions short{verdict.suffix(step)}", stated.location, related=rel_g,
+                f"is {gs - r % gs} completions short{verdict.suffix(step)}", stated.location, related=rel_g(),
                 suggestion=f"use {either(near_multiples(r, gs))} completions per step", subject=(r, gs))
         return
     rollouts, dp = a.value("batch.rollouts"), a.value("train.data_parallel")
@@ -344,7 +346,7 @@ def group_split(ctx):
             f"whole groups of {gs}: {step.formula}; a group is split across ranks, "
             f"{gs - share % gs} completions short on each{verdict.suffix(step)}",
             m.values[where_c].location if where_c in m.values else m.loc("batch.rollouts"),
-            level="warning", related=rel_g + related(m, "train.data_parallel"),
+            level="warning", related=rel_g() + related(m, "train.data_parallel"),
             suggestion=f"use {either(near_multiples(prompts, dp))} prompts per step (a multiple of the "
                        f"{dp} ranks)", subject=("ranks", rollouts, dp, gs))
     mini = a.value("batch.mini")
@@ -356,7 +358,7 @@ def group_split(ctx):
         yield ctx.finding(
             f"a mini-batch of {mini} completions is not whole groups of {gs}: {step.formula}; "
             f"one group is cut across two updates, {gs - mini % gs} completions short{verdict.suffix(step)}",
-            m.values["batch.mini"].location, level="warning", related=rel_g,
+            m.values["batch.mini"].location, level="warning", related=rel_g(),
             suggestion=f"use a mini-batch of {_own(a, options)}", subject=("mini", mini, gs))
 
 

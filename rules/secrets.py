@@ -5,6 +5,7 @@ from __future__ import annotations
 import re
 
 from trimtab import rule
+from trimtab.common.findings import Location  # perf: not through the package's lazy names, once per run
 
 from ._safety import CAUTIONS, digest, kinds, label, locate, mask, safe_url, scan
 
@@ -105,8 +106,6 @@ def _remote_code(ctx, v, rev, what, where, rev_name, prefix=""):
       "the local modules it imports; nothing is imported or run.",
       needs=("reward.sources",), cwe=502, help=CAUTIONS)
 def unsafe_deserialisation(ctx):
-    from trimtab import Location
-
     for comp, kind in zip(ctx.model.components, kinds(ctx)):
         if kind not in ("rule", "code"):
             continue

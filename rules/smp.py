@@ -29,7 +29,9 @@ def group_too_small(ctx):
     gs = settled(m, "rollout.group_size")
     if est not in [e.lower() for e in ctx.options["group_relative"]] or g is None or not gs:
         return
-    rel = related(m, "run.estimator")
+    if gs >= 2 and gs >= ctx.options["min_group"]:
+        return
+    rel = related(m, "run.estimator")  # perf: only for a finding
     if gs < 2:
         yield ctx.finding(f"a group of {gs} completion per prompt under the group-relative estimator {est}: "
                           "every advantage is zero (each completion is its own group's mean)", g.location,
@@ -55,17 +57,20 @@ def deterministic_group(ctx):
     gs = settled(m, "rollout.group_size")
     if not gs or gs < 2:
         return
-    rel = related(m, "rollout.group_size")
+
+    def rel():  # perf: worked out only for a finding (related reads the run's sources)
+        return related(m, "rollout.group_size")
+
     sampling = m.values.get("rollout.sampling")
     if sampling is not None and sampling.value is False:
         yield ctx.finding(f"sampling is switched off with {gs} completions per prompt: greedy decoding makes the "
-                          f"{gs} completions of a group identical", sampling.location, related=rel,
+                          f"{gs} completions of a group identical", sampling.location, related=rel(),
                           suggestion="switch sampling on", subject=("sampling", gs))
         return
     top_k = m.values.get("rollout.top_k")
     if top_k is not None and top_k.number == 1:
         yield ctx.finding(f"top-k of 1 is greedy decoding: the {gs} completions of a group are identical",
-                          top_k.location, related=rel, suggestion="raise top-k, or switch the cut-off off",
+                          top_k.location, related=rel(), suggestion="raise top-k, or switch the cut-off off",
                           subject=("top_k", gs))
         return
     t = m.values.get("rollout.temperature")
@@ -73,12 +78,12 @@ def deterministic_group(ctx):
         return  # negative: SMP-3
     if t.number == 0:
         yield ctx.finding(f"temperature 0 with {gs} completions per prompt: the completions of a group are "
-                          "identical and every group-relative advantage is zero", t.location, related=rel,
+                          "identical and every group-relative advantage is zero", t.location, related=rel(),
                           suggestion="sample at a temperature near 1", subject=("temperature", 0, gs))
     elif t.number < ctx.options["min_temperature"]:
         yield ctx.finding(f"temperature {t.number:g} with {gs} completions per prompt is under min_temperature "
                           f"{ctx.options['min_temperature']:g}: completions of a group will differ little",
-                          t.location, level="warning", related=rel,
+                          t.location, level="warning", related=rel(),
                           suggestion="sample at a temperature near 1", subject=("temperature", t.number, gs))
 
 

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from trimtab import Level, Location, rule
+from trimtab.common.findings import Edit  # perf: not through the package's lazy names, once per run
 from trimtab.common.scalars import READER_NAMES, YAML_READERS, same_value, type11, type12
 
 from ._common import misread, suspects
@@ -126,8 +127,6 @@ def compatible_number(text: str) -> str | None:
       "JSON's own grammar (RFC 8259) and never reported. Write the value so that every reader agrees.",
       rl_only=False)
 def version_disagreement(ctx):
-    from trimtab import Edit
-
     m = ctx.model
     for name, v in suspects(m):
         reader, who, stated = misread(m, v)
