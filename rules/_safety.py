@@ -3,6 +3,7 @@ run, the cautions every safety finding carries, and masking of values that must 
 from __future__ import annotations
 
 import re
+from typing import Any
 
 from trimtab import Component, Location
 from trimtab.common.record import Record
@@ -68,9 +69,9 @@ def locate(ctx, comp):
     key = id(comp)
     if key in memo:
         return memo[key][1]
-    from trimtab.engine.codescan import function_name, parse_reference
+    from trimtab.engine.codescan import function_name
 
-    ref = parse_reference(comp.get("ref"))
+    ref = _reference(comp.get("ref"))
     if ref is not None:
         found = scanner(ctx).locate(ref)
     else:
@@ -89,6 +90,25 @@ def scan(ctx, located):
         return hit[1]
     found = scanner(ctx).scan(located)
     memo[id(located)] = (located, found)  # the located module is kept with its answer: its id stays its own
+    return found
+
+
+# perf: the references of reward components, parsed (codescan.parse_reference, a pure function of the
+# text giving an immutable Reference): runs repeat them from file to file. Bounded: emptied when full.
+_REFERENCES: dict[str, Any] = {}
+
+
+def _reference(text):
+    from trimtab.engine.codescan import parse_reference
+
+    if not isinstance(text, str):
+        return parse_reference(text)
+    found = _REFERENCES.get(text, _REFERENCES)
+    if found is _REFERENCES:
+        found = parse_reference(text)
+        if len(_REFERENCES) >= 4096:
+            _REFERENCES.clear()
+        _REFERENCES[text] = found
     return found
 
 
