@@ -312,10 +312,12 @@ class Context:
         out = list(related)
         if self.model is None or not (self.model.chains or any(v.chain for v in self.model.values.values())):
             return out  # no value of this run came through a layer, reference, merge or alias
-        index: dict[tuple, list] | None = getattr(self, "_by_place", None)
+        # perf: the index is the run's, built once per run model rather than once per rule that reports
+        # on it (it holds the run's values only: no cycle back to the model)
+        index: dict[tuple, list] | None = self.model.__dict__.get("_by_place")
         if index is None:
             index = {}
-            self._by_place = index
+            self.model.__dict__["_by_place"] = index
             values = list(self.model.values.values())
             for comp in self.model.components:
                 values.extend(comp.fields.values())
