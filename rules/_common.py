@@ -105,7 +105,20 @@ KL_COEFS = tuple(c for _s, c, _w in KL_MECHANISMS)
 def kl_mechanisms(model):
     """Each KL mechanism the file states: (state, Value, coefficient concept), state 'on' (a
     positive coefficient, its switch not off), 'off' (switched off, or a coefficient of 0), or
-    'switched' (switched on, its coefficient left to the trainer). Dead values are not read."""
+    'switched' (switched on, its coefficient left to the trainer). Dead values are not read.
+
+    perf: worked out once per run (four KL rules ask) when no concept of the run is known only at
+    launch or unusable: reading the run then has no effect on it (RunModel.get records what a rule
+    asked for only when some are), so every rule would get the same answer."""
+    if model.unknown or model.unusable:
+        return _kl_mechanisms(model)
+    memo = model.__dict__.get("_kl_mechanisms")
+    if memo is None:
+        memo = model.__dict__["_kl_mechanisms"] = tuple(_kl_mechanisms(model))
+    return list(memo)
+
+
+def _kl_mechanisms(model):
     out = []
     for switch, coef, _where in KL_MECHANISMS:
         s, c = model.values.get(switch), model.values.get(coef)
