@@ -781,6 +781,11 @@ def breaks(a: Arithmetic) -> list[str]:
 
 
 def _status(a: Arithmetic) -> str:
+    if not a.reading:
+        # perf: under no reading of an unstated unit nothing is ambiguous (a term is ambiguous only as
+        # a count read in a unit the reading chose, a step only through its terms): nothing breaks
+        # below, nothing is missing (most runs: their counts' units are stated or plain)
+        return "consistent"
     if breaks(a):
         return "broken"
     if any(t.missing for t in a.terms.values() if t.ambiguous):
