@@ -33,7 +33,7 @@ def kind_of(comp) -> str:
     """rule, code, model, judge, remote, or '' when it cannot be told. A reference written as a
     bare identifier (``accuracy``) is a reward function by name; a path- or repository-like one
     (``team/model``, ``./weights``) is a model."""
-    from trimtab.engine.codescan import function_name, looks_like_code
+    from trimtab.engine.codescan import function_name
 
     k = comp.get("kind")
     if isinstance(k, str) and k.strip().lower() in _KIND:
@@ -43,7 +43,7 @@ def kind_of(comp) -> str:
     if isinstance(comp.get("endpoint"), str):
         return "remote"
     ref = comp.get("ref")
-    if looks_like_code(ref) or function_name(ref):
+    if _reference(ref) is not None or function_name(ref):  # codescan.looks_like_code, parsed once per text
         return "rule"
     if isinstance(ref, str) and ref.strip():
         return "model"
@@ -65,7 +65,9 @@ def locate(ctx, comp):
     is not code: ``module:function`` and file references through the search roots, a bare
     function name through every module of the search roots. Once per component of a run (the
     REW, EXE and SEC rules all ask)."""
-    memo = vars(ctx.model).setdefault("_located", {}) if ctx.model is not None else {}
+    memo = vars(ctx.model).get("_located") if ctx.model is not None else {}
+    if memo is None:
+        memo = vars(ctx.model)["_located"] = {}
     key = id(comp)
     if key in memo:
         return memo[key][1]
