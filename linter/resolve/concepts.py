@@ -450,20 +450,23 @@ def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: 
         v.chain.extend(h for h in chain if h not in v.chain)
 
 
+def _keyed_loc(node: Node, key: str, keyed: bool) -> Location:
+    """Where a value was written, known by ``key`` when ``keyed`` (as ``Value.location`` makes it)."""
+    return Value("", None, None, node, key=key, keyed=keyed).location
+
+
 def _chain(model: RunModel, key: str) -> list[Location]:
     return list(model.chains.get(key, ())) if model.chains else []
 
 
 def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, spec: KeySpec | None,
                  synonyms: KeySpec | None = None):
-    doc = model.doc
-    loc = doc.loc(node)
-    if model.chains and key and loc.key_path != key:
-        # reached through a reference: written at the target's line, known by the key that refers to it
-        loc = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, key)
+    # a value reached through a reference: written at the target's line, known by the key that refers
+    # to it. perf: its Location is made when first read (Value.location), most never are
+    keyed = bool(model.chains and key)
     chain = _chain(model, key)
     if concept == "reward.sources":
-        model.values[concept] = Value(concept, node, loc, node, via, key, chain)
+        model.values[concept] = Value(concept, node, None, node, via, key, chain, keyed=keyed)
         model.components = _components(model, node, spec, key)
         return
     if isinstance(node, (Mapping, Sequence)):
@@ -474,30 +477,31 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
                 # a model's section: its path says what is loaded (a null path is no model named)
                 _store_value(model, concept, inner[1], via, f"{key}.{inner[0]}" if key else inner[0], spec, synonyms)
                 return
-            model.values[concept] = Value(concept, True, loc, node, via, key, chain, raw=node)
+            model.values[concept] = Value(concept, True, None, node, via, key, chain, raw=node, keyed=keyed)
             return
         combined = _combined(c, node, model.reader(node)[0], synonyms)
         if combined is not None:  # a list that names one value of an enumeration (placement: [loss, reward])
             shown = _compact(node, model.reader(node)[0])
-            model.values[concept] = Value(concept, combined, loc, node, via, key, chain,
-                                          note=f"the list {shown} read as {combined}", raw=shown)
+            model.values[concept] = Value(concept, combined, None, node, via, key, chain,
+                                          note=f"the list {shown} read as {combined}", raw=shown, keyed=keyed)
             return
         leaf = normalise_key(key.rsplit(".", 1)[-1])
         count = _counted(c, leaf, node)
         if count is not None:  # the list of the things themselves (gpus: [0, 1, 2, 3])
             shown = _compact(node, model.reader(node)[0])
-            model.values[concept] = Value(concept, count, loc, node, via, key, chain,
-                                          note=f"the list {shown} counted: {count}", raw=count)
+            model.values[concept] = Value(concept, count, None, node, via, key, chain,
+                                          note=f"the list {shown} counted: {count}", raw=count, keyed=keyed)
             return
         why = _shape(concept, node, leaf, model.reader(node)[0], named=via == "keymap", synonyms=synonyms)
         if why and why != "section" and c.type != "list":
-            model.unused.append(Unused(concept, key, loc, why, "shape", _compact(node, model.reader(node)[0]), node))
+            model.unused.append(Unused(concept, key, _keyed_loc(node, key, keyed), why, "shape",
+                                      _compact(node, model.reader(node)[0]), node))
         return
     if isinstance(node, Unknown):  # known only at launch: out of the run, never reasoned about
-        model.unknown[concept] = Value(concept, None, loc, node, via, key, chain, note=node.why)
+        model.unknown[concept] = Value(concept, None, None, node, via, key, chain, note=node.why, keyed=keyed)
         return
     value = model.read(node)
-    v = Value(concept, value, loc, node, via, key, chain, raw=value)
+    v = Value(concept, value, None, node, via, key, chain, raw=value, keyed=keyed)
     if spec is not None and (spec.per or spec.scope):
         v.note = f"key map: per {spec.per or 'completion'}, {spec.scope or 'global'}"
     meant = synonyms.meaning(value) if synonyms is not None else None
@@ -551,30 +555,30 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
         at = f"{key}.{below}"
         if name_node is not None:
             comp.fields["name"] = Value("name", name_node.text if isinstance(name_node, Scalar) else "?",
-                                        doc.loc(name_node), name_node, "component")
+                                        None, name_node, "component")
             comp.location = doc.loc(name_node)
         if isinstance(item, Scalar):
             val = model.read(item)
             if name_node is not None and isinstance(val, (int, float)) and not isinstance(val, bool):
                 # a mapping of name -> weight: the name is the reward, the number its weight
-                comp.fields["weight"] = Value("weight", val, doc.loc(item), item, "component",
+                comp.fields["weight"] = Value("weight", val, None, item, "component",
                                               chain=_chain(model, at))
             else:
-                comp.fields["ref"] = Value("ref", val, doc.loc(item), item, "component", chain=_chain(model, at))
+                comp.fields["ref"] = Value("ref", val, None, item, "component", chain=_chain(model, at))
         elif isinstance(item, Mapping):
             _component_sandbox(model, comp, item)
             for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
                 if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
                                                    for a in ALIASES.get(normalise_key(word), ())):
                     comp.fields["trust_remote_code"] = Value("trust_remote_code", model.read(sub),
-                                                             doc.loc(sub), sub, "component", word)
+                                                             None, sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
                     sub = item.get(w)
                     if sub is not None:
                         val = model.read(sub) if isinstance(sub, Scalar) else sub
-                        comp.fields[field_name] = Value(field_name, val, doc.loc(sub), sub, "component", w,
+                        comp.fields[field_name] = Value(field_name, val, None, sub, "component", w,
                                                         _chain(model, f"{at}.{w}"))
                         break
         named = comp.fields.get("name")
@@ -608,7 +612,7 @@ def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
         if normalise_key(word) not in SANDBOX:
             continue
         if isinstance(sub, Scalar):
-            comp.fields["sandbox.kind"] = Value("sandbox.kind", model.read(sub), model.doc.loc(sub), sub,
+            comp.fields["sandbox.kind"] = Value("sandbox.kind", model.read(sub), None, sub,
                                                 "component", word)
             return
         if not isinstance(sub, Mapping):
@@ -618,7 +622,7 @@ def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
                 continue
             for alias in ALIASES.get(normalise_key(name), ()):
                 if alias.concept.startswith("sandbox.") and normalise_key(word) in alias.under:
-                    comp.fields[alias.concept] = Value(alias.concept, model.read(v), model.doc.loc(v), v,
+                    comp.fields[alias.concept] = Value(alias.concept, model.read(v), None, v,
                                                        "component", f"{word}.{name}")
                     break
         return

@@ -24,7 +24,6 @@ class Value(Record):
 
     concept: str
     value: Any
-    location: Location  # where the value was written (the command line: path None)
     node: Node | None
     via: str  # keymap, alias, native, derived, override
     key: str  # the key path in the user's file
@@ -35,13 +34,16 @@ class Value(Record):
     unit: Any  # for a batch count: the unit it is written in, when the key map states it (arithmetic.Unit)
 
     def __init__(
-            self, concept: str, value: Any, location: Location, node: Node | None = None, via: str = "",
+            self, concept: str, value: Any, location: Location | None, node: Node | None = None, via: str = "",
             key: str = "", chain: list[Location] | None = None, inputs: tuple[str, ...] = (), note: str = "",
-            raw: Any = None, unit: Any = None
+            raw: Any = None, unit: Any = None, keyed: bool = False
     ) -> None:
+        """``location`` None: the node's own, made when first read; ``keyed``: that location is
+        known by ``key`` (a value reached through a reference, at the key that refers to it)."""
         self.concept = concept
         self.value = value
-        self.location = location
+        self._location = location
+        self._keyed = keyed
         self.node = node
         self.via = via
         self.key = key
@@ -55,6 +57,23 @@ class Value(Record):
     _fields = (
         "concept", "value", "location", "node", "via", "key", "chain", "inputs", "note", "raw", "unit",
     )
+
+    @property
+    def location(self) -> Location:
+        """Where the value was written (the command line: path None)."""
+        loc = self._location
+        if loc is None and self.node is not None:
+            # perf: made on first read: resolve stores some 64,000 values on the benchmark corpus
+            # and the rules read the place of few of them (0.3 s of Location objects saved)
+            loc = self.node.location()
+            if self._keyed and loc.key_path != self.key:
+                loc = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, self.key)
+            self._location = loc
+        return loc  # type: ignore[return-value]  # None only when given None without a node
+
+    @location.setter
+    def location(self, loc: Location) -> None:
+        self._location = loc
 
     @property
     def whole(self):
