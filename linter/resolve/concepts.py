@@ -59,9 +59,12 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     # perf: one walk, by section: a section's context (inside a reward list, its normalised parent
     # words, an evaluation block) is decided once, and only for a section holding a key that could
     # name a concept
-    chains: dict[tuple, tuple] = {}  # key path -> the hops of the first way it was reached
+    chains: dict[tuple, tuple] = {}  # key path -> the hops of the way it was reached (when there are any)
     native: dict[str, tuple[tuple, Node]] = {}  # a concept's own dotted name -> the last entry written there
-    sections_found = list(_sections(root, chains, native))
+    words = _WORDS
+    if len(words) >= _MEMO_SIZE:
+        words.clear()
+    sections_found = _sections(root, chains, native, words)
     taken: set[int] = set()
     mapped = set()
     for concept, spec in opts.keys.items():
@@ -73,23 +76,14 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
         taken.add(id(node))
     candidates: dict[str, list[tuple[int, tuple, Node]]] = {}
     sources_key = tuple(opts.keys["reward.sources"].key.split(".")) if "reward.sources" in opts.keys else None
-    # perf: most keys are no alias; a key's words and a section's context are worked out once per
-    # process (runs repeat them from file to file), and a section's only for one holding an alias
-    words = _WORDS
-    if len(words) >= _MEMO_SIZE:
-        words.clear()
+    # perf: most keys are no alias (_sections hands out only the entries that may name a concept); a
+    # key's words and a section's context are worked out once per process (runs repeat them from
+    # file to file), and a section's only for one holding an alias
     misshapen: dict[str, list[tuple[int, tuple, Node, str]]] = {}
     for section, entries in sections_found:
         context = None
-        for path, node, _chain in entries:
+        for path, node, leaf, aliases, kl_words in entries:
             if id(node) in taken:
-                continue
-            leaf = words.get(path[-1])
-            if leaf is None:
-                leaf = words[path[-1]] = normalise_key(path[-1])
-            aliases = ALIASES.get(leaf, ())
-            kl_words = "kl" in leaf or bool(section) and "kl" in section[-1].lower()
-            if not aliases and not kl_words:
                 continue
             if context is None:
                 context = _context(section, sources_key)
@@ -236,16 +230,20 @@ def _names_sources(section: tuple) -> bool:
     return False
 
 
-def _sections(root: Node, chains: dict, native: dict):
-    """(section path, [(key path, node, chain)...]) for every mapping, its entries in order, sections
-    included. ``chain`` holds the related locations of the hops that brought the entry to this path:
-    a ``<<`` merge key, or the key whose value is an alias of a node written elsewhere. Each section
-    is walked once per path it is reached by, within REVISIT_BUDGET; cycles are never followed.
-    Filled on the way: ``chains`` (key path -> the chain of the first way it was reached) and
-    ``native`` (a dotted key path that may be a concept's own name -> the last entry written there)."""
+def _sections(root: Node, chains: dict, native: dict, words: dict) -> list[tuple[tuple, list]]:
+    """(section path, [(key path, node, leaf, aliases, kl)...]) for every mapping, its entries in
+    order, sections included, keeping only the entries whose key may name a concept: one with an
+    alias (``aliases``, from ALIASES by the normalised key ``leaf``) or a KL word in its name or its
+    section's (``kl``). Each section is walked once per path it is reached by, within
+    REVISIT_BUDGET; cycles are never followed. Filled on the way, from every entry: ``chains`` (key
+    path -> the related locations of the hops that brought the entry to this path, when there are
+    any: a ``<<`` merge key, or the key whose value is an alias of a node written elsewhere; a key
+    path is reached one way only), ``native`` (a dotted key path that is a concept's own name -> the
+    last entry written there) and ``words`` (a key as written -> (leaf, aliases, KL word in it))."""
     seen: set[int] = set()
     budget = REVISIT_BUDGET
     heads = _NATIVE_HEADS
+    out: list[tuple[tuple, list]] = []
     stack: list[tuple[tuple, Node, tuple, frozenset]] = [((), root, (), frozenset())]
     while stack:
         path, node, chain, above = stack.pop()
@@ -257,28 +255,42 @@ def _sections(root: Node, chains: dict, native: dict):
         if isinstance(node, Mapping):
             inner = above | {id(node)}
             entries = []
+            section_kl = bool(path) and "kl" in path[-1].lower()
+            merge_key = None  # perf: the hops of the entries one '<<' brings in, made once (not per entry)
+            merged: tuple = ()
             for name, k, v, via in node.entries():
                 p = path + (name,)
                 hops: tuple = chain
                 if via is not None:
-                    hops = hops + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
+                    if via is not merge_key:
+                        merge_key = via
+                        merged = chain + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
+                    hops = merged
                 elif v.anchor and v.path != p and isinstance(k, Scalar) and k.path == path:
                     hops = hops + (k.location(f"{'.'.join(p)} is an alias of {'.'.join(v.path) or 'the top level'}"),)
-                entries.append((p, v, hops))
-                if p not in chains:
+                if hops:
                     chains[p] = hops
                 if p[0] in heads or "." in p[0]:
-                    native[".".join(p)] = (p, v)
-            yield path, entries
-            for p, v, hops in entries:  # the sections below (the last one is walked first)
-                if isinstance(v, Mapping):
+                    dotted = ".".join(p)
+                    if dotted in CONCEPTS:
+                        native[dotted] = (p, v)
+                if isinstance(v, Mapping):  # the sections below (the last one is walked first)
                     stack.append((p, v, hops, inner))
+                known = words.get(name)
+                if known is None:
+                    leaf = normalise_key(name)
+                    known = words[name] = (leaf, ALIASES.get(leaf, ()), "kl" in leaf)
+                if known[1] or known[2] or section_kl:
+                    entries.append((p, v, known[0], known[1], known[2] or section_kl))
+            if entries:
+                out.append((path, entries))
+    return out
 
 
 # perf: answers kept across files (runs repeat their keys and sections), bounded: emptied when full,
 # so memory stays flat over any number of files
 _MEMO_SIZE = 4096
-_WORDS: dict[str, str] = {}  # a key as written -> normalise_key
+_WORDS: dict[str, tuple[str, tuple, bool]] = {}  # a key as written -> (normalised, aliases, a KL word in it)
 _CONTEXTS: dict[tuple, tuple] = {}  # (section, reward-sources key path) -> _context
 
 
