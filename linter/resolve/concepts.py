@@ -90,13 +90,14 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             if context[0]:
                 continue
             parents, in_eval = context[1], context[2]
+            shaped = isinstance(node, (Mapping, Sequence))  # perf: a scalar fits any concept's shape
             matched = False
             for alias in aliases:
                 if alias.under and (not parents or parents[-1] not in alias.under):
                     continue
                 if alias.concept == "reward.sources" and isinstance(node, Scalar):
                     continue
-                shape = "" if alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
+                shape = "" if not shaped or alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
                     _shape(alias.concept, node, leaf, model.reader(node)[0], synonyms=opts.keys.get(alias.concept))
                 if shape == "section":
                     continue  # a section named like the concept holds keys, not its value
@@ -113,7 +114,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                                                    f"in the evaluation section '{in_eval}'", "evaluation"))
                         continue
                     strength = 0
-                elif alias.not_under and any(p in alias.not_under for p in parents):
+                elif alias.not_under and not context[3].isdisjoint(alias.not_under):
                     continue
                 else:
                     strength = 2 if alias.under else 1
@@ -129,29 +130,35 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             continue
         found = candidates.get(concept)
         if found:
-            best = max(s for s, _p, _n in found)
-            top = [(p, n) for s, p, n in found if s == best]
-            distinct = {}
-            for p, n in top:
-                # one node at two paths: a reference and its target; the referring path tells the story
-                if id(n) not in distinct or ".".join(p) in model.chains:
-                    distinct[id(n)] = (p, n)
-            if len(distinct) > 1:
-                model.ambiguous[concept] = [doc.loc(n, ".".join(p)) for p, n in distinct.values()]
-                for p, n in distinct.values():
-                    model.unused.append(Unused(concept, ".".join(p), doc.loc(n), f"ambiguous: {len(distinct)} keys "
-                                               "match as closely; name one in [tool.trimtab.keys]", "ambiguous"))
-                continue
-            path, node = next(iter(distinct.values()))
-            for s, p, n in found:
-                if s < best:
-                    why = "in an evaluation section; the training run's" if s == 0 else "matches less closely than"
-                    model.unused.append(Unused(concept, ".".join(p), doc.loc(n), f"{why} {'.'.join(path)} is read",
-                                               "lost"))
+            if len(found) == 1:  # perf: most concepts are matched by one key (nothing to weigh)
+                _s, path, node = found[0]
+            else:
+                best = max(s for s, _p, _n in found)
+                top = [(p, n) for s, p, n in found if s == best]
+                distinct = {}
+                for p, n in top:
+                    # one node at two paths: a reference and its target; the referring path tells the story
+                    if id(n) not in distinct or ".".join(p) in model.chains:
+                        distinct[id(n)] = (p, n)
+                if len(distinct) > 1:
+                    model.ambiguous[concept] = [doc.loc(n, ".".join(p)) for p, n in distinct.values()]
+                    for p, n in distinct.values():
+                        model.unused.append(Unused(concept, ".".join(p), doc.loc(n), f"ambiguous: {len(distinct)} "
+                                                   "keys match as closely; name one in [tool.trimtab.keys]",
+                                                   "ambiguous"))
+                    continue
+                path, node = next(iter(distinct.values()))
+                for s, p, n in found:
+                    if s < best:
+                        why = "in an evaluation section; the training run's" if s == 0 else \
+                            "matches less closely than"
+                        model.unused.append(Unused(concept, ".".join(p), doc.loc(n),
+                                                   f"{why} {'.'.join(path)} is read", "lost"))
             if concept == "sandbox.kind" and isinstance(node, Mapping):
                 continue  # the section itself; its fields resolve through "kind"/"type" aliases
-            via = "native" if ".".join(path) == concept else "alias"  # the concept's own path is the native layout
-            _store(model, concept, node, via, ".".join(path), chain=chains.get(path), synonyms=opts.keys.get(concept))
+            key = ".".join(path)
+            via = "native" if key == concept else "alias"  # the concept's own path is the native layout
+            _store(model, concept, node, via, key, chain=chains.get(path), synonyms=opts.keys.get(concept))
             continue
         hit = native.get(concept)
         if hit is not None:
@@ -277,7 +284,7 @@ def _sections(root: Node, chains: dict, native: dict, words: dict) -> list[tuple
                 if isinstance(v, Mapping):  # the sections below (the last one is walked first)
                     stack.append((p, v, hops, inner))
                 known = words.get(name)
-                if known is None:
+                if known is None:  # perf: _word, inline
                     leaf = normalise_key(name)
                     known = words[name] = (leaf, ALIASES.get(leaf, ()), "kl" in leaf)
                 if known[1] or known[2] or section_kl:
@@ -294,18 +301,27 @@ _WORDS: dict[str, tuple[str, tuple, bool]] = {}  # a key as written -> (normalis
 _CONTEXTS: dict[tuple, tuple] = {}  # (section, reward-sources key path) -> _context
 
 
-def _context(section: tuple, sources_key: tuple | None) -> tuple[bool, list[str], str | None]:
+def _word(name: str) -> tuple[str, tuple, bool]:
+    """(the normalised key, its aliases, whether it holds a KL word) of a key as written, memoised."""
+    known = _WORDS.get(name)
+    if known is None:
+        leaf = normalise_key(name)
+        known = _WORDS[name] = (leaf, ALIASES.get(leaf, ()), "kl" in leaf)
+    return known
+
+
+def _context(section: tuple, sources_key: tuple | None) -> tuple[bool, list[str], str | None, frozenset[str]]:
     """What decides how the keys of one section resolve: (is it inside a reward-sources list (its
     keys are a component's fields, not concepts of the run), the normalised words of its path, the
-    evaluation block it is in or None)."""
+    evaluation block it is in or None, those words as a set)."""
     hit = _CONTEXTS.get((section, sources_key))
     if hit is None:
         if len(_CONTEXTS) >= _MEMO_SIZE:
             _CONTEXTS.clear()
+        parents = [section_word(normalise_key(p)) for p in section if not p.isdigit()]
         hit = _CONTEXTS[(section, sources_key)] = (
-            _sources_section(section, sources_key, {}) if section else False,
-            [section_word(normalise_key(p)) for p in section if not p.isdigit()],
-            evaluation_section(section))
+            _sources_section(section, sources_key, {}) if section else False, parents,
+            evaluation_section(section), frozenset(parents))
     return hit
 
 
@@ -475,8 +491,9 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
                  synonyms: KeySpec | None = None):
     # a value reached through a reference: written at the target's line, known by the key that refers
     # to it. perf: its Location is made when first read (Value.location), most never are
-    keyed = bool(model.chains and key)
-    chain = _chain(model, key)
+    chains = model.chains
+    keyed = bool(chains and key)
+    chain = list(chains.get(key, ())) if chains else []  # perf: _chain, inline
     if concept == "reward.sources":
         model.values[concept] = Value(concept, node, None, node, via, key, chain, keyed=keyed)
         model.components = _components(model, node, spec, key)
@@ -526,7 +543,7 @@ def _store_value(model: RunModel, concept: str, node: Node, via: str, key: str, 
     if spec is not None and c.per:
         v.unit = Unit(spec.per or c.per, spec.scope or c.scope)  # the key map states the unit
     model.values[concept] = v
-    expected = CONCEPTS[concept].type
+    expected = c.type
     if share_of_run(concept, v.value):
         v.note = f"a share of the run: {v.value:g} of the total steps"
     elif v.value is not None and not _fits(v.value, expected):
@@ -578,16 +595,22 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
             else:
                 comp.fields["ref"] = Value("ref", val, None, item, "component", chain=_chain(model, at))
         elif isinstance(item, Mapping):
-            _component_sandbox(model, comp, item)
-            for word, _k, sub, _via in item.entries():  # a component's own remote-code switch
-                if isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
-                                                   for a in ALIASES.get(normalise_key(word), ())):
+            # perf: the component's entries are read once, for its sandbox, its switch and its fields
+            entries = list(item.entries())
+            _component_sandbox(model, comp, entries)
+            at_word = {}  # a key as written -> its value (as Mapping.get finds it)
+            for word, _k, sub, _via in entries:
+                at_word[word] = sub
+                aliases = _word(word)[1]
+                # a component's own remote-code switch
+                if aliases and isinstance(sub, Scalar) and any(a.concept == "model.trust_remote_code"
+                                                               for a in aliases):
                     comp.fields["trust_remote_code"] = Value("trust_remote_code", model.read(sub),
                                                              None, sub, "component", word)
             for field_name in REWARD_FIELDS:
                 words = (names[field_name],) if field_name in names else _FIELD_WORDS[field_name]
                 for w in words:
-                    sub = item.get(w)
+                    sub = at_word.get(w)
                     if sub is not None:
                         val = model.read(sub) if isinstance(sub, Scalar) else sub
                         comp.fields[field_name] = Value(field_name, val, None, sub, "component", w,
@@ -603,6 +626,10 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
     return out
 
 
+# The words of a component's own fields and sandbox: a one-entry mapping keyed by one is no named reward.
+_NOT_A_NAME = frozenset(w for words in _FIELD_WORDS.values() for w in words) | frozenset(SANDBOX)
+
+
 def _one_entry(item: Node, names: dict, at: str) -> tuple[Node | None, Node, str]:
     """A list item written as a one-entry mapping (``{accuracy: 1.0}``, ``{judge: team/model}``,
     ``{style: {kind: judge, ...}}``) whose key is no component field: the same as an entry of a
@@ -611,17 +638,18 @@ def _one_entry(item: Node, names: dict, at: str) -> tuple[Node | None, Node, str
         entries = list(item.entries())
         if len(entries) == 1:
             word, k, v, _via = entries[0]
-            known = set(names.values()) | {w for words in _FIELD_WORDS.values() for w in words} | set(SANDBOX)
-            if isinstance(k, Scalar) and isinstance(v, (Scalar, Mapping)) and normalise_key(word) not in known:
+            leaf = normalise_key(word)
+            if isinstance(k, Scalar) and isinstance(v, (Scalar, Mapping)) and leaf not in _NOT_A_NAME and \
+                    leaf not in names.values():
                 return k, v, f"{at}.{k.text}"
     return None, item, at
 
 
-def _component_sandbox(model: RunModel, comp: Component, item: Mapping) -> None:
-    """A sandbox section inside one component: its fields become ``sandbox.*`` fields of the
-    component (they describe where that component's code runs)."""
-    for word, _k, sub, _via in item.entries():
-        if normalise_key(word) not in SANDBOX:
+def _component_sandbox(model: RunModel, comp: Component, entries: list) -> None:
+    """A sandbox section inside one component (``entries``: the component mapping's): its fields
+    become ``sandbox.*`` fields of the component (they describe where that component's code runs)."""
+    for word, _k, sub, _via in entries:
+        if _word(word)[0] not in SANDBOX:
             continue
         if isinstance(sub, Scalar):
             comp.fields["sandbox.kind"] = Value("sandbox.kind", model.read(sub), None, sub,
