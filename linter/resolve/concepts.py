@@ -93,24 +93,25 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
             shaped = isinstance(node, (Mapping, Sequence))  # perf: a scalar fits any concept's shape
             matched = False
             for alias in aliases:
+                concept = alias.concept
                 if alias.under and (not parents or parents[-1] not in alias.under):
                     continue
-                if alias.concept == "reward.sources" and isinstance(node, Scalar):
+                if concept == "reward.sources" and isinstance(node, Scalar):
                     continue
-                shape = "" if not shaped or alias.concept == "sandbox.kind" and isinstance(node, Mapping) else \
-                    _shape(alias.concept, node, leaf, model.reader(node)[0], synonyms=opts.keys.get(alias.concept))
+                shape = "" if not shaped or concept == "sandbox.kind" and isinstance(node, Mapping) else \
+                    _shape(concept, node, leaf, model.reader(node)[0], synonyms=opts.keys.get(concept))
                 if shape == "section":
                     continue  # a section named like the concept holds keys, not its value
-                if alias.concept in mapped:
-                    model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
-                                               f"the key map names {opts.keys[alias.concept].key}", "keymap"))
+                if concept in mapped:
+                    model.unused.append(Unused(concept, ".".join(path), doc.loc(node),
+                                               f"the key map names {opts.keys[concept].key}", "keymap"))
                     continue
                 if in_eval is not None:
                     # an evaluation, validation or test block samples for another loop: its keys never
                     # compete with the training run's. Only a sandbox (where generated code runs, in
                     # any loop) is taken from one, and only when the training run states none.
-                    if not alias.concept.startswith("sandbox."):
-                        model.unused.append(Unused(alias.concept, ".".join(path), doc.loc(node),
+                    if not concept.startswith("sandbox."):
+                        model.unused.append(Unused(concept, ".".join(path), doc.loc(node),
                                                    f"in the evaluation section '{in_eval}'", "evaluation"))
                         continue
                     strength = 0
@@ -119,9 +120,9 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                 else:
                     strength = 2 if alias.under else 1
                 if shape:  # a value of the wrong shape: used only if no key of the right shape matches
-                    misshapen.setdefault(alias.concept, []).append((strength, path, node, shape))
+                    misshapen.setdefault(concept, []).append((strength, path, node, shape))
                     continue
-                candidates.setdefault(alias.concept, []).append((strength, path, node))
+                candidates.setdefault(concept, []).append((strength, path, node))
                 matched = True
             if not matched and kl_words and in_eval is None:
                 _by_words(leaf, path, node, parents, candidates, mapped, model.reader(node)[0])
@@ -260,34 +261,45 @@ def _sections(root: Node, chains: dict, native: dict, words: dict) -> list[tuple
             budget -= 1
         seen.add(id(node))
         if isinstance(node, Mapping):
-            inner = above | {id(node)}
+            inner: frozenset | None = None  # the mappings above the sections below (made for a section that has any)
             entries = []
             section_kl = bool(path) and "kl" in path[-1].lower()
+            # a key path that may be a concept's own dotted name: one in a section whose first key is a
+            # concept's first word or holds a dot (for a top-level key: the key itself)
+            native_here = None if not path else path[0] in heads or "." in path[0]
             merge_key = None  # perf: the hops of the entries one '<<' brings in, made once (not per entry)
             merged: tuple = ()
             for name, k, v, via in node.entries():
-                p = path + (name,)
                 hops: tuple = chain
                 if via is not None:
                     if via is not merge_key:
                         merge_key = via
                         merged = chain + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
                     hops = merged
-                elif v.anchor and v.path != p and isinstance(k, Scalar) and k.path == path:
-                    hops = hops + (k.location(f"{'.'.join(p)} is an alias of {'.'.join(v.path) or 'the top level'}"),)
-                if hops:
-                    chains[p] = hops
-                if p[0] in heads or "." in p[0]:
-                    dotted = ".".join(p)
-                    if dotted in CONCEPTS:
-                        native[dotted] = (p, v)
-                if isinstance(v, Mapping):  # the sections below (the last one is walked first)
-                    stack.append((p, v, hops, inner))
+                elif v.anchor and isinstance(k, Scalar) and k.path == path and v.path != path + (name,):
+                    hops = hops + (k.location(f"{'.'.join(path + (name,))} is an alias of "
+                                              f"{'.'.join(v.path) or 'the top level'}"),)
                 known = words.get(name)
                 if known is None:  # perf: _word, inline
                     leaf = normalise_key(name)
                     known = words[name] = (leaf, ALIASES.get(leaf, ()), "kl" in leaf)
-                if known[1] or known[2] or section_kl:
+                wanted = known[1] or known[2] or section_kl
+                is_section = isinstance(v, Mapping)
+                native_key = native_here if native_here is not None else name in heads or "." in name
+                if not (hops or wanted or is_section or native_key):
+                    continue  # perf: most entries: nothing to keep, no key path made
+                p = path + (name,)
+                if hops:
+                    chains[p] = hops
+                if native_key:
+                    dotted = ".".join(p)
+                    if dotted in CONCEPTS:
+                        native[dotted] = (p, v)
+                if is_section:  # the sections below (the last one is walked first)
+                    if inner is None:
+                        inner = above | {id(node)}
+                    stack.append((p, v, hops, inner))
+                if wanted:
                     entries.append((p, v, known[0], known[1], known[2] or section_kl))
             if entries:
                 out.append((path, entries))
