@@ -601,8 +601,8 @@ class _Builder:
 
 # --- the parser's events, light ----------------------------------------------------------------
 # perf: PyYAML's event classes are pure Python: each event libyaml parses costs a call of a Python
-# __init__ and an attribute dict (a fifth of the whole check's time on the benchmark corpus, more
-# than libyaml's parse). The event builder needs each event's kind and fields only. So while it
+# __init__ and an attribute dict (about a tenth of the whole check's time on the benchmark corpus,
+# sampled: more than libyaml's own parse). The event builder needs each event's kind and fields only. So while it
 # reads libyaml's events, the C parser makes them as light events: one class per kind whose
 # constructor is BaseException's, written in C, which keeps the arguments as given (``args``) and
 # runs no Python. The C parser passes each kind's fields in PyYAML's order (yaml/events.py):
