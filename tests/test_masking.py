@@ -262,6 +262,20 @@ def test_rules_text_shows_a_plugin_s_control_characters():
     assert visible("summary\x1b[2J\nnext") == "summary\u27e8U+001B\u27e9[2J\u27e8U+000A\u27e9next"
 
 
+def test_printable_text_holds_no_character_that_visible_shows():
+    # visible() returns text that str.isprintable accepts unchanged: every code point the control
+    # pattern matches must be one isprintable refuses (Unicode categories Cc, Cf, Zl, Zp; Python's
+    # str.isprintable documentation: 'Other' and 'Separator' are not printable, but the space)
+    import unicodedata
+
+    from trimtab.common.redact import CONTROL
+
+    matched = [c for c in map(chr, range(0x110000)) if CONTROL.fullmatch(c)]
+    assert len(matched) > 60  # the class as written: C0 but tab, DEL, C1, line and format characters
+    assert not [c for c in matched if c.isprintable()]
+    assert {unicodedata.category(c) for c in matched} <= {"Cc", "Cf", "Zl", "Zp"}
+
+
 def test_worker_processes_mask_before_findings_travel(repo):
     # --jobs 2: findings are finished (and masked) in the worker that read the file; the parent,
     # which never read it, writes the report
