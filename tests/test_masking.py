@@ -357,6 +357,28 @@ def test_the_credential_walk_skips_only_values_too_short_for_every_shape():
     assert redact._SHORTEST_SHAPE <= redact.MIN_LENGTH
 
 
+@pytest.mark.parametrize("name, shape", __import__("trimtab.common.redact", fromlist=["SHAPES"]).SHAPES,
+                         ids=lambda v: v.split()[-1])
+def test_every_credential_shape_contains_the_shape_hint(name, shape):
+    """shape_of searches for SHAPE_HINT before the shapes themselves: every text a shape matches in
+    must hold the hint, or that shape would never be found."""
+    import re
+
+    from hypothesis import given, settings as hsettings, strategies as st
+
+    from trimtab.common import redact
+
+    hint, pattern = re.compile(redact.SHAPE_HINT), re.compile(shape)
+
+    @hsettings(max_examples=30)
+    @given(st.from_regex(pattern))
+    def holds(text):
+        assert hint.search(text), (name, text)
+        assert redact.shape_of(text), (name, text)
+
+    holds()
+
+
 def test_a_credential_a_later_key_overrides_is_still_found_and_hidden(repo):
     """A value that a duplicate key or an explicit key beside a ``<<`` merge overrides is still text
     committed to the file (CWE-798, use of hard-coded credentials: the credential is exposed wherever
