@@ -194,20 +194,14 @@ class Checker:
         as_run = doc.readable and shown not in self.composer.base_files
         # Compose first: composition problems are recorded on the document for the file rules.
         composed = [self.composer.compose(doc, root, path) for root in runs_of(doc)] if as_run else []
-        settings = self.settings
-        # perf: Context's arguments given by position (by keyword costs ~0.3 us more a call, ~140,000
-        # calls on the 2,000-file benchmark corpus)
-        for r, opts, level in self.rules("file"):
-            self._run(r, Context(r, None, doc, opts, level, None, settings), shown, res)
+        self._run(self.rules("file"), None, doc, shown, res)
         # File rules that cover every file a run is composed from (SEC-1): its bases, the overrides
         # file and the settings' layers, each once, reporting in that file (a finding there that the
         # file's own check also gives is merged with it, see _merge_duplicates).
         for src in list(doc.sources.values()) if as_run else ():
             if src.path == shown:
                 continue
-            for r, opts, level in self.rules("file"):
-                if r.sources:
-                    self._run(r, Context(r, None, src, opts, level, None, settings), src.path, res)
+            self._run([rule for rule in self.rules("file") if rule[0].sources], None, src, src.path, res)
         if as_run:
             set_rules = self.rules("set")
             models = []
@@ -220,21 +214,13 @@ class Checker:
                     # a document not read as a run: the rules about such documents (VOC-4), unless
                     # other files name it as a base (it is checked as part of the runs built on it)
                     start = len(res.findings)
-                    for r, opts, level in self.rules("not-run"):
-                        self._run(r, Context(r, model, doc, opts, level, None, settings), shown, res)
+                    self._run(self.rules("not-run"), model, doc, shown, res)
                     if len(res.findings) > start and self.composer.named_as_base(shown):
                         del res.findings[start:]  # a base: checked as part of the runs built on it
                     continue
                 res.runs += 1
-                is_rl_stage = model.stage == "rl"  # perf: once per run, not once per rule
-                get = model.get
                 start = len(res.findings)
-                for r, opts, level in self.rules("run"):
-                    if r.rl_only and not is_rl_stage:
-                        continue
-                    if r.needs and _lacks(get, r.needs):
-                        continue
-                    self._run(r, Context(r, model, doc, opts, level, None, settings), shown, res)
+                self._run(self.rules("run"), model, doc, shown, res, model.stage == "rl")
                 if len(comp.files) > 1:
                     _name_run(res.findings[start:], shown)
                 if set_rules:
@@ -299,10 +285,27 @@ class Checker:
         unsure = any(str(getattr(p, "kind", "")).startswith("compose-") for p in doc.problems)
         return runs, sorted(files - {shown}), unsure
 
-    def _run(self, r: Rule, ctx: Context, path: str, res: FileResult) -> None:
-        found, crashed = run_rule(r, ctx, path)
-        res.findings.extend(found)
-        res.crashed = res.crashed or crashed
+    def _run(self, rules: list[tuple[Rule, dict, Level]], model, doc, path: str, res: FileResult,
+             rl_stage: bool | None = None) -> None:
+        """Run ``rules`` (rule, options, level) on one document, or on one run of it (``model``),
+        adding their findings to ``res``. ``rl_stage`` (the rules of a run: is it an RL stage?): a
+        rule is then run only when the run has every concept it needs, and an RL-only one only on
+        an RL stage.
+
+        perf: one call for the rules of a scope, not one a rule (~142,000 rule runs on the 2,000-file
+        benchmark corpus; with run_rule's plain loop, 5.7% fewer instructions for the rules of a
+        file, measured with the other stages' results reused); Context's arguments given by position
+        (by keyword costs ~0.3 us more a call)."""
+        settings, findings = self.settings, res.findings
+        get = model.get if rl_stage is not None else None
+        for r, opts, level in rules:
+            if get is not None and (r.rl_only and not rl_stage or r.needs and _lacks(get, r.needs)):
+                continue
+            found, crashed = run_rule(r, Context(r, model, doc, opts, level, None, settings), path)
+            if found:
+                findings.extend(found)
+            if crashed:
+                res.crashed = True
 
     def accept_set(self, found: list[Finding], checked, set_accepts: dict[str, str], files: Sequence[tuple[str, str]]):
         """Apply the files' acceptance comments to the set-scope findings. ``checked``: the paths
