@@ -129,15 +129,18 @@ def label(comp) -> str:
 
 
 def scanner(ctx):
-    """The codescan scanner for the run's settings (perf: looked up once per run)."""
+    """The codescan scanner for the run's settings (perf: looked up once per run), holding the
+    signatures of the files it reads for the check of the run (Scanner.hold)."""
     model = ctx.model
     settings = ctx.settings if ctx.settings is not None else model.settings
     memo = vars(model).get("_scanner") if model is not None else None
     if memo is not None and memo[0] is settings:
+        memo[1].hold(model)
         return memo[1]
     from trimtab.engine.codescan import scanner as make
 
     found = make(settings)
+    found.hold(model)
     if model is not None:
         vars(model)["_scanner"] = (settings, found)
     return found

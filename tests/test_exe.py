@@ -244,3 +244,36 @@ def test_missing_reward_modules_are_looked_for_once_per_process(tmp_path, monkey
     (tmp_path / "rewards" / "tide").mkdir()
     (tmp_path / "rewards" / "tide" / "score.py").write_text("x = 1\n")
     assert sc.locate(dotted).status == "ok"
+
+
+def test_the_scanner_asks_about_a_file_once_per_run_it_holds(tmp_path, monkeypatch):
+    """Issue 20: while a run is held (Scanner.hold), each file's signature is taken once; a module
+    changed after that is read again once another run is held, and without a hold every call
+    looks again."""
+    from trimtab.engine import codescan
+
+    (tmp_path / "mod.py").write_text("def f():\n    pass\n")
+    sc = codescan.Scanner(tmp_path)
+    ref = codescan.Reference("mod:f", module="mod", function="f")
+    asked = []
+    real = codescan._signature
+    monkeypatch.setattr(codescan, "_signature", lambda p: asked.append(p) or real(p))
+
+    class Run:
+        pass
+
+    one, two = Run(), Run()
+    sc.hold(one)
+    for _ in range(3):
+        assert sc.scan(sc.locate(ref)).modules == ["mod.py"]
+    assert len(asked) == 1
+    (tmp_path / "mod.py").write_text("def g():\n    pass\n")
+    os.utime(tmp_path / "mod.py", ns=(1, 1))  # a different modification time even on a coarse clock
+    assert sc.locate(ref).status == "ok"  # the held run's reading
+    sc.hold(two)
+    assert sc.locate(ref).status == "no-function"
+    sc.hold(None)
+    asked.clear()
+    sc.locate(ref)
+    sc.locate(ref)
+    assert len(asked) == 2
