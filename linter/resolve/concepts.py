@@ -585,16 +585,19 @@ def _fits(value, expected: str) -> bool:
 
 def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:
     doc = model.doc
+    chains = model.chains
     names = dict(spec.fields) if spec and spec.fields else {}
     out: list[Component] = []
-    items: list[tuple[Node | None, Node, str]]  # (name, component, its key path below the list)
+    # (name, component, its key path below the list, the component's entries when already read)
+    items: list[tuple[Node | None, Node, str, list | None]]
     if isinstance(node, Sequence):
         items = [_one_entry(it, names, str(i)) for i, it in enumerate(node.items)]
     elif isinstance(node, Mapping):
-        items = [(k, v, k.text if isinstance(k, Scalar) else str(i)) for i, (_n, k, v, _via) in enumerate(node.entries())]
+        items = [(k, v, k.text if isinstance(k, Scalar) else str(i), None)
+                 for i, (_n, k, v, _via) in enumerate(node.entries())]
     else:
         return out
-    for i, (name_node, item, below) in enumerate(items):
+    for i, (name_node, item, below, read) in enumerate(items):
         comp = Component(i, doc.loc(item))
         at = f"{key}.{below}"
         if name_node is not None:
@@ -611,7 +614,8 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                 comp.fields["ref"] = Value("ref", val, None, item, "component", chain=_chain(model, at))
         elif isinstance(item, Mapping):
             # perf: the component's entries are read once, for its sandbox, its switch and its fields
-            entries = list(item.entries())
+            # (and for a list item, once with _one_entry)
+            entries = read if read is not None else list(item.entries())
             _component_sandbox(model, comp, entries)
             at_word = {}  # a key as written -> its value (as Mapping.get finds it)
             for word, _k, sub, _via in entries:
@@ -628,8 +632,9 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
                     sub = at_word.get(w)
                     if sub is not None:
                         val = model.read(sub) if isinstance(sub, Scalar) else sub
+                        # perf: by position, and the chain's key made only for a run with chains
                         comp.fields[field_name] = Value(field_name, val, None, sub, "component", w,
-                                                        _chain(model, f"{at}.{w}"))
+                                                        _chain(model, f"{at}.{w}") if chains else [])
                         break
         named = comp.fields.get("name")
         if named is not None and not any(f in comp.fields for f in ("ref", "endpoint", "kind")):
@@ -645,10 +650,10 @@ def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = ""
 _NOT_A_NAME = frozenset(w for words in _FIELD_WORDS.values() for w in words) | frozenset(SANDBOX)
 
 
-def _one_entry(item: Node, names: dict, at: str) -> tuple[Node | None, Node, str]:
+def _one_entry(item: Node, names: dict, at: str) -> tuple[Node | None, Node, str, list | None]:
     """A list item written as a one-entry mapping (``{accuracy: 1.0}``, ``{judge: team/model}``,
     ``{style: {kind: judge, ...}}``) whose key is no component field: the same as an entry of a
-    mapping of name -> reward."""
+    mapping of name -> reward. Last: the item's entries when it is a mapping and the component itself."""
     if isinstance(item, Mapping):
         entries = list(item.entries())
         if len(entries) == 1:
@@ -656,8 +661,9 @@ def _one_entry(item: Node, names: dict, at: str) -> tuple[Node | None, Node, str
             leaf = normalise_key(word)
             if isinstance(k, Scalar) and isinstance(v, (Scalar, Mapping)) and leaf not in _NOT_A_NAME and \
                     leaf not in names.values():
-                return k, v, f"{at}.{k.text}"
-    return None, item, at
+                return k, v, f"{at}.{k.text}", None
+        return None, item, at, entries
+    return None, item, at, None
 
 
 def _component_sandbox(model: RunModel, comp: Component, entries: list) -> None:
