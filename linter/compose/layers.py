@@ -369,7 +369,7 @@ class Composer:
         finally:
             # perf: the composer keeps nothing of the file once its run is composed; its tree is let go
             # with the check's own objects, while they are still in the processor's cache, not when the
-            # next file is composed (200 files of the benchmark corpus under cachegrind: 3% fewer
+            # next file is composed (200 files of the benchmark corpus in a CPU simulator: 3% fewer
             # first-level data-cache misses; the time it saves is within this machine's noise)
             self._doc = None
             self._blocks = {}
