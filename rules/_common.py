@@ -8,7 +8,8 @@ from __future__ import annotations
 import functools
 
 from trimtab import Location
-from trimtab.common.vocabulary import CONCEPTS
+from trimtab.common.scalars import YAML_READERS, misreaders, same_value, typed
+from trimtab.common.vocabulary import CONCEPTS, fits
 from trimtab.common.vocabulary import CRITIC_FREE as _NO_CRITIC
 from trimtab.load.document import Scalar  # perf: not through the package's lazy names
 
@@ -221,8 +222,6 @@ def _alike(text: str) -> bool:
     misreader for it, whatever the file's reader and the concept's type: ``scalars.misreaders``
     skips a reader whose reading every other reader shares, and ``_plain_misreaders`` reads the text
     the same way as here (``typed(text, True, None, version)``)."""
-    from trimtab.common.scalars import YAML_READERS, same_value, typed
-
     if text.isdigit() and text.isascii() and (text[0] != "0" or len(text) == 1):
         same = True  # a decimal integer without a leading zero: the same under every reader
     else:
@@ -242,15 +241,10 @@ def _plain_misreaders(text: str, reader: str | None, kind: str) -> tuple[str, ..
     once. The least recently used leave first: 1,024 entries keep the ones that repeat (as many hits
     as 4,096 on the benchmark corpus) and are full after a few hundred files, so the cache's memory
     does not grow with the number of files."""
-    from trimtab.common.scalars import typed
-
     return tuple(_misreaders(lambda version: typed(text, True, None, version), reader, kind))
 
 
 def _misreaders(read, reader: str | None, kind: str) -> list[str]:
-    from trimtab.common.scalars import misreaders
-    from trimtab.common.vocabulary import fits
-
     if kind in ("int", "number", "bool", "str"):
         def fit(x):
             return fits(x, kind)

@@ -28,13 +28,26 @@ _KIND_WORDS = {
 }
 _KIND = {w: k for k, words in _KIND_WORDS.items() for w in words}
 
+# trimtab.engine.codescan, imported when first needed (it imports the ast module: a check of runs
+# without reward code never loads it). perf: kept here once imported; an import statement inside a
+# function runs the import machinery on every call (~2.4 us), ~8 times a file on the benchmark corpus.
+_codescan: Any = None
+
+
+def _scan_module():
+    global _codescan
+    if _codescan is None:
+        from trimtab.engine import codescan
+
+        _codescan = codescan
+    return _codescan
+
 
 def kind_of(comp) -> str:
     """rule, code, model, judge, remote, or '' when it cannot be told. A reference written as a
     bare identifier (``accuracy``) is a reward function by name; a path- or repository-like one
     (``team/model``, ``./weights``) is a model."""
-    from trimtab.engine.codescan import function_name
-
+    function_name = _scan_module().function_name
     k = comp.get("kind")
     if isinstance(k, str) and k.strip().lower() in _KIND:
         return _KIND[k.strip().lower()]
@@ -71,13 +84,11 @@ def locate(ctx, comp):
     key = id(comp)
     if key in memo:
         return memo[key][1]
-    from trimtab.engine.codescan import function_name
-
     ref = _reference(comp.get("ref"))
     if ref is not None:
         found = scanner(ctx).locate(ref)
     else:
-        name = function_name(comp.get("ref"))
+        name = _scan_module().function_name(comp.get("ref"))
         found = scanner(ctx).find_name(name) if name else None
     memo[key] = (comp, found)  # the component is kept with its answer: its id stays its own
     return found
@@ -101,8 +112,7 @@ _REFERENCES: dict[str, Any] = {}
 
 
 def _reference(text):
-    from trimtab.engine.codescan import parse_reference
-
+    parse_reference = _scan_module().parse_reference
     if not isinstance(text, str):
         return parse_reference(text)
     found = _REFERENCES.get(text, _REFERENCES)
@@ -137,9 +147,7 @@ def scanner(ctx):
     if memo is not None and memo[0] is settings:
         memo[1].hold(model)
         return memo[1]
-    from trimtab.engine.codescan import scanner as make
-
-    found = make(settings)
+    found = _scan_module().scanner(settings)
     found.hold(model)
     if model is not None:
         vars(model)["_scanner"] = (settings, found)

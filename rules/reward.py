@@ -6,6 +6,7 @@ import functools
 import os
 import re
 from pathlib import Path
+from urllib.parse import urlsplit
 
 from trimtab.common.record import FrozenRecord
 from trimtab import Location, Scalar, rule
@@ -180,8 +181,6 @@ def _loopback(host: str) -> bool:
       "accepted for loopback (localhost, 127.0.0.0/8, ::1).",
       needs=SOURCES, cwe=319)
 def remote_plain_http(ctx):
-    from urllib.parse import urlsplit
-
     for comp, ep in _remote(ctx):
         if not ep:
             continue

@@ -5,6 +5,7 @@ from __future__ import annotations
 import re
 
 from trimtab import rule
+from trimtab.common.redact import credentials
 from trimtab.common.findings import Location  # perf: not through the package's lazy names, once per run
 
 from ._safety import CAUTIONS, digest, kinds, label, locate, mask, safe_url, scan
@@ -32,8 +33,6 @@ from ._safety import CAUTIONS, digest, kinds, label, locate, mask, safe_url, sca
            "at run time from the environment or a secret store. Your organisation's security policy and local "
            "rules take precedence over this advice.")
 def literal_credential(ctx):
-    from trimtab.common.redact import credentials
-
     for _key, node, why in credentials(ctx.doc, ctx.options["min_length"], ctx.options["min_entropy_bits"]):
         text = node.text
         shown = mask(text)

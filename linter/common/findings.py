@@ -4,7 +4,9 @@ from __future__ import annotations
 import enum
 from typing import Any
 
+from .paths import sha256_hex
 from .record import FrozenRecord, Record
+from .redact import mask
 
 
 class Level(enum.IntEnum):
@@ -163,8 +165,6 @@ class Finding(Record):
         """The finding with every shown text masked (``trimtab.common.redact.mask``): done where a finding is
         finished, in the process that read the files, so no credential travels further. The
         fingerprint is computed from the subject, never from the shown text, and does not change."""
-        from .redact import mask
-
         self.message = mask(self.message)
         self.suggestion = mask(self.suggestion)
         self.help = mask(self.help)
@@ -190,8 +190,6 @@ def fingerprint(rule_id: str, path: str | None, key_path: str, subject: Any) -> 
     """Rule + file + key path + normalised value: survives moved lines and reformatting,
     changes when the offending value changes."""
     text = "\x1f".join([rule_id, path or "", key_path, _normalise(subject)])
-    from .paths import sha256_hex
-
     return sha256_hex(text.encode("utf-8"))[:32]
 
 

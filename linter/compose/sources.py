@@ -5,6 +5,8 @@ from __future__ import annotations
 
 import re
 
+from ..load import loader
+from ..load.discover import matches
 from ..load.document import Document
 
 # Generic default (settings: [tool.trimtab.launch] scripts): which files are launch scripts.
@@ -13,8 +15,6 @@ SHELLS = re.compile(r"^#!\s*\S*/(?:env\s+)?(?:ba|da|k|z)?sh\b")
 
 
 def is_script(shown: str, settings, data: bytes | None = None) -> bool:
-    from ..load.discover import matches
-
     launch = getattr(settings, "launch", None) or {}
     if matches(shown, launch.get("scripts", SCRIPTS)):
         return True
@@ -27,8 +27,6 @@ def is_script(shown: str, settings, data: bytes | None = None) -> bool:
 def load(path: str, shown: str, settings) -> Document:
     """Any file trimtab checks: a launch script (by the settings' globs, or a shell's ``#!`` line
     when the name is not a config's), else a YAML or JSON config."""
-    from ..load import loader
-
     if is_script(shown, settings):
         return _read(path, shown, settings)
     if not shown.lower().endswith((".yaml", ".yml", ".json")):
@@ -48,8 +46,6 @@ def runs_of(doc: Document) -> list:
 def is_config(path: str, shown: str, settings) -> bool:
     """Is a file named on the command line one trimtab checks: YAML, JSON (by name, or by the
     settings' include globs) or a launch script (by the settings' globs or a shell's ``#!`` line)?"""
-    from ..load.discover import matches
-
     if shown.lower().endswith((".yaml", ".yml", ".json")) or matches(shown, settings.include):
         return True
     if is_script(shown, settings):

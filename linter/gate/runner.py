@@ -15,6 +15,7 @@ from typing import Any
 from . import filtering
 from ..common import spill
 from ..compose.layers import Composer
+from ..compose.sources import load, runs_of
 from ..engine.registry import Context, Registry, Rule, run_rule
 from ..common.findings import Finding, Level, Location
 from ..resolve import arithmetic
@@ -22,6 +23,7 @@ from ..resolve.model import Value
 from ..resolve.concepts import ResolveOptions, resolve
 from ..common.settings import Settings, SettingsError
 from ..common.record import Record
+from ..load.discover import matches
 
 
 class SetEntry(Record):
@@ -183,8 +185,6 @@ class Checker:
                 gc.enable()
 
     def _check_file(self, path: str, shown: str, keep: bool) -> FileResult:
-        from ..compose.sources import load, runs_of
-
         res = FileResult(shown)
         doc = load(path, shown, self.settings)
         if keep:
@@ -248,8 +248,6 @@ class Checker:
 
     def _resolve(self, doc, comp, shown: str, index: int):
         """The RunModel of one composed document (a file named in the settings' run_configs is a run)."""
-        from ..load.discover import matches
-
         opts_r = self.resolve_opts
         if self.settings.run_configs and matches(shown, self.settings.run_configs):
             opts_r = ResolveOptions(opts_r.keys, opts_r.version, True, opts_r.readers, opts_r.stated)
@@ -268,8 +266,6 @@ class Checker:
         of the repository, linter/gate/context.py): (index, values) of each of its runs, the other files
         they were composed from, and whether that is uncertain (the file could not be read, or a
         base is missing: not to be kept in a cache)."""
-        from ..compose.sources import load, runs_of
-
         doc = load(path, shown, self.settings)
         if not doc.readable or shown in self.composer.base_files:
             # a file that cannot be parsed stays so while its content is the same; one that could
