@@ -255,6 +255,25 @@ def test_integers_past_the_limit_stay_text_without_converting(text):
         assert scalars.typed(text, True, None, "1.1") == text and scalars.oversized(text)
 
 
+def test_integer_texts_of_every_reader_open_with_a_sign_or_a_digit():
+    """The loader tells a long plain scalar that cannot be an integer by its first character
+    (scalars.oversized): every text PyYAML's YAML 1.1 reader reads as an integer, and every integer
+    form of the YAML 1.2 core schema (YAML 1.2.2, section 10.3.2), opens with a sign or a digit."""
+    yaml = pytest.importorskip("yaml")
+    from trimtab.common import scalars
+
+    heads = ["", "+", "-", "0", "7", "0x", "0o", "0b", "_", ":", "a", "x", "o", ".", "~"]
+    bodies = ["1", "10", "7_7", "ff", "1:30", "0", "12345678901234567890123456789", "e5", ".5"]
+    for head in heads:
+        for body in bodies:
+            for text in (head + body, head + body * 3):
+                read11 = yaml.safe_load(text)  # a plain scalar, as a one-line document
+                if type(read11) is int or scalars.type12(text).__class__ is int:
+                    assert text[0] in "+-0123456789", text
+                if text and text[0] not in "+-0123456789":
+                    assert not scalars.oversized(text + "9" * 30), text
+
+
 # --- linear scanners ---------------------------------------------------------------------------------
 @pytest.mark.parametrize("comment", [
     "# trimtab: accept KL-1 -- a" + " " * 40_000 + "x",  # a reason with a long blank run inside
