@@ -387,3 +387,24 @@ def test_many_files_over_workers_give_the_findings_of_one_process(tmp_path):
     three = check_json(tmp_path / "configs", args=("--jobs", "3"), cwd=tmp_path)
     assert one.out == three.out and one.code == three.code
     assert len(one.json["findings"]) > 20 and one.json["summary"]["files"] == 48
+
+
+def test_plain_suffix_globs_are_tested_by_their_suffix_with_the_same_answers():
+    """perf: a glob ``**/*SUFFIX`` with a plain suffix is tested with str.endswith
+    (discover._matcher); every answer is the glob's own pattern's."""
+    from trimtab.load import discover
+
+    globs = ["**/*.yaml", "./**/*.yml", "**/*.json", "**/*.sh", "**/*-run.yaml", "**/*.tar.gz", "**/*e"]
+    paths = ["a.yaml", "x/a.yaml", "x/y/z.yml", ".yaml", "x/.yaml", "a.yaml/b", "a.yamlx", "x/a.yaml\n",
+             "x\n/a.yaml", "dir.yaml/file.txt", "x/a-run.yaml", "a.tar.gz", "b/a.gz", "e", "x/e", "x/e/", "",
+             "configs/brackenridge/batch000/arm-00002.yaml", "run.sh", "tools/launch.bash"]
+    fast = 0
+    for g in globs:
+        test = discover._matcher(g)
+        fast += getattr(test, "__self__", None) is None  # not a pattern's bound method: the suffix test
+        rx = discover._glob_re(g.lstrip("./") if g.startswith("./") else g)
+        for p in paths:
+            assert bool(test(p)) == bool(rx.match(p)), (g, p)
+    assert fast == len(globs)
+    for g in ["**/x/*.yaml", "**/*.[yj]son", "**/*", "**/a?.yaml", "*.yaml", "**/*\\x"]:  # patterns only
+        assert getattr(discover._matcher(g), "__self__", None) is not None, g

@@ -3,9 +3,10 @@ from __future__ import annotations
 
 import os
 import re
-from collections.abc import Iterable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from functools import lru_cache
 from pathlib import Path
+from typing import Any
 
 from ..common.paths import confined, lexically_inside
 
@@ -48,12 +49,21 @@ def _glob_re(pattern: str) -> re.Pattern:
     return re.compile("".join(out) + r"\Z", re.DOTALL)
 
 
-def _pattern(p: str) -> re.Pattern:
-    return _glob_re(p.lstrip("./") if p.startswith("./") else p)
+@lru_cache(maxsize=256)
+def _matcher(p: str) -> Callable[[str], Any]:
+    """The test of one glob on a relative path: its pattern's ``match``; for a glob ``**/*SUFFIX``
+    whose suffix is plain text (the usual include globs), ``str.endswith``, which answers the same:
+    ``**/`` takes any folders and ``*`` any characters but '/', which the suffix holds none of.
+    perf: a pattern match costs 1-2 us, 5 include globs a file."""
+    p = p.lstrip("./") if p.startswith("./") else p
+    suffix = p[4:]
+    if p.startswith("**/*") and suffix and not any(c in suffix for c in "/*?[\\"):
+        return lambda rel: rel.endswith(suffix)
+    return _glob_re(p).match
 
 
 def matches(rel: str, patterns) -> bool:
-    return any(_pattern(p).match(rel) for p in patterns)
+    return any(_matcher(p)(rel) for p in patterns)
 
 
 def relpath(path: Path, root: Path) -> str:
@@ -206,8 +216,8 @@ def _walk(top: Path, root: Path, include, exclude, found: dict, missing: list | 
     # perf: the shown path of a file is its folder's plus its name wherever the folder, as written,
     # lies under the root (relpath's first reading); the folder's is computed once per folder
     root_abs = Path(os.path.abspath(root))
-    inc = [(p, _pattern(p)) for p in include]
-    exc = [_pattern(p) for p in exclude]
+    inc = [(p, _matcher(p)) for p in include]
+    exc = [_matcher(p) for p in exclude]
     for dirpath, dirnames, filenames in os.walk(top):
         dirnames[:] = sorted(d for d in dirnames if d not in SKIP_DIRS and not d.endswith(".egg-info"))
         if not filenames:
@@ -224,8 +234,8 @@ def _walk(top: Path, root: Path, include, exclude, found: dict, missing: list | 
                 dir_top + name if dir_top is not None else relpath(Path(disk), top_res))
             logical = dir_logical + name
             spellings = {shown, rel_top, logical}
-            hit = [p for p, rx in inc if any(rx.match(s) for s in spellings)]
-            if not hit or any(rx.match(shown) for rx in exc):
+            hit = [p for p, test in inc if any(test(s) for s in spellings)]
+            if not hit or any(test(shown) for test in exc):
                 continue
             if used is not None:
                 used.update(hit)
