@@ -19,6 +19,7 @@ from .document import _UNSET, Document, Mapping, Node, Problem, Scalar, Sequence
 from ..common.findings import Location
 from ..common.limits import Limits
 from ..common.patterns import later
+from ..common.redact import learn
 
 
 _BOMS = (
@@ -126,9 +127,7 @@ def load(path: str, shown: str | None = None, limits: Limits = Limits(), fmt: st
         return _fail(doc, "size", f"is larger than the size limit of {limits.max_bytes} bytes "
                                   "(setting limits.max_bytes)")
     parse_bytes(doc, data, limits)
-    from ..common.redact import learn  # every output masks the credentials of every file read (trimtab.common.redact)
-
-    learn(doc)
+    learn(doc)  # every output masks the credentials of every file read (trimtab.common.redact)
     return doc
 
 
