@@ -1,12 +1,15 @@
 """The located tree: one Document per file, built from the parser's node graph.
 
-Every node keeps its 1-based line and column, end line and end column, and its character
-span in the decoded text (without a byte-order mark), so the raw text of any scalar is a
-slice of ``Document.text``. Scalars keep their processed text and quoting style and are typed
+Every node has its 1-based line and column, end line and end column (a node built from the
+parser's events works them out from its offsets when first read), and its character span in
+the decoded text (without a byte-order mark), so the raw text of any scalar is a slice of
+``Document.text``. Scalars keep their processed text and quoting style and are typed
 on demand under YAML 1.2 and YAML 1.1.
 """
 from __future__ import annotations
 
+from bisect import bisect_right
+from itertools import accumulate
 from typing import Iterator
 
 from ..common import scalars
@@ -15,22 +18,109 @@ from ..common.record import Record
 
 
 class Node:
-    __slots__ = ("line", "col", "end_line", "end_col", "start", "end", "path", "anchor", "file")
+    # perf: a node built from the parser's events keeps its two offsets (``start``, ``end``) and its
+    # document's ``lines``; its line and column are worked out from them when first read (Lines).
+    # Some 5% of the nodes are ever located on the benchmark corpus: reading libyaml's four marks
+    # for every node cost more than working out the few (measured: see _EventBuilder._run).
+    __slots__ = ("_line", "_col", "_end_line", "_end_col", "start", "end", "path", "anchor", "file", "lines")
     kind: str  # scalar, mapping, sequence (a class attribute of each kind)
-    line: int
-    col: int
-    end_line: int
-    end_col: int
     start: int  # character offsets in Document.text
     end: int
     path: tuple[str, ...]  # key path from the document's root
     anchor: str | None
     file: str | None  # the shown path of the file the node was written in
+    # the lines of the node's text while its line and column are still to be worked out, else None
+    lines: Lines | None
+
+    def _locate(self) -> None:
+        assert self.lines is not None
+        self._line, self._col, self._end_line, self._end_col = self.lines.span(self.start, self.end)
+        self.lines = None
+
+    @property
+    def line(self) -> int:
+        if self.lines is not None:
+            self._locate()
+        return self._line
+
+    @line.setter
+    def line(self, value: int) -> None:
+        if self.lines is not None:
+            self._locate()
+        self._line = value
+
+    @property
+    def col(self) -> int:
+        if self.lines is not None:
+            self._locate()
+        return self._col
+
+    @col.setter
+    def col(self, value: int) -> None:
+        if self.lines is not None:
+            self._locate()
+        self._col = value
+
+    @property
+    def end_line(self) -> int:
+        if self.lines is not None:
+            self._locate()
+        return self._end_line
+
+    @end_line.setter
+    def end_line(self, value: int) -> None:
+        if self.lines is not None:
+            self._locate()
+        self._end_line = value
+
+    @property
+    def end_col(self) -> int:
+        if self.lines is not None:
+            self._locate()
+        return self._end_col
+
+    @end_col.setter
+    def end_col(self, value: int) -> None:
+        if self.lines is not None:
+            self._locate()
+        self._end_col = value
 
     def location(self, message: str = "") -> Location:
         """Where this node was written: its own file (a composed run mixes files)."""
-        return Location(self.file, self.line, self.col, self.end_line, self.end_col, message,
+        if self.lines is not None:  # perf: the slots read here, not the properties
+            self._locate()
+        return Location(self.file, self._line, self._col, self._end_line, self._end_col, message,
                         ".".join(self.path))
+
+
+class Lines:
+    """Where each line of a text starts, made when first needed: 1-based line and column of a
+    character offset as libyaml's marks give them, for a text libyaml has read whole."""
+
+    __slots__ = ("text", "starts")
+
+    def __init__(self, text: str):
+        self.text = text
+        self.starts: list[int] | None = None
+
+    def span(self, start: int, end: int) -> tuple[int, int, int, int]:
+        """(line, column, end line, end column) of two offsets (``start`` <= ``end``)."""
+        starts = self.starts
+        if starts is None:
+            # str.splitlines breaks lines where libyaml does ("\r\n" is one break; "\r", "\n", NEL,
+            # LS and PS alone are one each) and also at the control characters libyaml refuses
+            # (\v, \f, \x1c to \x1e), which a text it has read does not hold
+            text = self.text
+            starts = self.starts = [0]
+            starts += accumulate(map(len, text.splitlines(True)))
+            if text and text[-1] not in LINE_BREAKS:
+                starts.pop()  # the end of the text, not the start of a line
+        i = bisect_right(starts, start) - 1
+        j = bisect_right(starts, end, i) - 1
+        return i + 1, start - starts[i] + 1, j + 1, end - starts[j] + 1
+
+
+LINE_BREAKS = ("\r", "\n", "\x85", "\u2028", "\u2029")  # libyaml's
 
 
 class Scalar(Node):
@@ -42,6 +132,7 @@ class Scalar(Node):
         self.style = style  # None (plain), "'", '"', "|", ">"
         self.tag = tag  # explicit tag or None
         self._v11 = self._v12 = _UNSET
+        self.lines = None
 
     @property
     def plain(self) -> bool:
@@ -81,6 +172,7 @@ class Mapping(Node):
         # explicit keys override, as YAML loaders that implement merges do.
         self.merged: list[tuple[Node, Node, Node]] = []
         self._index: dict | None = None
+        self.lines = None
 
     def entries(self) -> Iterator[tuple[str, Node, Node, Node | None]]:
         """(key text, key node, value node, merge-key node or None) in the order written.
@@ -120,6 +212,7 @@ class Sequence(Node):
 
     def __init__(self):
         self.items: list[Node] = []
+        self.lines = None
 
     def __repr__(self) -> str:
         return f"Sequence({len(self.items)}@{self.line}:{self.col})"
