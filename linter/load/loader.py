@@ -703,14 +703,14 @@ def _c_parser_module(parser):
 
 
 class _Frame:
-    """A collection being built from events: its node, key path and depth, and for a mapping the
-    key waiting for its value and the first node of each key name (duplicates)."""
-    __slots__ = ("node", "path", "depth", "is_map", "flow", "key", "name", "first", "owner")
+    """A collection being built from events: its node and key path, and for a mapping the key
+    waiting for its value and the first node of each key name (duplicates). A node's depth is the
+    number of frames open above it."""
+    __slots__ = ("node", "path", "is_map", "flow", "key", "name", "first", "owner")
 
-    def __init__(self, node, path: tuple, depth: int, is_map: bool, flow: bool, owner: str | None = None):
+    def __init__(self, node, path: tuple, is_map: bool, flow: bool, owner: str | None = None):
         self.node = node
         self.path = path
-        self.depth = depth
         self.is_map = is_map
         self.flow = flow
         self.key: Node | None = None
@@ -805,12 +805,11 @@ class _EventBuilder(_Builder):
                 if anchor is not None:
                     self._anchor(anchor, None, sm, composer_error)
                 if cls is not scalar_ev:
-                    stack.append(_Frame(None, (), 0, False, False))
+                    stack.append(_Frame(None, (), False, False))
                 continue
-            # where the new node goes: its key path, depth and role
+            # where the new node goes: its key path and role
             if stack:
                 parent = stack[-1]
-                depth = parent.depth + 1
                 if parent.is_map:
                     if parent.key is None:
                         path, role = parent.path, "key" if parent.flow else ""
@@ -820,7 +819,7 @@ class _EventBuilder(_Builder):
                 else:
                     path, role = parent.path + (str(len(parent.node.items)),), ""
             else:
-                path, depth, role = (), 0, ""
+                path, role = (), ""
             if cls is alias_ev:
                 hit = self.anchors.get(anchor)
                 if hit is None:
@@ -840,13 +839,13 @@ class _EventBuilder(_Builder):
                         keyed.append((parent.name, target))
                 self._attach(target, stack, roots)
                 continue
-            if depth > max_depth:
+            if len(stack) > max_depth:  # its depth
                 self._stop_at("depth", f"nests deeper than {max_depth} levels (setting limits.max_depth)",
                               sm.line + 1, sm.column + 1)
                 if anchor is not None:
                     self._anchor(anchor, None, sm, composer_error)
                 if cls is not scalar_ev:
-                    stack.append(_Frame(None, (), 0, False, False))
+                    stack.append(_Frame(None, (), False, False))
                 continue
             if cls is scalar_ev:
                 # perf: Scalar.__init__ inline (a call per scalar, the most common node)
@@ -914,7 +913,7 @@ class _EventBuilder(_Builder):
                 coll.lines = None
             if anchor is not None:
                 self._anchor(anchor, coll, sm, composer_error)
-            frame.node, frame.path, frame.depth, frame.flow = coll, path, depth, bool(flow)
+            frame.node, frame.path, frame.flow = coll, path, bool(flow)
             if not stack:
                 frame.owner = ""
             elif parent.owner is None or not parent.is_map:
