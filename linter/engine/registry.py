@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import re
 from types import ModuleType
-from typing import Any, Callable, Iterable, Iterator, Union
+from typing import AbstractSet, Any, Callable, Iterable, Iterator, Sequence, Union
 
 from ..common.record import FrozenRecord
 from ..load.document import Document
@@ -281,7 +281,8 @@ def validate_concept(c: Any) -> Concept:
 
 
 class Context:
-    """What a rule sees: the run (or, for set rules, all runs), its document, its options."""
+    """What a rule sees: the run (or, for set rules, all runs), its document, its options. One
+    Context serves the rules of a scope on one run in turn (``run_rules``)."""
 
     def __init__(self, rule: Rule, model: RunModel | None, doc: Document | None, options: dict,
                  level: Level, runs: Iterable | None = None, settings: Any = None):
@@ -542,27 +543,51 @@ def crash_finding(rule: Rule, path: str | None, exc: BaseException) -> Finding:
 
 
 def run_rule(rule: Rule, ctx: Context, path: str | None) -> tuple[list[Finding], bool]:
-    """(findings, crashed). A rule that asked for a concept whose value is known only at launch
-    (``RunModel.unknown``), or is written with a shape trimtab cannot use (``RunModel.unusable``),
-    reports nothing on that run: its answer would rest on a guess (the run's CMP-9 note says what
-    is unknown, VOC-2 what cannot be used)."""
-    # perf: most rule runs find nothing (1,769 of 141,758 on the 2,000-file benchmark corpus): the
-    # findings are gathered by a plain loop, with no comprehension to make and call each time
-    try:
-        model = ctx.model
-        guarded = model is not None and bool(model.unknown or model.unusable)
-        if guarded:
-            model.touched = set()
-        out = rule.check(ctx)
-        found: list[Finding] = []
-        if out:
-            for f in out:
-                found.append(f.finish())
-        if guarded and model.touched and rule.id not in ("CMP-9", "VOC-2"):
-            return [], False
-        return found, False
-    except Exception as exc:
-        return [crash_finding(rule, path, exc)], True
+    """(findings, crashed) of one rule (``run_rules``)."""
+    found: list[Finding] = []
+    crashed = run_rules([(rule, ctx.options, ctx.level, frozenset())], ctx, path, found)
+    return found, crashed
+
+
+def run_rules(rules: Sequence[tuple[Rule, dict, Level, AbstractSet[str]]], ctx: Context, path: str | None,
+              findings: list[Finding], live: AbstractSet[str] | None = None) -> bool:
+    """Run each rule of ``rules`` ((rule, options, level, needs), in order) with ``ctx``, adding its
+    findings to ``findings``; True when one crashed. ``ctx`` serves the rules in turn: each is given
+    it with its own rule, options and level, and runs to its end before the next (a rule must not
+    keep its context). ``live`` (a run's rules: ``RunModel.live``): a rule is skipped unless every
+    concept it needs is there.
+
+    A rule that asked for a concept whose value is known only at launch (``RunModel.unknown``), or
+    is written with a shape trimtab cannot use (``RunModel.unusable``), reports nothing on that run:
+    its answer would rest on a guess (the run's CMP-9 note says what is unknown, VOC-2 what cannot
+    be used). A rule that raises reports only that it crashed (TOOL-1).
+
+    perf: most rule runs find nothing (1,769 of 141,758 on the 2,000-file benchmark corpus): one
+    loop for the rules of a scope, with no call or Context a rule, no comprehension to gather its
+    findings, and its needs one set test: the rules stage 537 to 473 million instructions over 200
+    files of that corpus."""
+    model = ctx.model
+    guarded = model is not None and bool(model.unknown or model.unusable)
+    crashed = False
+    for r, opts, level, needs in rules:
+        if live is not None and not needs <= live:
+            continue
+        ctx.rule, ctx.options, ctx.level = r, opts, level
+        start = len(findings)
+        try:
+            if guarded:
+                model.touched = set()
+            out = r.check(ctx)
+            if out:
+                for f in out:
+                    findings.append(f.finish())
+                if guarded and model.touched and r.id not in ("CMP-9", "VOC-2"):
+                    del findings[start:]
+        except Exception as exc:
+            del findings[start:]
+            findings.append(crash_finding(r, path, exc))
+            crashed = True
+    return crashed
 
 
 def iter_rules(rules: Iterable[Rule], scope: str) -> Iterator[Rule]:
