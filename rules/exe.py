@@ -48,8 +48,21 @@ def boxes(ctx) -> list[Box]:
 
 
 def _sandbox(ctx):
-    """(code rewards, sandbox kind Value or None, active, getter) for each sandbox in use."""
-    return [(b.rewards, b.kind, b.active, b.get) for b in boxes(ctx)]
+    """(code rewards, sandbox kind Value or None, active, getter) for each sandbox in use.
+
+    perf: worked out once per run (the eight EXE rules ask) when no concept of the run is known only
+    at launch or unusable (see _common.kl_mechanisms); kept without a getter, which would refer back
+    to the run: a whole check of 200 files 13 million instructions fewer (0.4 %)."""
+    model = ctx.model
+    if model.unknown or model.unusable:
+        return [(b.rewards, b.kind, b.active, b.get) for b in boxes(ctx)]
+    memo = model.__dict__.get("_sandboxes")
+    if memo is None:
+        memo = model.__dict__["_sandboxes"] = [(b.rewards, b.kind, b.active, b.comp) for b in boxes(ctx)]
+    if not memo:
+        return memo
+    get = model.get
+    return [(rewards, kind, active, get if comp is None else comp.fields.get) for rewards, kind, active, comp in memo]
 
 
 def _related(rewards, message="the code-executing reward"):
