@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import codecs
 import contextlib
+import functools
 import gc
 import os
 import stat
@@ -692,14 +693,21 @@ def _light_events(parser):
 def _c_parser_module(parser):
     """PyYAML's C extension module when ``parser`` is its libyaml parser (the module whose event
     classes it makes), else None."""
+    module = _pyyaml()[0]
+    return module if module is not None and isinstance(parser, module.CParser) else None
+
+
+@functools.lru_cache(maxsize=1)
+def _pyyaml() -> tuple[Any, type]:
+    """(PyYAML's C extension module, or None where it is absent or names its events otherwise; the
+    composer's error). perf: looked up once, not by import statements run for every file."""
     import yaml
+    from yaml.composer import ComposerError
 
     module = getattr(yaml, "_yaml", None) if getattr(yaml, "__with_libyaml__", False) else None
-    if module is None or not isinstance(parser, module.CParser):
-        return None
-    if not all(isinstance(getattr(module, name, None), type) for name in _EVENT_FIELDS):
-        return None  # a PyYAML whose C parser names its events otherwise: convert them instead
-    return module
+    if module is not None and not all(isinstance(getattr(module, name, None), type) for name in _EVENT_FIELDS):
+        module = None  # a PyYAML whose C parser names its events otherwise: convert them instead
+    return module, ComposerError
 
 
 class _Frame:
@@ -739,10 +747,8 @@ class _EventBuilder(_Builder):
         self.whole = True  # False: Document.keyed cannot be made (an alias of a list)
 
     def run(self, parser) -> list[Node]:
-        from yaml.composer import ComposerError
-
         with _light_events(parser) as get:
-            return self._run(get, ComposerError)
+            return self._run(get, _pyyaml()[1])
 
     def _run(self, get, composer_error) -> list[Node]:
         limits, shown = self.limits, self.doc.path
