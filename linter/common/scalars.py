@@ -244,14 +244,29 @@ _EXPLICIT = {
 _TYPED: dict[tuple, object] = {}
 _TYPED_TEXT = 64
 _TYPED_SIZE = 8192
+# perf: a plain untagged scalar (nearly every one) is kept by its text alone, one table per reader
+_PLAIN: dict[str, dict[str, object]] = {version: {} for version in READERS}
 
 
 def typed(text: str, plain: bool, tag: str | None, version: str):
     """Type a scalar. Quoted and block scalars are strings unless explicitly tagged;
     an explicit standard tag types the text as that tag. An integer of MAX_INT or more stays text
     (the loader reports it) rather than stopping the check."""
-    if not plain and tag is None:
-        return text
+    if tag is None:
+        if not plain:
+            return text
+        memo = _PLAIN.get(version)
+        if memo is not None and len(text) <= _TYPED_TEXT:
+            hit = memo.get(text, memo)
+            if hit is memo:
+                try:
+                    hit = _typed(text, True, None, version)
+                except ValueError:
+                    hit = text
+                if len(memo) >= _TYPED_SIZE:
+                    memo.clear()
+                memo[text] = hit
+            return hit
     key = (text, plain, tag, version) if len(text) <= _TYPED_TEXT else None
     if key is not None:
         hit = _TYPED.get(key, _TYPED)

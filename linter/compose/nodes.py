@@ -86,6 +86,10 @@ class Unresolved(Scalar):
     def value12(self):
         return None
 
+    def value(self, version: str = "1.2"):
+        # Scalar.value reads the two YAML versions' caches itself (perf), not through these properties
+        return None if version == "1.1" or version == "1.2" else Scalar.value(self, version)
+
 
 class Unknown(Unresolved):
     """A value known only at launch (a launch script's command substitution, a resolver): no value,
