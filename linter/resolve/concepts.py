@@ -64,6 +64,9 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     words = _WORDS
     if len(words) >= _MEMO_SIZE:
         words.clear()
+    if _LEAVES_OF[0] != len(CONCEPTS):  # a plugin declared a concept since the leaves were found
+        _LEAVES.clear()
+        _LEAVES_OF[0] = len(CONCEPTS)
     sections_found = _sections(root, chains, native, words)
     taken: set[int] = set()
     mapped = set()
@@ -80,10 +83,10 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
     # key's words and a section's context are worked out once per process (runs repeat them from
     # file to file), and a section's only for one holding an alias
     misshapen: dict[str, list[tuple[int, tuple, Node, str]]] = {}
-    for section, entries in sections_found:
+    for section, entries, section_kl in sections_found:
         context = None
-        for path, node, leaf, aliases, kl_words in entries:
-            if id(node) in taken:
+        for path, node, known in entries:
+            if taken and id(node) in taken:
                 continue
             if context is None:
                 context = _context(section, sources_key)
@@ -92,9 +95,10 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                 break  # a reward-sources list: its keys are a component's fields (every entry)
             # perf: what the section makes of each of the key's aliases (_decide) is worked out once
             # per key and section context, not once per key written (~40% fewer alias checks)
+            leaf = known[0]
             decided = decided_here.get(leaf)
             if decided is None:
-                decided = decided_here[leaf] = _decide(aliases, context)
+                decided = decided_here[leaf] = _decide(known[1], context)
             matched = False
             if decided:
                 shaped = isinstance(node, (Mapping, Sequence))  # perf: a scalar fits any concept's shape
@@ -120,7 +124,7 @@ def resolve(doc: Document, root: Node, opts: ResolveOptions, index: int = 0) -> 
                         continue
                     candidates.setdefault(concept, []).append((strength, path, node))
                     matched = True
-            if not matched and kl_words and context[2] is None:
+            if not matched and (known[2] or section_kl) and context[2] is None:
                 _by_words(leaf, path, node, context[1], candidates, mapped, model.reader(node)[0])
     for concept in CONCEPTS:
         if concept in mapped or concept in model.values:
@@ -234,23 +238,22 @@ def _names_sources(section: tuple) -> bool:
     return False
 
 
-def _sections(root: Node, chains: dict, native: dict, words: dict) -> list[tuple[tuple, list]]:
-    """(section path, [(key path, node, leaf, aliases, kl)...]) for every mapping, its entries in
-    order, sections included, keeping only the entries whose key may name a concept: one with an
-    alias (``aliases``, from ALIASES by the normalised key ``leaf``) or a KL word in its name or its
-    section's (``kl``). Each section is walked once per path it is reached by, within
-    REVISIT_BUDGET; cycles are never followed. Filled on the way, from every entry: ``chains`` (key
-    path -> the related locations of the hops that brought the entry to this path, when there are
-    any: a ``<<`` merge key, or the key whose value is an alias of a node written elsewhere; a key
-    path is reached one way only), ``native`` (a dotted key path that is a concept's own name -> the
-    last entry written there) and ``words`` (a key as written -> (leaf, aliases, KL word in it))."""
+def _sections(root: Node, chains: dict, native: dict, words: dict) -> list[tuple[tuple, list, bool]]:
+    """(section path, [(key path, node, known)...], KL word in the section's name) for every
+    mapping, its entries in order, sections included, keeping only the entries whose key may name a
+    concept: one with an alias or a KL word in its name or its section's (``known``: the key's
+    (leaf, aliases, KL word in it, either), see ``_word``). Each section is walked once per path it
+    is reached by, within REVISIT_BUDGET; cycles are never followed. Filled on the way, from every
+    entry: ``chains`` (key path -> the related locations of the hops that brought the entry to this
+    path, when there are any: a ``<<`` merge key, or the key whose value is an alias of a node
+    written elsewhere; a key path is reached one way only), ``native`` (a dotted key path that is a
+    concept's own name -> the last entry written there) and ``words`` (a key as written -> known)."""
     seen: set[int] = set()
     budget = REVISIT_BUDGET
-    heads = _NATIVE_HEADS
-    out: list[tuple[tuple, list]] = []
-    stack: list[tuple[tuple, Node, tuple, frozenset]] = [((), root, (), frozenset())]
+    out: list[tuple[tuple, list, bool]] = []
+    stack: list[tuple[tuple, Node, tuple, frozenset, bool]] = [((), root, (), frozenset(), False)]
     while stack:
-        path, node, chain, above = stack.pop()
+        path, node, chain, above, section_kl = stack.pop()
         if id(node) in seen:
             if budget <= 0 or id(node) in above:
                 continue
@@ -259,63 +262,81 @@ def _sections(root: Node, chains: dict, native: dict, words: dict) -> list[tuple
         if isinstance(node, Mapping):
             inner: frozenset | None = None  # the mappings above the sections below (made for a section that has any)
             entries = []
-            section_kl = bool(path) and "kl" in path[-1].lower()
-            # a key path that may be a concept's own dotted name: one in a section whose first key is a
-            # concept's first word or holds a dot (for a top-level key: the key itself)
-            native_here = None if not path else path[0] in heads or "." in path[0]
+            # perf: the keys of this section whose key path is a concept's own dotted name, once per
+            # section path (not a dotted name joined and looked up for every key; with the kept
+            # entries handed on as they are, 0.25% fewer instructions a check)
+            leaves = _LEAVES.get(path)
+            if leaves is None:
+                leaves = _native_leaves(path)
             merge_key = None  # perf: the hops of the entries one '<<' brings in, made once (not per entry)
             merged: tuple = ()
             for name, k, v, via in node.entries():
-                hops: tuple = chain
                 if via is not None:
                     if via is not merge_key:
                         merge_key = via
                         merged = chain + (via.location(f"merged into {'.'.join(path) or 'the top level'} by '<<' here"),)
                     hops = merged
                 elif v.anchor and isinstance(k, Scalar) and k.path == path and v.path != path + (name,):
-                    hops = hops + (k.location(f"{'.'.join(path + (name,))} is an alias of "
-                                              f"{'.'.join(v.path) or 'the top level'}"),)
+                    hops = chain + (k.location(f"{'.'.join(path + (name,))} is an alias of "
+                                               f"{'.'.join(v.path) or 'the top level'}"),)
+                else:
+                    hops = chain
                 known = words.get(name)
                 if known is None:  # perf: _word, inline
-                    leaf = normalise_key(name)
-                    known = words[name] = (leaf, ALIASES.get(leaf, ()), "kl" in leaf)
-                wanted = known[1] or known[2] or section_kl
-                is_section = isinstance(v, Mapping)
-                native_key = native_here if native_here is not None else name in heads or "." in name
-                if not (hops or wanted or is_section or native_key):
-                    continue  # perf: most entries: nothing to keep, no key path made
-                p = path + (name,)
-                if hops:
-                    chains[p] = hops
-                if native_key:
-                    dotted = ".".join(p)
-                    if dotted in CONCEPTS:
-                        native[dotted] = (p, v)
-                if is_section:  # the sections below (the last one is walked first)
+                    known = words[name] = _known(name)
+                if isinstance(v, Mapping):  # the sections below (the last one is walked first)
+                    p = path + (name,)
                     if inner is None:
                         inner = above | {id(node)}
-                    stack.append((p, v, hops, inner))
-                if wanted:
-                    entries.append((p, v, known[0], known[1], known[2] or section_kl))
+                    stack.append((p, v, hops, inner, known[2]))
+                elif known[3] or section_kl or hops or name in leaves:
+                    p = path + (name,)
+                else:
+                    continue  # perf: most entries: nothing to keep, no key path made
+                if hops:
+                    chains[p] = hops
+                if name in leaves:
+                    native[".".join(p)] = (p, v)
+                if known[3] or section_kl:
+                    entries.append((p, v, known))
             if entries:
-                out.append((path, entries))
+                out.append((path, entries, section_kl))
     return out
 
 
 # perf: answers kept across files (runs repeat their keys and sections), bounded: emptied when full,
 # so memory stays flat over any number of files
 _MEMO_SIZE = 4096
-_WORDS: dict[str, tuple[str, tuple, bool]] = {}  # a key as written -> (normalised, aliases, a KL word in it)
+_WORDS: dict[str, tuple[str, tuple, bool, bool]] = {}  # a key as written -> _known
 _CONTEXTS: dict[tuple, tuple] = {}  # (section, reward-sources key path) -> _context
+_LEAVES: dict[tuple, frozenset[str]] = {}  # a section's key path -> _native_leaves
+_LEAVES_OF = [0]  # how many concepts there were when _LEAVES was filled
 
 
-def _word(name: str) -> tuple[str, tuple, bool]:
-    """(the normalised key, its aliases, whether it holds a KL word) of a key as written, memoised."""
+def _known(name: str) -> tuple[str, tuple, bool, bool]:
+    """(the normalised key, its aliases, whether it holds a KL word, whether it has either) of a key
+    as written."""
+    leaf = normalise_key(name)
+    aliases = ALIASES.get(leaf, ())
+    return leaf, aliases, "kl" in leaf, bool(aliases) or "kl" in leaf
+
+
+def _word(name: str) -> tuple[str, tuple, bool, bool]:
+    """``_known`` of a key as written, memoised."""
     known = _WORDS.get(name)
     if known is None:
-        leaf = normalise_key(name)
-        known = _WORDS[name] = (leaf, ALIASES.get(leaf, ()), "kl" in leaf)
+        known = _WORDS[name] = _known(name)
     return known
+
+
+def _native_leaves(section: tuple) -> frozenset[str]:
+    """The keys of ``section`` whose dotted key path is a concept's own name (a key written with dots
+    in its name included), memoised."""
+    if len(_LEAVES) >= _MEMO_SIZE:
+        _LEAVES.clear()
+    prefix = ".".join(section) + "." if section else ""
+    found = _LEAVES[section] = frozenset(c[len(prefix):] for c in CONCEPTS if c.startswith(prefix))
+    return found
 
 
 def _context(section: tuple, sources_key: tuple | None
@@ -358,10 +379,6 @@ def _decide(aliases: tuple, context: tuple) -> tuple[tuple[str, int | None], ...
         else:
             out.append((concept, 2 if alias.under else 1))
     return tuple(out)
-
-
-# The first word of every concept's dotted name: a key path of the native layout starts with one.
-_NATIVE_HEADS = frozenset(c.split(".", 1)[0] for c in CONCEPTS)
 
 
 def _at(root: Node, key: str) -> Node | None:
