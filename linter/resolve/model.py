@@ -32,6 +32,9 @@ class Value(Record):
     note: str  # how it was read or converted ("x group size 8")
     raw: Any  # the value as written, before unit conversion
     unit: Any  # for a batch count: the unit it is written in, when the key map states it (arithmetic.Unit)
+    # a derived value without a location of its own: where it is placed, its first stated input's
+    # Value (or the file's path), read when its location is first asked for (arithmetic.settle)
+    at: Any = None
 
     def __init__(
             self, concept: str, value: Any, location: Location | None, node: Node | None = None, via: str = "",
@@ -62,13 +65,17 @@ class Value(Record):
     def location(self) -> Location:
         """Where the value was written (the command line: path None)."""
         loc = self._location
-        if loc is None and self.node is not None:
-            # perf: made on first read: resolve stores some 64,000 values on the benchmark corpus
-            # and the rules read the place of few of them (0.3 s of Location objects saved)
-            loc = self.node.location()
-            if self._keyed and loc.key_path != self.key:
-                loc = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, self.key)
-            self._location = loc
+        if loc is None:
+            if self.node is not None:
+                # perf: made on first read: resolve stores some 64,000 values on the benchmark corpus
+                # and the rules read the place of few of them (0.3 s of Location objects saved)
+                loc = self.node.location()
+                if self._keyed and loc.key_path != self.key:
+                    loc = Location(loc.path, loc.line, loc.col, loc.end_line, loc.end_col, loc.message, self.key)
+                self._location = loc
+            elif self.at is not None:
+                at = self.at
+                loc = self._location = at.location if isinstance(at, Value) else Location(at)
         return loc  # type: ignore[return-value]  # None only when given None without a node
 
     @location.setter
