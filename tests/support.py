@@ -68,6 +68,31 @@ kl:
 """
 
 
+def composed_nodes(roots) -> list:
+    """Every node of PyYAML's composed graphs once (an alias is its target, met once), keys and
+    values, in document order: the reference tests read PyYAML's marks from."""
+    import yaml
+
+    out, seen = [], set()
+
+    def visit(n):
+        if id(n) in seen:
+            return
+        seen.add(id(n))
+        out.append(n)
+        if isinstance(n, yaml.MappingNode):
+            for k, v in n.value:
+                visit(k)
+                visit(v)
+        elif isinstance(n, yaml.SequenceNode):
+            for v in n.value:
+                visit(v)
+
+    for root in roots:
+        visit(root)
+    return out
+
+
 def run_repo(tmp_path: Path) -> Path:
     """A repository (a bare ``.git`` folder) holding ``run.yaml`` = ``RUN_CONFIG``."""
     (tmp_path / ".git").mkdir()

@@ -8,7 +8,7 @@ from __future__ import annotations
 import pytest
 import yaml
 
-from support import shared_path
+from support import composed_nodes, shared_path
 from trimtab.load import loader
 from trimtab.load.document import Document, Lines, Mapping, Scalar, Sequence, walk
 
@@ -52,27 +52,9 @@ def _texts() -> list[str]:
 
 def _marks(text: str) -> list[tuple]:
     """(kind, line, col, end line, end col, start, end) of every node, as PyYAML's C composer marks it."""
-    out, seen = [], set()
     roots = [r for r in yaml.compose_all(text, Loader=yaml.CSafeLoader) if r is not None]
-
-    def visit(n):
-        if id(n) in seen:
-            return
-        seen.add(id(n))
-        sm, em = n.start_mark, n.end_mark
-        out.append((type(n).__name__[0], sm.line + 1, sm.column + 1, em.line + 1, em.column + 1, sm.index,
-                    em.index))
-        if isinstance(n, yaml.MappingNode):
-            for k, v in n.value:
-                visit(k)
-                visit(v)
-        elif isinstance(n, yaml.SequenceNode):
-            for v in n.value:
-                visit(v)
-
-    for root in roots:
-        visit(root)
-    return out
+    return [(type(n).__name__[0], n.start_mark.line + 1, n.start_mark.column + 1, n.end_mark.line + 1,
+             n.end_mark.column + 1, n.start_mark.index, n.end_mark.index) for n in composed_nodes(roots)]
 
 
 def _positions(doc: Document) -> list[tuple]:
