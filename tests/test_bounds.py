@@ -434,3 +434,25 @@ def test_heavy_files_past_the_default_size_are_refused_at_once(repo, shape):
     r = check(repo / "run.yaml", cwd=repo, seconds=30)
     [f] = r.of("YML-5")
     assert "larger than the size limit of 4194304 bytes" in f["message"], f
+
+
+def test_the_template_samples_memo_keeps_neither_long_texts_nor_more_than_its_count():
+    """The sample answers of a template are kept across runs (rules/reward.py, _samples), within
+    bounds: a template longer than the memo's text limit is worked out each time and not kept, and
+    the memo never holds more than 256 templates, whatever the repository holds."""
+    from types import SimpleNamespace
+
+    from trimtab_rules import reward
+
+    def ctx(text):
+        value = SimpleNamespace(value=text)
+        return SimpleNamespace(model=SimpleNamespace(get=lambda c: value if c == "template.text" else None))
+
+    reward._SAMPLES.clear()
+    long = "<answer>" + "x" * (reward._SAMPLES_TEXT + 1) + "</answer>"
+    assert reward._samples(ctx(long)) == tuple(reward.sample_answers(long))
+    assert long not in reward._SAMPLES
+    for i in range(600):
+        text = f"<think>{i}</think><answer>{i}</answer>"
+        assert reward._samples(ctx(text)) == tuple(reward.sample_answers(text))
+        assert len(reward._SAMPLES) <= 256
